@@ -1,0 +1,386 @@
+"""Settings: one TOML file, read once at the edge, validated into frozen objects in real units.
+
+Where the file comes from: ``--config FILE``, else ``$FITWATCH_CONFIG``, else ``fitwatch.toml``
+in the working directory, else built-in defaults. An unknown key or a value of the wrong type is a
+:class:`~monitor.errors.ConfigError` naming the key and the file.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field, fields, replace
+from datetime import timedelta
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from monitor.errors import ConfigError
+
+DEFAULT_FILE = "fitwatch.toml"
+ENV_VAR = "FITWATCH_CONFIG"
+STATUSES = ("ok", "watch", "refit")
+MAX_PREDICTORS = 8
+
+
+@dataclass(frozen=True)
+class CheckSettings:
+    """How a day check scores and decides (SPEC §3, §11)."""
+
+    level: float = 0.95
+    coverage_window_days: int = 14
+    test_window_days: int = 28
+    cusum_k: float = 0.5
+    cusum_arl_days: float = 1000.0
+    cusum_guarantee: float = 0.90
+    cusum_unit: str = "day"
+    refit_pvalue: float = 0.001
+    watch_pvalue: float = 0.01
+    watch_cusum_fraction: float = 0.5
+    day_effects_alpha: float = 0.05
+    min_fit_days: int = 5
+
+
+@dataclass(frozen=True)
+class SmtpSettings:
+    host: str = "localhost"
+    port: int = 587
+    security: str = "starttls"
+    username: str = ""
+    password_env: str = "FITWATCH_SMTP_PASSWORD"
+    password_file: str = ""
+    timeout_seconds: float = 30.0
+
+
+@dataclass(frozen=True)
+class AlertSettings:
+    to: tuple[str, ...] = ()
+    sender: str = "fitwatch@localhost"
+    on: tuple[str, ...] = ("refit", "watch")
+    remind_every_days: int = 3
+    eml_dir: str = "outbox"
+    smtp: SmtpSettings | None = None
+
+
+@dataclass(frozen=True)
+class ScheduleSettings:
+    cron: str = "30 2 * * *"
+    timezone: ZoneInfo = field(default_factory=lambda: ZoneInfo("UTC"))
+
+
+@dataclass(frozen=True)
+class IngestSettings:
+    """Row validation and reading (SPEC §5)."""
+
+    future_tolerance: timedelta = timedelta(minutes=5)
+    chunk_rows: int = 200_000
+    inbox: str = ""
+
+
+@dataclass(frozen=True)
+class Wording:
+    """How reasons name things: 'each pallet now adds 2.6 min', '71 % of yesterday's loads'."""
+
+    row: str = "row"
+    rows: str = "rows"
+    y_unit: str = ""
+    x_units: Mapping[str, str] = field(default_factory=dict)
+
+    def x_unit(self, column: str) -> str:
+        return self.x_units.get(column, f"unit of {column}")
+
+
+@dataclass(frozen=True)
+class ModelSettings:
+    """Settings of one model: the global ones with its ``[models.NAME]`` overrides applied."""
+
+    check: CheckSettings
+    alerts: AlertSettings
+    ranges: Mapping[str, tuple[float, float]]
+    words: Wording
+
+
+@dataclass(frozen=True)
+class Settings:
+    database_url: str = "sqlite:///fitwatch.db"
+    schedule: ScheduleSettings = field(default_factory=ScheduleSettings)
+    check: CheckSettings = field(default_factory=CheckSettings)
+    alerts: AlertSettings = field(default_factory=AlertSettings)
+    ingest: IngestSettings = field(default_factory=IngestSettings)
+    models: Mapping[str, ModelSettings] = field(default_factory=dict)
+    source: str | None = None
+
+    @property
+    def timezone(self) -> ZoneInfo:
+        return self.schedule.timezone
+
+    def for_model(self, name: str) -> ModelSettings:
+        if name in self.models:
+            return self.models[name]
+        return ModelSettings(self.check, self.alerts, {}, Wording())
+
+    def with_database(self, url: str | None) -> Settings:
+        return self if not url else replace(self, database_url=url)
+
+
+# loading --------------------------------------------------------------------------------------
+def find_config(explicit: str | os.PathLike[str] | None = None,
+                environ: Mapping[str, str] | None = None,
+                cwd: Path | None = None) -> Path | None:
+    """The configuration file to read, by the documented order of precedence, or None."""
+    env = os.environ if environ is None else environ
+    if explicit:
+        path = Path(explicit)
+        if not path.is_file():
+            raise ConfigError(f"configuration file {path} does not exist")
+        return path
+    if env.get(ENV_VAR):
+        path = Path(env[ENV_VAR])
+        if not path.is_file():
+            raise ConfigError(f"{ENV_VAR} points at {path}, which does not exist")
+        return path
+    candidate = (cwd or Path.cwd()) / DEFAULT_FILE
+    return candidate if candidate.is_file() else None
+
+
+def load_settings(explicit: str | os.PathLike[str] | None = None,
+                  environ: Mapping[str, str] | None = None,
+                  cwd: Path | None = None) -> Settings:
+    path = find_config(explicit, environ, cwd)
+    if path is None:
+        return Settings()
+    try:
+        with path.open("rb") as fh:
+            data = tomllib.load(fh)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML: {exc}", source=str(path)) from exc
+    except OSError as exc:
+        raise ConfigError(f"cannot read: {exc.strerror}", source=str(path)) from exc
+    return parse_settings(data, str(path))
+
+
+def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Settings:
+    """Validate a parsed TOML document into :class:`Settings`."""
+    r = _Reader(source)
+    top = r.table(data, "", {"database", "schedule", "check", "alerts", "ingest", "models"})
+    db = r.table(top.get("database", {}), "database", {"url"})
+    url = r.string(db, "database.url", Settings.database_url, non_empty=True)
+
+    sch = r.table(top.get("schedule", {}), "schedule", {"cron", "timezone"})
+    cron = r.string(sch, "schedule.cron", ScheduleSettings.cron, non_empty=True)
+    _check_cron(cron, r, "schedule.cron")
+    schedule = ScheduleSettings(cron=cron, timezone=r.zone(sch, "schedule.timezone", "UTC"))
+
+    check = _check_settings(r, top.get("check", {}), "check", CheckSettings())
+    alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
+
+    ing = r.table(top.get("ingest", {}), "ingest",
+                  {"future_tolerance_minutes", "chunk_rows", "inbox"})
+    tolerance = r.number(ing, "ingest.future_tolerance_minutes", 5.0, low=0.0)
+    ingest = IngestSettings(
+        future_tolerance=timedelta(minutes=tolerance),
+        chunk_rows=r.integer(ing, "ingest.chunk_rows", 200_000, low=1000),
+        inbox=r.string(ing, "ingest.inbox", ""),
+    )
+
+    models: dict[str, ModelSettings] = {}
+    for name, section in r.table(top.get("models", {}), "models", None).items():
+        key = f"models.{name}"
+        sec = r.table(section, key, {"check", "alerts", "ranges", "words"})
+        ranges: dict[str, tuple[float, float]] = {}
+        for column, bounds in r.table(sec.get("ranges", {}), f"{key}.ranges", None).items():
+            ranges[column] = r.bounds(bounds, f"{key}.ranges.{column}")
+        wd = r.table(sec.get("words", {}), f"{key}.words", {"row", "rows", "y_unit", "x_units"})
+        row = r.string(wd, f"{key}.words.row", "row", non_empty=True)
+        units = r.table(wd.get("x_units", {}), f"{key}.words.x_units", None)
+        words = Wording(
+            row=row,
+            rows=r.string(wd, f"{key}.words.rows", row + "s", non_empty=True),
+            y_unit=r.string(wd, f"{key}.words.y_unit", ""),
+            x_units={c: r.string(units, f"{key}.words.x_units.{c}", "", non_empty=True)
+                     for c in units},
+        )
+        models[name] = ModelSettings(
+            check=_check_settings(r, sec.get("check", {}), f"{key}.check", check),
+            alerts=_alert_settings(r, sec.get("alerts", {}), f"{key}.alerts", alerts),
+            ranges=ranges, words=words,
+        )
+    return Settings(database_url=url, schedule=schedule, check=check, alerts=alerts,
+                    ingest=ingest, models=models, source=source)
+
+
+def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> CheckSettings:
+    names = {f.name for f in fields(CheckSettings)}
+    sec = r.table(raw, key, names)
+    values: dict[str, Any] = {}
+    for name in sec:
+        default = getattr(base, name)
+        full = f"{key}.{name}"
+        if name == "cusum_unit":
+            values[name] = r.choice(sec, full, default, ("day", "observation"))
+        elif isinstance(default, int) and not isinstance(default, bool):
+            values[name] = r.integer(sec, full, default, low=1)
+        else:
+            values[name] = r.number(sec, full, default, low=0.0)
+    out = replace(base, **values)
+    for name in ("level", "cusum_guarantee", "refit_pvalue", "watch_pvalue",
+                 "watch_cusum_fraction", "day_effects_alpha"):
+        value = getattr(out, name)
+        if not 0.0 < value < 1.0:
+            raise ConfigError(f"must lie strictly between 0 and 1; got {value}", source=r.source,
+                              key=f"{key}.{name}")
+    if out.cusum_arl_days < 10:
+        raise ConfigError(f"must be at least 10 days; got {out.cusum_arl_days}", source=r.source,
+                          key=f"{key}.cusum_arl_days")
+    if out.refit_pvalue > out.watch_pvalue:
+        raise ConfigError("refit_pvalue must not exceed watch_pvalue (refit is the stronger "
+                          "verdict)", source=r.source, key=f"{key}.refit_pvalue")
+    if out.coverage_window_days > 366 or out.test_window_days > 366:
+        raise ConfigError("windows longer than a year are not supported", source=r.source,
+                          key=key)
+    return out
+
+
+def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> AlertSettings:
+    sec = r.table(raw, key, {"to", "sender", "on", "remind_every_days", "eml_dir", "smtp"})
+    smtp = base.smtp
+    if "smtp" in sec:
+        s = r.table(sec["smtp"], f"{key}.smtp", {f.name for f in fields(SmtpSettings)})
+        d = SmtpSettings()
+        host = r.string(s, f"{key}.smtp.host", d.host, non_empty=True)
+        security = r.choice(s, f"{key}.smtp.security", d.security, ("starttls", "tls", "none"))
+        if security == "none" and host not in ("localhost", "127.0.0.1", "::1"):
+            raise ConfigError("security = \"none\" is only allowed for a loopback host "
+                              f"(got host {host!r}); use \"starttls\" or \"tls\"",
+                              source=r.source, key=f"{key}.smtp.security")
+        smtp = SmtpSettings(
+            host=host,
+            port=r.integer(s, f"{key}.smtp.port", d.port, low=1, high=65535),
+            security=security,
+            username=r.string(s, f"{key}.smtp.username", d.username),
+            password_env=r.string(s, f"{key}.smtp.password_env", d.password_env),
+            password_file=r.string(s, f"{key}.smtp.password_file", d.password_file),
+            timeout_seconds=r.number(s, f"{key}.smtp.timeout_seconds", d.timeout_seconds,
+                                     low=1.0),
+        )
+    to = r.strings(sec, f"{key}.to", base.to)
+    for address in to:
+        if not _EMAIL.fullmatch(address):
+            raise ConfigError(f"{address!r} is not an e-mail address", source=r.source,
+                              key=f"{key}.to")
+    sender = r.string(sec, f"{key}.sender", base.sender, non_empty=True)
+    on = r.strings(sec, f"{key}.on", base.on)
+    for status in on:
+        if status not in ("refit", "watch"):
+            raise ConfigError(f"unknown status {status!r}; use \"refit\" and/or \"watch\"",
+                              source=r.source, key=f"{key}.on")
+    return AlertSettings(
+        to=to, sender=sender, on=on,
+        remind_every_days=r.integer(sec, f"{key}.remind_every_days", base.remind_every_days,
+                                    low=1),
+        eml_dir=r.string(sec, f"{key}.eml_dir", base.eml_dir, non_empty=True), smtp=smtp)
+
+
+_EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
+_CRON_FIELD = re.compile(r"[\d*/,\-a-zA-Z]+")
+
+
+def _check_cron(cron: str, r: _Reader, key: str) -> None:
+    parts = cron.split()
+    if len(parts) != 5 or not all(_CRON_FIELD.fullmatch(p) for p in parts):
+        raise ConfigError(f"{cron!r} is not a five-field cron expression "
+                          "(minute hour day month weekday), e.g. \"30 2 * * *\"",
+                          source=r.source, key=key)
+
+
+class _Reader:
+    """Typed access to a parsed TOML table with messages naming the key and the file."""
+
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, key: str, message: str) -> ConfigError:
+        return ConfigError(message, source=self.source, key=key)
+
+    def table(self, raw: Any, key: str, allowed: set[str] | None) -> dict[str, Any]:
+        if not isinstance(raw, dict):
+            raise self.fail(key or "(top level)", f"expected a table, got {_kind(raw)}")
+        if allowed is not None:
+            unknown = sorted(set(raw) - allowed)
+            if unknown:
+                where = f"{key}.{unknown[0]}" if key else unknown[0]
+                raise self.fail(where, "unknown key; allowed here: " + ", ".join(sorted(allowed)))
+        return raw
+
+    def _get(self, table: Mapping[str, Any], key: str, default: Any,
+             ok: Callable[[Any], bool], expected: str) -> Any:
+        name = key.rsplit(".", 1)[-1]
+        if name not in table:
+            return default
+        value = table[name]
+        if not ok(value):
+            raise self.fail(key, f"expected {expected}, got {_kind(value)} {value!r}")
+        return value
+
+    def string(self, t: Mapping[str, Any], key: str, default: str, non_empty: bool = False) -> str:
+        value = self._get(t, key, default, lambda v: isinstance(v, str), "a string")
+        if non_empty and not value.strip():
+            raise self.fail(key, "must not be empty")
+        return value
+
+    def strings(self, t: Mapping[str, Any], key: str, default: tuple[str, ...]) -> tuple[str, ...]:
+        def ok(v: Any) -> bool:
+            return isinstance(v, list | tuple) and all(isinstance(s, str) for s in v)
+
+        value = self._get(t, key, default, ok, "a list of strings")
+        return tuple(value)
+
+    def choice(self, t: Mapping[str, Any], key: str, default: str, options: tuple[str, ...]) -> str:
+        value = self.string(t, key, default)
+        if value not in options:
+            raise self.fail(key, f"must be one of {', '.join(options)}; got {value!r}")
+        return value
+
+    def integer(self, t: Mapping[str, Any], key: str, default: int, low: int | None = None,
+                high: int | None = None) -> int:
+        value = self._get(t, key, default,
+                          lambda v: isinstance(v, int) and not isinstance(v, bool), "an integer")
+        if low is not None and value < low:
+            raise self.fail(key, f"must be at least {low}; got {value}")
+        if high is not None and value > high:
+            raise self.fail(key, f"must be at most {high}; got {value}")
+        return int(value)
+
+    def number(self, t: Mapping[str, Any], key: str, default: float,
+               low: float | None = None) -> float:
+        value = self._get(t, key, default,
+                          lambda v: isinstance(v, int | float) and not isinstance(v, bool),
+                          "a number")
+        if low is not None and value < low:
+            raise self.fail(key, f"must be at least {low:g}; got {value}")
+        return float(value)
+
+    def zone(self, t: Mapping[str, Any], key: str, default: str) -> ZoneInfo:
+        name = self.string(t, key, default, non_empty=True)
+        try:
+            return ZoneInfo(name)
+        except (ZoneInfoNotFoundError, ValueError) as exc:
+            raise self.fail(key, f"unknown time zone {name!r}; use an IANA name such as "
+                                 "\"Europe/Berlin\" or \"UTC\"") from exc
+
+    def bounds(self, raw: Any, key: str) -> tuple[float, float]:
+        ok = (isinstance(raw, list) and len(raw) == 2
+              and all(isinstance(v, int | float) and not isinstance(v, bool) for v in raw))
+        if not ok:
+            raise self.fail(key, f"expected [low, high], got {_kind(raw)} {raw!r}")
+        low, high = float(raw[0]), float(raw[1])
+        if not low < high:
+            raise self.fail(key, f"low must be below high; got [{low:g}, {high:g}]")
+        return low, high
+
+
+def _kind(value: Any) -> str:
+    return {bool: "a boolean", int: "an integer", float: "a number", str: "a string",
+            list: "a list", dict: "a table"}.get(type(value), type(value).__name__)

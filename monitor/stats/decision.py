@@ -1,0 +1,93 @@
+"""The decision: one day's evidence in, ``ok`` / ``watch`` / ``refit`` with its findings out.
+
+Default policy (SPEC §3.11): ``refit`` when the bias CUSUM signals, or the slope test has
+p < 0.001, or coverage is low at p < 0.001; ``watch`` when any signal has p < 0.01 or the
+CUSUM stands above h/2; otherwise ``ok``. A ``refit`` holds until a promotion or an
+acknowledgement (the caller says whether one is held). Findings carry the figures; turning
+them into sentences in the model's units is the job of :mod:`monitor.wording`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+OK, WATCH, REFIT = "ok", "watch", "refit"
+_RANK = {OK: 0, WATCH: 1, REFIT: 2}
+
+
+@dataclass(frozen=True)
+class Policy:
+    refit_pvalue: float = 0.001
+    watch_pvalue: float = 0.01
+    watch_cusum_fraction: float = 0.5
+
+    def __post_init__(self) -> None:
+        if not 0 < self.refit_pvalue <= self.watch_pvalue < 1:
+            raise ValueError("need 0 < refit_pvalue <= watch_pvalue < 1")
+        if not 0 < self.watch_cusum_fraction < 1:
+            raise ValueError("watch_cusum_fraction must lie in (0, 1)")
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """The signals of one day check; NaN where a signal could not be computed."""
+
+    coverage_pvalue_low: float
+    coverage_pvalue_high: float
+    cusum_upper: float
+    cusum_lower: float
+    cusum_h: float
+    slope_pvalue: float
+    spread_pvalue: float
+
+
+@dataclass(frozen=True)
+class Finding:
+    signal: str  # coverage | bias | slope | spread
+    level: str  # watch | refit
+    kind: str  # low | high | upper | lower | changed | wider
+
+
+@dataclass(frozen=True)
+class Verdict:
+    status: str
+    findings: tuple[Finding, ...]
+    held: bool  # a refit from an earlier day still stands
+
+    @property
+    def rank(self) -> int:
+        return _RANK[self.status]
+
+
+def _below(p: float, threshold: float) -> bool:
+    return not math.isnan(p) and p < threshold
+
+
+def decide(evidence: Evidence, policy: Policy = Policy(), *, refit_held: bool = False) -> Verdict:
+    """Status and findings for one day under ``policy``."""
+    found: list[Finding] = []
+
+    def by_p(signal: str, kind: str, p: float, refit_allowed: bool) -> None:
+        if refit_allowed and _below(p, policy.refit_pvalue):
+            found.append(Finding(signal, REFIT, kind))
+        elif _below(p, policy.watch_pvalue):
+            found.append(Finding(signal, WATCH, kind))
+
+    e = evidence
+    if e.cusum_upper > e.cusum_h or e.cusum_lower > e.cusum_h:
+        side = "upper" if e.cusum_upper >= e.cusum_lower else "lower"
+        found.append(Finding("bias", REFIT, side))
+    elif max(e.cusum_upper, e.cusum_lower) > policy.watch_cusum_fraction * e.cusum_h:
+        side = "upper" if e.cusum_upper >= e.cusum_lower else "lower"
+        found.append(Finding("bias", WATCH, side))
+    by_p("slope", "changed", e.slope_pvalue, refit_allowed=True)
+    by_p("coverage", "low", e.coverage_pvalue_low, refit_allowed=True)
+    by_p("coverage", "high", e.coverage_pvalue_high, refit_allowed=False)
+    by_p("spread", "wider", e.spread_pvalue, refit_allowed=False)
+
+    found.sort(key=lambda f: -_RANK[f.level])
+    status = max((f.level for f in found), key=_RANK.__getitem__, default=OK)
+    if refit_held:
+        status = REFIT
+    return Verdict(status, tuple(found), held=refit_held)

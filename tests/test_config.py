@@ -1,0 +1,111 @@
+"""Settings: precedence, defaults, strict keys and types, messages that name key and file."""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import fields
+from datetime import timedelta
+from pathlib import Path
+
+import pytest
+
+from monitor.config import (
+    AlertSettings,
+    CheckSettings,
+    Settings,
+    SmtpSettings,
+    load_settings,
+    parse_settings,
+)
+from monitor.errors import ConfigError
+
+EXAMPLE = Path(__file__).resolve().parents[1] / "config" / "fitwatch.example.toml"
+
+
+def test_example_file_is_valid_and_documents_every_key():
+    settings = load_settings(EXAMPLE, environ={})
+    assert settings.check == CheckSettings()
+    model = settings.for_model("dock_loading")
+    assert model.ranges["pallets"] == (1.0, 40.0)
+    assert model.words.x_unit("pallets") == "pallet"
+    assert model.alerts.to == ("dock.planning@example.com",)
+    assert settings.alerts.smtp == SmtpSettings()
+    text = EXAMPLE.read_text()
+    for cls in (CheckSettings, SmtpSettings):
+        for f in fields(cls):
+            assert f"\n{f.name} =" in text, f"{cls.__name__}.{f.name} is not documented"
+    for name in ("to", "sender", "on", "remind_every_days", "eml_dir"):
+        assert f"\n{name} =" in text
+    assert {f.name for f in fields(AlertSettings)} == {"to", "sender", "on", "remind_every_days",
+                                                      "eml_dir", "smtp"}
+
+
+def test_precedence_explicit_then_environment_then_working_directory(tmp_path):
+    a, b, c = (tmp_path / n for n in ("a.toml", "b.toml", "fitwatch.toml"))
+    a.write_text('[database]\nurl = "sqlite:///a.db"\n')
+    b.write_text('[database]\nurl = "sqlite:///b.db"\n')
+    c.write_text('[database]\nurl = "sqlite:///c.db"\n')
+    env = {"FITWATCH_CONFIG": str(b)}
+    assert load_settings(a, environ=env, cwd=tmp_path).database_url == "sqlite:///a.db"
+    assert load_settings(None, environ=env, cwd=tmp_path).database_url == "sqlite:///b.db"
+    assert load_settings(None, environ={}, cwd=tmp_path).database_url == "sqlite:///c.db"
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    assert load_settings(None, environ={}, cwd=empty) == Settings()
+
+
+def test_per_model_sections_override_the_global_ones():
+    s = parse_settings(tomllib.loads("""
+[check]
+level = 0.9
+test_window_days = 21
+[models.m.check]
+level = 0.8
+"""))
+    assert s.check.level == 0.9
+    assert s.for_model("m").check.level == 0.8
+    assert s.for_model("m").check.test_window_days == 21  # inherited
+    assert s.for_model("other").check.level == 0.9
+    assert s.ingest.future_tolerance == timedelta(minutes=5)
+
+
+@pytest.mark.parametrize("text,key,words", [
+    ("[check]\nlevl = 0.9", "check.levl", "unknown key"),
+    ("[chek]\nlevel = 0.9", "chek", "unknown key"),
+    ("[check]\nlevel = '0.9'", "check.level", "expected a number, got a string"),
+    ("[check]\nlevel = 1.5", "check.level", "strictly between 0 and 1"),
+    ("[check]\ncoverage_window_days = 2.5", "check.coverage_window_days", "an integer"),
+    ("[check]\ncusum_unit = 'week'", "check.cusum_unit", "one of day, observation"),
+    ("[check]\nrefit_pvalue = 0.05", "check.refit_pvalue", "must not exceed"),
+    ("[schedule]\ntimezone = 'Mars/Olympus'", "schedule.timezone", "unknown time zone"),
+    ("[schedule]\ncron = 'nightly'", "schedule.cron", "five-field cron"),
+    ("[alerts]\nto = 'lead@example.com'", "alerts.to", "a list of strings"),
+    ("[alerts]\nto = ['not-an-address']", "alerts.to", "not an e-mail address"),
+    ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
+    ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "unknown key"),
+    ("[alerts.smtp]\nhost = 'mail.example.com'\nsecurity = 'none'", "alerts.smtp.security",
+     "loopback"),
+    ("[alerts.smtp]\nport = 70000", "alerts.smtp.port", "at most 65535"),
+    ("[models.m.ranges]\npallets = [40, 1]", "models.m.ranges.pallets", "low must be below"),
+    ("[models.m.ranges]\npallets = 3", "models.m.ranges.pallets", "expected [low, high]"),
+    ("[models.m]\ncolour = 'red'", "models.m.colour", "unknown key"),
+    ("[ingest]\nchunk_rows = 10", "ingest.chunk_rows", "at least 1000"),
+])
+def test_bad_settings_name_the_key_and_the_file(tmp_path, text, key, words):
+    path = tmp_path / "bad.toml"
+    path.write_text(text)
+    with pytest.raises(ConfigError) as err:
+        load_settings(path, environ={})
+    message = str(err.value)
+    assert str(path) in message and f"'{key}'" in message and words in message
+
+
+def test_broken_toml_and_missing_file_are_config_errors(tmp_path):
+    path = tmp_path / "broken.toml"
+    path.write_text("[check\nlevel = ")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_settings(path, environ={})
+    with pytest.raises(ConfigError, match="does not exist"):
+        load_settings(tmp_path / "nope.toml", environ={})
+    with pytest.raises(ConfigError, match="FITWATCH_CONFIG"):
+        load_settings(None, environ={"FITWATCH_CONFIG": str(tmp_path / "nope.toml")})
