@@ -1,0 +1,417 @@
+"""Ingestion: store a model's observations from files, an inbox folder or an SQL query.
+
+One transaction per file: the batch row, the new observations, the rejected rows and the merged
+day statistics are committed together or not at all. Rows are keyed by the model's id column or,
+without one, by a hash of their content; a row whose key is already stored is a duplicate when
+its values are equal and a conflict (rejected) when they differ, whether the earlier row came
+from another file or from this one. Re-ingesting a file that adds nothing leaves no trace.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import shutil
+import sys
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, timedelta
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from sqlalchemy import Connection, Engine
+from sqlalchemy.exc import OperationalError
+from tqdm import tqdm
+
+from monitor.config import Settings
+from monitor.errors import DatabaseError, FitwatchError, InputError, StateError
+from monitor.ingest.pipeline import prefetch
+from monitor.ingest.readers import RawChunk, Source, open_file
+from monitor.ingest.reasons import Rejection
+from monitor.ingest.summary import IngestSummary, Tally
+from monitor.ingest.validate import CheckedRows, Rules, check_rows
+from monitor.stats.moments import DayMoments, Moments
+from monitor.store.access import database
+from monitor.store.batches import (
+    add_rejected_rows,
+    find_batches_by_hash,
+    finish_batch,
+    start_batch,
+)
+from monitor.store.engine import write_transaction
+from monitor.store.models import ModelRecord, find_model_by_id, get_model, list_models
+from monitor.store.observations import (
+    InsertResult,
+    PreparedRows,
+    delete_batch_observations,
+    insert_observations,
+    last_observed_at,
+    merge_day_stats,
+    prepare_rows,
+)
+
+log = logging.getLogger(__name__)
+
+__all__ = ["InboxOutcome", "IngestOptions", "IngestSummary", "ingest_file", "ingest_paths",
+           "ingest_query", "ingest_source", "options_for", "sweep_inbox"]
+
+
+@dataclass(frozen=True)
+class IngestOptions:
+    """How to validate and store rows."""
+
+    timezone: ZoneInfo
+    ranges: Mapping[str, tuple[float, float]]
+    strict: bool
+    now: datetime
+    future_tolerance: timedelta
+    chunk_rows: int
+    progress: bool
+
+    def __post_init__(self) -> None:
+        if self.now.tzinfo is None:
+            raise ValueError("IngestOptions.now must be an aware datetime")
+        if self.chunk_rows < 1:
+            raise ValueError("chunk_rows must be positive")
+
+
+def options_for(settings: Settings, name: str, *, strict: bool = False, progress: bool = False,
+                now: datetime | None = None) -> IngestOptions:
+    """The ingestion options of model ``name`` under ``settings``."""
+    return IngestOptions(
+        timezone=settings.timezone, ranges=settings.for_model(name).ranges, strict=strict,
+        now=now or datetime.now(UTC), future_tolerance=settings.ingest.future_tolerance,
+        chunk_rows=settings.ingest.chunk_rows, progress=progress)
+
+
+# entry points -----------------------------------------------------------------------------------
+def ingest_paths(settings: Settings, name: str, paths: Sequence[str | os.PathLike[str]], *,
+                 strict: bool = False, progress: bool = False,
+                 now: datetime | None = None) -> list[IngestSummary]:
+    """Ingest files for model ``name``; one summary per file, in order.
+
+    Every file is opened and its header checked before the first is stored, so a missing file
+    or column changes nothing.
+    """
+    with database(settings) as engine:
+        with engine.connect() as conn:
+            model = get_model(conn, name)
+        options = options_for(settings, name, strict=strict, progress=progress, now=now)
+        sources = [_open(model, path, options) for path in paths]
+        summaries: list[IngestSummary] = []
+        for source in sources:
+            try:
+                summaries.append(ingest_source(engine, model, source, options))
+            except FitwatchError as exc:
+                if summaries:
+                    done = ", ".join(s.source for s in summaries)
+                    exc.args = (f"{exc} (stored before this error: {done})",)
+                raise
+        return summaries
+
+
+def ingest_file(engine: Engine, model: ModelRecord, path: str | os.PathLike[str],
+                options: IngestOptions) -> IngestSummary:
+    """Ingest one CSV or Parquet file in one transaction."""
+    return ingest_source(engine, model, _open(model, path, options), options)
+
+
+def ingest_query(engine: Engine, model: ModelRecord, source_url: str, query: str,
+                 options: IngestOptions) -> IngestSummary:
+    """Ingest the rows of an SQL query against another database.
+
+    The query may use ``:since``: the latest stored observation time of the model (an aware
+    UTC datetime; 1970-01-01 when nothing is stored). Rows already stored are duplicates, so
+    an overlapping window (``>=``) is harmless.
+    """
+    from monitor.ingest.query import QuerySource
+
+    with engine.connect() as conn:
+        since = last_observed_at(conn, model) or datetime(1970, 1, 1, tzinfo=UTC)
+    source = QuerySource(source_url, query, {"since": since}, model.columns,
+                         options.chunk_rows, id_column=model.id_column)
+    return ingest_source(engine, model, source, options)
+
+
+def ingest_source(engine: Engine, model: ModelRecord, source: Source,
+                  options: IngestOptions) -> IngestSummary:
+    """Ingest any :class:`Source` in one transaction."""
+    try:
+        # Every row written refers to the model, checked below under the write lock, or to
+        # the batch created in this transaction: SQLite's per-row reference checks are moot.
+        with write_transaction(engine, foreign_keys=False) as conn:
+            current = find_model_by_id(conn, model.id)
+            if current is None or current.spec != model.spec:
+                raise StateError(f"model '{model.name}' changed or vanished while ingesting; "
+                                 "try again")
+            summary = _ingest(conn, model, source, options)
+            if summary.already_ingested:
+                raise _Unchanged(summary)
+    except _Unchanged as unchanged:
+        summary = unchanged.summary
+    except OperationalError as exc:
+        first = str(exc.orig).strip().splitlines()[0] if exc.orig else str(exc)
+        raise DatabaseError(f"could not store {source.label}: {first}") from exc
+    log.info("%s", summary.sentence())
+    return summary
+
+
+class _Unchanged(Exception):  # control flow: roll back, then report the summary
+    def __init__(self, summary: IngestSummary):
+        super().__init__(summary.source)
+        self.summary = summary
+
+
+def _open(model: ModelRecord, path: str | os.PathLike[str], options: IngestOptions) -> Source:
+    return open_file(path, model.columns, options.chunk_rows, time_column=model.time_column,
+                     id_column=model.id_column)
+
+
+# the work ---------------------------------------------------------------------------------------
+def _ingest(conn: Connection, model: ModelRecord, source: Source,
+            options: IngestOptions) -> IngestSummary:
+    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance)
+    batch_id = start_batch(conn, model.id, source.location, source.content_hash(), source.size,
+                           options.strict, options.now)
+    tally = Tally()
+    days = _DayTotals(model.k + 1)
+    prepared = prefetch(_prepare(chunk, model, rules) for chunk in source.chunks())
+    with tqdm(total=source.total, unit=source.unit, unit_scale=True, desc=source.label,
+              disable=not options.progress, leave=False, file=sys.stderr) as bar:
+        for part in prepared:
+            result = insert_observations(conn, model, batch_id, part.driver_rows)
+            duplicates, conflicts = _judge(model, part.checked, part.fresh, part.first, result,
+                                           batch_id, rules)
+            rejections = [*part.checked.rejected, *conflicts]
+            tally.read += part.checked.read
+            tally.accepted += int(result.inserted.sum())
+            tally.duplicates += duplicates
+            tally.reject(rejections)
+            if result.inserted.all():
+                days.add(part.moments)
+            else:
+                days.add(_moments(part.rows.take(result.inserted)))
+            add_rejected_rows(conn, batch_id, [(r.line, r.raw, r.reason, r.detail)
+                                               for r in sorted(rejections, key=_by_line)])
+            bar.update(part.progress)
+    status = "complete"
+    if options.strict and tally.rejected:
+        delete_batch_observations(conn, batch_id)
+        tally.reject_file()
+        status = "rejected"
+    else:
+        merge_day_stats(conn, model, days.moments(), options.now)
+        tally.days.update(days.days())
+    file_hash = source.content_hash()
+    earlier = find_batches_by_hash(conn, model.id, file_hash) if file_hash else []
+    seen = bool(earlier) and earlier[0].status == status
+    nothing_new = not source.record_repeats and tally.rejected == 0
+    unchanged = tally.accepted == 0 and (seen or nothing_new)
+    first, last = (min(tally.days), max(tally.days)) if tally.days else (None, None)
+    finish_batch(conn, batch_id, status=status, read=tally.read, accepted=tally.accepted,
+                 duplicates=tally.duplicates, rejected=tally.rejected, reasons=tally.reasons,
+                 first_day=first, last_day=last, file_hash=file_hash, now=options.now)
+    shown = (earlier[0].id if seen else None) if unchanged else batch_id
+    return tally.summary(model.name, source.label, shown,
+                         strict=options.strict, status=status, already=unchanged)
+
+
+@dataclass(frozen=True, eq=False)
+class _Prepared:
+    """A chunk validated and made ready for the database (in the reading thread)."""
+
+    checked: CheckedRows
+    fresh: NDArray[np.bool_]  # rows holding the first occurrence of their key in the chunk
+    first: NDArray[np.intp]  # for every row, the row of its key's first occurrence
+    rows: CheckedRows  # the fresh rows
+    driver_rows: PreparedRows
+    moments: DayMoments  # day statistics of the fresh rows
+    progress: int
+
+
+def _prepare(chunk: RawChunk, model: ModelRecord, rules: Rules) -> _Prepared:
+    checked = check_rows(chunk, model, rules)
+    fresh, first = _first_of_each_key(checked)
+    rows = checked if fresh.all() else checked.take(fresh)
+    return _Prepared(checked, fresh, first, rows,
+                     prepare_rows(rows.keys, rows.observed_us, rows.days, rows.x, rows.y),
+                     _moments(rows), chunk.progress)
+
+
+def _moments(rows: CheckedRows) -> DayMoments:
+    return DayMoments.from_rows(rows.days, np.column_stack([rows.x, rows.y]))
+
+
+def _by_line(rejection: Rejection) -> int:
+    return rejection.line
+
+
+def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray[np.intp]]:
+    """Which rows hold the first occurrence of their key, and for every row that first row."""
+    n = len(checked)
+    index = pd.Index(checked.keys)
+    if index.is_unique:
+        return np.ones(n, dtype=bool), np.arange(n)
+    codes, _ = pd.factorize(checked.keys)
+    _, first_rows = np.unique(codes, return_index=True)
+    first = first_rows[codes]
+    return first == np.arange(n), first
+
+
+def _judge(model: ModelRecord, checked: CheckedRows, fresh: NDArray[np.bool_],
+           first: NDArray[np.intp], result: InsertResult, batch_id: int,
+           rules: Rules) -> tuple[int, list[Rejection]]:
+    """Count the duplicates (same key, same values) and reject the conflicts (other values).
+
+    A first occurrence in the chunk that was not stored is compared with the stored row; a
+    later occurrence with its first one (and shares its fate when equal to it).
+    """
+    n = len(checked)
+    verdict = np.zeros(n, dtype=np.int8)  # 0 stored, 1 duplicate, 2 conflict
+    against: dict[int, tuple[str, tuple[float, ...]]] = {}
+    where_fresh = np.flatnonzero(fresh)
+    if len(result.positions):  # keys stored before: in another batch or earlier in this file
+        rows = where_fresh[result.positions]
+        stored = np.column_stack([result.x, result.y])
+        same = ((checked.observed_us[rows] == result.observed_us)
+                & np.all(np.column_stack([checked.x[rows], checked.y[rows]]) == stored, axis=1))
+        verdict[rows] = np.where(same, 1, 2)
+        for i in np.flatnonzero(~same):
+            where = ("earlier in this file" if result.batch_id[i] == batch_id
+                     else f"in batch {int(result.batch_id[i])}")
+            values = (int(result.observed_us[i]), *result.x[i].tolist(), float(result.y[i]))
+            against[int(rows[i])] = (where, values)
+    repeats = np.flatnonzero(~fresh)
+    if len(repeats):  # later occurrences of a key within this chunk
+        firsts = first[repeats]
+        same = ((checked.observed_us[repeats] == checked.observed_us[firsts])
+                & (checked.y[repeats] == checked.y[firsts])
+                & np.all(checked.x[repeats] == checked.x[firsts], axis=1))
+        verdict[repeats] = np.where(same, np.where(verdict[firsts] == 2, 2, 1), 2)
+        for i, j, equal in zip(repeats, firsts, same, strict=True):
+            if not equal:
+                against[int(i)] = (f"on line {checked.lines[j]}", _values(checked, int(j)))
+            elif verdict[j] == 2:
+                against[int(i)] = against[int(j)]
+    conflicts = [_conflict(model, checked, i, where, values, rules)
+                 for i, (where, values) in sorted(against.items())]
+    return int((verdict == 1).sum()), conflicts
+
+
+def _values(rows: CheckedRows, i: int) -> tuple[float, ...]:
+    return (int(rows.observed_us[i]), *rows.x[i].tolist(), float(rows.y[i]))
+
+
+def _conflict(model: ModelRecord, rows: CheckedRows, i: int, where: str,
+              other: tuple[float, ...], rules: Rules) -> Rejection:
+    names = [model.time_column, *model.predictors, model.response]
+    diffs = []
+    for name, mine, theirs in zip(names, _values(rows, i), other, strict=True):
+        if mine == theirs:
+            continue
+        if name == model.time_column:
+            diffs.append(f"{name} {_local(int(mine), rules.zone)} here, "
+                         f"{_local(int(theirs), rules.zone)} there")
+        else:
+            diffs.append(f"{name} {mine:g} here, {theirs:g} there")
+    key = (f"{model.id_column} '{rows.keys[i]}'" if model.id_column
+           else "a row with the same content key")
+    return Rejection(int(rows.lines[i]), rows.raw(i), "conflict",
+                     f"{key} appears {where} with other values: {'; '.join(diffs)}")
+
+
+def _local(us: int, zone: ZoneInfo) -> str:
+    moment = datetime(1970, 1, 1, tzinfo=UTC) + timedelta(microseconds=us)
+    return moment.astimezone(zone).isoformat(sep=" ")
+
+
+class _DayTotals:
+    """Day statistics of the stored rows, merged across chunks."""
+
+    def __init__(self, dim: int):
+        self.dim = dim
+        self.parts: dict[np.datetime64, Moments] = {}
+
+    def add(self, chunk: DayMoments) -> None:
+        for i, day in enumerate(chunk.days):
+            part = chunk.day(i)
+            self.parts[day] = self.parts[day].merge(part) if day in self.parts else part
+
+    def days(self) -> list[date]:
+        return [d.item() for d in sorted(self.parts)]
+
+    def moments(self) -> DayMoments:
+        order = sorted(self.parts)
+        return DayMoments.stack(np.array(order, dtype="datetime64[D]"),
+                                [self.parts[d] for d in order], self.dim)
+
+
+# the inbox --------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class InboxOutcome:
+    """What the sweep did with one file."""
+
+    model: str
+    path: Path
+    moved_to: Path
+    summary: IngestSummary | None
+    error: str | None
+
+
+def sweep_inbox(settings: Settings, now: datetime | None = None) -> list[InboxOutcome]:
+    """Ingest every file waiting in ``<inbox>/<model name>/`` and move it aside.
+
+    Files that were ingested (even with some rejected rows) go to ``archive/``; files that
+    could not be read, or that ``--strict`` would refuse, go to ``rejected/`` with a
+    ``.reason.txt`` beside them. Names starting with '.' or ending in .tmp/.part are skipped
+    (still being written). Database errors stop the sweep and leave the files in place.
+    """
+    if not settings.ingest.inbox:
+        return []
+    inbox = Path(settings.ingest.inbox).expanduser()
+    outcomes: list[InboxOutcome] = []
+    with database(settings) as engine:
+        with engine.connect() as conn:
+            models = list_models(conn)
+        for model in models:
+            folder = inbox / model.name
+            if not folder.is_dir():
+                continue
+            options = options_for(settings, model.name, now=now)
+            for path in sorted(folder.iterdir()):
+                if not path.is_file() or _incomplete(path.name):
+                    continue
+                outcomes.append(_sweep_one(engine, model, path, options))
+    return outcomes
+
+
+def _incomplete(name: str) -> bool:
+    return name.startswith(".") or name.endswith((".tmp", ".part", ".partial", ".reason.txt"))
+
+
+def _sweep_one(engine: Engine, model: ModelRecord, path: Path,
+               options: IngestOptions) -> InboxOutcome:
+    try:
+        summary = ingest_file(engine, model, path, options)
+    except InputError as exc:
+        target = _move(path, path.parent / "rejected")
+        target.with_name(target.name + ".reason.txt").write_text(f"{exc}\n", encoding="utf-8")
+        log.warning("inbox: %s rejected: %s", path, exc)
+        return InboxOutcome(model.name, path, target, None, str(exc))
+    folder = "rejected" if summary.status == "rejected" else "archive"
+    return InboxOutcome(model.name, path, _move(path, path.parent / folder), summary, None)
+
+
+def _move(path: Path, folder: Path) -> Path:
+    folder.mkdir(exist_ok=True)
+    target = folder / path.name
+    stem, suffix, n = path.stem, path.suffix, 1
+    while target.exists():
+        n += 1
+        target = folder / f"{stem}-{n}{suffix}"
+    shutil.move(str(path), target)
+    return target
+

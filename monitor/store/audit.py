@@ -1,0 +1,48 @@
+"""The audit log: who fitted, imported, promoted, rolled back or acknowledged what, when, why."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import date, datetime
+from typing import Any
+
+from sqlalchemy import Connection, insert, select
+
+from monitor.store.schema import audit_log, jsonable
+
+ACTIONS = ("fit", "import", "promote", "rollback", "ack")
+
+
+@dataclass(frozen=True)
+class AuditEntry:
+    id: int
+    at: datetime
+    model_id: int | None
+    action: str
+    actor: str
+    reason: str | None
+    version_id: int | None
+    effective_day: date | None
+    details: dict[str, Any]
+
+
+def record(conn: Connection, *, action: str, actor: str, at: datetime, model_id: int | None,
+           reason: str | None = None, version_id: int | None = None,
+           effective_day: date | None = None, details: dict[str, Any] | None = None) -> int:
+    if action not in ACTIONS:
+        raise ValueError(f"unknown audit action {action!r}")
+    result = conn.execute(insert(audit_log).values(
+        at=at, model_id=model_id, action=action, actor=actor, reason=reason,
+        version_id=version_id, effective_day=effective_day, details=jsonable(details or {})))
+    return int(result.inserted_primary_key[0])
+
+
+def entries(conn: Connection, model_id: int, actions: tuple[str, ...] = ACTIONS,
+            from_day: date | None = None) -> list[AuditEntry]:
+    query = select(audit_log).where(audit_log.c.model_id == model_id,
+                                    audit_log.c.action.in_(actions))
+    if from_day is not None:
+        query = query.where(audit_log.c.effective_day >= from_day)
+    rows = conn.execute(query.order_by(audit_log.c.at, audit_log.c.id))
+    return [AuditEntry(**{k: r._mapping[k] for k in AuditEntry.__dataclass_fields__})
+            for r in rows]

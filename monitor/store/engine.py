@@ -1,0 +1,289 @@
+"""Opening the database, migrating it, and checking that it is current.
+
+SQLite (the default) is opened with WAL journaling, foreign keys on and a busy timeout; a new
+database file is created with owner-only permissions (0600). PostgreSQL URLs are accepted the way
+people type them (``postgresql://user@host/db`` or ``postgres://...``) and use the psycopg 3
+driver. Schema changes happen only through the Alembic revisions in ``migrations/``.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from alembic.util import CommandError
+from sqlalchemy import Connection, Engine, create_engine, event
+from sqlalchemy.engine import URL, make_url
+from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
+
+from monitor.config import Settings
+from monitor.errors import DatabaseError
+
+log = logging.getLogger(__name__)
+
+SQLITE_BUSY_TIMEOUT_MS = 30_000
+SQLITE_CACHE_KIB = 65_536  # page cache per connection; bulk inserts into big indexes need it
+_IMMEDIATE = "fitwatch_immediate"
+
+
+# URLs -------------------------------------------------------------------------------------------
+def normalize_url(url: str) -> URL:
+    """The SQLAlchemy URL for what a user typed; PostgreSQL URLs get the psycopg 3 driver."""
+    text = url.strip()
+    if not text:
+        raise DatabaseError("the database URL is empty; use e.g. sqlite:///fitwatch.db")
+    try:
+        parsed = make_url(text)
+    except ArgumentError as exc:
+        raise DatabaseError(f"'{_redact_text(text)}' is not a database URL; use e.g. "
+                            "sqlite:///fitwatch.db or postgresql://user@host/dbname") from exc
+    backend, _, driver = parsed.drivername.partition("+")
+    if backend in ("postgres", "postgresql"):
+        return parsed.set(drivername="postgresql+" + (driver or "psycopg"))
+    if backend != "sqlite":
+        raise DatabaseError(f"unsupported database '{backend}' in {describe_url(parsed)}; "
+                            "fitwatch works with sqlite:/// files and postgresql:// servers")
+    return parsed
+
+
+def describe_url(url: str | URL) -> str:
+    """Where the data lives, in words and without any password."""
+    parsed = url if isinstance(url, URL) else normalize_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        path = sqlite_path(parsed)
+        return f"sqlite file {path}" if path else "sqlite in memory"
+    host = parsed.host or "localhost"
+    where = f"{host}:{parsed.port}" if parsed.port else host
+    user = f" as {parsed.username}" if parsed.username else ""
+    return f"postgresql database {parsed.database or '(default)'} on {where}{user}"
+
+
+def sqlite_path(url: URL) -> Path | None:
+    """The absolute file path of an SQLite URL, or None for an in-memory database."""
+    database = url.database
+    if not database or database == ":memory:" or database.startswith("file::memory:"):
+        return None
+    if database.startswith("file:"):
+        database = database[5:].split("?", 1)[0]
+    return Path(database).expanduser().resolve()
+
+
+def _redact_text(text: str) -> str:
+    if "@" in text and "://" in text:
+        scheme, rest = text.split("://", 1)
+        creds, host = rest.rsplit("@", 1)
+        return f"{scheme}://{creds.split(':', 1)[0]}:***@{host}" if ":" in creds else text
+    return text
+
+
+# engines ----------------------------------------------------------------------------------------
+def open_engine(url: str, *, create: bool = True) -> Engine:
+    """An engine for ``url``; with ``create=False`` a missing SQLite file is an error."""
+    parsed = normalize_url(url)
+    if parsed.get_backend_name() == "sqlite":
+        return _sqlite_engine(parsed, create)
+    try:
+        return create_engine(parsed, pool_pre_ping=True)
+    except (NoSuchModuleError, ImportError) as exc:
+        raise DatabaseError(f"no driver for {describe_url(parsed)}: {exc}") from exc
+
+
+def _sqlite_engine(url: URL, create: bool) -> Engine:
+    path = sqlite_path(url)
+    if path is not None:
+        if not path.parent.is_dir():
+            raise DatabaseError(f"cannot create the database {path}: folder {path.parent} "
+                                "does not exist")
+        if path.is_dir():
+            raise DatabaseError(f"the database path {path} is a folder, not a file")
+        if not path.exists():
+            if not create:
+                raise DatabaseError(f"no database at {path}; run 'fitwatch init' first")
+            try:  # owner-only before SQLite ever opens it; SQLite gives -wal/-shm the same mode
+                os.close(os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o600))
+            except FileExistsError:
+                pass
+            except OSError as exc:
+                raise DatabaseError(f"cannot create the database {path}: {exc.strerror}") \
+                    from exc
+        url = url.set(database=str(path))
+    engine = create_engine(url)
+
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_connection: Any, _record: Any) -> None:
+        # Let SQLAlchemy, not the sqlite3 module, decide where transactions begin (the
+        # documented recipe for correct SAVEPOINT and transactional DDL support).
+        dbapi_connection.isolation_level = None
+        cursor = dbapi_connection.cursor()
+        cursor.execute("PRAGMA foreign_keys = ON")
+        cursor.execute(f"PRAGMA busy_timeout = {SQLITE_BUSY_TIMEOUT_MS}")
+        cursor.execute(f"PRAGMA cache_size = -{SQLITE_CACHE_KIB}")
+        if path is not None:
+            cursor.execute("PRAGMA journal_mode = WAL")
+        cursor.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(conn: Connection) -> None:
+        immediate = conn.get_execution_options().get(_IMMEDIATE, False)
+        conn.exec_driver_sql("BEGIN IMMEDIATE" if immediate else "BEGIN")
+
+    return engine
+
+
+@contextmanager
+def write_transaction(engine: Engine, *, foreign_keys: bool = True) -> Iterator[Connection]:
+    """A connection in a transaction meant to write; committed on success, rolled back on error.
+
+    On SQLite the transaction takes the write lock at once (``BEGIN IMMEDIATE``), so two
+    writers queue on the busy timeout instead of failing when one upgrades a read lock.
+    ``foreign_keys=False`` skips SQLite's per-row reference checks for bulk writes whose
+    parents the caller has verified inside the transaction (the write lock keeps them there).
+    """
+    with engine.connect() as conn:
+        conn.execution_options(**{_IMMEDIATE: True})
+        relax = not foreign_keys and conn.dialect.name == "sqlite"
+        if relax:
+            conn.connection.driver_connection.execute("PRAGMA foreign_keys = OFF")
+        try:
+            with conn.begin():
+                yield conn
+        finally:
+            if relax:
+                conn.connection.driver_connection.execute("PRAGMA foreign_keys = ON")
+
+
+# migrations -------------------------------------------------------------------------------------
+def migrations_path() -> Path:
+    """The Alembic script folder: inside the installed package, or beside it in a checkout."""
+    package = Path(__file__).resolve().parent.parent
+    for candidate in (package / "migrations", package.parent / "migrations"):
+        if (candidate / "env.py").is_file():
+            return candidate
+    raise DatabaseError(f"the database migrations are missing (looked in {package}); "
+                        "reinstall fitwatch")
+
+
+def alembic_config() -> Config:
+    config = Config()
+    config.set_main_option("script_location", str(migrations_path()))
+    return config
+
+
+def head_revision() -> str:
+    head = ScriptDirectory.from_config(alembic_config()).get_current_head()
+    if head is None:
+        raise DatabaseError("the database migrations are missing; reinstall fitwatch")
+    return head
+
+
+def current_revision(engine: Engine) -> str | None:
+    """The revision the database is at (None when it has never been initialised)."""
+    try:
+        with engine.connect() as conn:
+            return MigrationContext.configure(conn).get_current_revision()
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+
+
+def upgrade_database(engine: Engine) -> str:
+    """Upgrade the schema to the newest revision (a no-op when current); returns the revision."""
+    config = alembic_config()
+    try:
+        with engine.connect() as conn:
+            sqlite = conn.dialect.name == "sqlite"
+            if sqlite:  # batch migrations copy tables; cascades must not fire meanwhile
+                conn.connection.driver_connection.execute("PRAGMA foreign_keys = OFF")
+            try:
+                with conn.begin():
+                    config.attributes["connection"] = conn
+                    command.upgrade(config, "head")
+                    if sqlite:
+                        broken = conn.exec_driver_sql("PRAGMA foreign_key_check").fetchall()
+                        if broken:
+                            raise DatabaseError(f"the upgrade left {len(broken)} rows with "
+                                                "dangling references; it was rolled back")
+            finally:
+                if sqlite:
+                    conn.connection.driver_connection.execute("PRAGMA foreign_keys = ON")
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+    except CommandError as exc:  # e.g. a revision this program does not know
+        raise DatabaseError(f"cannot upgrade the database ({describe_url(engine.url)}): {exc}; "
+                            "was it written by a newer fitwatch?") from exc
+    revision = current_revision(engine)
+    assert revision is not None
+    return revision
+
+
+def downgrade_database(engine: Engine, revision: str = "base") -> None:
+    """Downgrade the schema (used by tests and by people undoing an upgrade)."""
+    config = alembic_config()
+    with engine.begin() as conn:
+        config.attributes["connection"] = conn
+        command.downgrade(config, revision)
+
+
+def require_current(engine: Engine) -> None:
+    """Raise :class:`DatabaseError` unless the schema is at the revision this program needs."""
+    current = current_revision(engine)
+    head = head_revision()
+    where = describe_url(engine.url)
+    if current == head:
+        return
+    if current is None:
+        raise DatabaseError(f"the database ({where}) is not set up; run 'fitwatch init'")
+    known = {script.revision for script in
+             ScriptDirectory.from_config(alembic_config()).walk_revisions()}
+    if current in known:
+        raise DatabaseError(f"the database ({where}) is at revision {current}, this fitwatch "
+                            f"needs {head}; run 'fitwatch init' to upgrade it")
+    raise DatabaseError(f"the database ({where}) is at revision {current}, which this fitwatch "
+                        "does not know; it was written by a newer version")
+
+
+# init -------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class InitResult:
+    """What ``fitwatch init`` did."""
+
+    revision: str
+    previous: str | None
+    location: str
+
+    @property
+    def changed(self) -> bool:
+        return self.previous != self.revision
+
+    def sentence(self) -> str:
+        if self.previous is None:
+            return f"database created at revision {self.revision} ({self.location})"
+        if self.changed:
+            return (f"database upgraded from revision {self.previous} to {self.revision} "
+                    f"({self.location})")
+        return f"database ready at revision {self.revision} ({self.location})"
+
+
+def init_database(settings: Settings) -> InitResult:
+    """Create the database or upgrade it to the newest revision; safe to run any number of times."""
+    engine = open_engine(settings.database_url)
+    try:
+        previous = current_revision(engine)
+        revision = upgrade_database(engine)
+        return InitResult(revision, previous, describe_url(engine.url))
+    finally:
+        engine.dispose()
+
+
+def _db_error(engine: Engine, exc: SQLAlchemyError) -> DatabaseError:
+    cause = getattr(exc, "orig", None) or exc
+    first = str(cause).strip().splitlines()[0] if str(cause).strip() else type(cause).__name__
+    return DatabaseError(f"database error ({describe_url(engine.url)}): {first}")

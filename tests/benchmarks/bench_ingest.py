@@ -1,0 +1,207 @@
+"""Ingestion speed and memory against a hand-written baseline, measured in the same run.
+
+    python tests/benchmarks/bench_ingest.py [--rows 1000000] [--repeats 3] [--profile]
+
+The file: ``load_id, docked_at, pallets, load_minutes, door`` rows (generated, like the demo).
+Baseline: the ``csv`` module's reader plus sqlite3 ``executemany`` into one table with a unique
+index on the id, in one transaction, default pragmas; it converts the two numbers with
+``float()`` and checks nothing else. fitwatch: ``ingest_file`` on a fresh database (created
+beforehand, not timed) with every check of SPEC §5 on every row. Each run is a fresh process, so
+its peak resident memory (VmHWM) is its own. Goal (issue 3): ratio <= 1.0, peak < 500 MB.
+``--postgres`` adds fitwatch on a PostgreSQL server (for information; the baseline stays
+SQLite).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import os
+import resource
+import sqlite3
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def generate(path: Path, rows: int, seed: int = 1) -> None:
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    start = pd.Timestamp("2025-01-01 06:00")
+    minutes = np.sort(rng.integers(0, 400 * 24 * 60, rows))
+    pallets = rng.integers(1, 34, rows)
+    frame = pd.DataFrame({
+        "load_id": pd.Series(np.arange(rows)).map("L{:08d}".format),
+        "docked_at": (start + pd.to_timedelta(minutes, unit="min")).strftime("%Y-%m-%d %H:%M"),
+        "pallets": pallets,
+        "load_minutes": np.round(8 + 2.1 * pallets + rng.normal(0, 4, rows), 2),
+        "door": rng.integers(1, 13, rows),
+    })
+    frame.to_csv(path, index=False)
+
+
+def baseline(csv_path: Path, db_path: Path) -> None:
+    con = sqlite3.connect(db_path)
+    con.execute("CREATE TABLE loads (load_id TEXT, docked_at TEXT, pallets REAL, "
+                "load_minutes REAL, door TEXT)")
+    con.execute("CREATE UNIQUE INDEX ix_loads_id ON loads (load_id)")
+    with con, csv_path.open(newline="") as fh:
+        reader = csv.reader(fh)
+        next(reader)
+        con.executemany("INSERT INTO loads VALUES (?, ?, ?, ?, ?)",
+                        ((a, b, float(c), float(d), e) for a, b, c, d, e in reader))
+    con.close()
+
+
+def prepare_fitwatch(url: str, with_id: bool) -> None:
+    from datetime import UTC, datetime
+
+    from monitor.store.engine import open_engine, upgrade_database
+    from monitor.store.models import ModelSpec, create_model
+
+    engine = open_engine(url)
+    upgrade_database(engine)
+    with engine.begin() as conn:
+        create_model(conn, ModelSpec("loads", "load_minutes", ("pallets",), "docked_at",
+                                     "load_id" if with_id else None), datetime.now(UTC))
+    engine.dispose()
+
+
+def run_fitwatch(csv_path: Path, url: str, profile: bool) -> dict[str, object]:
+    from datetime import UTC, datetime, timedelta
+    from zoneinfo import ZoneInfo
+
+    from monitor.ingest.service import IngestOptions, ingest_file
+    from monitor.store.engine import open_engine
+    from monitor.store.models import get_model
+
+    engine = open_engine(url)
+    with engine.connect() as conn:
+        model = get_model(conn, "loads")
+    options = IngestOptions(ZoneInfo("Europe/Berlin"), {"pallets": (0, 60)}, False,
+                            datetime(2026, 6, 1, tzinfo=UTC), timedelta(minutes=5), 200_000,
+                            False)
+    if profile:
+        import cProfile
+        import pstats
+
+        profiler = cProfile.Profile()
+        profiler.enable()
+    summary = ingest_file(engine, model, csv_path, options)
+    if profile:
+        profiler.disable()
+        pstats.Stats(profiler, stream=sys.stderr).sort_stats("cumulative").print_stats(30)
+    engine.dispose()
+    return {"accepted": summary.accepted, "rejected": summary.rejected}
+
+
+def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
+    if kind == "baseline":
+        began = time.perf_counter()
+        baseline(csv_path, db_path)
+        extra: dict[str, object] = {}
+    elif kind == "fitwatch-postgresql":
+        import psycopg
+
+        name = f"fitwatch_bench_{os.getpid()}"
+        with psycopg.connect(os.environ["FITWATCH_BENCH_PG"], autocommit=True) as admin:
+            admin.execute(f'CREATE DATABASE "{name}"')
+            try:
+                url = os.environ["FITWATCH_BENCH_PG"].rsplit("/", 1)[0] + "/" + name
+                prepare_fitwatch(url, with_id=True)
+                began = time.perf_counter()
+                extra = run_fitwatch(csv_path, url, profile)
+                seconds = time.perf_counter() - began
+            finally:
+                admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+        print(json.dumps({"kind": kind, "seconds": seconds, "peak_mb": peak_resident_mb(),
+                          **extra}))
+        return
+    else:
+        url = f"sqlite:///{db_path}"
+        prepare_fitwatch(url, with_id=kind == "fitwatch")
+        import gc
+        gc.collect()
+        began = time.perf_counter()
+        extra = run_fitwatch(csv_path, url, profile)
+    seconds = time.perf_counter() - began
+    print(json.dumps({"kind": kind, "seconds": seconds, "peak_mb": peak_resident_mb(), **extra}))
+
+
+def peak_resident_mb() -> float:
+    """Peak resident memory of this process in MB: VmHWM, which execve resets (ru_maxrss keeps
+    the forking parent's peak on Linux, so it would count the benchmark driver too)."""
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def measure(kind: str, csv_path: Path, work: Path, profile: bool = False) -> dict[str, float]:
+    db = work / f"{kind}-{time.monotonic_ns()}.db"
+    out = subprocess.run([sys.executable, __file__, "--child", kind, "--csv", str(csv_path),
+                          "--db", str(db)] + (["--profile"] if profile else []),
+                         cwd=ROOT, capture_output=True, text=True, check=True)
+    if profile:
+        sys.stderr.write(out.stderr)
+    for suffix in ("", "-wal", "-shm"):
+        Path(f"{db}{suffix}").unlink(missing_ok=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--rows", type=int, default=1_000_000)
+    parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--profile", action="store_true")
+    parser.add_argument("--postgres", metavar="URL",
+                        help="also time fitwatch on PostgreSQL: an admin URL such as "
+                             "postgresql://postgres@127.0.0.1:5432/test (a scratch database "
+                             "is created and dropped)")
+    parser.add_argument("--child")
+    parser.add_argument("--csv")
+    parser.add_argument("--db")
+    args = parser.parse_args()
+    if args.child:
+        child(args.child, Path(args.csv), Path(args.db), args.profile)
+        return
+    with tempfile.TemporaryDirectory(prefix="fitwatch-bench-") as tmp:
+        work = Path(tmp)
+        csv_path = work / "loads.csv"
+        generate(csv_path, args.rows)
+        size_mb = csv_path.stat().st_size / 1e6
+        print(f"{args.rows:,} rows, {size_mb:.0f} MB CSV, {os.cpu_count()} CPUs")
+        results: dict[str, list[dict[str, float]]] = {"baseline": [], "fitwatch": [],
+                                                      "fitwatch-hashkeys": []}
+        if args.postgres:
+            os.environ["FITWATCH_BENCH_PG"] = args.postgres
+            results["fitwatch-postgresql"] = []
+        for _ in range(args.repeats):  # interleaved, so drifting machine load hits all alike
+            for kind in results:
+                results[kind].append(measure(kind, csv_path, work))
+        for kind, runs in results.items():
+            seconds = [r["seconds"] for r in runs]
+            peak = max(r["peak_mb"] for r in runs)
+            print(f"{kind:18s} median {statistics.median(seconds):6.2f} s "
+                  f"(runs {', '.join(f'{s:.2f}' for s in seconds)}), peak {peak:.0f} MB")
+        base = statistics.median(r["seconds"] for r in results["baseline"])
+        for kind in list(results)[1:]:
+            mine = statistics.median(r["seconds"] for r in results[kind])
+            print(f"ratio {kind} / baseline = {mine / base:.2f}")
+        if args.profile:
+            measure("fitwatch", csv_path, work, profile=True)
+
+
+if __name__ == "__main__":
+    main()
