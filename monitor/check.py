@@ -1,0 +1,235 @@
+"""The nightly check: for each model, every unchecked (or stale) day up to a date.
+
+Per model: find where to start (the day after the last check, or the earliest day whose rows
+changed after it was checked), then walk the days in blocks. Each block is one transaction
+with one query for its observations and one for the day statistics it needs; inside the block
+a Python loop over days (never over rows) scores, moves the signals and decides. Rerunning
+changes nothing; late rows make the next run recompute from their day, so the result equals
+processing everything in order.
+"""
+
+from __future__ import annotations
+
+import logging
+from bisect import bisect_left, bisect_right
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from datetime import UTC, date, datetime, timedelta
+
+import numpy as np
+from sqlalchemy import Connection, Engine
+
+from monitor.config import ModelSettings, Settings
+from monitor.errors import FitwatchError, StateError
+from monitor.evaluate import Carry, DayInput, VersionContext, evaluate_day
+from monitor.progress import progress_bar
+from monitor.stats.moments import Moments
+from monitor.store import audit
+from monitor.store.access import database
+from monitor.store.checks import (
+    DayCheck,
+    delete_checks_from,
+    earliest_stale_day,
+    insert_checks,
+    last_check,
+    load_checks,
+)
+from monitor.store.engine import write_transaction
+from monitor.store.models import ModelRecord, get_model, list_models
+from monitor.store.observations import load_day_stats, load_observations
+from monitor.store.versions import VersionRecord, scoring_versions
+
+log = logging.getLogger(__name__)
+BLOCK_DAYS = 31
+HISTORY_DAYS = 365  # how far back a change day is looked for
+
+
+@dataclass(frozen=True)
+class ModelCheck:
+    """What one run did for one model."""
+
+    model: str
+    checks: tuple[DayCheck, ...]
+    first_day: date | None
+    last_day: date | None
+    recomputed_from: date | None  # set when late rows forced a re-evaluation
+    note: str = ""
+    error: str | None = None
+    current: DayCheck | None = None  # the model's latest check, new or stored before
+
+
+@dataclass(frozen=True)
+class CheckOutcome:
+    results: tuple[ModelCheck, ...] = field(default=())
+
+    @property
+    def checks(self) -> list[DayCheck]:
+        return [c for r in self.results for c in r.checks]
+
+    def worst_status(self) -> str | None:
+        order = {"ok": 0, "watch": 1, "refit": 2}
+        statuses = [r.current.status for r in self.results if r.current]
+        return max(statuses, key=order.__getitem__) if statuses else None
+
+
+def local_today(now: datetime, settings: Settings) -> date:
+    return now.astimezone(settings.timezone).date()
+
+
+def run_checks(settings: Settings, names: Sequence[str] | None = None, *,
+               day: date | None = None, through: date | None = None,
+               now: datetime | None = None, progress: bool = False,
+               engine: Engine | None = None) -> CheckOutcome:
+    """Check every unchecked day through ``through`` (default: yesterday in the configured zone).
+
+    ``day`` checks up to that day and reports only it. One model's failure is recorded in its
+    result and does not stop the others.
+    """
+    now = now or datetime.now(UTC)
+    end = day or through or (local_today(now, settings) - timedelta(days=1))
+    with database(settings, engine) as db:
+        return CheckOutcome(tuple(_check_all(db, settings, names, day, end, now, progress)))
+
+
+def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
+               day: date | None, end: date, now: datetime, progress: bool) -> list[ModelCheck]:
+    with engine.connect() as conn:
+        models = [get_model(conn, n) for n in names] if names else list_models(conn)
+    results = []
+    for model in models:
+        try:
+            result = check_model(engine, model, settings.for_model(model.name), end, now,
+                                 progress=progress)
+        except FitwatchError as exc:
+            if names:
+                raise
+            result = ModelCheck(model.name, (), None, None, None, error=str(exc))
+        except Exception as exc:  # one model's bug must not stop the night for the others
+            log.exception("checking model %s failed", model.name)
+            if names and len(names) == 1:
+                raise
+            result = ModelCheck(model.name, (), None, None, None,
+                                error=f"internal error: {exc!r}")
+        if day is not None:
+            result = _only_day(engine, model, result, day)
+        results.append(result)
+    return results
+
+
+def _only_day(engine: Engine, model: ModelRecord, result: ModelCheck, day: date) -> ModelCheck:
+    with engine.connect() as conn:
+        stored = load_checks(conn, model.id, day, day, model=model.name)
+    return ModelCheck(model.name, tuple(stored), day if stored else None,
+                      day if stored else None, result.recomputed_from, result.note, result.error,
+                      current=result.current)
+
+
+def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end: date,
+                now: datetime, *, progress: bool = False) -> ModelCheck:
+    with engine.connect() as conn:
+        versions = scoring_versions(conn, model.id)
+        if not versions:
+            raise StateError(f"model '{model.name}' has no active version yet; "
+                             f"run 'fitwatch model fit {model.name} ...' first")
+        last = last_check(conn, model.id)
+        stale = earliest_stale_day(conn, model.id)
+    start = versions[0].active_from if last is None else last.day + timedelta(days=1)
+    assert start is not None
+    recomputed = None
+    if stale is not None and last is not None and stale <= last.day:
+        recomputed, start, end = stale, stale, max(end, last.day)
+    if start > end:
+        note = (f"checked through {last.day.isoformat()}" if last
+                else f"nothing to check before {start.isoformat()}")
+        return ModelCheck(model.name, (), None, None, None, note=note, current=last)
+    days = (end - start).days + 1
+    done: list[DayCheck] = []
+    with progress_bar(days, f"checking {model.name}", enabled=progress) as bar:
+        block_start = start
+        first = True
+        while block_start <= end:
+            block_end = min(end, block_start + timedelta(days=BLOCK_DAYS - 1))
+            with write_transaction(engine) as conn:
+                if first:
+                    delete_checks_from(conn, model.id, start)
+                    first = False
+                checks = _check_block(conn, model, settings, versions, block_start, block_end,
+                                      now)
+                insert_checks(conn, checks)
+            done.extend(checks)
+            bar.update((block_end - block_start).days + 1)
+            block_start = block_end + timedelta(days=1)
+    return ModelCheck(model.name, tuple(done), start, end, recomputed,
+                      current=done[-1] if done else last)
+
+
+def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
+                 versions: list[VersionRecord], first: date, last: date,
+                 now: datetime) -> list[DayCheck]:
+    cs = settings.check
+    carry = _carry_before(conn, model, first, cs.coverage_window_days)
+    obs = load_observations(conn, model, first, last)
+    stats_from = first - timedelta(days=max(cs.test_window_days - 1, HISTORY_DAYS))
+    stored = load_day_stats(conn, model, stats_from, last)
+    stat_days = [_to_date(d) for d in stored.moments.days]
+    row_days = obs.days.astype("datetime64[D]")
+    resets = {e.effective_day for e in audit.entries(conn, model.id, ("ack",), from_day=first)
+              if e.effective_day is not None and e.effective_day <= last}
+    contexts: dict[int, VersionContext] = {}
+    previous_version: int | None = None
+    out = []
+    day = first
+    while day <= last:
+        version = _version_on(versions, day)
+        if version is None:
+            day += timedelta(days=1)
+            continue
+        if version.id not in contexts:
+            contexts[version.id] = VersionContext.build(version, cs)
+        ctx = contexts[version.id]
+        if (previous_version is not None and previous_version != version.id) \
+                or version.active_from == day:
+            carry = carry.restarted(new_version=True)
+        elif day in resets:
+            carry = carry.restarted(new_version=False)
+        previous_version = version.id
+        lo = np.searchsorted(row_days, np.datetime64(day, "D"), side="left")
+        hi = np.searchsorted(row_days, np.datetime64(day, "D"), side="right")
+        i = bisect_left(stat_days, day)
+        today_stats = stored.moments.day(i) if i < len(stat_days) and stat_days[i] == day \
+            else Moments.empty(stored.moments.dim)
+        upto = bisect_right(stat_days, day)
+        window_lo = max(day - timedelta(days=cs.test_window_days - 1), ctx.first_recent_day)
+        recent = stored.moments.select(slice(bisect_left(stat_days, window_lo), upto))
+        history_lo = max(day - timedelta(days=HISTORY_DAYS), ctx.first_recent_day)
+        history = stored.moments.select(slice(bisect_left(stat_days, history_lo), upto))
+        data = DayInput(day, obs.x[lo:hi], obs.y[lo:hi], today_stats,
+                        stored.revisions.get(day, 0), recent, history)
+        check, carry = evaluate_day(ctx, carry, data, cs, settings.words, model.response, now,
+                                    model.id, model.name)
+        out.append(check)
+        day += timedelta(days=1)
+    return out
+
+
+def _carry_before(conn: Connection, model: ModelRecord, day: date, window: int) -> Carry:
+    previous = last_check(conn, model.id, before=day, model=model.name)
+    if previous is None:
+        return Carry.initial()
+    earlier = load_checks(conn, model.id, day - timedelta(days=window - 1),
+                          day - timedelta(days=1))
+    coverage_days = tuple((c.day, c.n, c.covered) for c in earlier)
+    return Carry.after(previous, coverage_days)
+
+
+def _version_on(versions: list[VersionRecord], day: date) -> VersionRecord | None:
+    found = None
+    for v in versions:
+        if v.scores_day(day):
+            found = v
+    return found
+
+
+def _to_date(value: np.datetime64) -> date:
+    return date.fromisoformat(str(np.datetime64(value, "D")))
+

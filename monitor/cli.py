@@ -1,0 +1,273 @@
+"""The ``fitwatch`` command line: parse, call one library function, print, map errors to codes.
+
+Exit codes: 0 done; 1 bad input, usage or state (message on stderr, no traceback); 2 internal
+error (traceback in the log); 3 ``check --fail-on`` threshold reached.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+from collections.abc import Callable, Sequence
+from datetime import date
+from pathlib import Path
+from typing import Any
+
+from monitor import __version__
+from monitor.config import Settings, load_settings
+from monitor.errors import FitwatchError
+from monitor.output import dumps
+from monitor.progress import wants_progress
+
+log = logging.getLogger("monitor")
+
+EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_THRESHOLD = 0, 1, 2, 3
+
+
+class UsageError(FitwatchError):
+    pass
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that raises instead of exiting, so usage errors follow the same path."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise UsageError(f"{self.prog}: {message} (see '{self.prog} --help')")
+
+
+def _day(text: str) -> date:
+    try:
+        return date.fromisoformat(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a date (YYYY-MM-DD)") from exc
+
+
+def _level(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a number") from exc
+    if not 0 < value < 1:
+        raise argparse.ArgumentTypeError(f"the level must lie between 0 and 1, got {text}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="fitwatch", description="Keep a fitted linear planning model honest.")
+    p.add_argument("--version", action="version", version=f"fitwatch {__version__}")
+    p.add_argument("--config", metavar="FILE", help="settings file (TOML)")
+    p.add_argument("--db", metavar="URL", help="database URL (overrides the settings file)")
+    p.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    def command(name: str, help_text: str, handler: Callable[..., int],
+                parent: Any = sub) -> argparse.ArgumentParser:
+        cp = parent.add_parser(name, help=help_text, description=help_text)
+        cp.set_defaults(handler=handler)
+        return cp
+
+    def json_flag(cp: argparse.ArgumentParser) -> None:
+        cp.add_argument("--json", action="store_true", help="print one JSON document")
+
+    command("init", "create or upgrade the database", _cmd_init)
+
+    model = sub.add_parser("model", help="fit, import, list or show models")
+    msub = model.add_subparsers(dest="model_command", metavar="ACTION", parser_class=_Parser)
+    msub.required = True
+    fit = command("fit", "fit a version of a model on stored or given observations",
+                  _cmd_model_fit, msub)
+    fit.add_argument("name", metavar="NAME")
+    fit.add_argument("--data", metavar="FILE", help="CSV or Parquet file: stored, then fitted")
+    fit.add_argument("--y", metavar="COL", help="response column (new models)")
+    fit.add_argument("--x", metavar="COL", action="append", default=[],
+                     help="predictor column; repeat for several (new models)")
+    fit.add_argument("--time", metavar="COL", help="time column (new models)")
+    fit.add_argument("--id", metavar="COL", help="observation id column (optional)")
+    fit.add_argument("--start", metavar="DATE", type=_day, help="first day of the fit window")
+    fit.add_argument("--end", metavar="DATE", type=_day, help="last day of the fit window")
+    fit.add_argument("--level", metavar="L", type=_level, help="prediction interval level")
+    json_flag(fit)
+    imp = command("import", "store a model fitted elsewhere (TOML or JSON description)",
+                  _cmd_model_import, msub)
+    imp.add_argument("name", metavar="NAME")
+    imp.add_argument("file", metavar="FILE")
+    json_flag(imp)
+    json_flag(command("list", "list models", _cmd_model_list, msub))
+    show = command("show", "show a model's active (or given) version", _cmd_model_show, msub)
+    show.add_argument("name", metavar="NAME")
+    show.add_argument("--version", metavar="N", type=int)
+    json_flag(show)
+
+    ing = command("ingest", "store a model's new observations from files", _cmd_ingest)
+    ing.add_argument("name", metavar="NAME")
+    ing.add_argument("files", metavar="FILE", nargs="+")
+    ing.add_argument("--strict", action="store_true",
+                     help="reject a whole file when any row is bad")
+    json_flag(ing)
+
+    chk = command("check", "check every unchecked day (default: through yesterday)", _cmd_check)
+    chk.add_argument("names", metavar="NAME", nargs="*")
+    when = chk.add_mutually_exclusive_group()
+    when.add_argument("--day", metavar="DATE", type=_day, help="check up to DATE, report DATE")
+    when.add_argument("--through", metavar="DATE", type=_day, help="check through DATE")
+    chk.add_argument("--fail-on", choices=("refit", "watch"),
+                     help="exit with code 3 when any model reaches this status")
+    json_flag(chk)
+
+    st = command("status", "each model's current status and why", _cmd_status)
+    st.add_argument("names", metavar="NAME", nargs="*")
+    json_flag(st)
+
+    demo = command("demo", "run the sample scenario end to end on an embedded SQLite file",
+                   _cmd_demo)
+    demo.add_argument("--dir", metavar="DIR", default="fitwatch-demo",
+                      help="folder for the demo's data, database and outbox")
+    return p
+
+
+# handlers -------------------------------------------------------------------------------------
+def _cmd_init(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.store.engine import init_database
+
+    print(init_database(settings).sentence())
+    return EXIT_OK
+
+
+def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.ingest.service import ingest_paths
+
+    summaries = ingest_paths(settings, args.name, args.files, strict=args.strict,
+                             progress=wants_progress() and not args.json)
+    if args.json:
+        print(dumps(summaries[0].as_dict() if len(summaries) == 1
+                    else [s.as_dict() for s in summaries]))
+    else:
+        for summary in summaries:
+            print(summary.sentence())
+    return EXIT_OK
+
+
+def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.fit import FitRequest, fit_model
+    from monitor.status import VersionView
+
+    request = FitRequest(args.name, Path(args.data) if args.data else None, args.y,
+                         tuple(args.x), args.time, args.id, args.start, args.end, args.level)
+    report = fit_model(settings, request, progress=wants_progress() and not args.json)
+    view = VersionView(report.model, report.version)
+    if args.json:
+        doc = view.as_dict()
+        if report.ingest is not None:
+            doc["ingest"] = report.ingest.as_dict()
+        print(dumps(doc))
+    else:
+        if report.ingest is not None:
+            print(report.ingest.sentence())
+        print(view.text())
+    return EXIT_OK
+
+
+def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.importer import import_model
+    from monitor.status import VersionView
+
+    report = import_model(settings, args.name, Path(args.file))
+    view = VersionView(report.model, report.version)
+    if args.json:
+        print(dumps({**view.as_dict(), "warnings": list(report.warnings)}))
+    else:
+        print(view.text())
+        for note in report.warnings:
+            print(f"note: {note}")
+    return EXIT_OK
+
+
+def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.status import list_model_lines
+
+    lines = list_model_lines(settings)
+    if args.json:
+        print(dumps([line.as_dict() for line in lines]))
+    elif not lines:
+        print("no models yet; create one with 'fitwatch model fit NAME --data FILE ...'")
+    else:
+        for line in lines:
+            active = f"v{line.active_version}" if line.active_version else "no active version"
+            state = (f"{line.status} (checked through {line.last_checked_day})"
+                     if line.status else "not checked yet")
+            print(f"{line.name}: {line.formula}; {active} of {line.versions}; {state}")
+    return EXIT_OK
+
+
+def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.status import show_version
+
+    view = show_version(settings, args.name, args.version)
+    print(dumps(view.as_dict()) if args.json else view.text())
+    return EXIT_OK
+
+
+def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.check import run_checks
+    from monitor.check_view import check_document, check_text
+
+    outcome = run_checks(settings, args.names or None, day=args.day, through=args.through,
+                         progress=wants_progress() and not args.json)
+    print(dumps(check_document(outcome)) if args.json else check_text(outcome))
+    failed = [r for r in outcome.results if r.error]
+    if failed:
+        return EXIT_INTERNAL if any(r.error.startswith("internal") for r in failed) \
+            else EXIT_INPUT
+    if args.fail_on:
+        rank = {"ok": 0, "watch": 1, "refit": 2}
+        worst = outcome.worst_status()
+        if worst is not None and rank[worst] >= rank[args.fail_on]:
+            return EXIT_THRESHOLD
+    return EXIT_OK
+
+
+def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.status import model_statuses
+
+    statuses = model_statuses(settings, args.names or None)
+    if args.json:
+        print(dumps([s.as_dict() for s in statuses]))
+    elif not statuses:
+        print("no models yet")
+    else:
+        print("\n".join(s.sentence() for s in statuses))
+    return EXIT_OK
+
+
+def _cmd_demo(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.demo import run_demo
+
+    run_demo(Path(args.dir), out=sys.stdout)
+    return EXIT_OK
+
+
+# entry point ----------------------------------------------------------------------------------
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+        logging.basicConfig(
+            level=logging.WARNING - 10 * min(args.verbose, 2),
+            format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+        settings = load_settings(args.config).with_database(args.db)
+        return int(args.handler(args, settings))
+    except FitwatchError as exc:
+        print(f"fitwatch: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("fitwatch: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return EXIT_OK
+    except Exception:
+        log.exception("internal error")
+        print("fitwatch: internal error (details above); please report it", file=sys.stderr)
+        return EXIT_INTERNAL
+

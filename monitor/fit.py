@@ -1,0 +1,204 @@
+"""Fitting a version of a model: the fit, its day effects, its dispersion and its CUSUM limit.
+
+``model fit`` stores a file's rows exactly as ``ingest`` does, then fits on the stored rows of
+the window. The first version of a model becomes active from the day after its window; later
+versions are candidates until promoted.
+"""
+
+from __future__ import annotations
+
+import getpass
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, timedelta
+from pathlib import Path
+
+import numpy as np
+from sqlalchemy import Engine
+
+from monitor.config import CheckSettings, Settings
+from monitor.errors import DegenerateDataError, InputError, StateError
+from monitor.ingest.service import IngestSummary, ingest_file, options_for
+from monitor.stats.calibration import Calibration, ChartDesign, calibrate_h
+from monitor.stats.coverage import miss_dispersion
+from monitor.stats.day_effects import DayEffects, day_effects_of_fit
+from monitor.stats.moments import DayMoments
+from monitor.stats.ols import OLSFit, fit_ols
+from monitor.stats.prediction import PredictionModel
+from monitor.store import audit
+from monitor.store.access import database
+from monitor.store.engine import write_transaction
+from monitor.store.models import ModelRecord, ModelSpec, create_model, find_model
+from monitor.store.observations import load_day_stats, load_observations
+from monitor.store.versions import (
+    ACTIVE,
+    CANDIDATE,
+    NewVersion,
+    VersionRecord,
+    active_version,
+    calibration_summary,
+    insert_version,
+)
+
+
+@dataclass(frozen=True, eq=False)
+class FittedVersion:
+    """A fit with everything the nightly check needs, before it is stored."""
+
+    fit: OLSFit
+    effects: DayEffects
+    dispersion: float
+    calibration: Calibration
+    days: DayMoments
+    first_day: date
+    last_day: date
+
+    def to_new_version(self, level: float, settings: CheckSettings) -> NewVersion:
+        f, e, c = self.fit, self.effects, self.calibration
+        return NewVersion(
+            source="fit", level=level, terms=f.terms, coefficients=np.array(f.coef),
+            s=f.s, dof=f.dof, n=f.n, fit_start=self.first_day, fit_end=self.last_day,
+            std_errors=f.std_errors, covariance=f.cov, xmean=np.array(f.xmean),
+            slope_inverse=np.array(f.slope_inverse), x_min=np.array(f.x_min),
+            x_max=np.array(f.x_max), r_squared=f.r_squared, adj_r_squared=f.adj_r_squared,
+            condition_number=f.condition_number, tau2=e.tau2, sigma_w2=e.sigma_w2,
+            dispersion=self.dispersion, cusum_k=c.k, cusum_h=c.h,
+            reference=self.days,
+            diagnostics={
+                "day_effects": {name: getattr(e, name) for name in DayEffects.__dataclass_fields__},
+                "day_effects_present": e.present(settings.day_effects_alpha),
+                "calibration": calibration_summary(c),
+                "days": len(self.days),
+                "tvalues": list(map(float, f.tvalues)), "pvalues": list(map(float, f.pvalues)),
+            },
+        )
+
+
+def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str, ...],
+               level: float, settings: CheckSettings) -> FittedVersion:
+    """Fit on rows ``(x, y)`` stamped with ``days`` and derive what the check needs."""
+    fit = fit_ols(x, y, names)
+    table = DayMoments.from_rows(days, np.column_stack([x, y]))
+    present = int((np.asarray(table.n) > 0).sum())
+    if present < settings.min_fit_days:
+        raise DegenerateDataError(
+            f"the fit window holds observations on {present} day(s); at least "
+            f"{settings.min_fit_days} are needed (setting check.min_fit_days), so that day-to-day "
+            "variation can be measured")
+    effects = day_effects_of_fit(table, fit.coef)
+    scores = PredictionModel.from_fit(fit).score(x, y, level)
+    misses = DayMoments.from_rows(days, (~scores.inside).astype(np.float64)[:, None])
+    dispersion = miss_dispersion(misses.n, misses.mean[:, 0] * misses.n)
+    design = ChartDesign.from_fit(fit, table, effects)
+    calibration = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
+                              guarantee=settings.cusum_guarantee)
+    first = _date(table.days[0])
+    last = _date(table.days[-1])
+    return FittedVersion(fit, effects, dispersion, calibration, table, first, last)
+
+
+@dataclass(frozen=True)
+class FitRequest:
+    name: str
+    data: Path | None = None
+    response: str | None = None
+    predictors: tuple[str, ...] = ()
+    time_column: str | None = None
+    id_column: str | None = None
+    start: date | None = None
+    end: date | None = None
+    level: float | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class FitReport:
+    model: ModelRecord
+    version: VersionRecord
+    fitted: FittedVersion
+    ingest: IngestSummary | None
+
+
+def fit_model(settings: Settings, request: FitRequest, *, now: datetime | None = None,
+              actor: str | None = None, progress: bool = False,
+              engine: Engine | None = None) -> FitReport:
+    """``model fit``: create the model if new, store the file's rows, fit, store the version."""
+    with database(settings, engine) as db:
+        return _fit_model(db, settings, request, now or datetime.now(UTC),
+                          actor or actor_name(), progress)
+
+
+def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: datetime,
+               actor: str, progress: bool) -> FitReport:
+    model_settings = settings.for_model(request.name)
+    with write_transaction(engine) as conn:
+        model = find_model(conn, request.name)
+        if model is None:
+            model = create_model(conn, _spec(request), now)
+        else:
+            same_columns(model, request.response, request.predictors, request.time_column,
+                         request.id_column)
+    summary = None
+    if request.data is not None:
+        options = options_for(settings, request.name, strict=False, progress=progress, now=now)
+        summary = ingest_file(engine, model, request.data, options)
+    level = request.level or model_settings.check.level
+    with engine.connect() as conn:
+        stored_days = load_day_stats(conn, model).moments.days
+        if len(stored_days) == 0:
+            raise StateError(f"model '{model.name}' has no stored observations to fit on; "
+                             "give --data FILE")
+        start = request.start or _date(stored_days[0])
+        end = request.end or _date(stored_days[-1])
+        if start > end:
+            raise InputError(f"--start {start} lies after --end {end}")
+        obs = load_observations(conn, model, start, end)
+    if len(obs.y) == 0:
+        raise StateError(f"model '{model.name}' has no observations between {start} and {end}")
+    fitted = fit_window(obs.x, obs.y, obs.days, model.predictors, level, model_settings.check)
+    new = fitted.to_new_version(level, model_settings.check)
+    with write_transaction(engine) as conn:
+        current = active_version(conn, model.id)
+        state = ACTIVE if current is None else CANDIDATE
+        active_from = fitted.last_day + timedelta(days=1) if current is None else None
+        version = insert_version(conn, model.id, new, state=state, active_from=active_from,
+                                 now=now, actor=actor)
+        audit.record(conn, action="fit", actor=actor, at=now, model_id=model.id,
+                     version_id=version.id, effective_day=active_from,
+                     details={"version": version.number, "state": state,
+                              "window": [fitted.first_day.isoformat(),
+                                         fitted.last_day.isoformat()]})
+    return FitReport(model, version, fitted, summary)
+
+
+def _spec(request: FitRequest) -> ModelSpec:
+    missing = [flag for flag, value in (("--y", request.response), ("--x", request.predictors),
+                                        ("--time", request.time_column)) if not value]
+    if missing:
+        raise InputError(f"model '{request.name}' does not exist yet; to create it give "
+                         + ", ".join(missing))
+    assert request.response and request.time_column
+    return ModelSpec(request.name, request.response, tuple(request.predictors),
+                     request.time_column, request.id_column)
+
+
+def same_columns(model: ModelRecord, response: str | None, predictors: tuple[str, ...],
+                 time_column: str | None, id_column: str | None) -> None:
+    """Refuse a request that names other columns than the stored model has."""
+    given = {"--y": (response, model.response),
+             "--x": (tuple(predictors) or None, model.predictors),
+             "--time": (time_column, model.time_column),
+             "--id": (id_column, model.id_column)}
+    for flag, (wanted, stored) in given.items():
+        if wanted is not None and wanted != stored:
+            raise StateError(f"model '{model.name}' already exists with {flag} {stored!r}; "
+                             f"got {wanted!r} (a model's columns cannot change; use a new name)")
+
+
+def _date(value: np.datetime64) -> date:
+    return date.fromisoformat(str(np.datetime64(value, "D")))
+
+
+def actor_name() -> str:
+    try:
+        return getpass.getuser()
+    except (KeyError, OSError):
+        return "unknown"

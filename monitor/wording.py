@@ -1,0 +1,133 @@
+"""Reasons as sentences a planning lead reads: in the model's own units, with the numbers."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from datetime import date
+
+import numpy as np
+from numpy.typing import NDArray
+
+from monitor.config import Wording
+from monitor.output import fmt, fmt_p, percent
+from monitor.stats.change import FTest
+from monitor.stats.coverage import CoverageTest
+from monitor.stats.decision import Finding, Verdict
+from monitor.stats.spread import SpreadTest
+
+
+@dataclass(frozen=True, eq=False)
+class Figures:
+    """The numbers behind one day's verdict."""
+
+    day: date
+    level: float
+    n: int
+    covered: int
+    window_days: int
+    window: CoverageTest | None
+    cusum_shift: float  # mean residual since the leading run began (response units)
+    cusum_onset: date | None
+    h: float
+    cusum_value: float  # the leading side's value
+    change_day: date | None
+    old_slopes: NDArray[np.float64]
+    new_slopes: NDArray[np.float64] | None
+    predictors: tuple[str, ...]
+    slope: FTest | None
+    spread: SpreadTest | None
+    since: date
+    held_since: date | None
+
+
+def _amount(value: float, words: Wording, response: str) -> str:
+    """'8.6 min' with a configured unit, else '8.6 (load_minutes)'."""
+    if words.y_unit:
+        return f"{fmt(abs(value), 2)} {words.y_unit}"
+    return f"{fmt(abs(value), 2)} ({response})"
+
+
+def _about(day: date | None) -> str:
+    return f" since about {day.isoformat()}" if day else ""
+
+
+def _coverage_today(f: Figures, words: Wording) -> str:
+    if f.n == 0:
+        return f"no {words.rows} were recorded on {f.day.isoformat()}"
+    noun = words.row if f.n == 1 else words.rows
+    return (f"{percent(f.covered / f.n)} of the {f.n} {noun} on {f.day.isoformat()} fell inside "
+            f"the {percent(f.level)} interval")
+
+
+def _window(f: Figures, words: Wording) -> str:
+    w = f.window
+    if w is None:
+        return ""
+    return (f"over the last {f.window_days} days {percent(w.coverage)} of {w.n} {words.rows} did "
+            f"(plausible range {percent(w.wilson_low)}–{percent(w.wilson_high)})")
+
+
+def _bias(finding: Finding, f: Figures, words: Wording, response: str) -> str:
+    direction = "above" if finding.kind == "upper" else "below"
+    if math.isfinite(f.cusum_shift):
+        lead = (f"{words.rows} have run {_amount(f.cusum_shift, words, response)} {direction} "
+                f"plan on average{_about(f.cusum_onset)}")
+    else:
+        lead = f"{words.rows} run {direction} plan"
+    if finding.level == "refit":
+        return (f"{lead}; the bias chart stands at {fmt(f.cusum_value, 2)}, over its limit of "
+                f"{fmt(f.h, 2)}")
+    return (f"{lead}; the bias chart stands at {fmt(f.cusum_value, 2)}, past half its limit of "
+            f"{fmt(f.h, 2)}")
+
+
+def _slopes(f: Figures, words: Wording, response: str) -> str:
+    test = f"slope test {fmt_p(f.slope.pvalue if f.slope else None)}"
+    if f.new_slopes is None:
+        return f"the slope has changed{_about(f.change_day)} ({test})"
+    parts = []
+    for name, old, new in zip(f.predictors, f.old_slopes, f.new_slopes, strict=True):
+        change = (new - old) / abs(old) if old else math.nan
+        pct = f" ({change * 100:+.0f} %)" if math.isfinite(change) else ""
+        adds = f"{fmt(new, 3)} {words.y_unit}" if words.y_unit else f"{fmt(new, 3)} to {response}"
+        parts.append(f"each {words.x_unit(name)} now adds {adds} instead of {fmt(old, 3)}{pct}")
+    return "; ".join(parts) + f"{_about(f.change_day)} ({test})"
+
+
+def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str:
+    if finding.signal == "bias":
+        return _bias(finding, f, words, response)
+    if finding.signal == "slope":
+        return _slopes(f, words, response)
+    if finding.signal == "coverage" and f.window is not None:
+        if finding.kind == "low":
+            return (f"intervals cover too rarely: {_window(f, words)}, "
+                    f"{fmt_p(f.window.pvalue_low)}")
+        return (f"intervals are wider than needed: {_window(f, words)}, "
+                f"{fmt_p(f.window.pvalue_high)}")
+    if finding.signal == "spread" and f.spread is not None:
+        return (f"the scatter around the line is {percent(f.spread.ratio - 1)} wider than at the "
+                f"fit ({fmt_p(f.spread.pvalue)})")
+    return f"{finding.signal} signal ({finding.level})"
+
+
+def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
+    """The day's reasons, strongest first; an ``ok`` day says what was seen."""
+    out = []
+    if verdict.held:
+        out.append(f"refit advised since {f.held_since.isoformat() if f.held_since else '—'}; "
+                   "this stands until a new version is promoted or the advice is acknowledged")
+    out.extend(_capital(_finding(x, f, words, response)) for x in verdict.findings)
+    today = _coverage_today(f, words)
+    if not verdict.findings:
+        chart = (f"the bias chart stands at {fmt(f.cusum_value, 2)} of its limit {fmt(f.h, 2)}"
+                 if f.cusum_value > 0 else "the bias chart is at zero")
+        out.append(_capital(f"no sign of change: {today}; {chart}"))
+    else:
+        out.append(_capital(today))
+    return out
+
+
+def _capital(text: str) -> str:
+    return text[:1].upper() + text[1:] if text else text
