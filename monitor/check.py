@@ -11,19 +11,16 @@ processing everything in order.
 from __future__ import annotations
 
 import logging
-from bisect import bisect_left, bisect_right
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, date, datetime, timedelta
 
-import numpy as np
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
 from monitor.errors import FitwatchError, StateError
-from monitor.evaluate import Carry, DayInput, VersionContext, evaluate_day
+from monitor.evaluate import Carry
 from monitor.progress import progress_bar
-from monitor.stats.moments import Moments
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.checks import (
@@ -38,10 +35,10 @@ from monitor.store.engine import write_transaction
 from monitor.store.models import ModelRecord, get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
 from monitor.store.versions import VersionRecord, scoring_versions
+from monitor.walk import HISTORY_DAYS, Subject, Timeline, walk
 
 log = logging.getLogger(__name__)
 BLOCK_DAYS = 31
-HISTORY_DAYS = 365  # how far back a change day is looked for
 
 
 @dataclass(frozen=True)
@@ -166,50 +163,19 @@ def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end
 def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
                  versions: list[VersionRecord], first: date, last: date,
                  now: datetime) -> list[DayCheck]:
+    """Load what the days ``first..last`` need (one query each), then walk them."""
     cs = settings.check
     carry = _carry_before(conn, model, first, cs.coverage_window_days)
     obs = load_observations(conn, model, first, last)
     stats_from = first - timedelta(days=max(cs.test_window_days - 1, HISTORY_DAYS))
     stored = load_day_stats(conn, model, stats_from, last)
-    stat_days = [_to_date(d) for d in stored.moments.days]
-    row_days = obs.days.astype("datetime64[D]")
-    resets = {e.effective_day for e in audit.entries(conn, model.id, ("ack",), from_day=first)
-              if e.effective_day is not None and e.effective_day <= last}
-    contexts: dict[int, VersionContext] = {}
-    previous_version: int | None = None
-    out = []
-    day = first
-    while day <= last:
-        version = _version_on(versions, day)
-        if version is None:
-            day += timedelta(days=1)
-            continue
-        if version.id not in contexts:
-            contexts[version.id] = VersionContext.build(version, cs)
-        ctx = contexts[version.id]
-        if (previous_version is not None and previous_version != version.id) \
-                or version.active_from == day:
-            carry = carry.restarted(new_version=True)
-        elif day in resets:
-            carry = carry.restarted(new_version=False)
-        previous_version = version.id
-        lo = np.searchsorted(row_days, np.datetime64(day, "D"), side="left")
-        hi = np.searchsorted(row_days, np.datetime64(day, "D"), side="right")
-        i = bisect_left(stat_days, day)
-        today_stats = stored.moments.day(i) if i < len(stat_days) and stat_days[i] == day \
-            else Moments.empty(stored.moments.dim)
-        upto = bisect_right(stat_days, day)
-        window_lo = max(day - timedelta(days=cs.test_window_days - 1), ctx.first_recent_day)
-        recent = stored.moments.select(slice(bisect_left(stat_days, window_lo), upto))
-        history_lo = max(day - timedelta(days=HISTORY_DAYS), ctx.first_recent_day)
-        history = stored.moments.select(slice(bisect_left(stat_days, history_lo), upto))
-        data = DayInput(day, obs.x[lo:hi], obs.y[lo:hi], today_stats,
-                        stored.revisions.get(day, 0), recent, history)
-        check, carry = evaluate_day(ctx, carry, data, cs, settings.words, model.response, now,
-                                    model.id, model.name)
-        out.append(check)
-        day += timedelta(days=1)
-    return out
+    timeline = Timeline(obs.days, obs.x, obs.y, stored.moments, stored.revisions)
+    resets = frozenset(e.effective_day for e in audit.entries(conn, model.id, ("ack",),
+                                                                from_day=first)
+                       if e.effective_day is not None and e.effective_day <= last)
+    subject = Subject(model.id, model.name, model.response, settings)
+    checks, _ = walk(subject, versions, timeline, first, last, carry, now=now, resets=resets)
+    return checks
 
 
 def _carry_before(conn: Connection, model: ModelRecord, day: date, window: int) -> Carry:
@@ -220,16 +186,3 @@ def _carry_before(conn: Connection, model: ModelRecord, day: date, window: int) 
                           day - timedelta(days=1))
     coverage_days = tuple((c.day, c.n, c.covered) for c in earlier)
     return Carry.after(previous, coverage_days)
-
-
-def _version_on(versions: list[VersionRecord], day: date) -> VersionRecord | None:
-    found = None
-    for v in versions:
-        if v.scores_day(day):
-            found = v
-    return found
-
-
-def _to_date(value: np.datetime64) -> date:
-    return date.fromisoformat(str(np.datetime64(value, "D")))
-

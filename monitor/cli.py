@@ -120,6 +120,20 @@ def build_parser() -> argparse.ArgumentParser:
     st.add_argument("names", metavar="NAME", nargs="*")
     json_flag(st)
 
+    rep = command("replay", "run the nightly checks over a history file (nothing is stored)",
+                  _cmd_replay)
+    rep.add_argument("name", metavar="NAME")
+    rep.add_argument("file", metavar="FILE")
+    rep.add_argument("--fit-end", metavar="DATE", type=_day,
+                     help="last day of the fit window (default: the first 60 days)")
+    rep.add_argument("--ack-each", action="store_true",
+                     help="acknowledge every refit the next day (to count how often it fires)")
+    rep.add_argument("--y", metavar="COL", help="response column (when NAME is not stored)")
+    rep.add_argument("--x", metavar="COL", action="append", default=[], help="predictor column")
+    rep.add_argument("--time", metavar="COL", help="time column")
+    rep.add_argument("--id", metavar="COL", help="observation id column")
+    json_flag(rep)
+
     demo = command("demo", "run the sample scenario end to end on an embedded SQLite file",
                    _cmd_demo)
     demo.add_argument("--dir", metavar="DIR", default="fitwatch-demo",
@@ -238,6 +252,21 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet")
     else:
         print("\n".join(s.sentence() for s in statuses))
+    return EXIT_OK
+
+
+def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.replay import replay
+    from monitor.store.models import ModelSpec
+
+    columns = None
+    if args.y or args.x or args.time:
+        if not (args.y and args.x and args.time):
+            raise UsageError("give all of --y, --x and --time (or none, to use the stored model)")
+        columns = ModelSpec(args.name, args.y, tuple(args.x), args.time, args.id)
+    report = replay(settings, args.name, Path(args.file), columns=columns,
+                    fit_end=args.fit_end, acknowledge_refits=args.ack_each)
+    print(dumps(report.as_dict()) if args.json else report.text())
     return EXIT_OK
 
 

@@ -50,8 +50,9 @@ def normalize_url(url: str) -> URL:
     if backend in ("postgres", "postgresql"):
         return parsed.set(drivername="postgresql+" + (driver or "psycopg"))
     if backend != "sqlite":
-        raise DatabaseError(f"unsupported database '{backend}' in {describe_url(parsed)}; "
-                            "fitwatch works with sqlite:/// files and postgresql:// servers")
+        raise DatabaseError(f"unsupported database '{backend}' in "
+                            f"{parsed.render_as_string(hide_password=True)}; fitwatch works "
+                            "with sqlite:/// files and postgresql:// servers")
     return parsed
 
 
@@ -100,6 +101,8 @@ def open_engine(url: str, *, create: bool = True) -> Engine:
 def _sqlite_engine(url: URL, create: bool) -> Engine:
     path = sqlite_path(url)
     if path is not None:
+        if not create and not path.exists():
+            raise DatabaseError(f"no database at {path}; run 'fitwatch init' first")
         if not path.parent.is_dir():
             raise DatabaseError(f"cannot create the database {path}: folder {path.parent} "
                                 "does not exist")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from datetime import date, datetime
+from types import SimpleNamespace
 from typing import Any
 
 import numpy as np
@@ -142,7 +143,21 @@ def insert_version(conn: Connection, model_id: int, new: NewVersion, *, state: s
                    active_from: date | None, now: datetime, actor: str) -> VersionRecord:
     number = (conn.execute(select(func.max(versions.c.number))
                            .where(versions.c.model_id == model_id)).scalar() or 0) + 1
-    values = {
+    values = _values(new, model_id, number, state, active_from, now, actor)
+    new_id = conn.execute(insert(versions).values(**values)).inserted_primary_key[0]
+    return get_version(conn, model_id, number, _id=new_id)
+
+
+def draft_record(new: NewVersion, *, model_id: int = 0, number: int = 1, state: str = ACTIVE,
+                 active_from: date | None, now: datetime, actor: str) -> VersionRecord:
+    """The record ``new`` would become once stored, without a database (for replay)."""
+    values = {"id": number, **_values(new, model_id, number, state, active_from, now, actor)}
+    return _record(SimpleNamespace(_mapping=values))
+
+
+def _values(new: NewVersion, model_id: int, number: int, state: str, active_from: date | None,
+            now: datetime, actor: str) -> dict[str, Any]:
+    return {
         "model_id": model_id, "number": number, "state": state, "source": new.source,
         "fit_start": new.fit_start, "fit_end": new.fit_end, "active_from": active_from,
         "active_until": None, "level": new.level, "n": new.n, "dof": new.dof, "s": new.s,
@@ -157,8 +172,6 @@ def insert_version(conn: Connection, model_id: int, new: NewVersion, *, state: s
         "diagnostics": jsonable(new.diagnostics), "created_at": now, "created_by": actor,
         "note": new.note,
     }
-    new_id = conn.execute(insert(versions).values(**values)).inserted_primary_key[0]
-    return get_version(conn, model_id, number, _id=new_id)
 
 
 def get_version(conn: Connection, model_id: int, number: int, *, _id: int | None = None,

@@ -1,0 +1,150 @@
+"""model fit / model import / model show / model list through the command line."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from sqlalchemy import Engine
+
+from monitor.cli import main
+from monitor.store.access import database
+from monitor.store.models import get_model
+from monitor.store.versions import active_version
+
+ROOT = Path(__file__).resolve().parents[1]
+HISTORY = ROOT / "demo_data" / "history.csv"
+FIT = ["model", "fit", "dock_loading", "--y", "load_minutes", "--x", "pallets",
+       "--time", "docked_at", "--id", "load_id"]
+
+
+@pytest.fixture
+def cli(engine: Engine, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+        ) -> Callable[..., tuple[int, str, str]]:
+    url = engine.url.render_as_string(hide_password=False)
+    config = tmp_path / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
+
+    def run(*argv: str) -> tuple[int, str, str]:
+        code = main(["--config", str(config), *argv])
+        captured = capsys.readouterr()
+        return code, captured.out, captured.err
+
+    run.config = config  # type: ignore[attr-defined]
+    return run
+
+
+def test_fit_creates_the_model_and_agrees_with_statsmodels(cli) -> None:
+    code, out, err = cli(*FIT, "--data", str(HISTORY), "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    frame = pd.read_csv(HISTORY)
+    ref = sm.OLS(frame["load_minutes"], sm.add_constant(frame["pallets"])).fit()
+    # statsmodels as the reference library for the stored fit
+    assert doc["coefficients"]["intercept"] == pytest.approx(ref.params["const"], rel=1e-10)
+    assert doc["coefficients"]["pallets"] == pytest.approx(ref.params["pallets"], rel=1e-10)
+    assert doc["std_errors"]["pallets"] == pytest.approx(ref.bse["pallets"], rel=1e-10)
+    assert doc["s"] == pytest.approx(np.sqrt(ref.scale), rel=1e-10)
+    assert doc["r_squared"] == pytest.approx(ref.rsquared, rel=1e-12)
+    assert (doc["n"], doc["dof"], doc["version"], doc["state"]) == (len(frame), len(frame) - 2,
+                                                                    1, "active")
+    assert doc["ingest"]["accepted"] == len(frame)
+    assert doc["active_from"] == "2026-03-08"  # the day after the last day with rows
+    assert doc["cusum"]["h"] > doc["cusum"]["h_known"]  # estimation error raises the limit
+
+
+def test_a_second_fit_is_a_candidate_and_windows_select_rows(cli) -> None:
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, out, _ = cli("model", "fit", "dock_loading", "--start", "2026-02-01", "--json")
+    doc = json.loads(out)
+    assert code == 0 and doc["version"] == 2 and doc["state"] == "candidate"
+    assert doc["fit_window"][0] >= "2026-02-01" and doc["active_from"] is None
+    code, out, _ = cli("model", "show", "dock_loading", "--json")
+    assert json.loads(out)["version"] == 1  # the active one
+    code, out, _ = cli("model", "list")
+    assert "dock_loading: load_minutes ~ pallets; v1 of 2; not checked yet" in out
+
+
+@pytest.mark.parametrize(("extra", "words"), [
+    (["model", "fit", "new_model", "--data", str(HISTORY)], "give --y, --x, --time"),
+    (["model", "fit", "dock_loading", "--y", "other"], "already exists with --y"),
+    (["model", "fit", "dock_loading", "--start", "2026-03-01", "--end", "2026-02-01"],
+     "lies after --end"),
+    (["model", "fit", "dock_loading", "--start", "2026-03-06"], "at least 5 are needed"),
+    (["model", "show", "dock_loading", "--version", "7"], "has no version 7"),
+    (["model", "show", "nope"], "no model"),
+])
+def test_fit_and_show_errors_say_what_to_fix(cli, extra: list[str], words: str) -> None:
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, _, err = cli(*extra)
+    assert code == 1 and words in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+
+
+def test_constant_predictor_is_named(cli, tmp_path: Path) -> None:
+    frame = pd.read_csv(HISTORY)
+    frame["pallets"] = 33
+    path = tmp_path / "full_trailers.csv"
+    frame.to_csv(path, index=False)
+    code, _, err = cli(*FIT, "--data", str(path))
+    assert code == 1 and "'pallets' is constant" in err
+
+
+def _import_file(tmp_path: Path, **override) -> Path:
+    """A model fitted by statsmodels on the demo history, described for 'model import'."""
+    frame = pd.read_csv(HISTORY)
+    ref = sm.OLS(frame["load_minutes"], sm.add_constant(frame["pallets"])).fit()
+    cov = ref.cov_params().to_numpy()
+    doc = {"response": "load_minutes", "predictors": ["pallets"], "time_column": "docked_at",
+           "id_column": "load_id", "s": float(np.sqrt(ref.scale)), "dof": int(ref.df_resid),
+           "coefficients": {"intercept": float(ref.params["const"]),
+                            "pallets": float(ref.params["pallets"])},
+           "covariance": cov.tolist(), "fit_end": "2026-03-08",
+           "ranges": {"pallets": [4.0, 33.0]}}
+    doc.update(override)
+    path = tmp_path / "fitted_elsewhere.json"
+    path.write_text(json.dumps(doc))
+    return path
+
+
+def test_imported_model_scores_like_statsmodels(cli, tmp_path: Path) -> None:
+    code, out, err = cli("model", "import", "dock_loading", str(_import_file(tmp_path)),
+                         "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["source"] == "import" and doc["active_from"] == "2026-03-09"
+    assert doc["warnings"] == ["no day-effect variances (tau2, sigma_w2): days are assumed "
+                               "independent"]
+    frame = pd.read_csv(HISTORY)
+    ref = sm.OLS(frame["load_minutes"], sm.add_constant(frame["pallets"])).fit()
+    x0 = np.array([4.0, 20.0, 33.0])
+    expected = ref.get_prediction(sm.add_constant(x0, has_constant="add")).summary_frame(0.05)
+    with database(_settings(cli.config)) as engine, engine.connect() as conn:
+        model = active_version(conn, get_model(conn, "dock_loading").id).prediction_model()
+    lower, upper = model.interval(x0, 0.95)
+    # statsmodels obs_ci as the reference: the imported covariance gives the leverage term
+    assert np.allclose(lower, expected["obs_ci_lower"], rtol=1e-9)
+    assert np.allclose(upper, expected["obs_ci_upper"], rtol=1e-9)
+
+
+def _settings(config: Path):
+    from monitor.config import load_settings
+
+    return load_settings(config)
+
+
+@pytest.mark.parametrize(("override", "words"), [
+    ({"colour": "red"}, "unknown key 'colour'"),
+    ({"coefficients": {"intercept": 1.0}}, "exactly the keys intercept, pallets"),
+    ({"covariance": [[1.0, 2.0], [3.0, 1.0]]}, "symmetric"),
+    ({"s": -1.0}, "must be positive"),
+    ({"dof": 2.5}, "'dof' must be an integer"),
+])
+def test_import_errors_name_the_problem(cli, tmp_path: Path, override, words: str) -> None:
+    code, _, err = cli("model", "import", "dock_loading", str(_import_file(tmp_path, **override)))
+    assert code == 1 and words in err, err
