@@ -34,7 +34,7 @@ class CheckSettings:
     test_window_days: int = 28
     cusum_k: float = 0.5
     cusum_arl_days: float = 1000.0
-    cusum_guarantee: float = 0.90
+    guarantee: float = 0.90
     cusum_unit: str = "day"
     refit_pvalue: float = 0.001
     watch_pvalue: float = 0.01
@@ -225,7 +225,7 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
         else:
             values[name] = r.number(sec, full, default, low=0.0)
     out = replace(base, **values)
-    for name in ("level", "cusum_guarantee", "refit_pvalue", "watch_pvalue",
+    for name in ("level", "guarantee", "refit_pvalue", "watch_pvalue",
                  "watch_cusum_fraction", "day_effects_alpha"):
         value = getattr(out, name)
         if not 0.0 < value < 1.0:

@@ -29,10 +29,11 @@ from monitor.stats.change import (
     slope_change_test,
     sup_f_test,
 )
-from monitor.stats.coverage import CoverageTest, coverage_test
+from monitor.stats.coverage import CoverageTest
 from monitor.stats.cusum import CusumState, tabular_cusum
 from monitor.stats.day_effects import DayEffects, day_residuals
 from monitor.stats.decision import OK, REFIT, Evidence, Policy, Verdict, decide
+from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.prediction import PredictionModel
@@ -57,6 +58,7 @@ class VersionContext:
     sigma_w2: float | None
     within_df: int | None
     dispersion: float
+    misses: GuardedMissLaw  # the in-control law of interval misses under day effects
     first_recent_day: date  # the recent window never reaches into the fit window
 
     @property
@@ -79,18 +81,27 @@ class VersionContext:
         h = version.cusum_h
         stored = diag.get("calibration", {})
         wanted = {"k": settings.cusum_k, "target_arl": settings.cusum_arl_days,
-                  "guarantee": settings.cusum_guarantee}
+                  "guarantee": settings.guarantee}
         if h is None or any(stored.get(key) != value for key, value in wanted.items()):
             h = calibrate_h(design, **wanted).h
         first_recent = (version.fit_end + timedelta(days=1) if version.fit_end
                         else version.active_from)
         assert first_recent is not None
-        return cls(version=version, model=version.prediction_model(), reference_days=reference,
+        model = version.prediction_model()
+        half_width = model.critical_value(version.level) * model.s
+        if effects is not None:
+            misses = GuardedMissLaw.around(effects.tau2, effects.sigma_w2, half_width,
+                                           spread_uncertainty(effects), settings.guarantee)
+        else:  # fitted elsewhere: the day effects given at import, else none
+            misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
+                                           1.0 / np.sqrt(2.0 * version.dof), settings.guarantee)
+        return cls(version=version, model=model, reference_days=reference,
                    design=design, h=float(h),
                    day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
                    sigma_w2=effects.sigma_w2 if effects else version.sigma_w2,
                    within_df=effects.df_within if effects else None,
-                   dispersion=version.dispersion or 1.0, first_recent_day=first_recent)
+                   dispersion=version.dispersion or 1.0, misses=misses,
+                   first_recent_day=first_recent)
 
 
 def imported_design(version: VersionRecord) -> ChartDesign:
@@ -169,8 +180,7 @@ class DayInput:
     day: date
     x: FloatArray  # (n, k) rows of the day
     y: FloatArray  # (n,)
-    stats: Moments  # the day's stored statistics (consistent with the rows)
-    revision: int
+    revision: int  # the day's day_stats revision (0: no rows stored)
     recent_days: DayMoments  # the recent window's day statistics, this day included
     history_days: DayMoments  # every monitored day of this version so far (at most a year)
 
@@ -196,28 +206,18 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     residuals = data.y - scores.predicted if scores else np.zeros(0)
     mean_residual = float(residuals.mean()) if n else float("nan")
 
-    # coverage over the rolling window ---------------------------------------------------
+    # coverage over the rolling window, then the bias CUSUM ------------------------------
     window = settings.coverage_window_days
     recent_cov = (*((d, m, c) for d, m, c in carry.coverage_days
                     if (data.day - d).days < window), (data.day, n, covered))
     w_rows = sum(m for _, m, _ in recent_cov)
     w_cov = sum(c for _, _, c in recent_cov)
-    cov = coverage_test(w_cov, w_rows, level, ctx.dispersion) if w_rows else None
-
-    # bias CUSUM ---------------------------------------------------------------------------
+    cov = (ctx.misses.test([m for _, m, _ in recent_cov], w_cov, level, ctx.dispersion)
+           if w_rows else None)
     carry = replace(carry, coverage_days=recent_cov)
     cusum_u, carry = _step_cusum(ctx, carry, data, residuals, settings)
     state = carry.cusum
-    signal = state.upper > ctx.h or state.lower > ctx.h
-    leading_upper = state.upper >= state.lower
-    onset = carry.upper_onset if leading_upper else carry.lower_onset
-    run_rows = carry.upper_rows if leading_upper else carry.lower_rows
-    run_resid = carry.upper_resid if leading_upper else carry.lower_resid
-    shift_units = run_resid / run_rows if run_rows else float("nan")
-    run = state.upper_run if leading_upper else state.lower_run
-    side_value = state.upper if leading_upper else state.lower
-    shift_std = ((settings.cusum_k + side_value / run) * (1 if leading_upper else -1)
-                 if run else float("nan"))
+    lead = _Leading.of(carry, settings.cusum_k)
 
     # slope, change date, spread over the recent window ------------------------------------
     with _quiet() as notes:
@@ -236,7 +236,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
-    bias_units, bias_from = shift_units, onset
+    bias_units, bias_from = lead.shift_units, lead.onset
     if verdict.findings:
         with _quiet() as more_notes:
             change_day, since_change = _since_change(ctx, data.history_days)
@@ -253,7 +253,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     figures = Figures(
         day=data.day, level=level, n=n, covered=covered, window_days=window,
         window=cov, cusum_shift=bias_units, cusum_onset=bias_from, h=ctx.h,
-        cusum_value=side_value, change_day=change_day,
+        cusum_value=lead.value, change_day=change_day,
         old_slopes=ctx.version.coefficients[1:], new_slopes=recent_fit,
         predictors=ctx.version.terms[1:], slope=slope, spread=spread, since=since,
         held_since=carry.status_since if verdict.held else None,
@@ -272,8 +272,9 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         coverage_p_high=cov.pvalue_high if cov else None,
         cusum_u=cusum_u, cusum_upper=state.upper, cusum_lower=state.lower,
         cusum_upper_run=state.upper_run, cusum_lower_run=state.lower_run, cusum_h=ctx.h,
-        cusum_signal=signal, cusum_onset=onset if run else None,
-        cusum_shift=shift_units if run else None,
+        cusum_signal=state.upper > ctx.h or state.lower > ctx.h,
+        cusum_onset=lead.onset if lead.run else None,
+        cusum_shift=lead.shift_units if lead.run else None,
         slope_statistic=slope.statistic if slope else None,
         slope_pvalue=slope.pvalue if slope else None,
         slope_method=slope.name if slope else None,
@@ -285,11 +286,36 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         spread_ratio=spread.ratio if spread else None,
         spread_pvalue=spread.pvalue if spread else None,
         status=verdict.status, status_since=since, reasons=reasons,
-        details=_details(carry, verdict, slope, classic, predictive, supf, spread, shift_std,
-                         recent_fit, notes),
+        details=_details(carry, verdict, slope, classic, predictive, supf, spread,
+                         lead.shift_std, recent_fit, notes),
         checked_at=now, model=model_name,
     )
     return check, carry
+
+
+@dataclass(frozen=True)
+class _Leading:
+    """The CUSUM side that stands higher: its value, run, onset and shift estimates."""
+
+    value: float
+    run: int
+    onset: date | None
+    shift_units: float  # mean residual over the run (response units)
+    shift_std: float  # Montgomery's ±(k + C/N), standardized units
+
+    @classmethod
+    def of(cls, carry: Carry, k: float) -> _Leading:
+        state = carry.cusum
+        if state.upper >= state.lower:
+            value, run, onset, rows, resid, sign = (state.upper, state.upper_run,
+                                                    carry.upper_onset, carry.upper_rows,
+                                                    carry.upper_resid, 1.0)
+        else:
+            value, run, onset, rows, resid, sign = (state.lower, state.lower_run,
+                                                    carry.lower_onset, carry.lower_rows,
+                                                    carry.lower_resid, -1.0)
+        return cls(value, run, onset, resid / rows if rows else float("nan"),
+                   sign * (k + value / run) if run else float("nan"))
 
 
 def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: FloatArray,

@@ -90,7 +90,7 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
     dispersion = miss_dispersion(misses.n, misses.mean[:, 0] * misses.n)
     design = ChartDesign.from_fit(fit, table, effects)
     calibration = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
-                              guarantee=settings.cusum_guarantee)
+                              guarantee=settings.guarantee)
     first = _date(table.days[0])
     last = _date(table.days[-1])
     return FittedVersion(fit, effects, dispersion, calibration, table, first, last)

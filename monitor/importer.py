@@ -165,7 +165,7 @@ def import_model(settings: Settings, name: str, path: Path, *, now: datetime | N
         draft = insert_version(conn, model.id, new, state=ACTIVE if current is None else CANDIDATE,
                                active_from=active_from, now=now, actor=actor)
         calibration = calibrate_h(imported_design(draft), k=cs.cusum_k,
-                                  target_arl=cs.cusum_arl_days, guarantee=cs.cusum_guarantee)
+                                  target_arl=cs.cusum_arl_days, guarantee=cs.guarantee)
         version = set_cusum(conn, draft, calibration)
         audit.record(conn, action="import", actor=actor, at=now, model_id=model.id,
                      version_id=version.id, effective_day=active_from,

@@ -30,6 +30,7 @@ class CoverageTest:
     wilson_high: float
     pvalue_low: float  # H1: coverage below target (intervals too narrow or model off)
     pvalue_high: float  # H1: coverage above target (intervals wider than needed)
+    method: str = "quasi-binomial"  # or "day-effects" (monitor.stats.misses.MissLaw.test)
 
     @property
     def coverage(self) -> float:

@@ -1,0 +1,130 @@
+"""The law of a window's interval misses under day effects, and why the decision uses it."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import integrate, stats
+
+from monitor.stats.coverage import coverage_test, miss_dispersion
+from monitor.stats.day_effects import day_effects
+from monitor.stats.misses import (
+    GuardedMissLaw,
+    MissLaw,
+    guaranteed_scale,
+    spread_uncertainty,
+)
+
+TAU, SIGMA, ROWS = 2.5, 5.0, 78
+HALF = 1.96 * np.hypot(TAU, SIGMA)
+
+
+# Without day effects a window's misses are binomial: scipy.stats.binom as the reference.
+@pytest.mark.parametrize("misses", [0, 20, 40, 60, 90])
+def test_without_day_effects_the_law_is_binomial(misses: int) -> None:
+    law = MissLaw(0.0, SIGMA**2, HALF)
+    p = 2 * stats.norm.sf(HALF / SIGMA)
+    rows = [70, 80, 0, 75]
+    total = sum(rows)
+    upper, lower = law.pvalues(rows, misses)
+    assert upper == pytest.approx(stats.binom.sf(misses - 1, total, p), rel=1e-9, abs=1e-15)
+    assert lower == pytest.approx(stats.binom.cdf(misses, total, p), rel=1e-9, abs=1e-15)
+
+
+# The marginal miss rate against direct numerical integration (scipy.integrate.quad) of
+# P(|a + w| > c) over a ~ N(0, tau²).
+def test_miss_rate_equals_direct_integration() -> None:
+    law = MissLaw(TAU**2, SIGMA**2, HALF)
+
+    def miss(a: float) -> float:
+        return (stats.norm.sf((HALF - a) / SIGMA) + stats.norm.cdf((-HALF - a) / SIGMA)) \
+            * stats.norm.pdf(a, 0, TAU)
+
+    expected = integrate.quad(miss, -12 * TAU, 12 * TAU)[0]
+    assert law.miss_rate == pytest.approx(expected, rel=1e-9)
+    assert law.miss_rate == pytest.approx(2 * stats.norm.sf(1.96), rel=1e-9)  # same total sd
+
+
+def _windows(rng: np.random.Generator, reps: int, days: int = 14) -> np.ndarray:
+    shocks = rng.normal(0, TAU, (reps, days))
+    noise = rng.normal(0, SIGMA, (reps, days, ROWS))
+    return (np.abs(shocks[:, :, None] + noise) > HALF).sum(axis=(1, 2))
+
+
+# Calibration by simulation of the random-effects model (common practice, no source): with the
+# true parameters the law's test keeps its level at 5 %, 1 % and 0.1 %, while the quasi-binomial
+# test (the Pearson dispersion of McCullagh & Nelder) rejects several times too often at 0.1 %.
+def test_the_law_keeps_its_level_where_the_quasi_binomial_tail_does_not() -> None:
+    rng = np.random.default_rng(5)
+    law = MissLaw(TAU**2, SIGMA**2, HALF)
+    training = _windows(rng, 20000, days=1)
+    phi = miss_dispersion(np.full(len(training), ROWS), training)
+    reps = 20000
+    misses = _windows(rng, reps)
+    n = 14 * ROWS
+    exact = np.array([law.pvalues([ROWS] * 14, int(m))[0] for m in misses])
+    quasi = np.array([coverage_test(int(n - m), n, 1 - law.miss_rate, phi).pvalue_low
+                      for m in misses])
+    for alpha in (0.05, 0.01, 0.001):
+        se = np.sqrt(alpha * (1 - alpha) / reps)
+        assert (exact < alpha).mean() < alpha + 4 * se
+    assert (exact < 0.05).mean() > 0.035  # a discrete test is conservative, but not grossly
+    assert (quasi < 0.001).mean() > 2.5 * 0.001  # measured 3.6x with 200k windows
+
+
+def test_tail_probabilities_match_simulation() -> None:
+    rng = np.random.default_rng(9)
+    law = MissLaw(TAU**2, SIGMA**2, HALF)
+    misses = _windows(rng, 40000, days=5)
+    for m in (20, 30, 40):
+        expected = law.pvalues([ROWS] * 5, m)[0]
+        observed = (misses >= m).mean()
+        assert abs(observed - expected) < 4 * np.sqrt(expected * (1 - expected) / 40000) + 1e-4
+
+
+# Searle, Casella & McCulloch (1992) §3.5 sampling laws, checked by simulating the ANOVA
+# estimators themselves: the delta-method sd of log(estimated total spread) is right.
+def test_spread_uncertainty_matches_simulated_estimators() -> None:
+    rng = np.random.default_rng(12)
+    days, rows = 60, 80
+    logs = []
+    for _ in range(1500):
+        shocks = rng.normal(0, TAU, days)
+        values = shocks[:, None] + rng.normal(0, SIGMA, (days, rows))
+        means = values.mean(axis=1)
+        ssw = ((values - means[:, None]) ** 2).sum(axis=1)
+        est = day_effects(np.full(days, rows), means, ssw)
+        logs.append(0.5 * np.log(est.tau2 + est.sigma_w2))
+    truth = day_effects(np.full(days, rows), np.zeros(days), np.full(days, 1.0))
+    truth = type(truth)(TAU**2, SIGMA**2, days, days * rows, rows, 0, 0, 0, 0)
+    assert spread_uncertainty(truth) == pytest.approx(np.std(logs, ddof=1), rel=0.1)
+
+
+def test_a_guaranteed_scale_expects_more_misses() -> None:
+    # lognormal quantile: P(log r <= z_g sd) = g (scipy.stats.norm as the reference)
+    assert guaranteed_scale(0.02, 0.9) == pytest.approx(np.exp(stats.norm.ppf(0.9) * 0.02))
+    sure = MissLaw(TAU**2, SIGMA**2, HALF)
+    wary = MissLaw(TAU**2, SIGMA**2, HALF, scale=guaranteed_scale(0.03, 0.9))
+    rows = [ROWS] * 14
+    assert wary.miss_rate > sure.miss_rate
+    assert wary.pvalues(rows, 90)[0] > sure.pvalues(rows, 90)[0]
+
+
+def test_guarded_law_is_wary_in_both_directions() -> None:
+    guarded = GuardedMissLaw.around(TAU**2, SIGMA**2, HALF, 0.03, 0.9)
+    plain = MissLaw(TAU**2, SIGMA**2, HALF)
+    rows = [ROWS] * 14
+    result = guarded.test(rows, sum(rows) - 90, 0.95)
+    assert result.pvalue_low == guarded.wide.pvalues(rows, 90)[0] > plain.pvalues(rows, 90)[0]
+    few = guarded.test(rows, sum(rows) - 25, 0.95)
+    assert few.pvalue_high == guarded.narrow.pvalues(rows, 25)[1] > plain.pvalues(rows, 25)[1]
+
+
+def test_test_returns_a_coverage_result_with_the_exact_pvalues() -> None:
+    law = MissLaw(TAU**2, SIGMA**2, HALF)
+    result = law.test([80, 70, 0], 140, 0.95, dispersion=2.0)
+    assert result.method == "day-effects" and result.n == 150 and result.covered == 140
+    assert (result.pvalue_low, result.pvalue_high) == law.pvalues([80, 70], 10)
+    assert result.wilson_low < result.coverage < result.wilson_high
+    with pytest.raises(ValueError):
+        law.pvalues([10], 11)
