@@ -34,7 +34,7 @@ class CheckSettings:
     test_window_days: int = 28
     cusum_k: float = 0.5
     cusum_arl_days: float = 1000.0
-    guarantee: float = 0.90
+    guarantee: float = 0.95
     cusum_unit: str = "day"
     refit_pvalue: float = 0.001
     watch_pvalue: float = 0.01
