@@ -19,7 +19,7 @@ parameters (measured; see tests/stats/test_misses.py). This law gets the tail ri
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from functools import lru_cache
 
 import numpy as np
@@ -41,8 +41,6 @@ class MissLaw:
     sigma_w2: float
     half_width: float
     scale: float = 1.0  # true spread / estimated spread assumed by the law
-    _cache: dict[int, FloatArray] = field(default_factory=dict, compare=False, repr=False,
-                                          hash=False)
 
     def __post_init__(self) -> None:
         if self.tau2 < 0 or self.sigma_w2 < 0 or self.tau2 + self.sigma_w2 <= 0:
@@ -55,7 +53,8 @@ class MissLaw:
     @property
     def miss_rate(self) -> float:
         """The expected share of rows outside their interval under this law."""
-        return float(self._miss_probabilities() @ _shock_weights())
+        return float(_miss_probabilities(self.tau2, self.sigma_w2, self.half_width, self.scale)
+                     @ _shock_weights())
 
     def pvalues(self, day_rows: ArrayLike, misses: int) -> tuple[float, float]:
         """``P(M >= misses)`` and ``P(M <= misses)`` for a window with these rows per day."""
@@ -68,8 +67,10 @@ class MissLaw:
             return float("nan"), float("nan")
         pmf = np.ones(1)
         for n in rows:
-            pmf = np.convolve(pmf, self._day_pmf(int(n)))
-        return float(min(pmf[misses:].sum(), 1.0)), float(min(pmf[:misses + 1].sum(), 1.0))
+            pmf = np.convolve(pmf, _day_pmf(self.tau2, self.sigma_w2, self.half_width,
+                                            self.scale, int(n)))
+        upper = float(pmf[misses:].sum()) if misses < len(pmf) else 0.0
+        return min(upper, 1.0), float(min(pmf[:misses + 1].sum(), 1.0))
 
     def test(self, day_rows: ArrayLike, covered: int, target: float, dispersion: float = 1.0,
              level: float = 0.95) -> CoverageTest:
@@ -82,25 +83,41 @@ class MissLaw:
         low, high = self.pvalues(day_rows, rows - covered)
         return replace(quasi, pvalue_low=low, pvalue_high=high, method="day-effects")
 
-    def _day_pmf(self, n: int) -> FloatArray:
-        """The law of a day's misses among ``n`` rows (cached per ``n``)."""
-        if n not in self._cache:
-            k = np.arange(n + 1)
-            pmf = stats.binom.pmf(k[:, None], n, self._miss_probabilities()[None, :])
-            pmf = pmf @ _shock_weights()
-            self._cache[n] = pmf / pmf.sum()
-        return self._cache[n]
 
-    def _miss_probabilities(self) -> FloatArray:
-        """The miss probability of a row, given the day's shock at each quadrature node."""
-        x, _ = _hermite()
-        tau, sw = np.sqrt(self.tau2) * self.scale, np.sqrt(self.sigma_w2) * self.scale
-        shocks = np.sqrt(2.0) * tau * x
-        if sw == 0:
-            return (np.abs(shocks) > self.half_width).astype(np.float64)
-        upper = stats.norm.sf((self.half_width - shocks) / sw)
-        lower = stats.norm.cdf((-self.half_width - shocks) / sw)
-        return np.clip(upper + lower, 0.0, 1.0)
+@lru_cache(maxsize=4096)
+def _day_pmf(tau2: float, sigma_w2: float, half_width: float, scale: float,
+             n: int) -> FloatArray:
+    """The law of a day's misses among ``n`` rows: a binomial mixed over the day's shock.
+
+    Computed in logs (log-gamma binomial coefficients) and cut where the remaining upper tail
+    is below 1e-18 of the mass; cached, since the same law meets the same day sizes nightly.
+    """
+    p = _miss_probabilities(tau2, sigma_w2, half_width, scale)
+    k = np.arange(n + 1, dtype=np.float64)
+    log_coef = special.gammaln(n + 1) - special.gammaln(k + 1) - special.gammaln(n - k + 1)
+    with np.errstate(divide="ignore"):
+        log_pmf = (log_coef[:, None] + special.xlogy(k[:, None], p[None, :])
+                   + special.xlog1py((n - k)[:, None], -p[None, :]))
+    pmf = np.exp(log_pmf) @ _shock_weights()
+    pmf /= pmf.sum()
+    tail = np.cumsum(pmf[::-1])[::-1]
+    keep = int(np.searchsorted(-tail, -1e-18, side="right"))
+    out = pmf[:max(keep, 1)].copy()
+    out.setflags(write=False)
+    return out
+
+
+def _miss_probabilities(tau2: float, sigma_w2: float, half_width: float,
+                        scale: float) -> FloatArray:
+    """The miss probability of a row, given the day's shock at each quadrature node."""
+    x, _ = _hermite()
+    tau, sw = np.sqrt(tau2) * scale, np.sqrt(sigma_w2) * scale
+    shocks = np.sqrt(2.0) * tau * x
+    if sw == 0:
+        return (np.abs(shocks) > half_width).astype(np.float64)
+    upper = stats.norm.sf((half_width - shocks) / sw)
+    lower = stats.norm.cdf((-half_width - shocks) / sw)
+    return np.clip(upper + lower, 0.0, 1.0)
 
 
 @lru_cache(maxsize=1)
