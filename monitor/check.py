@@ -18,7 +18,7 @@ from datetime import UTC, date, datetime, timedelta
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
-from monitor.errors import FitwatchError, StateError
+from monitor.errors import FitwatchError, InputError, StateError
 from monitor.evaluate import Carry
 from monitor.progress import progress_bar
 from monitor.store import audit
@@ -83,7 +83,11 @@ def run_checks(settings: Settings, names: Sequence[str] | None = None, *,
     result and does not stop the others.
     """
     now = now or datetime.now(UTC)
-    end = day or through or (local_today(now, settings) - timedelta(days=1))
+    today = local_today(now, settings)
+    end = day or through or (today - timedelta(days=1))
+    if end >= today:
+        raise InputError(f"{end} is not over yet in {settings.timezone.key} (today is {today}); "
+                         "checks run on complete days, through yesterday at the latest")
     with database(settings, engine) as db:
         return CheckOutcome(tuple(_check_all(db, settings, names, day, end, now, progress)))
 

@@ -16,7 +16,7 @@ from typing import Any
 
 from monitor import __version__
 from monitor.config import Settings, load_settings
-from monitor.errors import FitwatchError
+from monitor.errors import FitwatchError, UsageError
 from monitor.output import dumps
 from monitor.progress import wants_progress
 
@@ -25,15 +25,11 @@ log = logging.getLogger("monitor")
 EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_THRESHOLD = 0, 1, 2, 3
 
 
-class UsageError(FitwatchError):
-    pass
-
-
 class _Parser(argparse.ArgumentParser):
     """argparse that raises instead of exiting, so usage errors follow the same path."""
 
     def error(self, message: str) -> None:  # type: ignore[override]
-        raise UsageError(f"{self.prog}: {message} (see '{self.prog} --help')")
+        raise UsageError(f"{message} (see '{self.prog} --help')")
 
 
 def _day(text: str) -> date:

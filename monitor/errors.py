@@ -33,6 +33,10 @@ class ConfigError(FitwatchError):
         self.key = key
 
 
+class UsageError(FitwatchError):
+    """The command line was used wrongly (unknown command, missing or malformed argument)."""
+
+
 class InputError(FitwatchError):
     """A data file or argument cannot be used as given."""
 

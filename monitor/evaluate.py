@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from monitor.calendar_days import as_date
 from monitor.config import CheckSettings, Wording
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
 from monitor.stats.calibration import ChartDesign, calibrate_h, standardize_days
@@ -374,7 +375,7 @@ def _change_tests(ctx: VersionContext, recent: DayMoments
     if ctx.day_effects:
         decision = clustered_change_test(ctx.reference_days, present, restriction="slopes",
                                          smaller_window_df=True)
-    sample = _concat_days(ctx.reference_days, present)
+    sample = ctx.reference_days.then(present)
     candidates = nightly_candidates(sample.n, len(ctx.reference_days))
     supf = sup_f_test(sample, candidates) if len(candidates) else None
     return decision, chow, classic, predictive, supf, _slopes(total)
@@ -391,7 +392,7 @@ def _since_change(ctx: VersionContext, history: DayMoments
     present = history.select(np.asarray(history.n) > 0)
     if len(present) < 2:
         return None, None
-    sample = _concat_days(ctx.reference_days, present)
+    sample = ctx.reference_days.then(present)
     first = max(len(ctx.reference_days) - 1, 0)
     candidates = np.arange(first, len(sample) - 1)
     result = sup_f_test(sample, candidates)
@@ -399,7 +400,7 @@ def _since_change(ctx: VersionContext, history: DayMoments
         return None, None
     after = present.select(np.asarray(present.days) > np.asarray(result.last_day))
     merged = DayMoments.stack([after.days[0]], [after.total()], after.dim)
-    return _as_date(result.first_new_day), merged
+    return as_date(result.first_new_day), merged
 
 
 def _slopes(window: Moments) -> FloatArray | None:
@@ -414,19 +415,6 @@ def _spread(ctx: VersionContext, recent: DayMoments) -> SpreadTest | None:
         return None
     resid = day_residuals(recent, ctx.version.coefficients)
     return spread_test(resid, ctx.model.s, ctx.model.dof, ctx.sigma_w2, ctx.within_df)
-
-
-def _concat_days(a: DayMoments, b: DayMoments) -> DayMoments:
-    return DayMoments(np.concatenate([a.days, b.days]), np.concatenate([a.n, b.n]),
-                      np.concatenate([a.mean, b.mean]), np.concatenate([a.comoment, b.comoment]),
-                      np.concatenate([a.minimum, b.minimum]),
-                      np.concatenate([a.maximum, b.maximum]))
-
-
-def _as_date(value: Any) -> date:
-    if isinstance(value, date):
-        return value
-    return date.fromisoformat(str(np.datetime64(value, "D")))
 
 
 def _details(carry: Carry, verdict: Verdict, slope: FTest | None, classic: FTest | None,
@@ -456,7 +444,7 @@ def _details(carry: Carry, verdict: Verdict, slope: FTest | None, classic: FTest
             "statistic": supf.statistic, "pvalue": supf.pvalue, "bound": supf.pvalue_bound,
             "q": supf.q, "lambda_bounds": list(supf.lambda_bounds),
             "first_new_day": None if supf.first_new_day is None
-            else _as_date(supf.first_new_day).isoformat()},
+            else as_date(supf.first_new_day).isoformat()},
         "spread": None if spread is None else {
             "ratio": spread.ratio, "statistic": spread.statistic, "df_num": spread.df_num,
             "df_den": spread.df_den, "pvalue": spread.pvalue,

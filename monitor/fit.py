@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 from sqlalchemy import Engine
 
+from monitor.calendar_days import as_date
 from monitor.config import CheckSettings, Settings
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
@@ -91,8 +92,8 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
     design = ChartDesign.from_fit(fit, table, effects)
     calibration = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
                               guarantee=settings.guarantee)
-    first = _date(table.days[0])
-    last = _date(table.days[-1])
+    first = as_date(table.days[0])
+    last = as_date(table.days[-1])
     return FittedVersion(fit, effects, dispersion, calibration, table, first, last)
 
 
@@ -146,8 +147,8 @@ def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: dat
         if len(stored_days) == 0:
             raise StateError(f"model '{model.name}' has no stored observations to fit on; "
                              "give --data FILE")
-        start = request.start or _date(stored_days[0])
-        end = request.end or _date(stored_days[-1])
+        start = request.start or as_date(stored_days[0])
+        end = request.end or as_date(stored_days[-1])
         if start > end:
             raise InputError(f"--start {start} lies after --end {end}")
         obs = load_observations(conn, model, start, end)
@@ -191,10 +192,6 @@ def same_columns(model: ModelRecord, response: str | None, predictors: tuple[str
         if wanted is not None and wanted != stored:
             raise StateError(f"model '{model.name}' already exists with {flag} {stored!r}; "
                              f"got {wanted!r} (a model's columns cannot change; use a new name)")
-
-
-def _date(value: np.datetime64) -> date:
-    return date.fromisoformat(str(np.datetime64(value, "D")))
 
 
 def actor_name() -> str:

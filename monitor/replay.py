@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 from sqlalchemy.exc import SQLAlchemyError
 
+from monitor.calendar_days import as_date
 from monitor.check_view import day_document
 from monitor.config import Settings
 from monitor.errors import DatabaseError, InputError, StateError
@@ -25,11 +26,12 @@ from monitor.ingest.frame import FileRows, read_rows
 from monitor.ingest.service import options_for
 from monitor.output import fmt
 from monitor.stats.decision import REFIT, WATCH
+from monitor.status import VersionView
 from monitor.store.access import database
 from monitor.store.checks import DayCheck
 from monitor.store.models import ModelRecord, ModelSpec, find_model
 from monitor.store.versions import VersionRecord, draft_record
-from monitor.walk import Subject, Timeline, as_date, walk
+from monitor.walk import Subject, Timeline, walk
 
 DEFAULT_FIT_DAYS = 60
 
@@ -73,8 +75,6 @@ class ReplayReport:
         return {s: sum(c.status == s for c in self.checks) for s in ("ok", WATCH, REFIT)}
 
     def as_dict(self) -> dict[str, Any]:
-        from monitor.status import VersionView
-
         return {
             "model": self.model.name, "source": self.rows.source,
             "rows": {"read": self.rows.read, "used": self.rows.accepted,

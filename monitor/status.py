@@ -11,6 +11,7 @@ from sqlalchemy import Engine
 
 from monitor.check import local_today
 from monitor.config import Settings
+from monitor.errors import StateError
 from monitor.output import fmt
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check
@@ -141,7 +142,6 @@ def show_version(settings: Settings, name: str, number: int | None = None, *,
             if version is None:
                 versions = list_versions(conn, model.id)
                 if not versions:
-                    from monitor.errors import StateError
                     raise StateError(f"model '{name}' has no fitted version yet")
                 version = versions[-1]
         else:

@@ -15,6 +15,7 @@ from datetime import date, datetime, timedelta
 import numpy as np
 from numpy.typing import NDArray
 
+from monitor.calendar_days import as_date
 from monitor.config import ModelSettings
 from monitor.evaluate import Carry, DayInput, VersionContext, evaluate_day
 from monitor.stats.decision import REFIT
@@ -115,9 +116,3 @@ def walk(subject: Subject, versions: Sequence[VersionRecord], timeline: Timeline
             out.append(check)
         day += timedelta(days=1)
     return out, carry
-
-
-def as_date(value: np.datetime64 | date) -> date:
-    if isinstance(value, date):
-        return value
-    return date.fromisoformat(str(np.datetime64(value, "D")))

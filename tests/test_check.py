@@ -22,6 +22,7 @@ from sqlalchemy import Engine, select
 from monitor.check import run_checks
 from monitor.cli import main
 from monitor.config import Settings
+from monitor.errors import InputError
 from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
 from monitor.scenario import Scenario, generate_day
@@ -259,3 +260,10 @@ def test_checks_are_stored_with_every_figure(world: World) -> None:
     assert last.cusum_h > 0 and last.slope_pvalue is not None and last.chow_pvalue is not None
     assert last.spread_ratio is not None and last.slope_method in ("slope", "slope-cr1")
     assert last.details["findings"] is not None and last.reasons
+
+
+def test_a_day_that_is_not_over_cannot_be_checked(world: World,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    with pytest.raises(InputError, match="is not over yet in Europe/Berlin"):
+        run_checks(world.settings, [MODEL], day=date(2026, 3, 20),
+                   now=datetime(2026, 3, 20, 12, tzinfo=UTC), engine=world.engine)

@@ -211,6 +211,10 @@ class DayMoments:
         return DayMoments(self.days[index], self.n[index], self.mean[index],
                           self.comoment[index], self.minimum[index], self.maximum[index])
 
+    def then(self, later: DayMoments) -> DayMoments:
+        """These days followed by ``later``'s (no merging: entries are appended)."""
+        return _concat(self, later)
+
     def total(self) -> Moments:
         """All days merged into one :class:`Moments`."""
         if len(self) == 0:
