@@ -116,6 +116,22 @@ def build_parser() -> argparse.ArgumentParser:
     st.add_argument("names", metavar="NAME", nargs="*")
     json_flag(st)
 
+    pro = command("promote", "make a candidate version the active one from the next "
+                  "unchecked day", _cmd_transition)
+    pro.add_argument("name", metavar="NAME")
+    pro.add_argument("number", metavar="N", type=int)
+    pro.add_argument("--reason", metavar="TEXT", help="why (kept in the audit log)")
+    json_flag(pro)
+    back = command("rollback", "bring back the previously active version", _cmd_transition)
+    back.add_argument("name", metavar="NAME")
+    back.add_argument("--reason", metavar="TEXT", help="why (kept in the audit log)")
+    json_flag(back)
+    ack = command("ack", "acknowledge the current advice (the bias chart restarts)",
+                  _cmd_transition)
+    ack.add_argument("name", metavar="NAME")
+    ack.add_argument("--reason", metavar="TEXT", help="why (kept in the audit log)")
+    json_flag(ack)
+
     rep = command("replay", "run the nightly checks over a history file (nothing is stored)",
                   _cmd_replay)
     rep.add_argument("name", metavar="NAME")
@@ -248,6 +264,19 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet")
     else:
         print("\n".join(s.sentence() for s in statuses))
+    return EXIT_OK
+
+
+def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.refit import acknowledge, promote, rollback
+
+    if args.command == "promote":
+        result = promote(settings, args.name, args.number, reason=args.reason)
+    elif args.command == "rollback":
+        result = rollback(settings, args.name, reason=args.reason)
+    else:
+        result = acknowledge(settings, args.name, reason=args.reason)
+    print(dumps(result.as_dict()) if args.json else result.sentence())
     return EXIT_OK
 
 

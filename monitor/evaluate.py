@@ -144,6 +144,7 @@ class Carry:
     status: str
     status_since: date | None
     coverage_days: tuple[tuple[date, int, int], ...]  # (day, rows, covered), oldest first
+    fresh_from: date | None = None  # windows count days from here (last restart), if set
 
     @classmethod
     def initial(cls) -> Carry:
@@ -151,25 +152,28 @@ class Carry:
 
     @classmethod
     def after(cls, check: DayCheck, coverage_days: tuple[tuple[date, int, int], ...]) -> Carry:
+        """The state after a stored check; ``coverage_days`` are the checks before it."""
         d = check.details.get("cusum", {})
+        fresh = _day(check.details.get("fresh_from"))
+        kept = tuple(c for c in coverage_days if fresh is None or c[0] >= fresh)
         return cls(
             CusumState(check.cusum_upper, check.cusum_lower, check.cusum_upper_run,
                        check.cusum_lower_run),
             _day(d.get("upper_onset")), _day(d.get("lower_onset")),
             float(d.get("upper_resid", 0.0)), int(d.get("upper_rows", 0)),
             float(d.get("lower_resid", 0.0)), int(d.get("lower_rows", 0)),
-            check.status, check.status_since, coverage_days)
+            check.status, check.status_since, kept, fresh)
 
-    def restarted(self, *, new_version: bool) -> Carry:
-        """The CUSUM back at zero and any held refit released.
+    def restarted(self, day: date) -> Carry:
+        """Everything starts afresh on ``day`` (a promotion or an acknowledgement takes effect).
 
-        At a promotion (``new_version``) the coverage window starts afresh as well, since the
-        earlier days were scored against other intervals; an acknowledgement keeps it.
+        The CUSUM is back at zero, a held refit is released, and the coverage and test windows
+        count only days from ``day``: evidence that was acted upon is not counted twice.
         """
         return replace(self, cusum=CusumState.zero(), upper_onset=None, lower_onset=None,
                        upper_resid=0.0, upper_rows=0, lower_resid=0.0, lower_rows=0,
-                       status=OK if self.status == REFIT else self.status,
-                       coverage_days=() if new_version else self.coverage_days)
+                       status=OK if self.status == REFIT else self.status, coverage_days=(),
+                       fresh_from=day)
 
 
 def _day(value: Any) -> date | None:
@@ -428,6 +432,7 @@ def _details(carry: Carry, verdict: Verdict, slope: FTest | None, classic: FTest
                 "reason": t.reason}
 
     return {
+        "fresh_from": carry.fresh_from.isoformat() if carry.fresh_from else None,
         "cusum": {
             "upper_onset": carry.upper_onset.isoformat() if carry.upper_onset else None,
             "lower_onset": carry.lower_onset.isoformat() if carry.lower_onset else None,

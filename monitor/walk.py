@@ -50,12 +50,15 @@ class Timeline:
         stats = DayMoments.from_rows(d, np.column_stack([xs, ys]))
         return cls(d, xs, ys, stats, {as_date(day): 1 for day in stats.days})
 
-    def day_input(self, day: date, ctx: VersionContext, test_window_days: int) -> DayInput:
+    def day_input(self, day: date, ctx: VersionContext, test_window_days: int,
+                  fresh_from: date | None = None) -> DayInput:
+        """What evaluating ``day`` reads; test windows start no earlier than ``fresh_from``."""
         key = np.datetime64(day, "D")
         lo = int(np.searchsorted(self.row_days, key, side="left"))
         hi = int(np.searchsorted(self.row_days, key, side="right"))
         upto = bisect_right(self.stat_days, day)
-        window_lo = max(day - timedelta(days=test_window_days - 1), ctx.first_recent_day)
+        window_lo = max(day - timedelta(days=test_window_days - 1), ctx.first_recent_day,
+                        fresh_from or ctx.first_recent_day)
         history_lo = max(day - timedelta(days=HISTORY_DAYS), ctx.first_recent_day)
         return DayInput(
             day, self.x[lo:hi], self.y[lo:hi], self.revisions.get(day, 0),
@@ -104,15 +107,14 @@ def walk(subject: Subject, versions: Sequence[VersionRecord], timeline: Timeline
             if version.id not in contexts:
                 contexts[version.id] = VersionContext.build(version, cs)
             ctx = contexts[version.id]
-            if (previous is not None and previous != version.id) or version.active_from == day:
-                carry = carry.restarted(new_version=True)
-            elif day in resets or (acknowledge_refits and carry.status == REFIT):
-                carry = carry.restarted(new_version=False)
+            took_over = (previous is not None and previous != version.id) \
+                or version.active_from == day
+            if took_over or day in resets or (acknowledge_refits and carry.status == REFIT):
+                carry = carry.restarted(day)
             previous = version.id
-            check, carry = evaluate_day(ctx, carry, timeline.day_input(day, ctx,
-                                                                       cs.test_window_days),
-                                        cs, subject.settings.words, subject.response, now,
-                                        subject.model_id, subject.name)
+            data = timeline.day_input(day, ctx, cs.test_window_days, carry.fresh_from)
+            check, carry = evaluate_day(ctx, carry, data, cs, subject.settings.words,
+                                        subject.response, now, subject.model_id, subject.name)
             out.append(check)
         day += timedelta(days=1)
     return out, carry

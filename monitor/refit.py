@@ -1,0 +1,171 @@
+"""Acting on the advice: promote a candidate, roll back, or acknowledge.
+
+Each action takes effect on the model's next unchecked day and is written to the audit log with
+who, when and why, so that re-evaluating old days (late rows) replays the same history: the
+version in force on each day, and the days on which the bias chart restarted.
+
+A version scores one unbroken run of days. Rolling back therefore stores a copy of the earlier
+version under a new number rather than reopening the old one's run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields
+from datetime import UTC, date, datetime, timedelta
+from typing import Any
+
+from sqlalchemy import Connection, Engine
+
+from monitor.config import Settings
+from monitor.errors import StateError
+from monitor.fit import actor_name
+from monitor.stats.decision import OK
+from monitor.stats.moments import DayMoments
+from monitor.store import audit
+from monitor.store.access import database
+from monitor.store.checks import last_check
+from monitor.store.engine import write_transaction
+from monitor.store.models import ModelRecord, get_model
+from monitor.store.versions import (
+    ACTIVE,
+    CANDIDATE,
+    RETIRED,
+    NewVersion,
+    VersionRecord,
+    active_version,
+    get_version,
+    insert_version,
+    list_versions,
+    set_state,
+)
+
+
+@dataclass(frozen=True)
+class Transition:
+    """What an action changed, for the log and for people."""
+
+    model: str
+    action: str  # promote | rollback | ack
+    effective_day: date
+    active: int | None  # the version in force from effective_day
+    previous: int | None  # the version in force before it
+    reason: str | None
+    actor: str
+
+    def as_dict(self) -> dict[str, Any]:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+    def sentence(self) -> str:
+        why = f" ({self.reason})" if self.reason else ""
+        if self.action == "ack":
+            return (f"{self.model}: advice acknowledged by {self.actor}{why}; the bias chart "
+                    f"restarts on {self.effective_day}")
+        verb = "promoted" if self.action == "promote" else "rolled back to"
+        return (f"{self.model}: version {self.active} {verb} by {self.actor}{why}; it scores days "
+                f"from {self.effective_day} (version {self.previous} scored the days before)")
+
+
+def promote(settings: Settings, name: str, number: int, *, reason: str | None = None,
+            now: datetime | None = None, actor: str | None = None,
+            engine: Engine | None = None) -> Transition:
+    """Make candidate version ``number`` the active one from the next unchecked day."""
+    now, actor = now or datetime.now(UTC), actor or actor_name()
+    with database(settings, engine) as db, write_transaction(db) as conn:
+        model = get_model(conn, name)
+        candidate = get_version(conn, model.id, number, model_name=name)
+        if candidate.state != CANDIDATE:
+            raise StateError(f"version {number} of '{name}' is {candidate.state}, not a "
+                             "candidate; only candidates can be promoted")
+        current = _active(conn, model)
+        day = _next_day(conn, model, current)
+        if candidate.fit_end is not None:
+            day = max(day, candidate.fit_end + timedelta(days=1))
+        _hand_over(conn, current, candidate, day)
+        audit.record(conn, action="promote", actor=actor, at=now, model_id=model.id,
+                     reason=reason, version_id=candidate.id, effective_day=day,
+                     details={"version": number, "previous": current.number})
+    return Transition(name, "promote", day, number, current.number, reason, actor)
+
+
+def rollback(settings: Settings, name: str, *, reason: str | None = None,
+             now: datetime | None = None, actor: str | None = None,
+             engine: Engine | None = None) -> Transition:
+    """Bring back the version that was active before the current one (as a new number)."""
+    now, actor = now or datetime.now(UTC), actor or actor_name()
+    with database(settings, engine) as db, write_transaction(db) as conn:
+        model = get_model(conn, name)
+        current = _active(conn, model)
+        earlier = [v for v in list_versions(conn, model.id)
+                   if v.active_from is not None and v.id != current.id
+                   and (current.active_from is None or v.active_from <= current.active_from)]
+        if not earlier:
+            raise StateError(f"'{name}' has had no other active version to roll back to")
+        target = max(earlier, key=lambda v: (v.active_from, v.number))
+        day = _next_day(conn, model, current)
+        copy = insert_version(conn, model.id, _copy_of(target), state=CANDIDATE,
+                              active_from=None, now=now, actor=actor)
+        _hand_over(conn, current, copy, day)
+        audit.record(conn, action="rollback", actor=actor, at=now, model_id=model.id,
+                     reason=reason, version_id=copy.id, effective_day=day,
+                     details={"version": copy.number, "copy_of": target.number,
+                              "previous": current.number})
+    return Transition(name, "rollback", day, copy.number, current.number, reason, actor)
+
+
+def acknowledge(settings: Settings, name: str, *, reason: str | None = None,
+                now: datetime | None = None, actor: str | None = None,
+                engine: Engine | None = None) -> Transition:
+    """Accept the current advice without a new version: the chart restarts, a refit is released."""
+    now, actor = now or datetime.now(UTC), actor or actor_name()
+    with database(settings, engine) as db, write_transaction(db) as conn:
+        model = get_model(conn, name)
+        current = _active(conn, model)
+        last = last_check(conn, model.id)
+        if last is None or last.status == OK:
+            state = "not been checked yet" if last is None else f"been ok since {last.status_since}"
+            raise StateError(f"'{name}' has {state}: there is no advice to acknowledge")
+        day = last.day + timedelta(days=1)
+        audit.record(conn, action="ack", actor=actor, at=now, model_id=model.id, reason=reason,
+                     version_id=current.id, effective_day=day,
+                     details={"status": last.status, "since": last.status_since.isoformat()})
+    return Transition(name, "ack", day, current.number, current.number, reason, actor)
+
+
+def _active(conn: Connection, model: ModelRecord) -> VersionRecord:
+    current = active_version(conn, model.id)
+    if current is None:
+        raise StateError(f"'{model.name}' has no active version; fit one with "
+                         f"'fitwatch model fit {model.name} ...'")
+    return current
+
+
+def _next_day(conn: Connection, model: ModelRecord, current: VersionRecord) -> date:
+    """The first day not checked yet (changes never rewrite checked days)."""
+    last = last_check(conn, model.id)
+    if last is not None:
+        return last.day + timedelta(days=1)
+    assert current.active_from is not None
+    return current.active_from
+
+
+def _hand_over(conn: Connection, current: VersionRecord, incoming: VersionRecord,
+               day: date) -> None:
+    set_state(conn, current.id, state=RETIRED, active_from=current.active_from,
+              active_until=day - timedelta(days=1))
+    set_state(conn, incoming.id, state=ACTIVE, active_from=day, active_until=None)
+
+
+def _copy_of(version: VersionRecord) -> NewVersion:
+    """A stored version's parameters as a new version (for a rollback)."""
+    return NewVersion(
+        source=version.source, level=version.level, terms=version.terms,
+        coefficients=version.coefficients, s=version.s, dof=version.dof, n=version.n,
+        fit_start=version.fit_start, fit_end=version.fit_end, std_errors=version.std_errors,
+        covariance=version.covariance, xmean=version.xmean, slope_inverse=version.slope_inverse,
+        x_min=version.x_min, x_max=version.x_max, r_squared=version.r_squared,
+        adj_r_squared=version.adj_r_squared, condition_number=version.condition_number,
+        tau2=version.tau2, sigma_w2=version.sigma_w2, dispersion=version.dispersion,
+        cusum_k=version.cusum_k, cusum_h=version.cusum_h,
+        reference=DayMoments.from_dict(version.reference) if version.reference else None,
+        diagnostics=dict(version.diagnostics), note=f"copy of version {version.number}",
+    )

@@ -1,0 +1,141 @@
+"""Acting on advice: promote a candidate, roll back, acknowledge; and how checks replay them."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import replace
+from datetime import date
+from pathlib import Path
+
+import pytest
+from sqlalchemy import Engine
+
+from monitor.cli import main
+from monitor.errors import StateError
+from monitor.fit import FitRequest, fit_model
+from monitor.refit import acknowledge, promote, rollback
+from monitor.store import audit
+from monitor.store.models import get_model
+from monitor.store.versions import list_versions
+from tests.test_check import CALM, MODEL, World, _frame, _now, _write, settings_for
+
+CHANGED = replace(CALM, layout_change=date(2026, 3, 16), minutes_per_pallet_after=2.6)
+
+
+@pytest.fixture
+def changed(engine: Engine, make_settings, tmp_path: Path) -> World:
+    """A model that reached 'refit' after a slope change on 16 March."""
+    world = World(engine, settings_for(make_settings, engine), tmp_path, scenario=CHANGED,
+                  seed=71)
+    world.add_days(date(2026, 3, 9), date(2026, 4, 12), 72, "spring.csv")
+    checks = world.check(date(2026, 4, 12)).checks
+    assert checks[-1].status == "refit"
+    return world
+
+
+@pytest.fixture
+def world(engine: Engine, make_settings, tmp_path: Path) -> World:
+    return World(engine, settings_for(make_settings, engine), tmp_path)
+
+
+def _versions(world: World):
+    with world.engine.connect() as conn:
+        return list_versions(conn, get_model(conn, MODEL).id)
+
+
+def test_promoting_a_refit_ends_the_advice(changed: World) -> None:
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 4, 12)),
+              now=_now(date(2026, 4, 12)), engine=changed.engine, actor="test")
+    result = promote(changed.settings, MODEL, 2, reason="layout change",
+                     now=_now(date(2026, 4, 12)), actor="lead", engine=changed.engine)
+    assert (result.active, result.previous, result.effective_day) == (2, 1, date(2026, 4, 13))
+    v1, v2 = _versions(changed)
+    assert (v1.state, v1.active_until) == ("retired", date(2026, 4, 12))
+    assert (v2.state, v2.active_from) == ("active", date(2026, 4, 13))
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 26), 73, "after.csv")
+    after = changed.check(date(2026, 4, 26)).checks
+    assert after[0].version_id == v2.id and after[0].status == "ok"
+    assert after[0].cusum_upper < after[0].cusum_h and after[0].cusum_lower < after[0].cusum_h
+    assert all(c.status != "refit" for c in after)
+    with changed.engine.connect() as conn:
+        logged = audit.entries(conn, v1.model_id, ("promote",))
+    assert logged[0].actor == "lead" and logged[0].reason == "layout change"
+
+
+def test_late_rows_across_a_promotion_replay_the_same_history(changed: World,
+                                                              tmp_path: Path) -> None:
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 4, 12)),
+              now=_now(date(2026, 4, 12)), engine=changed.engine, actor="test")
+    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 19), 74, "week.csv")
+    changed.check(date(2026, 4, 19))
+    before = changed.stored()
+    late = _frame(CHANGED, date(2026, 4, 10), date(2026, 4, 10), 75)
+    late["load_id"] = "late-" + late["load_id"]
+    changed.ingest(_write(late, tmp_path / "late.csv"), date(2026, 4, 19))
+    result = changed.check(date(2026, 4, 19)).results[0]
+    assert result.recomputed_from == date(2026, 4, 10)
+    after = changed.stored()
+    versions = {r["day"]: r["version_id"] for r in after}
+    assert versions == {r["day"]: r["version_id"] for r in before}  # same versions per day
+    assert [r["day"] for r in after] == [r["day"] for r in before]
+
+
+def test_acknowledging_restarts_the_chart_and_releases_the_refit(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    burst = replace(CALM, minutes_base=30.0)
+    world = World(engine, settings_for(make_settings, engine), tmp_path, seed=31)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 14), 32, "normal.csv")
+    world.ingest(_write(_frame(burst, date(2026, 3, 15), date(2026, 3, 21), 33),
+                        tmp_path / "burst.csv"), date(2026, 3, 21))
+    assert world.check(date(2026, 3, 21)).checks[-1].status == "refit"
+    ack = acknowledge(world.settings, MODEL, reason="staff training week",
+                      now=_now(date(2026, 3, 21)), engine=engine)
+    assert ack.effective_day == date(2026, 3, 22)
+    world.add_days(date(2026, 3, 22), date(2026, 4, 18), 34, "after.csv")
+    after = world.check(date(2026, 4, 18)).checks
+    assert after[0].cusum_upper < after[0].cusum_h  # restarted on the 22nd
+    assert after[-1].status != "refit"  # the burst's window has passed: the advice is gone
+
+
+def test_rollback_brings_back_a_copy_of_the_earlier_version(changed: World) -> None:
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 4, 12)),
+              now=_now(date(2026, 4, 12)), engine=changed.engine)
+    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 15), 76, "days.csv")
+    changed.check(date(2026, 4, 15))
+    result = rollback(changed.settings, MODEL, reason="wrong window",
+                      now=_now(date(2026, 4, 15)), engine=changed.engine)
+    assert (result.active, result.previous, result.effective_day) == (3, 2, date(2026, 4, 16))
+    v1, v2, v3 = _versions(changed)
+    assert v3.state == "active" and v3.note == "copy of version 1"
+    assert list(v3.coefficients) == list(v1.coefficients)
+    assert (v2.active_from, v2.active_until) == (date(2026, 4, 13), date(2026, 4, 15))
+
+
+def test_refused_actions_say_why(world: World) -> None:
+    with pytest.raises(StateError, match="no advice to acknowledge"):
+        acknowledge(world.settings, MODEL, engine=world.engine)
+    with pytest.raises(StateError, match="is active, not a candidate"):
+        promote(world.settings, MODEL, 1, engine=world.engine)
+    with pytest.raises(StateError, match="no other active version"):
+        rollback(world.settings, MODEL, engine=world.engine)
+
+
+def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
+    url = changed.engine.url.render_as_string(hide_password=False)
+    config = changed.tmp / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
+    assert main(["--config", str(config), "model", "fit", MODEL, "--start", "2026-03-16"]) == 0
+    capsys.readouterr()
+    assert main(["--config", str(config), "promote", MODEL, "2", "--reason", "new layout",
+                 "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["active"] == 2 and doc["effective_day"] == "2026-04-13"
+    assert main(["--config", str(config), "promote", MODEL, "9"]) == 1
+    assert "no version 9" in capsys.readouterr().err
+    assert main(["--config", str(config), "ack", MODEL]) == 0
+    assert "advice acknowledged" in capsys.readouterr().out
