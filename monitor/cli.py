@@ -116,6 +116,25 @@ def build_parser() -> argparse.ArgumentParser:
     st.add_argument("names", metavar="NAME", nargs="*")
     json_flag(st)
 
+    ref = command("refit", "fit a candidate on the days since the estimated change and compare "
+                  "it with the active version", _cmd_compare)
+    ref.add_argument("name", metavar="NAME")
+    ref.add_argument("--start", metavar="DATE", type=_day,
+                     help="first day of the new window (default: the estimated change day)")
+    ref.add_argument("--end", metavar="DATE", type=_day,
+                     help="last day of the new window (default: the last checked day)")
+    ref.add_argument("--holdout-days", metavar="N", type=int,
+                     help="days held out for the comparison (default: a quarter, 3 to 14)")
+    json_flag(ref)
+    cmp_ = command("compare", "the active version against a candidate on held-out days",
+                   _cmd_compare)
+    cmp_.add_argument("name", metavar="NAME")
+    cmp_.add_argument("--candidate", metavar="N", type=int,
+                      help="candidate version (default: the newest)")
+    cmp_.add_argument("--holdout-days", metavar="N", type=int,
+                      help="days held out for the comparison (default: a quarter, 3 to 14)")
+    json_flag(cmp_)
+
     pro = command("promote", "make a candidate version the active one from the next "
                   "unchecked day", _cmd_transition)
     pro.add_argument("name", metavar="NAME")
@@ -131,6 +150,14 @@ def build_parser() -> argparse.ArgumentParser:
     ack.add_argument("name", metavar="NAME")
     ack.add_argument("--reason", metavar="TEXT", help="why (kept in the audit log)")
     json_flag(ack)
+
+    page = command("report", "write an HTML page with charts for one model", _cmd_report)
+    page.add_argument("name", metavar="NAME")
+    page.add_argument("--out", metavar="DIR", type=Path, required=True,
+                      help="folder for index.html and its charts (created when missing)")
+    page.add_argument("--days", metavar="N", type=int, default=90,
+                      help="days shown, through the last checked day (default 90)")
+    json_flag(page)
 
     rep = command("replay", "run the nightly checks over a history file (nothing is stored)",
                   _cmd_replay)
@@ -264,6 +291,28 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet")
     else:
         print("\n".join(s.sentence() for s in statuses))
+    return EXIT_OK
+
+
+def _cmd_compare(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.compare import compare
+    from monitor.refit import refit
+
+    if args.command == "refit":
+        result = refit(settings, args.name, start=args.start, end=args.end,
+                       holdout_days=args.holdout_days)
+    else:
+        result = compare(settings, args.name, candidate=args.candidate,
+                         holdout_days=args.holdout_days)
+    print(dumps(result.as_dict()) if args.json else result.text())
+    return EXIT_OK
+
+
+def _cmd_report(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.report.page import write_report
+
+    result = write_report(settings, args.name, args.out, days=args.days)
+    print(dumps(result.as_dict()) if args.json else result.sentence())
     return EXIT_OK
 
 

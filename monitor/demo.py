@@ -2,13 +2,15 @@
 
 Generates the scenario (:mod:`monitor.scenario`), fits the model on the history, then plays the
 monitored weeks night by night: the night's file is ingested and the day checked, with the clock
-set to that night, and the planning lead's view is printed.
+set to that night, and the planning lead's view is printed. While a refit is advised the lead
+runs ``refit`` once a week (the first time a week after the advice) and promotes the candidate
+when the comparison recommends it, as the README suggests doing.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import date, datetime, time, timedelta
 from pathlib import Path
 from typing import TextIO
@@ -18,9 +20,12 @@ from sqlalchemy import Engine
 
 from monitor.check import run_checks
 from monitor.check_view import day_line
+from monitor.compare import Comparison
 from monitor.config import Settings, load_settings
+from monitor.errors import DegenerateDataError
 from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
+from monitor.refit import Transition, promote, refit
 from monitor.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
 from monitor.status import VersionView
 from monitor.store.access import database
@@ -55,11 +60,16 @@ x_units = {{ pallets = "pallet" }}
 """
 
 
+REFIT_AFTER_DAYS = 7  # the lead waits a week after an advice, then tries weekly
+
+
 @dataclass(frozen=True)
 class DemoResult:
     config: Path
     database: Path
     checks: tuple[DayCheck, ...]
+    comparisons: tuple[Comparison, ...] = ()
+    promotions: tuple[Transition, ...] = ()
 
 
 def write_config(directory: Path) -> Path:
@@ -90,13 +100,21 @@ def run_demo(directory: Path, out: TextIO, seed: int = DEFAULT_SEED) -> DemoResu
     say(f"(invented data from a seeded generator; everything lives in {directory})\n\n")
     init_database(settings)
     with database(settings) as engine:
-        checks = _play(engine, settings, files, scenario, zone, say)
-    _closing(say, config, checks, scenario)
-    return DemoResult(config, directory / "fitwatch.db", tuple(checks))
+        played = _play(engine, settings, files, scenario, zone, say)
+    _closing(say, config, played, scenario)
+    return DemoResult(config, directory / "fitwatch.db", tuple(played.checks),
+                      tuple(played.comparisons), tuple(played.promotions))
+
+
+@dataclass
+class _Played:
+    checks: list[DayCheck] = field(default_factory=list)
+    comparisons: list[Comparison] = field(default_factory=list)
+    promotions: list[Transition] = field(default_factory=list)
 
 
 def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenario,
-          zone: ZoneInfo, say: Callable[[str], object]) -> list[DayCheck]:
+          zone: ZoneInfo, say: Callable[[str], object]) -> _Played:
     fit_now = _night_after(scenario.history_end, zone)
     report = fit_model(settings, FitRequest(MODEL, files.history, "load_minutes", ("pallets",),
                                             "docked_at", "load_id"), now=fit_now, actor="demo",
@@ -107,7 +125,7 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
     say("Night by night (each night: that day's loads arrive, the day is checked):\n")
     with engine.connect() as conn:
         model = get_model(conn, MODEL)
-    checks: list[DayCheck] = []
+    played = _Played()
     status = None
     for path in files.nights:
         day = date.fromisoformat(path.stem.split("_")[-1])
@@ -118,14 +136,45 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
             say(f"  {summary.sentence()}\n")
         outcome = run_checks(settings, [MODEL], through=day, now=now, engine=engine)
         for check in outcome.checks:
-            checks.append(check)
+            played.checks.append(check)
             say("  " + day_line(check) + "\n")
             found = tuple((f["signal"], f["level"]) for f in check.details["findings"])
             if (check.status, found) != status:
                 for reason in check.reasons:
                     say(f"      {reason}\n")
                 status = (check.status, found)
-    return checks
+            if _lead_refits(check):
+                _respond(engine, settings, check, now, played, say)
+    return played
+
+
+def _lead_refits(check: DayCheck) -> bool:
+    """A refit advised for a whole week, then each further week while it stands."""
+    waited = (check.day - check.status_since).days
+    return check.status == "refit" and waited >= REFIT_AFTER_DAYS and \
+        waited % REFIT_AFTER_DAYS == 0
+
+
+def _respond(engine: Engine, settings: Settings, check: DayCheck, now: datetime,
+             played: _Played, say: Callable[[str], object]) -> None:
+    """What the planning lead does: refit on the days since the change, compare, decide."""
+    say(f"\n  The planning lead runs: fitwatch refit {MODEL}\n")
+    try:
+        comparison = refit(settings, MODEL, now=now, actor="planning lead", engine=engine)
+    except DegenerateDataError as exc:  # too few days since the change to fit on yet
+        say(f"    fitwatch: {exc}\n    (the lead tries again a week later)\n\n")
+        return
+    played.comparisons.append(comparison)
+    say("".join(f"    {line}\n" for line in comparison.text().splitlines()))
+    if comparison.recommendation.action == "promote":
+        number = comparison.candidate.number
+        reason = f"refit on the days since {comparison.candidate.fit_start}"
+        say(f"  The planning lead runs: fitwatch promote {MODEL} {number} --reason \"{reason}\"\n")
+        moved = promote(settings, MODEL, number, reason=reason, now=now,
+                        actor="planning lead", engine=engine)
+        played.promotions.append(moved)
+        say(f"    {moved.sentence()}\n")
+    say("\n")
 
 
 def _night_after(day: date, zone: ZoneInfo) -> datetime:
@@ -133,8 +182,9 @@ def _night_after(day: date, zone: ZoneInfo) -> datetime:
     return datetime.combine(day + timedelta(days=1), time(3, 0), tzinfo=zone)
 
 
-def _closing(say: Callable[[str], object], config: Path, checks: list[DayCheck],
+def _closing(say: Callable[[str], object], config: Path, played: _Played,
              scenario: Scenario) -> None:
+    checks = played.checks
     first_refit = next((c for c in checks if c.status == "refit"), None)
     say("\nWhat happened in the data (the generator's truth, unknown to the monitor):\n")
     say(f"  from {scenario.layout_change} each pallet took "
@@ -144,7 +194,11 @@ def _closing(say: Callable[[str], object], config: Path, checks: list[DayCheck],
     if first_refit is not None:
         delay = (first_refit.day - scenario.layout_change).days
         say(f"  fitwatch advised a refit on {first_refit.day}, {delay} day(s) after the change.\n")
+    for moved in played.promotions:
+        say(f"  Version {moved.active} scored the days from {moved.effective_day}.\n")
     say(f"\nTry: fitwatch --config {config} status\n")
-    say(f"     fitwatch --config {config} model show {MODEL}\n")
+    say(f"     fitwatch --config {config} model list\n")
+    say(f"     fitwatch --config {config} compare {MODEL}\n"
+        if any(c.recommendation.action != "promote" for c in played.comparisons[-1:]) else "")
     say(f"     fitwatch --config {config} check --json --day {checks[-1].day}\n"
         if checks else "")

@@ -1,4 +1,4 @@
-"""Acting on the advice: promote a candidate, roll back, or acknowledge.
+"""Acting on the advice: refit a candidate, promote it, roll back, or acknowledge.
 
 Each action takes effect on the model's next unchecked day and is written to the audit log with
 who, when and why, so that re-evaluating old days (late rows) replays the same history: the
@@ -16,14 +16,15 @@ from typing import Any
 
 from sqlalchemy import Connection, Engine
 
+from monitor.compare import Comparison, compare
 from monitor.config import Settings
-from monitor.errors import StateError
-from monitor.fit import actor_name
+from monitor.errors import StateError, UsageError
+from monitor.fit import FitRequest, actor_name, fit_model
 from monitor.stats.decision import OK
 from monitor.stats.moments import DayMoments
 from monitor.store import audit
 from monitor.store.access import database
-from monitor.store.checks import last_check
+from monitor.store.checks import DayCheck, last_check
 from monitor.store.engine import write_transaction
 from monitor.store.models import ModelRecord, get_model
 from monitor.store.versions import (
@@ -63,6 +64,39 @@ class Transition:
         verb = "promoted" if self.action == "promote" else "rolled back to"
         return (f"{self.model}: version {self.active} {verb} by {self.actor}{why}; it scores days "
                 f"from {self.effective_day} (version {self.previous} scored the days before)")
+
+
+def refit(settings: Settings, name: str, *, start: date | None = None, end: date | None = None,
+          holdout_days: int | None = None, now: datetime | None = None,
+          actor: str | None = None, engine: Engine | None = None) -> Comparison:
+    """``refit``: a candidate on the days since the estimated change, compared with the active.
+
+    ``start`` defaults to the change day the last check estimated (else the bias chart's onset),
+    ``end`` to the last checked day; the candidate is stored and then compared on held-out days.
+    """
+    now, actor = now or datetime.now(UTC), actor or actor_name()
+    with database(settings, engine) as db:
+        with db.connect() as conn:
+            model = get_model(conn, name)
+            _active(conn, model)
+            last = last_check(conn, model.id)
+        if start is None:
+            start = _estimated_change(name, last)
+        if end is None and last is not None:
+            end = last.day
+        report = fit_model(settings, FitRequest(name, start=start, end=end), now=now,
+                           actor=actor, engine=db)
+        return compare(settings, name, candidate=report.version.number,
+                       holdout_days=holdout_days, engine=db)
+
+
+def _estimated_change(name: str, last: DayCheck | None) -> date:
+    found = None if last is None or last.status == OK else (last.change_day or last.cusum_onset)
+    if last is None or found is None:
+        said = ("has not been checked yet" if last is None
+                else f"is {last.status} and no change day has been estimated")
+        raise UsageError(f"'{name}' {said}; give the first day of the new window with --start")
+    return found
 
 
 def promote(settings: Settings, name: str, number: int, *, reason: str | None = None,

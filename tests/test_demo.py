@@ -33,6 +33,14 @@ def test_demo_runs_end_to_end_and_finds_the_layout_change(tmp_path: Path) -> Non
     assert 0 <= (first_refit.day - scenario.layout_change).days <= 3
     assert "each pallet now adds" in text.lower()
     assert "1 duplicate skipped, 1 rejected" in text  # the faulty export night
+    # the lead refits, compares and promotes; the new version holds until the spread changes
+    promoted = result.promotions[0]
+    assert promoted.active == 2 and result.comparisons[0].recommendation.action == "promote"
+    between = [c for c in result.checks
+               if promoted.effective_day <= c.day < scenario.spread_change]
+    assert len(between) > 14 and all(c.status == "ok" for c in between)
+    after = [c for c in result.checks if c.day > scenario.spread_change]
+    assert after[0].status in ("watch", "refit")
     # the demo leaves a working setup behind: its settings file and database answer commands
     assert main(["--config", str(result.config), "status"]) == 0
 

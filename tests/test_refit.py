@@ -1,21 +1,25 @@
-"""Acting on advice: promote a candidate, roll back, acknowledge; and how checks replay them."""
+"""Acting on advice: refit, compare, promote, roll back, acknowledge; and how checks replay them."""
 
 from __future__ import annotations
 
 import json
 from dataclasses import replace
-from datetime import date
+from datetime import date, timedelta
 from pathlib import Path
 
+import numpy as np
 import pytest
+import statsmodels.api as sm
 from sqlalchemy import Engine
 
 from monitor.cli import main
-from monitor.errors import StateError
+from monitor.compare import compare
+from monitor.errors import DegenerateDataError, StateError, UsageError
 from monitor.fit import FitRequest, fit_model
-from monitor.refit import acknowledge, promote, rollback
+from monitor.refit import acknowledge, promote, refit, rollback
 from monitor.store import audit
 from monitor.store.models import get_model
+from monitor.store.observations import load_observations
 from monitor.store.versions import list_versions
 from tests.test_check import CALM, MODEL, World, _frame, _now, _write, settings_for
 
@@ -139,3 +143,88 @@ def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     assert "no version 9" in capsys.readouterr().err
     assert main(["--config", str(config), "ack", MODEL]) == 0
     assert "advice acknowledged" in capsys.readouterr().out
+
+
+def test_refit_starts_at_the_estimated_change_and_recommends_promotion(changed: World) -> None:
+    last = changed.check(date(2026, 4, 12)).results[0].current
+    assert last is not None and last.change_day is not None
+    result = refit(changed.settings, MODEL, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    v2 = _versions(changed)[1]
+    assert (v2.state, v2.fit_start, v2.fit_end) == ("candidate", last.change_day, date(2026, 4, 11))
+    # the scenario's slope went from 2.1 to 2.6 minutes per pallet on 16 March
+    assert float(v2.coefficients[1]) == pytest.approx(2.6, abs=0.15)
+    assert result.evaluated_as == "refitted"
+    assert result.evaluation_window == (v2.fit_start, result.holdout[0] - timedelta(days=1))
+    assert result.candidate_score.coverage.coverage > 0.9 > result.active_score.coverage.coverage
+    assert result.candidate_score.rmse < result.active_score.rmse
+    assert result.recommendation.action == "promote"
+    assert result.recommendation.command == f"fitwatch promote {MODEL} 2 --reason \"...\""
+
+
+# statsmodels OLS as the reference library: the comparison's candidate figures are those of a
+# fit on the days before the hold-out only (no held-out row leaks into the candidate's fit).
+def test_the_candidate_is_judged_without_its_held_out_rows(changed: World) -> None:
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 4, 11)),
+              now=_now(date(2026, 4, 12)), engine=changed.engine)
+    result = compare(changed.settings, MODEL, holdout_days=5, engine=changed.engine)
+    assert result.holdout == (date(2026, 4, 7), date(2026, 4, 11))
+    with changed.engine.connect() as conn:
+        model = get_model(conn, MODEL)
+        train = load_observations(conn, model, date(2026, 3, 16), date(2026, 4, 6))
+        held = load_observations(conn, model, *result.holdout)
+    ref = sm.OLS(train.y, sm.add_constant(train.x)).fit()
+    frame = ref.get_prediction(sm.add_constant(held.x)).summary_frame(alpha=0.05)
+    inside = (held.y >= frame["obs_ci_lower"]) & (held.y <= frame["obs_ci_upper"])
+    assert result.candidate_score.coverage.covered == int(inside.sum())
+    residual = held.y - frame["mean"].to_numpy()
+    assert result.candidate_score.rmse == pytest.approx(np.sqrt(np.mean(residual**2)), rel=1e-9)
+
+
+def test_an_unchanged_relationship_is_kept(world: World) -> None:
+    world.add_days(date(2026, 3, 9), date(2026, 4, 5), 81, "calm.csv")
+    world.check(date(2026, 4, 5))
+    fit_model(world.settings, FitRequest(MODEL, start=date(2026, 3, 9), end=date(2026, 4, 5)),
+              now=_now(date(2026, 4, 5)), engine=world.engine)
+    result = compare(world.settings, MODEL, engine=world.engine)
+    assert result.recommendation.action == "keep"
+    assert abs(result.candidate_score.rmse - result.active_score.rmse) < 0.1 * \
+        result.active_score.rmse
+
+
+def test_too_few_days_to_judge_means_wait(changed: World) -> None:
+    refit(changed.settings, MODEL, start=date(2026, 3, 30), engine=changed.engine)
+    result = compare(changed.settings, MODEL, holdout_days=10, engine=changed.engine)
+    assert result.recommendation.action == "wait" and result.active_score is None
+    assert "Holding out 10 of the 12 days leaves 2 to refit the candidate on; at least 5" \
+        in result.recommendation.sentence  # 5 April had no loads
+
+
+def test_a_window_too_short_to_calibrate_is_refused(changed: World) -> None:
+    with pytest.raises(DegenerateDataError, match="fit on a longer window"):
+        refit(changed.settings, MODEL, start=date(2026, 4, 6), engine=changed.engine)
+
+
+def test_refit_needs_a_start_when_no_change_was_estimated(world: World) -> None:
+    world.add_days(date(2026, 3, 9), date(2026, 3, 15), 82, "calm.csv")
+    world.check(date(2026, 3, 15))
+    with pytest.raises(UsageError, match="give the first day of the new window with --start"):
+        refit(world.settings, MODEL, engine=world.engine)
+    with pytest.raises(StateError, match="no candidate version"):
+        compare(world.settings, MODEL, engine=world.engine)
+
+
+def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
+    url = changed.engine.url.render_as_string(hide_password=False)
+    config = changed.tmp / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
+    assert main(["--config", str(config), "refit", MODEL, "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["active"]["version"] == 1 and doc["candidate"]["version"] == 2
+    assert set(doc["holdout"]["active"]) >= {"n", "coverage", "bias", "rmse"}
+    assert doc["recommendation"]["action"] == "promote"
+    assert main(["--config", str(config), "compare", MODEL, "--candidate", "2"]) == 0
+    text = capsys.readouterr().out
+    assert "interval coverage" in text and "recommendation: promote" in text
+    assert main(["--config", str(config), "compare", MODEL, "--candidate", "1"]) == 1
+    assert "not a candidate" in capsys.readouterr().err

@@ -36,7 +36,11 @@ def test_replay_equals_the_nights_of_the_demo(tmp_path: Path, all_loads: Path) -
     settings = load_settings(nightly.config)
     report = replay(settings, "dock_loading", all_loads, fit_end=date(2026, 3, 8))
     assert [c.day for c in report.checks] == [c.day for c in nightly.checks]
-    for ours, theirs in zip(report.checks, nightly.checks, strict=True):
+    # the demo's planning lead promotes a refit; the replay keeps version 1 throughout
+    until = nightly.promotions[0].effective_day
+    same = [(a, b) for a, b in zip(report.checks, nightly.checks, strict=True) if a.day < until]
+    assert len(same) > 30
+    for ours, theirs in same:
         assert (ours.n, ours.covered, ours.status) == (theirs.n, theirs.covered, theirs.status)
         assert ours.cusum_upper == pytest.approx(theirs.cusum_upper, rel=1e-9, abs=1e-12)
         assert ours.reasons == theirs.reasons

@@ -191,7 +191,8 @@ def calibrate_h(design: ChartDesign, k: float = 0.5, target_arl: float = 1000.0,
                            reason=small)
     mean, sd = _bootstrap_moments(design, draws, np.random.default_rng(seed))
     h_draws = solve_h_many(k, target_arl, mean, sd)
-    h = float(np.quantile(h_draws, guarantee))
+    with np.errstate(invalid="ignore"):  # draws with no finite h are +inf; inf - inf is nan
+        h = float(np.quantile(h_draws, guarantee))
     if not np.isfinite(h):
         raise DegenerateDataError(
             f"no decision interval gives an in-control ARL of {target_arl:g} days with "

@@ -1,0 +1,258 @@
+"""Side by side: the active version and a candidate on the same held-out days.
+
+The held-out days are the last days with rows in the candidate's data window (by default a
+quarter of them, at least three, at most fourteen). A candidate fitted on those very days would
+be judged on its own training rows, so for the comparison it is refitted, the same way, on the
+window's days before the hold-out; a candidate whose window ends before the hold-out (or one
+imported from elsewhere) is scored as stored. The active version is always scored as stored.
+
+The recommendation is ``promote`` when the candidate's intervals do not cover significantly less
+than promised and either its day mean squared errors are smaller (one-sided day-blocked test at
+5 %) or the active version's intervals do cover significantly less (the scatter changed, not the
+line); ``keep`` otherwise; ``wait`` when there are too few days to judge.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from datetime import date, timedelta
+from typing import Any
+
+import numpy as np
+from sqlalchemy import Connection, Engine
+
+from monitor.calendar_days import as_date
+from monitor.config import ModelSettings, Settings
+from monitor.errors import StateError
+from monitor.output import fmt, fmt_p, percent
+from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, loss_difference_test
+from monitor.stats.ols import fit_ols
+from monitor.stats.prediction import PredictionModel
+from monitor.status import VersionView
+from monitor.store.access import database
+from monitor.store.models import ModelRecord, get_model
+from monitor.store.observations import Observations, load_day_stats, load_observations
+from monitor.store.versions import (
+    CANDIDATE,
+    VersionRecord,
+    active_version,
+    get_version,
+    list_versions,
+)
+
+MIN_HOLDOUT_DAYS = 3
+MAX_DEFAULT_HOLDOUT_DAYS = 14
+PROMOTE_PVALUE = 0.05
+
+PROMOTE, KEEP, WAIT = "promote", "keep", "wait"
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    action: str  # promote | keep | wait
+    sentence: str
+    command: str | None  # the command to run next, if any
+
+
+@dataclass(frozen=True, eq=False)
+class Comparison:
+    """Both versions' figures on the held-out days and what to do about them."""
+
+    model: ModelRecord
+    active: VersionRecord
+    candidate: VersionRecord
+    holdout: tuple[date, date] | None
+    evaluated_as: str  # "refitted" (on the days before the hold-out) or "stored"
+    evaluation_window: tuple[date, date] | None  # the refit's days, when refitted
+    active_score: HoldoutScore | None
+    candidate_score: HoldoutScore | None
+    loss: LossDifference | None
+    recommendation: Recommendation
+    unit: str
+
+    def as_dict(self) -> dict[str, Any]:
+        return {
+            "model": self.model.name,
+            "active": VersionView(self.model, self.active).as_dict(),
+            "candidate": VersionView(self.model, self.candidate).as_dict(),
+            "holdout": {
+                "first_day": self.holdout[0] if self.holdout else None,
+                "last_day": self.holdout[1] if self.holdout else None,
+                "candidate_evaluated_as": self.evaluated_as,
+                "candidate_evaluation_window": list(self.evaluation_window)
+                if self.evaluation_window else None,
+                "active": self.active_score.as_dict() if self.active_score else None,
+                "candidate": self.candidate_score.as_dict() if self.candidate_score else None,
+                "loss_difference": None if self.loss is None else {
+                    "statistic": self.loss.statistic, "pvalue": self.loss.pvalue,
+                    "df": self.loss.df, "mean_difference": self.loss.mean_difference},
+            },
+            "recommendation": {"action": self.recommendation.action,
+                               "sentence": self.recommendation.sentence,
+                               "command": self.recommendation.command},
+        }
+
+    def text(self) -> str:
+        a, c, m = self.active, self.candidate, self.model
+        lines = [f"{m.name}: active version {a.number} against candidate version {c.number} "
+                 f"(fitted on {_window(c)}, {c.n} rows)"]
+        for i, term in enumerate(a.terms):
+            lines.append(f"  {term:<14} {fmt(float(a.coefficients[i]), 4):>12} -> "
+                         f"{fmt(float(c.coefficients[i]), 4)}")
+        lines.append(f"  {'s':<14} {fmt(a.s, 4):>12} -> {fmt(c.s, 4)}")
+        lines.append(f"  {'chart limit h':<14} {fmt(a.cusum_h, 3):>12} -> {fmt(c.cusum_h, 3)}"
+                     + ("\n  (a short window pins the candidate down loosely, so its bias "
+                        "chart needs a wider limit; it sharpens with a longer window)"
+                        if (c.cusum_h or 0) > 1.5 * (a.cusum_h or float("inf")) else ""))
+        if self.holdout and self.active_score and self.candidate_score:
+            how = ("refitted on " + _days(self.evaluation_window)
+                   if self.evaluated_as == "refitted" else "as stored")
+            lines.append(f"held out {_days(self.holdout)} ({self.active_score.days} days, "
+                         f"{self.active_score.n} rows); candidate {how}:")
+            lines.append(f"  {'':<20}{'active v' + str(a.number):>14}"
+                         f"{'candidate v' + str(c.number):>16}")
+            for label, key in (("interval coverage", "coverage"), ("bias", "bias"),
+                               ("RMSE", "rmse"), ("interval width", "mean_width")):
+                av, cv = self._cell(self.active_score, key), self._cell(self.candidate_score, key)
+                lines.append(f"  {label:<20}{av:>14}{cv:>16}")
+            lines.append(f"  (target coverage {percent(a.level, 1)}; smaller errors: "
+                         f"{fmt_p(self.loss.pvalue if self.loss else None)})")
+        lines.append(f"recommendation: {self.recommendation.action}. "
+                     f"{self.recommendation.sentence}")
+        if self.recommendation.command:
+            lines.append(f"next: {self.recommendation.command}")
+        return "\n".join(lines)
+
+    def _cell(self, score: HoldoutScore, key: str) -> str:
+        if key == "coverage":
+            return percent(score.coverage.coverage, 1)
+        value = getattr(score, key)
+        sign = "+" if key == "bias" and value > 0 else ""
+        return f"{sign}{fmt(value, 3)}{' ' + self.unit if self.unit else ''}"
+
+
+def compare(settings: Settings, name: str, *, candidate: int | None = None,
+            holdout_days: int | None = None, engine: Engine | None = None) -> Comparison:
+    """``compare``: the active version against a candidate (default: the newest one)."""
+    if holdout_days is not None and holdout_days < 1:
+        raise StateError(f"--holdout-days must be at least 1; got {holdout_days}")
+    with database(settings, engine) as db, db.connect() as conn:
+        model = get_model(conn, name)
+        active = active_version(conn, model.id)
+        if active is None:
+            raise StateError(f"'{name}' has no active version to compare with")
+        chosen = _candidate(conn, model, candidate)
+        return _compare(conn, model, active, chosen, settings.for_model(name), holdout_days)
+
+
+def _candidate(conn: Connection, model: ModelRecord, number: int | None) -> VersionRecord:
+    if number is not None:
+        version = get_version(conn, model.id, number, model_name=model.name)
+        if version.state != CANDIDATE:
+            raise StateError(f"version {number} of '{model.name}' is {version.state}, not a "
+                             "candidate")
+        return version
+    candidates = [v for v in list_versions(conn, model.id) if v.state == CANDIDATE]
+    if not candidates:
+        raise StateError(f"'{model.name}' has no candidate version; fit one with "
+                         f"'fitwatch refit {model.name}'")
+    return candidates[-1]
+
+
+def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
+             candidate: VersionRecord, ms: ModelSettings,
+             holdout_days: int | None) -> Comparison:
+    unit = ms.words.y_unit
+    days = _days_with_rows(conn, model, candidate.fit_start)
+    wanted = holdout_days or min(MAX_DEFAULT_HOLDOUT_DAYS,
+                                 max(MIN_HOLDOUT_DAYS, math.ceil(len(days) / 4)))
+    held = days[-wanted:] if len(days) > wanted else []
+    refit_needed = candidate.fit_end is not None and bool(held) and candidate.fit_end >= held[0]
+    before = [d for d in days if not held or d < held[0]]
+    wait = _too_few(len(days), len(held), len(before) if refit_needed else None, ms)
+    if wait:
+        return Comparison(model, active, candidate, None, "stored", None, None, None, None,
+                          Recommendation(WAIT, wait, None), unit)
+    holdout = (held[0], held[-1])
+    rows = load_observations(conn, model, *holdout)
+    candidate_model, window = candidate.prediction_model(), None
+    if refit_needed:
+        assert candidate.fit_start is not None
+        window = (candidate.fit_start, held[0] - timedelta(days=1))
+        train = load_observations(conn, model, *window)
+        candidate_model = PredictionModel.from_fit(fit_ols(train.x, train.y, model.predictors))
+    active_model = active.prediction_model()
+    a = _score(active, active_model, rows)
+    c = _score(candidate, candidate_model, rows)
+    loss = loss_difference_test(rows.days, rows.y - active_model.predict(rows.x),
+                                rows.y - candidate_model.predict(rows.x))
+    return Comparison(model, active, candidate, holdout, "refitted" if refit_needed else "stored",
+                      window, a, c, loss, _recommend(model, candidate, a, c, loss, ms, unit),
+                      unit)
+
+
+def _too_few(days: int, held: int, before: int | None, ms: ModelSettings) -> str:
+    """Why there is too little to judge, or '' when there is enough."""
+    if held < MIN_HOLDOUT_DAYS:
+        return (f"There are {days} days with rows in the candidate's window; at least "
+                f"{MIN_HOLDOUT_DAYS + 1} are needed to hold {MIN_HOLDOUT_DAYS} out and judge it. "
+                "Compare again in a few days.")
+    if before is not None and before < ms.check.min_fit_days:
+        return (f"Holding out {held} of the {days} days leaves {before} to refit the candidate "
+                f"on; at least {ms.check.min_fit_days} are needed. Hold out fewer days or "
+                "compare again in a few days.")
+    return ""
+
+
+def _days_with_rows(conn: Connection, model: ModelRecord, first: date | None) -> list[date]:
+    table = load_day_stats(conn, model, first).moments
+    return [as_date(d) for d, n in zip(table.days, table.n, strict=True) if n > 0]
+
+
+def _score(version: VersionRecord, prediction: PredictionModel,
+           rows: Observations) -> HoldoutScore:
+    return holdout_score(prediction, rows.x, rows.y, rows.days, version.level,
+                         version.dispersion or 1.0)
+
+
+def _recommend(model: ModelRecord, candidate: VersionRecord, a: HoldoutScore, c: HoldoutScore,
+               loss: LossDifference, ms: ModelSettings, unit: str) -> Recommendation:
+    rmse = f"RMSE {fmt(c.rmse, 3)} against {fmt(a.rmse, 3)}{' ' + unit if unit else ''}"
+    cover = (f"its intervals covered {percent(c.coverage.coverage, 1)} of the held-out rows "
+             f"(target {percent(candidate.level, 1)}; the active version's "
+             f"{percent(a.coverage.coverage, 1)})")
+    better = bool(np.isfinite(loss.pvalue) and loss.pvalue < PROMOTE_PVALUE)
+    covers = not c.coverage.pvalue_low < ms.check.watch_pvalue
+    active_covers = not a.coverage.pvalue_low < ms.check.watch_pvalue
+    command = f"fitwatch promote {model.name} {candidate.number} --reason \"...\""
+    if covers and better:
+        return Recommendation(
+            PROMOTE, f"On the {c.days} held-out days the candidate's errors are smaller "
+            f"({rmse}, {fmt_p(loss.pvalue)}) and {cover}.", command)
+    if covers and not active_covers:
+        return Recommendation(
+            PROMOTE, f"On the {c.days} held-out days the errors are of similar size ({rmse}, "
+            f"{fmt_p(loss.pvalue)}), but the active version's intervals covered only "
+            f"{percent(a.coverage.coverage, 1)} of the held-out rows, significantly short of "
+            f"{percent(candidate.level, 1)} ({fmt_p(a.coverage.pvalue_low)}), while the "
+            f"candidate's covered {percent(c.coverage.coverage, 1)}: the scatter has changed "
+            "and the candidate's intervals reflect it.", command)
+    if better:
+        return Recommendation(
+            KEEP, f"The candidate's errors are smaller ({rmse}, {fmt_p(loss.pvalue)}) but "
+            f"{cover}, significantly short ({fmt_p(c.coverage.pvalue_low)}); refit on a "
+            "longer window or wait for more days.", None)
+    return Recommendation(
+        KEEP, f"On the {c.days} held-out days the candidate is not clearly better ({rmse}, "
+        f"{fmt_p(loss.pvalue)}); {cover}.", None)
+
+
+def _window(v: VersionRecord) -> str:
+    if v.fit_start is None or v.fit_end is None:
+        return "data from elsewhere"
+    return _days((v.fit_start, v.fit_end))
+
+
+def _days(window: tuple[date, date] | None) -> str:
+    return "—" if window is None else f"{window[0]} .. {window[1]}"
