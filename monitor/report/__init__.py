@@ -1,0 +1,1 @@
+"""Charts and the HTML report (SPEC §9)."""

@@ -1,0 +1,219 @@
+"""``report``: one model's page, a self-contained folder with ``index.html`` and PNG charts.
+
+Loading (one read-only connection), series (:mod:`monitor.report.series`), drawing
+(:mod:`monitor.report.charts`) and the page (a Jinja2 template shipped in ``templates/``,
+autoescaped, inline CSS, no scripts or external assets) are kept apart.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from jinja2 import Environment, PackageLoader, StrictUndefined
+from sqlalchemy import Connection, Engine
+
+from monitor.config import ModelSettings, Settings
+from monitor.errors import InputError
+from monitor.output import fmt, to_jsonable
+from monitor.report import charts
+from monitor.report.series import (
+    CoverageSeries,
+    CusumSeries,
+    ResidualSeries,
+    ScatterSeries,
+    coverage_series,
+    cusum_series,
+    residual_series,
+    scatter_series,
+)
+from monitor.store.access import database
+from monitor.store.checks import DayCheck, last_check, load_checks
+from monitor.store.models import ModelRecord, get_model
+from monitor.store.observations import last_observed_at, load_observations
+from monitor.store.versions import ACTIVE, CANDIDATE, VersionRecord, list_versions
+
+PAGE = "index.html"
+_TEMPLATE = "report.html.j2"
+_environment = Environment(loader=PackageLoader("monitor.report", "templates"),
+                           autoescape=True, undefined=StrictUndefined,
+                           trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+
+
+@dataclass(frozen=True)
+class ReportResult:
+    """Where the report was written and what it covers."""
+
+    path: Path  # index.html
+    charts: tuple[Path, ...]
+    model: str
+    version: int | None  # the active version, None when the model has none
+    candidate: int | None
+    status: str | None  # None: never checked
+    first_day: date
+    last_day: date
+
+    def as_dict(self) -> dict[str, Any]:
+        return to_jsonable(self)
+
+    def sentence(self) -> str:
+        version = f"version {self.version}" if self.version is not None else "no active version"
+        extra = f", candidate {self.candidate}" if self.candidate is not None else ""
+        return (f"report for {self.model} ({version}{extra}; {self.first_day} .. "
+                f"{self.last_day}) written to {self.path}")
+
+
+@dataclass(frozen=True, eq=False)
+class ReportData:
+    """Everything the page shows, read in one go."""
+
+    model: ModelRecord
+    settings: ModelSettings
+    active: VersionRecord | None
+    candidate: VersionRecord | None
+    last: DayCheck | None  # the model's latest check, possibly before the period
+    checks: tuple[DayCheck, ...]
+    scatter: ScatterSeries
+    coverage: CoverageSeries
+    cusum: CusumSeries
+    residuals: ResidualSeries
+    first_day: date
+    last_day: date
+
+
+def write_report(settings: Settings, name: str, out_dir: Path, *, engine: Engine | None = None,
+                 now: datetime | None = None, days: int = 90) -> ReportResult:
+    """Write model ``name``'s report for the ``days`` days through its last checked day.
+
+    Without checks the period ends on the day of the last stored row (or yesterday). The folder
+    is created when missing; files from an earlier report in it are overwritten.
+    """
+    if days < 1:
+        raise InputError(f"a report covers at least one day; got days={days}")
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{out_dir} is a file; the report needs a folder to write "
+                         f"{PAGE} and its charts into")
+    now = now or datetime.now(UTC)
+    with database(settings, engine) as db, db.connect() as conn:
+        data = load_report_data(conn, settings, name, now, days)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the report folder {out_dir}: {exc.strerror}") from exc
+    drawn = {
+        "scatter.png": charts.scatter_png(data.scatter),
+        "coverage.png": charts.coverage_png(data.coverage),
+        "cusum.png": charts.cusum_png(data.cusum),
+        "residuals.png": charts.residuals_png(data.residuals),
+    }
+    for file, content in drawn.items():
+        (out_dir / file).write_bytes(content)
+    page = out_dir / PAGE
+    page.write_text(render_page(data, now.astimezone(settings.timezone)), encoding="utf-8")
+    return ReportResult(page, tuple(out_dir / f for f in drawn), name,
+                        data.active.number if data.active else None,
+                        data.candidate.number if data.candidate else None,
+                        data.last.status if data.last else None, data.first_day, data.last_day)
+
+
+def load_report_data(conn: Connection, settings: Settings, name: str, now: datetime,
+                     days: int) -> ReportData:
+    model = get_model(conn, name)
+    own = settings.for_model(name)
+    versions = list_versions(conn, model.id)
+    active = next((v for v in versions if v.state == ACTIVE), None)
+    candidate = max((v for v in versions if v.state == CANDIDATE), key=lambda v: v.number,
+                    default=None)
+    last = last_check(conn, model.id, model=name)
+    if last is not None:
+        last_day = last.day
+    else:
+        latest = last_observed_at(conn, model)
+        zone = settings.timezone
+        last_day = (latest.astimezone(zone).date() if latest is not None
+                    else now.astimezone(zone).date() - timedelta(days=1))
+    first_day = last_day - timedelta(days=days - 1)
+    checks = tuple(load_checks(conn, model.id, first_day, last_day, model=name))
+    rows = load_observations(conn, model, first_day, last_day)
+    words = own.words
+    x_label = model.predictors[0]
+    y_label = f"{model.response} ({words.y_unit})" if words.y_unit else model.response
+    recent_from = max(first_day, last_day - timedelta(days=own.check.coverage_window_days - 1))
+    lines = [v for v in (active, candidate) if v is not None]
+    level = active.level if active else own.check.level
+    return ReportData(
+        model=model, settings=own, active=active, candidate=candidate, last=last, checks=checks,
+        scatter=scatter_series(rows, lines, recent_from, x_label, y_label),
+        coverage=coverage_series(checks, level), cusum=cusum_series(checks),
+        residuals=residual_series(rows, checks, versions),
+        first_day=first_day, last_day=last_day)
+
+
+# the page ---------------------------------------------------------------------------------------
+def _plus_minus(version: VersionRecord, i: int) -> str:
+    value = fmt(float(version.coefficients[i]), 4)
+    if version.std_errors is None or not np.isfinite(version.std_errors[i]):
+        return value
+    return f"{value} ± {fmt(float(version.std_errors[i]), 3)}"
+
+
+def _version_view(version: VersionRecord | None) -> dict[str, Any] | None:
+    if version is None:
+        return None
+    return {
+        "number": version.number, "state": version.state,
+        "coefficients": [{"term": t, "value": _plus_minus(version, i)}
+                         for i, t in enumerate(version.terms)],
+        "s": fmt(version.s, 4), "dof": version.dof, "n": version.n,
+        "level": f"{version.level * 100:g} %",
+        "r_squared": fmt(version.r_squared, 4),
+        "fit_window": (f"{version.fit_start} .. {version.fit_end}"
+                       if version.fit_start else "not recorded"),
+        "active_from": version.active_from,
+    }
+
+
+def _comparison(active: VersionRecord | None,
+                candidate: VersionRecord | None) -> list[dict[str, str]]:
+    if active is None or candidate is None:
+        return []
+    terms = list(dict.fromkeys((*active.terms, *candidate.terms)))
+    rows = []
+    for term in terms:
+        a = _plus_minus(active, active.terms.index(term)) if term in active.terms else "—"
+        c = (_plus_minus(candidate, candidate.terms.index(term))
+             if term in candidate.terms else "—")
+        rows.append({"term": term, "active": a, "candidate": c})
+    rows.append({"term": "s", "active": fmt(active.s, 4), "candidate": fmt(candidate.s, 4)})
+    return rows
+
+
+def render_page(data: ReportData, written_at: datetime) -> str:
+    """The HTML of the report (autoescaped: names and reasons cannot inject markup)."""
+    words = data.settings.words
+    window = data.settings.check.coverage_window_days
+    last = data.last
+    context = {
+        "model": data.model.name,
+        "formula": f"{data.model.response} ~ {' + '.join(data.model.predictors)}",
+        "rows": words.rows, "row": words.row,
+        "status": last.status if last else None,
+        "since": last.status_since if last else None,
+        "reasons": list(last.reasons) if last else [],
+        "last_checked_day": last.day if last else None,
+        "first_day": data.first_day, "last_day": data.last_day,
+        "checked_days": len(data.checks),
+        "window": window, "recent_from": data.scatter.recent_from,
+        "active": _version_view(data.active),
+        "candidate": _version_view(data.candidate),
+        "comparison": _comparison(data.active, data.candidate),
+        "scatter_note": data.scatter.note,
+        "has_checks": not data.coverage.empty,
+        "signal_days": data.cusum.signal_days,
+        "written_at": written_at.strftime("%Y-%m-%d %H:%M %Z"),
+    }
+    return _environment.get_template(_TEMPLATE).render(**context)

@@ -1,0 +1,232 @@
+"""Series for the charts, prepared from stored records without drawing anything.
+
+Every chart of the report and of the alert e-mail draws one of these frozen objects; tests check
+them against the stored day checks and against an independent fit, with no image involved.
+Calendar days without a check, or checked with no rows, are NaN: a chart shows a gap there,
+never a zero.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import date, timedelta
+
+import numpy as np
+
+from monitor.store.checks import DayCheck
+from monitor.store.observations import Observations
+from monitor.store.versions import VersionRecord
+
+GRID_POINTS = 121
+
+
+def calendar(first: date, last: date) -> tuple[date, ...]:
+    """Every calendar day from ``first`` through ``last`` (empty when ``last < first``)."""
+    return tuple(first + timedelta(days=i) for i in range((last - first).days + 1))
+
+
+def _by_day(checks: Sequence[DayCheck]) -> tuple[tuple[date, ...], dict[date, DayCheck]]:
+    if not checks:
+        return (), {}
+    indexed = {c.day: c for c in checks}
+    return calendar(min(indexed), max(indexed)), indexed
+
+
+def _column(days: Sequence[date], indexed: dict[date, DayCheck], name: str,
+            *, need_rows: bool = True) -> np.ndarray:
+    values = np.full(len(days), np.nan)
+    for i, day in enumerate(days):
+        check = indexed.get(day)
+        if check is None or (need_rows and check.n == 0):
+            continue
+        value = getattr(check, name)
+        if value is not None:
+            values[i] = float(value)
+    return values
+
+
+@dataclass(frozen=True)
+class CoverageSeries:
+    """Daily coverage and the rolling window's Wilson band, one entry per calendar day."""
+
+    days: tuple[date, ...]
+    n: np.ndarray  # scored rows per day (0 where no check row exists)
+    coverage: np.ndarray  # covered / n; NaN where n == 0 or no check
+    window_coverage: np.ndarray
+    wilson_low: np.ndarray
+    wilson_high: np.ndarray
+    level: float
+
+    @property
+    def empty(self) -> bool:
+        return not np.isfinite(self.coverage).any()
+
+
+def coverage_series(checks: Sequence[DayCheck], level: float) -> CoverageSeries:
+    days, indexed = _by_day(checks)
+    n = np.array([indexed[d].n if d in indexed else 0 for d in days], dtype=float)
+    return CoverageSeries(
+        days=days, n=n,
+        coverage=_column(days, indexed, "coverage"),
+        window_coverage=_column(days, indexed, "window_coverage", need_rows=False),
+        wilson_low=_column(days, indexed, "wilson_low", need_rows=False),
+        wilson_high=_column(days, indexed, "wilson_high", need_rows=False),
+        level=level,
+    )
+
+
+@dataclass(frozen=True)
+class CusumSeries:
+    """The two CUSUM paths (upper drawn as +, lower as −) and the decision limit h per day."""
+
+    days: tuple[date, ...]
+    upper: np.ndarray  # C+ after the day's step; NaN where the day had no rows or no check
+    lower: np.ndarray  # −C− after the day's step (drawn below zero)
+    h: np.ndarray
+    signal: np.ndarray  # bool, the CUSUM signalled on that day
+
+    @property
+    def empty(self) -> bool:
+        return not np.isfinite(self.upper).any()
+
+    @property
+    def signal_days(self) -> tuple[date, ...]:
+        return tuple(d for d, s in zip(self.days, self.signal, strict=True) if s)
+
+
+def cusum_series(checks: Sequence[DayCheck]) -> CusumSeries:
+    days, indexed = _by_day(checks)
+    upper = _column(days, indexed, "cusum_upper")
+    lower = -_column(days, indexed, "cusum_lower")
+    h = _column(days, indexed, "cusum_h", need_rows=False)
+    signal = np.array([bool(indexed[d].cusum_signal) if d in indexed else False for d in days],
+                      dtype=bool)
+    return CusumSeries(days=days, upper=upper, lower=lower, h=h, signal=signal)
+
+
+@dataclass(frozen=True, eq=False)
+class VersionLine:
+    """One version's mean line and prediction band over a grid of its (single) predictor.
+
+    Computed with :meth:`VersionRecord.prediction_model` at the version's own level: the same
+    interval the nightly check scores with.
+    """
+
+    number: int
+    state: str
+    level: float
+    x: np.ndarray
+    mean: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    fit_x_min: float | None  # the range of x in the version's fit window
+    fit_x_max: float | None
+
+
+def version_line(version: VersionRecord, grid: np.ndarray) -> VersionLine:
+    """``version``'s line and band at the points of ``grid`` (a model with one predictor)."""
+    if version.k != 1:
+        raise ValueError(f"a line needs a model with one predictor; this one has {version.k}")
+    model = version.prediction_model()
+    xs = np.asarray(grid, dtype=float).reshape(-1, 1)
+    lower, upper = model.interval(xs, version.level)
+    lo = float(version.x_min[0]) if version.x_min is not None else None
+    hi = float(version.x_max[0]) if version.x_max is not None else None
+    return VersionLine(version.number, version.state, version.level, xs[:, 0], model.predict(xs),
+                       lower, upper, lo, hi)
+
+
+@dataclass(frozen=True, eq=False)
+class ScatterSeries:
+    """Observed rows (first predictor against the response) and the versions' lines."""
+
+    x: np.ndarray
+    y: np.ndarray
+    recent: np.ndarray  # bool: the row falls in the last coverage window
+    recent_from: date
+    lines: tuple[VersionLine, ...]  # the active version first, then a candidate (if any)
+    x_label: str
+    y_label: str
+    note: str = ""  # why no line is drawn, when none is
+
+    @property
+    def empty(self) -> bool:
+        return len(self.y) == 0 and not self.lines
+
+
+def scatter_series(observations: Observations, versions: Sequence[VersionRecord],
+                   recent_from: date, x_label: str, y_label: str) -> ScatterSeries:
+    """Rows and lines for the scatter; the grid spans the rows and every version's fit range."""
+    x = observations.x[:, 0] if observations.x.shape[1] else np.zeros(len(observations))
+    recent = observations.days >= np.datetime64(recent_from, "D")
+    lines: tuple[VersionLine, ...] = ()
+    note = ""
+    one_predictor = [v for v in versions if v.k == 1]
+    if versions and len(one_predictor) < len(versions):
+        note = ("lines are drawn for one-predictor models only; this model has "
+                f"{versions[0].k} predictors, the rows are shown against the first")
+    elif versions:
+        ends = [x] + [np.array([v.x_min[0], v.x_max[0]]) for v in versions
+                      if v.x_min is not None and v.x_max is not None
+                      and np.isfinite(v.x_min[0]) and np.isfinite(v.x_max[0])]
+        span = np.concatenate(ends)
+        if len(span):
+            grid = np.linspace(span.min(), span.max(), GRID_POINTS)
+            lines = tuple(version_line(v, grid) for v in versions)
+        else:
+            note = "no rows and no fitted range to draw the lines over"
+    return ScatterSeries(x, observations.y, recent, recent_from, lines, x_label, y_label, note)
+
+
+@dataclass(frozen=True, eq=False)
+class ResidualSeries:
+    """Standardized predictive residuals of every row on a checked day, and their day means.
+
+    Each row is scored by the version that scored its day (the check's ``version_id``), at that
+    version's level; ``limit`` is the interval's edge in the same units, t(dof, (1 + L) / 2),
+    so a row beyond ±limit fell outside its prediction interval.
+    """
+
+    days: tuple[date, ...]  # calendar days from the first to the last check
+    row_day: np.ndarray  # datetime64[D] of each scored row
+    z: np.ndarray
+    inside: np.ndarray  # bool: inside the prediction interval
+    day_mean: np.ndarray  # mean z per calendar day; NaN where no rows were scored
+    limit: np.ndarray  # per calendar day; NaN where no check
+
+    @property
+    def empty(self) -> bool:
+        return len(self.z) == 0
+
+
+def residual_series(observations: Observations, checks: Sequence[DayCheck],
+                    versions: Sequence[VersionRecord]) -> ResidualSeries:
+    days, indexed = _by_day(checks)
+    by_id = {v.id: v for v in versions}
+    row_day = observations.days
+    z = np.full(len(row_day), np.nan)
+    inside = np.zeros(len(row_day), dtype=bool)
+    limit = np.full(len(days), np.nan)
+    day_index = {d: i for i, d in enumerate(days)}
+    for version_id in sorted({c.version_id for c in checks}):
+        version = by_id[version_id]
+        model = version.prediction_model()
+        own = np.array([d for d, c in indexed.items() if c.version_id == version_id],
+                       dtype="datetime64[D]")
+        rows = np.isin(row_day, own)
+        if rows.any():
+            scores = model.score(observations.x[rows], observations.y[rows], version.level)
+            z[rows], inside[rows] = scores.z, scores.inside
+        for d in own.astype(object):
+            limit[day_index[d]] = model.critical_value(version.level)
+    scored = np.isfinite(z)
+    row_day, z, inside = row_day[scored], z[scored], inside[scored]
+    day_mean = np.full(len(days), np.nan)
+    if days and len(z):
+        position = (row_day - np.datetime64(days[0], "D")).astype(int)
+        counts = np.bincount(position, minlength=len(days))
+        sums = np.bincount(position, weights=z, minlength=len(days))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            day_mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
+    return ResidualSeries(days, row_day, z, inside, day_mean, limit)

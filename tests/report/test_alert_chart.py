@@ -1,0 +1,62 @@
+"""The e-mail chart: a valid, fixed-size PNG, byte-stable, and showing what the checks say.
+
+PNG layout per the PNG specification (W3C PNG 2nd ed. / ISO/IEC 15948, also RFC 2083): an 8-byte
+signature, then the IHDR chunk whose data start with width and height as 4-byte big-endian ints.
+Pixels are read back with Pillow as an independent decoder.
+"""
+
+from __future__ import annotations
+
+import io
+import struct
+from dataclasses import replace
+
+import numpy as np
+from PIL import Image
+
+from monitor.report.charts import ALERT_SIZE, alert_chart_png
+from monitor.store.checks import DayCheck, load_checks
+from monitor.store.models import get_model
+from tests.test_check import MODEL, World
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec §5.2
+
+
+def png_size(data: bytes) -> tuple[int, int]:
+    """Width and height from the IHDR chunk (PNG spec §11.2.2), read by hand."""
+    assert data[:8] == PNG_SIGNATURE
+    length, kind = struct.unpack(">I4s", data[8:16])
+    assert kind == b"IHDR" and length == 13
+    width, height = struct.unpack(">II", data[16:24])
+    return width, height
+
+
+def stored_checks(world: World) -> list[DayCheck]:
+    with world.engine.connect() as conn:
+        model = get_model(conn, MODEL)
+        return load_checks(conn, model.id, model=MODEL)
+
+
+def test_alert_chart_is_a_stable_png_of_the_configured_size(changed: World) -> None:
+    checks = stored_checks(changed)
+    first = alert_chart_png(checks, 0.95)
+    assert png_size(first) == ALERT_SIZE == (640, 360)
+    with Image.open(io.BytesIO(first)) as image:
+        assert image.format == "PNG" and image.size == ALERT_SIZE
+        pixels = np.asarray(image.convert("RGB"))
+    assert len(np.unique(pixels.reshape(-1, 3), axis=0)) > 10  # something was drawn
+    assert alert_chart_png(checks, 0.95) == first
+    assert b"Software" not in first and b"matplotlib" not in first
+
+
+def test_alert_chart_shows_a_signal(changed: World) -> None:
+    checks = stored_checks(changed)
+    assert any(c.cusum_signal for c in checks)
+    quiet = [replace(c, cusum_signal=False) for c in checks]
+    assert alert_chart_png(checks, 0.95) != alert_chart_png(quiet, 0.95)
+
+
+def test_alert_chart_takes_any_sequence_and_copes_with_nothing(calm: World) -> None:
+    checks = stored_checks(calm)
+    assert alert_chart_png(tuple(checks), 0.95) == alert_chart_png(checks, 0.95)
+    assert png_size(alert_chart_png([], 0.95)) == ALERT_SIZE
