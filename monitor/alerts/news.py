@@ -1,0 +1,129 @@
+"""Deciding what to tell whom after one night: pure functions, no database, no clock.
+
+The night is the calendar day that was just checked (in the configured time zone). A model has
+news that night when
+
+- it *enters* a status its settings mail about (``alerts.on``; ``refit`` always counts): the
+  night's check has ``status_since`` equal to the night;
+- a ``watch`` or ``refit`` it mails about is still unresolved and the night is a whole multiple
+  of ``remind_every_days`` after ``status_since`` (a *reminder*);
+- a promotion, rollback or acknowledgement took effect on the night (a *restart* note, with how
+  the first day under it went);
+- a status it mailed about ended by itself: ``watch`` back to ``ok`` (a *settled* note, so the
+  reminders do not just stop without a word).
+
+News is grouped into one digest per recipient (recipients can differ per model).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from datetime import date
+
+from monitor.config import AlertSettings
+from monitor.store.checks import DayCheck
+
+OK, WATCH, REFIT = "ok", "watch", "refit"
+ENTERED, REMINDER, RESTART, SETTLED = "entered", "reminder", "restart", "settled"
+RESTART_ACTIONS = ("promote", "rollback", "ack")
+_RANK = {OK: 0, WATCH: 1, REFIT: 2}
+
+
+@dataclass(frozen=True)
+class Action:
+    """A promotion, rollback or acknowledgement, as the audit log recorded it."""
+
+    action: str  # promote | rollback | ack
+    effective_day: date
+    actor: str
+    reason: str | None
+    version: int | None  # the version in force from effective_day
+    previous: int | None  # the version in force before it
+
+
+@dataclass(frozen=True)
+class ModelNews:
+    """What one model has to say after one night."""
+
+    model: str
+    night: date
+    events: tuple[str, ...]  # among ENTERED, REMINDER, RESTART, SETTLED
+    check: DayCheck
+    previous_status: str | None
+    actions: tuple[Action, ...]
+    recipients: tuple[str, ...]
+
+    @property
+    def status(self) -> str:
+        return self.check.status
+
+    @property
+    def days_in_status(self) -> int:
+        return (self.night - self.check.status_since).days
+
+    @property
+    def weight(self) -> int:
+        """Order of importance within a digest: refit, then watch, then the rest."""
+        return _RANK.get(self.status, 0) * 10 + (5 if ENTERED in self.events else 0)
+
+
+@dataclass(frozen=True)
+class Digest:
+    """One recipient's message for one night: every model with news for that recipient."""
+
+    recipient: str
+    night: date
+    items: tuple[ModelNews, ...]
+
+
+def mailed_statuses(alerts: AlertSettings) -> frozenset[str]:
+    """Statuses this model mails about: the configured ones, and ``refit`` always."""
+    return frozenset({*alerts.on, REFIT} & {WATCH, REFIT})
+
+
+def model_news(name: str, night: date, check: DayCheck | None, previous: DayCheck | None,
+               actions: Sequence[Action], alerts: AlertSettings) -> ModelNews | None:
+    """The news of model ``name`` for ``night``, or None when there is nothing to say.
+
+    ``check`` is the model's check of the night itself (None: the night was not checked, so
+    nothing is said), ``previous`` its latest check before the night, ``actions`` the audit
+    entries that took effect on the night.
+    """
+    if check is None or check.day != night:
+        return None
+    mailed = mailed_statuses(alerts)
+    taking_effect = tuple(a for a in actions
+                          if a.action in RESTART_ACTIONS and a.effective_day == night)
+    events: list[str] = []
+    if taking_effect:
+        events.append(RESTART)
+    if check.status in mailed:
+        held = (night - check.status_since).days
+        if held == 0:
+            events.append(ENTERED)
+        elif held > 0 and held % alerts.remind_every_days == 0:
+            events.append(REMINDER)
+    elif (check.status == OK and not taking_effect and previous is not None
+          and previous.status in mailed):
+        events.append(SETTLED)
+    if not events or not alerts.to:
+        return None
+    return ModelNews(name, night, tuple(events), check,
+                     previous.status if previous is not None else None, taking_effect,
+                     tuple(alerts.to))
+
+
+def digests(news: Iterable[ModelNews]) -> list[Digest]:
+    """One digest per recipient, most important model first; recipients in address order."""
+    by_recipient: dict[str, list[ModelNews]] = {}
+    nights = set()
+    for item in news:
+        nights.add(item.night)
+        for recipient in dict.fromkeys(item.recipients):
+            by_recipient.setdefault(recipient, []).append(item)
+    if len(nights) > 1:
+        raise ValueError(f"news from several nights in one call: {sorted(nights)}")
+    return [Digest(recipient, items[0].night,
+                   tuple(sorted(items, key=lambda n: (-n.weight, n.model))))
+            for recipient, items in sorted(by_recipient.items())]

@@ -1,0 +1,268 @@
+"""The night's alerts: decide, compose and queue them in the outbox, then send what is due.
+
+Delivery is exactly once in the normal case:
+
+- :func:`queue_night` writes all of a night's messages in one transaction, one row per
+  dedupe key (recipient + night + kind); running the night again queues nothing new.
+- :func:`send_due` takes one due row at a time: a small transaction *claims* it (moves its
+  ``next_attempt_at`` ahead by :data:`CLAIM_SECONDS`, so a second sender leaves it alone), the
+  mailer hands it on, and the very next statement is a small transaction marking it ``sent``.
+
+The one unavoidable window: the SMTP server has accepted the message (its reply to the end of
+DATA) but the process dies before the ``sent`` commit. The row is then still ``pending`` and
+is sent again after the claim expires, so the recipient gets it twice. The window is kept to
+the time of one local commit: nothing else (no logging, no QUIT, no other row) happens between
+the server's acceptance and that commit, and every copy carries the same Message-ID (derived
+from the dedupe key), by which mail systems and readers can recognise the repeat. The ``.eml``
+folder has no such window: the file name comes from the dedupe key, so a repeat overwrites.
+
+Transport and sender are the global ``[alerts]`` ones (``smtp``, ``eml_dir``, ``sender``): one
+digest can cover models with different ``[models.NAME.alerts]``, whose ``to``, ``on`` and
+``remind_every_days`` decide who hears about which model and when. A run that catches up
+several nights should call :func:`send_night_alerts` once per night, oldest first.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+from dataclasses import dataclass, fields
+from datetime import date, datetime, timedelta
+from typing import Any
+
+from sqlalchemy import Connection, Engine
+
+from monitor.alerts.compose import (
+    KIND_NIGHT,
+    ModelContext,
+    build_message,
+    compose,
+    dedupe_key,
+)
+from monitor.alerts.mailer import DeliveryError, Mailer, mailer_for
+from monitor.alerts.news import (
+    RESTART_ACTIONS,
+    Action,
+    Digest,
+    ModelNews,
+    digests,
+    model_news,
+)
+from monitor.config import Settings
+from monitor.report.charts import alert_chart_png
+from monitor.store import audit
+from monitor.store import outbox as box
+from monitor.store.access import database
+from monitor.store.checks import DayCheck, last_check, load_checks
+from monitor.store.engine import write_transaction
+from monitor.store.models import ModelRecord, list_models
+from monitor.store.versions import CANDIDATE, VersionRecord, list_versions
+
+log = logging.getLogger(__name__)
+
+MAX_ATTEMPTS = 10  # then the row is 'failed'; backoff below spreads these over about a day
+FIRST_BACKOFF = timedelta(minutes=5)
+MAX_BACKOFF = timedelta(hours=6)
+CLAIM_SECONDS = 600  # a claimed row another sender may not touch (covers one SMTP exchange)
+CHART_DAYS = 60  # days of checks the alert chart shows, ending on the night
+
+
+def backoff(attempts: int) -> timedelta:
+    """Wait after the ``attempts``-th failure: 5 min doubling, at most 6 h."""
+    return min(FIRST_BACKOFF * 2 ** max(attempts - 1, 0), MAX_BACKOFF)
+
+
+@dataclass(frozen=True)
+class AlertRun:
+    """What one alert run did."""
+
+    night: date | None
+    queued: int  # new outbox rows for the night
+    sent: int  # rows handed on during this run
+    retried: int  # attempts that failed this run and will be tried again later
+    failed: int  # rows given up on during this run (status 'failed')
+    pending: int  # rows still waiting after this run (due later or not reached)
+    transport: str  # where messages went: an SMTP host or a folder
+
+    def as_dict(self) -> dict[str, Any]:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+    def sentence(self) -> str:
+        night = f"night of {self.night.isoformat()}: " if self.night else ""
+        parts = [f"{self.queued} message(s) queued", f"{self.sent} sent via {self.transport}"]
+        if self.retried:
+            parts.append(f"{self.retried} to retry later")
+        if self.failed:
+            parts.append(f"{self.failed} given up")
+        if self.pending:
+            parts.append(f"{self.pending} still pending")
+        return night + ", ".join(parts)
+
+
+@dataclass(frozen=True)
+class _Delivery:
+    sent: int
+    retried: int
+    failed: int
+    pending: int
+
+
+# deciding and queueing ------------------------------------------------------------------------
+def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
+    out = []
+    for e in audit.entries(conn, model.id, RESTART_ACTIONS, from_day=night):
+        if e.effective_day != night:
+            continue
+        details = e.details or {}
+        version = details.get("version")
+        if e.action == "ack":
+            version = None
+        out.append(Action(e.action, night, e.actor, e.reason, version, details.get("previous")))
+    return out
+
+
+def _context(settings: Settings, model: ModelRecord, check: DayCheck,
+             versions: Sequence[VersionRecord]) -> ModelContext:
+    ms = settings.for_model(model.name)
+    scoring = next((v for v in versions if v.id == check.version_id), None)
+    candidates = [v.number for v in versions if v.state == CANDIDATE]
+    return ModelContext(
+        model=model.name, response=model.response, predictors=model.predictors,
+        words=ms.words, level=scoring.level if scoring else ms.check.level,
+        version=scoring.number if scoring else None,
+        plan_slopes=tuple(float(b) for b in scoring.coefficients[1:]) if scoring else (),
+        candidate=max(candidates) if candidates else None,
+        coverage_window_days=ms.check.coverage_window_days)
+
+
+def night_news(settings: Settings, conn: Connection,
+               night: date) -> tuple[list[ModelNews], dict[str, ModelContext]]:
+    """Every model's news for ``night`` and what composing it needs."""
+    news, contexts = [], {}
+    for model in list_models(conn):
+        checks = load_checks(conn, model.id, night, night, model=model.name)
+        if not checks:
+            continue
+        previous = last_check(conn, model.id, before=night, model=model.name)
+        item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
+                          settings.for_model(model.name).alerts)
+        if item is None:
+            continue
+        news.append(item)
+        contexts[model.name] = _context(settings, model, checks[0],
+                                        list_versions(conn, model.id))
+    return news, contexts
+
+
+def _chart_model(digest: Digest) -> str:
+    """The model the digest's one chart shows: the most pressing one (items are sorted so)."""
+    return digest.items[0].model
+
+
+def _chart(conn: Connection, news: ModelNews, level: float) -> bytes:
+    checks = load_checks(conn, news.check.model_id, news.night - timedelta(days=CHART_DAYS - 1),
+                         news.night, model=news.model)
+    return alert_chart_png(checks, level)
+
+
+def queue_night(settings: Settings, night: date, *, now: datetime,
+                engine: Engine | None = None) -> int:
+    """Queue ``night``'s digests in the outbox (one transaction); returns how many are new."""
+    with database(settings, engine) as db:
+        with db.connect() as conn:
+            news, contexts = night_news(settings, conn, night)
+            wanted = {dedupe_key(d.recipient, night, KIND_NIGHT): d for d in digests(news)}
+            known = box.existing_keys(conn, list(wanted))
+            charts: dict[str, bytes] = {}
+            messages = []
+            for key, digest in wanted.items():
+                if key in known:
+                    continue
+                chart_model = _chart_model(digest)
+                if chart_model not in charts:
+                    item = digest.items[0]
+                    charts[chart_model] = _chart(conn, item, contexts[chart_model].level)
+                composed = compose(digest, contexts, key=key, chart_model=chart_model)
+                messages.append(box.NewMessage(key, digest.recipient, composed.subject,
+                                               composed.text, composed.html,
+                                               charts[chart_model]))
+        if not messages:
+            return 0
+        with write_transaction(db) as conn:
+            queued = sum(box.queue_message(conn, m, now) for m in messages)
+    log.info("queued %d alert message(s) for the night of %s", queued, night)
+    return queued
+
+
+# sending --------------------------------------------------------------------------------------
+def _message(row: box.OutboxRow, sender: str) -> Any:
+    return build_message(key=row.dedupe_key, sender=sender, recipient=row.recipient,
+                         subject_line=row.subject, text=row.body_text, html=row.body_html,
+                         chart_png=row.chart_png, created_at=row.created_at)
+
+
+def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Delivery:
+    sent = retried = failed = 0
+    with db.connect() as conn:
+        due = box.due_ids(conn, now)
+    for row_id in due:
+        with write_transaction(db) as conn:
+            row = box.claim(conn, row_id, now, now + timedelta(seconds=CLAIM_SECONDS))
+        if row is None:  # another sender took it meanwhile
+            continue
+        try:
+            mailer.send(_message(row, sender), key=row.dedupe_key)
+        except DeliveryError as exc:
+            attempts = row.attempts + 1
+            give_up = exc.permanent or attempts >= MAX_ATTEMPTS
+            with write_transaction(db) as conn:
+                box.mark_attempt_failed(conn, row.id, error=str(exc),
+                                        next_attempt_at=now + backoff(attempts),
+                                        give_up=give_up)
+            if give_up:
+                failed += 1
+                log.error("gave up on alert %s to %s after %d attempt(s): %s",
+                          row.dedupe_key, row.recipient, attempts, exc)
+            else:
+                retried += 1
+                log.warning("alert %s to %s not delivered (attempt %d of %d), next try after "
+                            "%s: %s", row.dedupe_key, row.recipient, attempts, MAX_ATTEMPTS,
+                            (now + backoff(attempts)).isoformat(), exc)
+            continue
+        with write_transaction(db) as conn:  # at once: this commit closes the window
+            box.mark_sent(conn, row.id, now)
+        sent += 1
+        log.info("alert %s sent to %s via %s", row.dedupe_key, row.recipient, mailer.where())
+    with db.connect() as conn:
+        pending = len(box.rows(conn, box.PENDING))
+    return _Delivery(sent, retried, failed, pending)
+
+
+def send_due(settings: Settings, *, now: datetime, engine: Engine | None = None,
+             mailer: Mailer | None = None) -> AlertRun:
+    """Send every pending outbox row whose next attempt is due (each in its own transactions)."""
+    mailer = mailer if mailer is not None else mailer_for(settings.alerts)
+    try:
+        with database(settings, engine) as db:
+            done = _deliver(db, mailer, settings.alerts.sender, now)
+    finally:
+        mailer.close()
+    return AlertRun(None, 0, done.sent, done.retried, done.failed, done.pending, mailer.where())
+
+
+def send_night_alerts(settings: Settings, night: date, *, now: datetime,
+                      engine: Engine | None = None, mailer: Mailer | None = None) -> AlertRun:
+    """Queue ``night``'s messages, then send everything due (this night's and earlier retries).
+
+    The one entry point for the daemon and the command line. ``night`` is the calendar day that
+    was just checked, in the configured time zone; ``now`` is the instant of the run.
+    """
+    with database(settings, engine) as db:
+        queued = queue_night(settings, night, now=now, engine=db)
+        delivery = send_due(settings, now=now, engine=db, mailer=mailer)
+    return AlertRun(night, queued, delivery.sent, delivery.retried, delivery.failed,
+                    delivery.pending, delivery.transport)
+
+
+__all__ = ["CLAIM_SECONDS", "MAX_ATTEMPTS", "AlertRun", "backoff", "night_news", "queue_night",
+           "send_due", "send_night_alerts"]
