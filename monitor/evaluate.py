@@ -167,13 +167,13 @@ class Carry:
     def restarted(self, day: date) -> Carry:
         """Everything starts afresh on ``day`` (a promotion or an acknowledgement takes effect).
 
-        The CUSUM is back at zero, a held refit is released, and the coverage and test windows
-        count only days from ``day``: evidence that was acted upon is not counted twice.
+        The CUSUM is back at zero, a held refit is released, the status starts anew (its
+        "since" is the restart day at the earliest), and the coverage and test windows count
+        only days from ``day``: evidence that was acted upon is not counted twice.
         """
         return replace(self, cusum=CusumState.zero(), upper_onset=None, lower_onset=None,
                        upper_resid=0.0, upper_rows=0, lower_resid=0.0, lower_rows=0,
-                       status=OK if self.status == REFIT else self.status, coverage_days=(),
-                       fresh_from=day)
+                       status=OK, status_since=None, coverage_days=(), fresh_from=day)
 
 
 def _day(value: Any) -> date | None:
