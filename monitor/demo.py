@@ -18,6 +18,7 @@ from zoneinfo import ZoneInfo
 
 from sqlalchemy import Engine
 
+from monitor.alerts.service import send_night_alerts
 from monitor.check import run_checks
 from monitor.check_view import day_line
 from monitor.compare import Comparison
@@ -28,6 +29,7 @@ from monitor.ingest.service import ingest_file, options_for
 from monitor.refit import Transition, promote, refit
 from monitor.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
 from monitor.status import VersionView
+from monitor.store import outbox
 from monitor.store.access import database
 from monitor.store.checks import DayCheck
 from monitor.store.engine import init_database
@@ -84,6 +86,8 @@ def _fresh(directory: Path) -> None:
     """Remove what an earlier demo run left (only the demo's own files)."""
     for name in ("fitwatch.db", "fitwatch.db-wal", "fitwatch.db-shm", "fitwatch.toml"):
         (directory / name).unlink(missing_ok=True)
+    for mail in directory.joinpath("outbox").glob("*.eml"):
+        mail.unlink()
 
 
 def run_demo(directory: Path, out: TextIO, seed: int = DEFAULT_SEED) -> DemoResult:
@@ -135,6 +139,7 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
         if summary.rejected or summary.duplicates:
             say(f"  {summary.sentence()}\n")
         outcome = run_checks(settings, [MODEL], through=day, now=now, engine=engine)
+        mailed = _mail(engine, settings, [c.day for c in outcome.checks], now)
         for check in outcome.checks:
             played.checks.append(check)
             say("  " + day_line(check) + "\n")
@@ -143,9 +148,21 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
                 for reason in check.reasons:
                     say(f"      {reason}\n")
                 status = (check.status, found)
-            if _lead_refits(check):
-                _respond(engine, settings, check, now, played, say)
+        for subject in mailed:
+            say(f"      e-mail to the planning lead: \"{subject}\"\n")
+        if outcome.checks and _lead_refits(outcome.checks[-1]):
+            _respond(engine, settings, outcome.checks[-1], now, played, say)
     return played
+
+
+def _mail(engine: Engine, settings: Settings, nights: list[date], now: datetime) -> list[str]:
+    """The nights' alert digests, written as .eml files; returns the new messages' subjects."""
+    with engine.connect() as conn:
+        before = {row.id for row in outbox.rows(conn)}
+    for night in nights:
+        send_night_alerts(settings, night, now=now, engine=engine)
+    with engine.connect() as conn:
+        return [row.subject for row in outbox.rows(conn) if row.id not in before]
 
 
 def _lead_refits(check: DayCheck) -> bool:
@@ -196,7 +213,12 @@ def _closing(say: Callable[[str], object], config: Path, played: _Played,
         say(f"  fitwatch advised a refit on {first_refit.day}, {delay} day(s) after the change.\n")
     for moved in played.promotions:
         say(f"  Version {moved.active} scored the days from {moved.effective_day}.\n")
+    mails = sorted(config.parent.joinpath("outbox").glob("*.eml"))
+    if mails:
+        say(f"\n{len(mails)} e-mail(s) to the planning lead are in {mails[0].parent} "
+            "(open them with any mail program).\n")
     say(f"\nTry: fitwatch --config {config} status\n")
+    say(f"     fitwatch --config {config} report {MODEL} --out {config.parent / 'report'}\n")
     say(f"     fitwatch --config {config} model list\n")
     say(f"     fitwatch --config {config} compare {MODEL}\n"
         if any(c.recommendation.action != "promote" for c in played.comparisons[-1:]) else "")

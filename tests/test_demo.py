@@ -41,6 +41,9 @@ def test_demo_runs_end_to_end_and_finds_the_layout_change(tmp_path: Path) -> Non
     assert len(between) > 14 and all(c.status == "ok" for c in between)
     after = [c for c in result.checks if c.day > scenario.spread_change]
     assert after[0].status in ("watch", "refit")
+    # the planning lead was told by e-mail (written as .eml files: no SMTP in the demo)
+    assert 'e-mail to the planning lead: "fitwatch: dock_loading needs a refit"' in text
+    assert len(list((tmp_path / "demo" / "outbox").glob("*.eml"))) >= 2
     # the demo leaves a working setup behind: its settings file and database answer commands
     assert main(["--config", str(result.config), "status"]) == 0
 
