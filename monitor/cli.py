@@ -10,7 +10,7 @@ import argparse
 import logging
 import sys
 from collections.abc import Callable, Sequence
-from datetime import date
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -173,6 +173,17 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--id", metavar="COL", help="observation id column")
     json_flag(rep)
 
+    send = command("alerts", "queue and send a night's alert e-mails (the daemon does this "
+                   "itself; for cron after 'check')", _cmd_alerts)
+    send.add_argument("--night", metavar="DATE", type=_day,
+                      help="the checked day to report (default: yesterday)")
+    json_flag(send)
+    dmn = command("daemon", "run the scheduled nightly work until stopped (SIGTERM: finish the "
+                  "current model, then exit)", _cmd_daemon)
+    dmn.add_argument("--once", action="store_true",
+                     help="one catch-up run (inbox, checks, alerts), then exit")
+    json_flag(dmn)
+
     demo = command("demo", "run the sample scenario end to end on an embedded SQLite file",
                    _cmd_demo)
     demo.add_argument("--dir", metavar="DIR", default="fitwatch-demo",
@@ -290,7 +301,9 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
     elif not statuses:
         print("no models yet")
     else:
-        print("\n".join(s.sentence() for s in statuses))
+        nightly = statuses[0].nightly
+        print("\n".join(([nightly.sentence()] if nightly else [])
+                        + [s.sentence() for s in statuses]))
     return EXIT_OK
 
 
@@ -329,6 +342,29 @@ def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
     return EXIT_OK
 
 
+def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.alerts.service import send_night_alerts
+    from monitor.check import local_today
+
+    now = datetime.now(UTC)
+    night = args.night or local_today(now, settings) - timedelta(days=1)
+    result = send_night_alerts(settings, night, now=now)
+    print(dumps(result.as_dict()) if args.json else result.sentence())
+    return EXIT_OK
+
+
+def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.daemon import run_daemon
+
+    runs = run_daemon(settings, once=args.once)
+    if args.json:
+        print(dumps([r.as_dict() for r in runs]))
+    else:
+        for run in runs:
+            print(run.sentence())
+    return EXIT_OK
+
+
 def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.replay import replay
     from monitor.store.models import ModelSpec
@@ -357,7 +393,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         args = parser.parse_args(argv)
         logging.basicConfig(
-            level=logging.WARNING - 10 * min(args.verbose, 2),
+            level=(logging.INFO if args.command == "daemon" else logging.WARNING)
+            - 10 * min(args.verbose, 2),
             format="%(asctime)s %(levelname)s %(name)s: %(message)s")
         settings = load_settings(args.config).with_database(args.db)
         return int(args.handler(args, settings))

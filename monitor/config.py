@@ -243,8 +243,15 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
     return out
 
 
+# Keys a [models.NAME.alerts] section may set: who hears about the model and when. The
+# transport and the sender are global, because one digest per recipient covers every model.
+_MODEL_ALERT_KEYS = {"to", "on", "remind_every_days"}
+
+
 def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> AlertSettings:
-    sec = r.table(raw, key, {"to", "sender", "on", "remind_every_days", "eml_dir", "smtp"})
+    allowed = ({"to", "sender", "on", "remind_every_days", "eml_dir", "smtp"}
+               if key == "alerts" else _MODEL_ALERT_KEYS)
+    sec = r.table(raw, key, allowed)
     smtp = base.smtp
     if "smtp" in sec:
         s = r.table(sec["smtp"], f"{key}.smtp", {f.name for f in fields(SmtpSettings)})

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
@@ -11,8 +11,10 @@ from sqlalchemy import Engine
 
 from monitor.check import local_today
 from monitor.config import Settings
+from monitor.daemon import NightlyState, nightly_state
 from monitor.errors import StateError
 from monitor.output import fmt
+from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check
 from monitor.store.models import ModelRecord, get_model, list_models
@@ -28,11 +30,13 @@ class ModelStatus:
     reasons: tuple[str, ...]
     active_version: int | None
     behind_days: int  # complete days not yet checked
+    nightly: NightlyState | None = None  # None: no daemon has ever run on this database
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.model, "status": self.status, "since": self.since,
                 "last_checked_day": self.last_checked_day, "reasons": list(self.reasons),
-                "active_version": self.active_version, "behind_days": self.behind_days}
+                "active_version": self.active_version, "behind_days": self.behind_days,
+                "nightly": self.nightly.as_dict() if self.nightly else None}
 
     def sentence(self) -> str:
         if self.status is None:
@@ -54,10 +58,12 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
     out = []
     with database(settings, engine) as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
+        held = lease.read(conn)
+        nightly = nightly_state(settings, held, now) if held else None
         for model in models:
             last = last_check(conn, model.id, model=model.name)
             active = active_version(conn, model.id)
-            out.append(_status(model, last, active, yesterday))
+            out.append(replace(_status(model, last, active, yesterday), nightly=nightly))
     return out
 
 

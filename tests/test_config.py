@@ -83,6 +83,7 @@ level = 0.8
     ("[alerts]\nto = ['not-an-address']", "alerts.to", "not an e-mail address"),
     ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
     ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "unknown key"),
+    ("[models.a.alerts]\nsender = 'x@example.com'", "models.a.alerts.sender", "unknown key"),
     ("[alerts.smtp]\nhost = 'mail.example.com'\nsecurity = 'none'", "alerts.smtp.security",
      "loopback"),
     ("[alerts.smtp]\nport = 70000", "alerts.smtp.port", "at most 65535"),

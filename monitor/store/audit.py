@@ -1,4 +1,5 @@
-"""The audit log: who fitted, imported, promoted, rolled back or acknowledged what, when, why."""
+"""The audit log: who fitted, imported, promoted, rolled back or acknowledged what, when, why;
+and which nightly work failed (action ``failure``)."""
 
 from __future__ import annotations
 
@@ -10,7 +11,7 @@ from sqlalchemy import Connection, insert, select
 
 from monitor.store.schema import audit_log, jsonable
 
-ACTIONS = ("fit", "import", "promote", "rollback", "ack")
+ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure")
 
 
 @dataclass(frozen=True)

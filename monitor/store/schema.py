@@ -236,7 +236,8 @@ audit_log = Table(
     Column("id", Integer, primary_key=True),
     Column("at", UtcDateTime, nullable=False),
     Column("model_id", ForeignKey("models.id", ondelete="CASCADE")),
-    Column("action", String(20), nullable=False),  # fit | import | promote | rollback | ack
+    # fit | import | promote | rollback | ack | failure
+    Column("action", String(20), nullable=False),
     Column("actor", String(100), nullable=False),
     Column("reason", Text),
     Column("version_id", ForeignKey("versions.id")),

@@ -1,0 +1,217 @@
+"""``fitwatch daemon``: the nightly run on a cron schedule, one instance per database.
+
+On start the daemon waits for the database's lease (a second instance waits here until the
+first stops or its lease expires), then catches up at once, then runs on the configured cron
+schedule in the configured time zone. A heartbeat renews the lease and tells ``status`` that
+the daemon is alive; the run's start and end are recorded so ``status`` can say when a run is
+late. SIGTERM or SIGINT lets the current model finish, then the daemon releases the lease and
+exits cleanly.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import signal
+import socket
+import threading
+import uuid
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import UTC, datetime, timedelta
+from types import FrameType
+from typing import Any
+
+from apscheduler.schedulers.background import BackgroundScheduler
+from apscheduler.triggers.cron import CronTrigger
+from sqlalchemy import Engine
+
+from monitor.alerts.mailer import Mailer
+from monitor.config import Settings
+from monitor.errors import StateError
+from monitor.nightly import NightRun, run_night
+from monitor.store import lease
+from monitor.store.access import database
+
+log = logging.getLogger(__name__)
+
+LEASE_TTL = timedelta(minutes=10)
+WAIT_POLL_SECONDS = 30.0
+LATE_GRACE = timedelta(hours=1)  # a run that has not started this long after its time is late
+STALE_HEARTBEATS = 3  # missed heartbeats before a holder counts as gone
+
+
+def holder_name() -> str:
+    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+
+
+def cron_trigger(settings: Settings) -> CronTrigger:
+    return CronTrigger.from_crontab(settings.schedule.cron, timezone=settings.timezone)
+
+
+class NightlyWorker:
+    """Runs nights under the lease; one at a time; stops between models when asked."""
+
+    def __init__(self, settings: Settings, engine: Engine, holder: str, *,
+                 ttl: timedelta = LEASE_TTL, mailer: Mailer | None = None,
+                 clock: Callable[[], datetime] = lambda: datetime.now(UTC)):
+        self.settings, self.engine, self.holder = settings, engine, holder
+        self.ttl, self.mailer, self.clock = ttl, mailer, clock
+        self.stop = threading.Event()
+        self._one_at_a_time = threading.Lock()
+        self.runs: list[NightRun] = []
+
+    def run_once(self) -> NightRun | None:
+        with self._one_at_a_time:
+            if self.stop.is_set():
+                return None
+            now = self.clock()
+            if not lease.renew(self.engine, self.holder, now, self.ttl):
+                log.error("the lease was lost (another instance took it); stopping")
+                self.stop.set()
+                return None
+            lease.run_started(self.engine, self.holder, now)
+            status = "failed"
+            try:
+                result = run_night(self.settings, self.engine, now=now, mailer=self.mailer,
+                                   should_stop=self.stop.is_set)
+                status = result.status
+                self.runs.append(result)
+                log.info("nightly run: %s", result.sentence())
+                return result
+            except Exception:  # recorded and logged; the schedule goes on
+                log.exception("the nightly run failed")
+                return None
+            finally:
+                lease.run_finished(self.engine, self.holder, self.clock(), status)
+
+    def heartbeat(self) -> None:
+        try:
+            alive = lease.renew(self.engine, self.holder, self.clock(), self.ttl)
+        except Exception:  # a database hiccup; the next beat tries again
+            log.exception("heartbeat failed")
+            return
+        if not alive:
+            log.error("the lease was lost (another instance took it); stopping")
+            self.stop.set()
+
+
+def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool = False,
+               holder: str | None = None, ttl: timedelta = LEASE_TTL,
+               poll_seconds: float = WAIT_POLL_SECONDS, mailer: Mailer | None = None,
+               install_signals: bool = True,
+               started: Callable[[NightlyWorker], None] | None = None) -> list[NightRun]:
+    """Run until stopped (or one catch-up run with ``once``); returns the runs made."""
+    holder = holder or holder_name()
+    with database(settings, engine) as db:
+        worker = NightlyWorker(settings, db, holder, ttl=ttl, mailer=mailer)
+        if install_signals:
+            _stop_on_signals(worker.stop)
+        if started is not None:
+            started(worker)
+        if not _wait_for_lease(worker, once, poll_seconds):
+            return worker.runs
+        scheduler = BackgroundScheduler(timezone=settings.timezone)
+        try:
+            scheduler.add_job(worker.heartbeat, "interval",
+                              seconds=max(ttl.total_seconds() / 4, 0.05), id="heartbeat")
+            if not once:
+                scheduler.add_job(worker.run_once, cron_trigger(settings), id="night",
+                                  max_instances=1, coalesce=True,
+                                  misfire_grace_time=int(LATE_GRACE.total_seconds()))
+            scheduler.start()
+            log.info("fitwatch daemon %s holds the lease; catching up", holder)
+            worker.run_once()
+            if not once:
+                job = scheduler.get_job("night")
+                log.info("next nightly run at %s", job.next_run_time if job else "never")
+                worker.stop.wait()
+        finally:
+            if scheduler.running:
+                scheduler.shutdown(wait=True)
+            lease.release(db, holder)
+            log.info("fitwatch daemon %s stopped and released the lease", holder)
+        return worker.runs
+
+
+def _wait_for_lease(worker: NightlyWorker, once: bool, poll_seconds: float) -> bool:
+    said = None
+    while not lease.try_acquire(worker.engine, worker.holder, worker.clock(), worker.ttl):
+        with worker.engine.connect() as conn:
+            state = lease.read(conn)
+        other = state.holder if state else "another instance"
+        if once:
+            raise StateError(f"another fitwatch daemon ({other}) holds this database's lease "
+                             "and runs the nights; nothing done")
+        if other != said:
+            log.warning("waiting for the lease held by %s (expires %s)", other,
+                        state.expires_at if state else "?")
+            said = other
+        if worker.stop.wait(poll_seconds):
+            return False
+    return True
+
+
+def _stop_on_signals(stop: threading.Event) -> None:
+    def handler(signum: int, _frame: FrameType | None) -> None:
+        log.warning("%s received: finishing the current model, then stopping",
+                    signal.Signals(signum).name)
+        stop.set()
+
+    for sig in (signal.SIGTERM, signal.SIGINT):
+        signal.signal(sig, handler)
+
+
+@dataclass(frozen=True)
+class NightlyState:
+    """What ``status`` says about the nightly runs (from the lease row)."""
+
+    last_started: datetime | None
+    last_finished: datetime | None
+    last_status: str | None
+    due: datetime | None  # the latest scheduled time that has passed
+    late: bool
+    daemon_alive: bool
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"last_run_started_at": self.last_started,
+                "last_run_finished_at": self.last_finished,
+                "last_run_status": self.last_status, "due": self.due, "late": self.late,
+                "daemon_alive": self.daemon_alive}
+
+    def sentence(self) -> str:
+        when = (self.last_finished or self.last_started)
+        done = (f"last nightly run {when:%Y-%m-%d %H:%M %Z} ({self.last_status})" if when
+                else "no nightly run yet")
+        if self.late:
+            return (f"LATE: the nightly run due {self.due:%Y-%m-%d %H:%M %Z} has not started; "
+                    f"{done}; daemon {'running' if self.daemon_alive else 'not running'}")
+        return f"{done}; daemon {'running' if self.daemon_alive else 'not running'}"
+
+
+def nightly_state(settings: Settings, state: lease.LeaseState, now: datetime) -> NightlyState:
+    """Is the nightly run late? Compares the last start with the schedule's latest time."""
+    zone = settings.timezone
+    due = last_scheduled(cron_trigger(settings), now - timedelta(days=8), now)
+    started = state.last_run_started_at
+    late = due is not None and now - due > LATE_GRACE and (started is None or started < due)
+    beat = state.heartbeat_at
+    alive = state.holder is not None and beat is not None and \
+        now - beat < STALE_HEARTBEATS * LEASE_TTL / 4 + timedelta(minutes=1)
+
+    def local(t: datetime | None) -> datetime | None:
+        return t.astimezone(zone) if t else None
+
+    return NightlyState(local(started), local(state.last_run_finished_at),
+                        state.last_run_status, local(due), late, alive)
+
+
+def last_scheduled(trigger: CronTrigger, since: datetime, now: datetime) -> datetime | None:
+    """The latest fire time of ``trigger`` in ``(since, now]``."""
+    found, fire = None, trigger.get_next_fire_time(None, since)
+    for _ in range(100_000):
+        if fire is None or fire > now:
+            return found
+        found = fire
+        fire = trigger.get_next_fire_time(fire, fire + timedelta(seconds=1))
+    return found

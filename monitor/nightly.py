@@ -1,0 +1,137 @@
+"""One nightly run: sweep the inbox, check every unchecked day through yesterday, send alerts.
+
+The daemon calls :func:`run_night` on its schedule (and once at start, to catch up); ``fitwatch
+daemon --once`` calls it from cron. Everything it needs to know comes from the database's own
+record, so a machine that was off for a week catches up the whole week. Models are checked one
+at a time: a stop request (SIGTERM) is honoured between models, and one model's failure is
+logged with its traceback, written to the audit log and does not stop the others. Alerts go out
+for each newly checked night, oldest first, so news in the middle of a catch-up is not lost.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable
+from dataclasses import dataclass
+from datetime import date, datetime, timedelta
+from typing import Any
+
+from sqlalchemy import Engine
+
+from monitor.alerts.mailer import Mailer
+from monitor.alerts.service import AlertRun, send_due, send_night_alerts
+from monitor.check import CheckOutcome, ModelCheck, local_today, run_checks
+from monitor.config import Settings
+from monitor.errors import FitwatchError
+from monitor.inbox import Sweep, sweep_inbox
+from monitor.store import audit
+from monitor.store.checks import last_check
+from monitor.store.engine import write_transaction
+from monitor.store.models import find_model, list_models
+
+log = logging.getLogger(__name__)
+
+OK, PARTIAL, STOPPED = "ok", "partial", "stopped"
+
+
+@dataclass(frozen=True)
+class NightRun:
+    """What one run did."""
+
+    started_at: datetime
+    through: date
+    sweep: Sweep
+    checks: CheckOutcome
+    alerts: tuple[AlertRun, ...]
+    stopped: bool  # a stop request ended the run early
+
+    @property
+    def failures(self) -> list[ModelCheck]:
+        return [r for r in self.checks.results if r.error]
+
+    @property
+    def status(self) -> str:
+        return STOPPED if self.stopped else PARTIAL if self.failures else OK
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"started_at": self.started_at, "through": self.through, "status": self.status,
+                "inbox": [f.as_dict() for f in self.sweep.files],
+                "checked": [{"model": r.model, "first_day": r.first_day,
+                             "last_day": r.last_day, "status": r.current.status
+                             if r.current else None, "error": r.error}
+                            for r in self.checks.results],
+                "alerts": [a.as_dict() for a in self.alerts]}
+
+    def sentence(self) -> str:
+        days = len(self.checks.checks)
+        parts = [self.sweep.sentence(), f"{days} model-day(s) checked through {self.through}"]
+        if self.failures:
+            parts.append("failed: " + "; ".join(f"{r.model} ({r.error})"
+                                                for r in self.failures))
+        sent = sum(a.sent for a in self.alerts)
+        parts.append(f"{sent} alert message(s) sent")
+        if self.stopped:
+            parts.append("stopped early on request")
+        return "; ".join(parts)
+
+
+def run_night(settings: Settings, engine: Engine, *, now: datetime,
+              mailer: Mailer | None = None, actor: str = "daemon",
+              should_stop: Callable[[], bool] = lambda: False) -> NightRun:
+    """Sweep, check every model through yesterday, then alert per newly checked night."""
+    through = local_today(now, settings) - timedelta(days=1)
+    sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
+    results: list[ModelCheck] = []
+    stopped = False
+    with engine.connect() as conn:
+        names = [m.name for m in list_models(conn)]
+    nights: set[date] = set()
+    for name in names:
+        if should_stop():
+            stopped = True
+            break
+        before = _last_checked(engine, name)
+        outcome = _check_one(settings, engine, name, through, now, actor)
+        results.extend(outcome.results)
+        # rechecked old days (late rows) were reported on their own night already
+        nights.update(c.day for c in outcome.checks if before is None or c.day > before)
+    alerts = [send_night_alerts(settings, night, now=now, engine=engine, mailer=mailer)
+              for night in sorted(nights)]
+    if not nights:  # nothing new, but earlier failed deliveries may be due again
+        alerts.append(send_due(settings, now=now, engine=engine, mailer=mailer))
+    return NightRun(now, through, sweep, CheckOutcome(tuple(results)), tuple(alerts), stopped)
+
+
+def _last_checked(engine: Engine, name: str) -> date | None:
+    with engine.connect() as conn:
+        model = find_model(conn, name)
+        last = last_check(conn, model.id) if model else None
+    return last.day if last else None
+
+
+def _check_one(settings: Settings, engine: Engine, name: str, through: date, now: datetime,
+               actor: str) -> CheckOutcome:
+    try:
+        outcome = run_checks(settings, [name], through=through, now=now, engine=engine)
+    except Exception as exc:  # one model must not stop the night; KeyboardInterrupt passes
+        log.exception("the nightly check of %s failed", name)
+        outcome = CheckOutcome((ModelCheck(name, (), None, None, None, error=_describe(exc)),))
+    for result in outcome.results:
+        if result.error:
+            _record_failure(engine, name, result.error, now, actor)
+    return outcome
+
+
+def _describe(exc: Exception) -> str:
+    return str(exc) if isinstance(exc, FitwatchError) else f"internal error: {exc!r}"
+
+
+def _record_failure(engine: Engine, name: str, error: str, now: datetime, actor: str) -> None:
+    try:
+        with write_transaction(engine) as conn:
+            model = find_model(conn, name)
+            audit.record(conn, action="failure", actor=actor, at=now,
+                         model_id=model.id if model else None,
+                         details={"stage": "check", "error": error[:2000]})
+    except Exception:  # the database itself may be what failed; the log has it already
+        log.exception("could not record the failure of %s", name)

@@ -1,0 +1,277 @@
+"""The nightly run and the daemon: inbox, catch-up, failures, the lease, signals, lateness."""
+
+from __future__ import annotations
+
+import email
+import os
+import signal
+import subprocess
+import sys
+import time
+from datetime import UTC, date, datetime, timedelta
+from email import policy
+from pathlib import Path
+
+import pytest
+from sqlalchemy import Engine, select
+
+from monitor.check import run_checks
+from monitor.cli import main
+from monitor.config import Settings
+from monitor.daemon import last_scheduled, nightly_state, run_daemon
+from monitor.fit import FitRequest, fit_model
+from monitor.nightly import run_night
+from monitor.status import model_statuses
+from monitor.store import audit, lease
+from monitor.store.checks import last_check
+from monitor.store.models import get_model
+from monitor.store.schema import scheduler_lease
+from tests.test_check import CALM, HISTORY, MODEL, WORDS, World, _frame, _now, _write
+from tests.test_refit import CHANGED
+
+TTL = timedelta(minutes=10)
+T0 = datetime(2026, 4, 1, 1, 0, tzinfo=UTC)
+
+
+def _settings(make_settings, engine: Engine, tmp: Path, **extra) -> Settings:
+    url = engine.url.render_as_string(hide_password=False)
+    return make_settings(url, models=WORDS, ingest={"inbox": str(tmp / "inbox")},
+                         alerts={"to": ["lead@example.com"], "eml_dir": str(tmp / "mail")},
+                         **extra)
+
+
+def _world(engine: Engine, make_settings, tmp: Path, scenario=CALM) -> World:
+    return World(engine, _settings(make_settings, engine, tmp), tmp, scenario=scenario, seed=5)
+
+
+def _drop(world: World, first: date, last: date, seed: int, name: str) -> Path:
+    folder = world.tmp / "inbox" / MODEL
+    folder.mkdir(parents=True, exist_ok=True)
+    return _write(_frame(world.scenario, first, last, seed), folder / name)
+
+
+# the lease -------------------------------------------------------------------------------------
+def test_the_lease_has_one_holder_until_it_expires_or_is_released(engine: Engine) -> None:
+    assert lease.try_acquire(engine, "a", T0, TTL)
+    assert not lease.try_acquire(engine, "b", T0 + timedelta(minutes=5), TTL)
+    assert lease.renew(engine, "a", T0 + timedelta(minutes=5), TTL)  # now valid to 00:15
+    assert not lease.try_acquire(engine, "b", T0 + timedelta(minutes=14), TTL)
+    assert lease.try_acquire(engine, "b", T0 + timedelta(minutes=16), TTL)  # a went silent
+    assert not lease.renew(engine, "a", T0 + timedelta(minutes=17), TTL)  # a learns it lost
+    lease.release(engine, "b")
+    assert lease.try_acquire(engine, "a", T0 + timedelta(minutes=18), TTL)
+    with engine.connect() as conn:
+        assert lease.read(conn).holder == "a"
+
+
+# one night -------------------------------------------------------------------------------------
+def test_a_night_sweeps_the_inbox_checks_and_files_everything_away(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    good = _drop(world, date(2026, 3, 9), date(2026, 3, 15), 21, "week.csv")
+    bad = good.with_name("broken.csv")
+    bad.write_text("load_id,pallets\n1,3\n")
+    (tmp_path / "inbox" / "no_such_model").mkdir()
+    (tmp_path / "inbox" / "no_such_model" / "x.csv").write_text("a\n1\n")
+    (good.parent / "half.csv.part").write_text("load_id\n")  # still being written
+    run = run_night(world.settings, engine, now=_now(date(2026, 3, 15)))
+    assert run.status == "ok" and not run.stopped
+    assert [(f.path.parent.name, f.outcome) for f in run.sweep.files] == [
+        ("archive", "archived"), ("rejected", "rejected")]  # oldest first
+    assert (good.parent / "archive" / "week.csv").exists() and not good.exists()
+    reason = (good.parent / "rejected" / "broken.csv.reason.txt").read_text()
+    assert "load_minutes" in reason and "docked_at" in reason  # the missing columns, named
+    assert (good.parent / "half.csv.part").exists()
+    assert run.sweep.unknown_folders == ("no_such_model",)
+    assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 15)
+    # a second night with nothing new changes nothing and sends nothing
+    again = run_night(world.settings, engine, now=_now(date(2026, 3, 15)))
+    assert not again.sweep.files and not again.checks.checks
+
+
+def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
+    _drop(world, date(2026, 3, 9), date(2026, 4, 5), 22, "weeks.csv")
+    run = run_night(world.settings, engine, now=_now(date(2026, 4, 5)))
+    checked = [c.day for c in run.checks.checks]
+    assert checked[0] == date(2026, 3, 8) and checked[-1] == date(2026, 4, 5)
+    assert [a.night for a in run.alerts] == sorted(set(checked))  # every night, oldest first
+    mails = sorted((tmp_path / "mail").glob("*.eml"))
+    assert mails, "the slope change reached refit: the lead hears of it"
+    subjects = [email.message_from_bytes(p.read_bytes(), policy=policy.default)["Subject"]
+                for p in mails]
+    assert sum("needs a refit" in s and "reminder" not in s for s in subjects) == 1
+    assert run_night(world.settings, engine, now=_now(date(2026, 4, 5))).alerts[0].queued == 0
+
+
+def test_one_models_failure_is_recorded_and_the_others_are_checked(
+        engine: Engine, make_settings, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    history = _write(_frame(CALM, *HISTORY, 9), tmp_path / "second.csv")
+    fit_model(world.settings, FitRequest("yard_moves", history, "load_minutes", ("pallets",),
+                                         "docked_at", "load_id"),
+              now=_now(HISTORY[1]), engine=engine)
+    import monitor.nightly as nightly
+
+    real = nightly.run_checks
+
+    def flaky(settings, names, **kw):
+        if names == ["dock_loading"]:
+            raise RuntimeError("disk on fire")
+        return real(settings, names, **kw)
+
+    monkeypatch.setattr(nightly, "run_checks", flaky)
+    run = run_night(world.settings, engine, now=_now(date(2026, 3, 12)))
+    assert run.status == "partial"
+    assert [r.model for r in run.failures] == ["dock_loading"]
+    assert "disk on fire" in run.failures[0].error
+    with engine.connect() as conn:
+        assert last_check(conn, get_model(conn, "yard_moves").id).day == date(2026, 3, 12)
+        logged = audit.entries(conn, get_model(conn, MODEL).id, ("failure",))
+    assert logged and "disk on fire" in logged[0].details["error"]
+
+
+def test_a_stop_request_ends_the_run_between_models(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    fit_model(world.settings, FitRequest("yard_moves", _write(_frame(CALM, *HISTORY, 9),
+                                                              tmp_path / "second.csv"),
+                                         "load_minutes", ("pallets",), "docked_at", "load_id"),
+              now=_now(HISTORY[1]), engine=engine)
+    asked = iter([False, True])
+    run = run_night(world.settings, engine, now=_now(date(2026, 3, 12)),
+                    should_stop=lambda: next(asked, True))
+    assert run.stopped and run.status == "stopped"
+    assert [r.model for r in run.checks.results] == ["dock_loading"]
+
+
+# the daemon ----------------------------------------------------------------------------------
+def test_daemon_once_runs_one_night_and_releases_the_lease(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    _drop(world, date(2026, 3, 9), date(2026, 3, 11), 23, "days.csv")
+    runs = run_daemon(world.settings, engine=engine, once=True, install_signals=False,
+                      holder="test")
+    assert len(runs) == 1 and runs[0].status == "ok"
+    with engine.connect() as conn:
+        state = lease.read(conn)
+    assert state.holder is None and state.last_run_status == "ok"
+    assert state.last_run_finished_at >= state.last_run_started_at
+    # another holder keeps the lease: --once refuses instead of waiting
+    assert lease.try_acquire(engine, "other", datetime.now(UTC), TTL)
+    config = tmp_path / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{engine.url.render_as_string(hide_password=False)}"\n')
+    assert main(["--config", str(config), "daemon", "--once"]) == 1
+
+
+def _daemon_script(config: Path, holder: str) -> list[str]:
+    code = ("import logging, sys; from datetime import timedelta;"
+            "from monitor.config import load_settings; from monitor.daemon import run_daemon;"
+            "logging.basicConfig(level=logging.INFO);"
+            f"run_daemon(load_settings({str(config)!r}), holder={holder!r},"
+            " ttl=timedelta(seconds=2), poll_seconds=0.2)")
+    return [sys.executable, "-c", code]
+
+
+def _lease(engine: Engine):
+    with engine.connect() as conn:
+        return conn.execute(select(scheduler_lease)).mappings().first()
+
+
+def _wait(predicate, timeout: float = 60.0) -> None:
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if predicate():
+            return
+        time.sleep(0.1)
+    raise AssertionError("timed out")
+
+
+def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_over(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 11), 24, "days.csv")
+    config = tmp_path / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{engine.url.render_as_string(hide_password=False)}"\n'
+                      '[schedule]\ncron = "0 3 1 1 *"\ntimezone = "Europe/Berlin"\n')
+    env = {**os.environ, "PYTHONWARNINGS": "error"}
+    first_log = tmp_path / "first.log"
+    with first_log.open("w") as log_file:  # files, not pipes: a full pipe would block it
+        first = subprocess.Popen(_daemon_script(config, "first"), env=env,
+                                 stdout=subprocess.DEVNULL, stderr=log_file, text=True)
+    second = None
+    try:
+        _wait(lambda: (row := _lease(engine)) is not None and row["holder"] == "first"
+              and row["last_run_finished_at"] is not None)
+        log_path = tmp_path / "second.log"
+        with log_path.open("w") as log_file:
+            second = subprocess.Popen(_daemon_script(config, "second"), env=env,
+                                      stdout=subprocess.DEVNULL, stderr=log_file, text=True)
+        _wait(lambda: "waiting for the lease held by first" in log_path.read_text())
+        assert second.poll() is None and _lease(engine)["holder"] == "first"  # it waits
+        first.send_signal(signal.SIGTERM)
+        assert first.wait(timeout=60) == 0
+        _wait(lambda: _lease(engine)["holder"] == "second"
+              and _lease(engine)["last_run_status"] == "ok")
+        second.send_signal(signal.SIGTERM)
+        assert second.wait(timeout=60) == 0
+        assert _lease(engine)["holder"] is None
+        assert "Traceback" not in log_path.read_text()
+        assert "first stopped and released the lease" in first_log.read_text()
+    finally:
+        for proc in (first, second):
+            if proc is not None and proc.poll() is None:
+                proc.kill()
+                proc.wait()
+
+
+# lateness --------------------------------------------------------------------------------------
+def test_last_scheduled_time_follows_the_cron_in_the_configured_zone(make_settings) -> None:
+    settings = make_settings("sqlite://", schedule={"cron": "30 2 * * *",
+                                                    "timezone": "Europe/Berlin"})
+    from monitor.daemon import cron_trigger
+
+    now = datetime(2026, 3, 29, 6, 0, tzinfo=UTC)  # the night the clocks went forward
+    due = last_scheduled(cron_trigger(settings), now - timedelta(days=2), now)
+    # 02:30 does not exist in Berlin on 29 March 2026; APScheduler fires at the next valid
+    # wall time (03:30 CEST = 01:30 UTC); common practice for cron-like schedulers, no source
+    assert due is not None and due.astimezone(UTC) <= now
+    assert due.astimezone(UTC).date() == date(2026, 3, 29)
+
+
+def test_status_says_when_the_nightly_run_is_late(engine: Engine, make_settings,
+                                                 tmp_path: Path) -> None:
+    settings = _settings(make_settings, engine, tmp_path,
+                         schedule={"cron": "30 2 * * *", "timezone": "Europe/Berlin"})
+    World(engine, settings, tmp_path)
+    started = datetime(2026, 4, 1, 0, 30, tzinfo=UTC)  # 02:30 Berlin (CEST)
+    assert lease.try_acquire(engine, "d", started, TTL)
+    lease.run_started(engine, "d", started)
+    lease.run_finished(engine, "d", started + timedelta(minutes=2), "ok")
+    lease.release(engine, "d")
+    with engine.connect() as conn:
+        state = lease.read(conn)
+    on_time = nightly_state(settings, state, datetime(2026, 4, 1, 8, 0, tzinfo=UTC))
+    assert not on_time.late and not on_time.daemon_alive
+    late = nightly_state(settings, state, datetime(2026, 4, 3, 8, 0, tzinfo=UTC))
+    assert late.late and late.due.date() == date(2026, 4, 3)
+    assert late.sentence().startswith("LATE: the nightly run due 2026-04-03 02:30")
+    statuses = model_statuses(settings, now=datetime(2026, 4, 3, 8, 0, tzinfo=UTC),
+                              engine=engine)
+    assert statuses[0].nightly is not None and statuses[0].as_dict()["nightly"]["late"]
+
+
+def test_checks_made_by_hand_and_by_the_night_agree(engine: Engine, make_settings,
+                                                   tmp_path: Path) -> None:
+    """The nightly run is only a caller of the same check: same rows, same verdicts."""
+    world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
+    _drop(world, date(2026, 3, 9), date(2026, 3, 25), 25, "weeks.csv")
+    run = run_night(world.settings, engine, now=_now(date(2026, 3, 25)))
+    by_night = {c.day: (c.status, c.cusum_upper) for c in run.checks.checks}
+    again = run_checks(world.settings, [MODEL], through=date(2026, 3, 25),
+                       now=_now(date(2026, 3, 25)), engine=engine)
+    assert not again.checks  # nothing left to do
+    with engine.connect() as conn:
+        stored = last_check(conn, get_model(conn, MODEL).id)
+    assert by_night[stored.day] == (stored.status, stored.cusum_upper)
