@@ -23,7 +23,7 @@ from monitor.alerts.service import AlertRun, send_due, send_night_alerts
 from monitor.check import CheckOutcome, ModelCheck, local_today, run_checks
 from monitor.config import Settings
 from monitor.errors import FitwatchError
-from monitor.inbox import Sweep, sweep_inbox
+from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.store import audit
 from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction
@@ -80,7 +80,12 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
               should_stop: Callable[[], bool] = lambda: False) -> NightRun:
     """Sweep, check every model through yesterday, then alert per newly checked night."""
     through = local_today(now, settings) - timedelta(days=1)
-    sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
+    try:
+        sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
+    except Exception as exc:  # e.g. the database is locked: the files wait for the next run
+        log.exception("sweeping the inbox failed")
+        _record_failure(engine, None, _describe(exc), now, actor, stage="inbox")
+        sweep = Sweep()
     results: list[ModelCheck] = []
     stopped = False
     with engine.connect() as conn:
@@ -126,12 +131,13 @@ def _describe(exc: Exception) -> str:
     return str(exc) if isinstance(exc, FitwatchError) else f"internal error: {exc!r}"
 
 
-def _record_failure(engine: Engine, name: str, error: str, now: datetime, actor: str) -> None:
+def _record_failure(engine: Engine, name: str | None, error: str, now: datetime, actor: str,
+                    stage: str = "check") -> None:
     try:
         with write_transaction(engine) as conn:
-            model = find_model(conn, name)
+            model = find_model(conn, name) if name else None
             audit.record(conn, action="failure", actor=actor, at=now,
                          model_id=model.id if model else None,
-                         details={"stage": "check", "error": error[:2000]})
+                         details={"stage": stage, "error": error[:2000]})
     except Exception:  # the database itself may be what failed; the log has it already
         log.exception("could not record the failure of %s", name)

@@ -1,4 +1,4 @@
-"""Ingestion: store a model's observations from files, an inbox folder or an SQL query.
+"""Ingestion: store a model's observations from files or an SQL query (the inbox: inbox.py).
 
 One transaction per file: the batch row, the new observations, the rejected rows and the merged
 day statistics are committed together or not at all. Rows are keyed by the model's id column or,
@@ -11,12 +11,10 @@ from __future__ import annotations
 
 import logging
 import os
-import shutil
 import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
-from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -27,7 +25,7 @@ from sqlalchemy.exc import OperationalError
 from tqdm import tqdm
 
 from monitor.config import Settings
-from monitor.errors import DatabaseError, FitwatchError, InputError, StateError
+from monitor.errors import DatabaseError, FitwatchError, StateError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
 from monitor.ingest.reasons import Rejection
@@ -42,7 +40,7 @@ from monitor.store.batches import (
     start_batch,
 )
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, find_model_by_id, get_model, list_models
+from monitor.store.models import ModelRecord, find_model_by_id, get_model
 from monitor.store.observations import (
     InsertResult,
     PreparedRows,
@@ -55,8 +53,8 @@ from monitor.store.observations import (
 
 log = logging.getLogger(__name__)
 
-__all__ = ["InboxOutcome", "IngestOptions", "IngestSummary", "ingest_file", "ingest_paths",
-           "ingest_query", "ingest_source", "options_for", "sweep_inbox"]
+__all__ = ["IngestOptions", "IngestSummary", "ingest_file", "ingest_paths", "ingest_query",
+           "ingest_source", "options_for"]
 
 
 @dataclass(frozen=True)
@@ -347,71 +345,3 @@ class _DayTotals:
         order = sorted(self.parts)
         return DayMoments.stack(np.array(order, dtype="datetime64[D]"),
                                 [self.parts[d] for d in order], self.dim)
-
-
-# the inbox --------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class InboxOutcome:
-    """What the sweep did with one file."""
-
-    model: str
-    path: Path
-    moved_to: Path
-    summary: IngestSummary | None
-    error: str | None
-
-
-def sweep_inbox(settings: Settings, now: datetime | None = None) -> list[InboxOutcome]:
-    """Ingest every file waiting in ``<inbox>/<model name>/`` and move it aside.
-
-    Files that were ingested (even with some rejected rows) go to ``archive/``; files that
-    could not be read, or that ``--strict`` would refuse, go to ``rejected/`` with a
-    ``.reason.txt`` beside them. Names starting with '.' or ending in .tmp/.part are skipped
-    (still being written). Database errors stop the sweep and leave the files in place.
-    """
-    if not settings.ingest.inbox:
-        return []
-    inbox = Path(settings.ingest.inbox).expanduser()
-    outcomes: list[InboxOutcome] = []
-    with database(settings) as engine:
-        with engine.connect() as conn:
-            models = list_models(conn)
-        for model in models:
-            folder = inbox / model.name
-            if not folder.is_dir():
-                continue
-            options = options_for(settings, model.name, now=now)
-            for path in sorted(folder.iterdir()):
-                if not path.is_file() or _incomplete(path.name):
-                    continue
-                outcomes.append(_sweep_one(engine, model, path, options))
-    return outcomes
-
-
-def _incomplete(name: str) -> bool:
-    return name.startswith(".") or name.endswith((".tmp", ".part", ".partial", ".reason.txt"))
-
-
-def _sweep_one(engine: Engine, model: ModelRecord, path: Path,
-               options: IngestOptions) -> InboxOutcome:
-    try:
-        summary = ingest_file(engine, model, path, options)
-    except InputError as exc:
-        target = _move(path, path.parent / "rejected")
-        target.with_name(target.name + ".reason.txt").write_text(f"{exc}\n", encoding="utf-8")
-        log.warning("inbox: %s rejected: %s", path, exc)
-        return InboxOutcome(model.name, path, target, None, str(exc))
-    folder = "rejected" if summary.status == "rejected" else "archive"
-    return InboxOutcome(model.name, path, _move(path, path.parent / folder), summary, None)
-
-
-def _move(path: Path, folder: Path) -> Path:
-    folder.mkdir(exist_ok=True)
-    target = folder / path.name
-    stem, suffix, n = path.stem, path.suffix, 1
-    while target.exists():
-        n += 1
-        target = folder / f"{stem}-{n}{suffix}"
-    shutil.move(str(path), target)
-    return target
-

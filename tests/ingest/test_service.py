@@ -15,6 +15,7 @@ import pytest
 from sqlalchemy import func, select
 
 from monitor.errors import DatabaseError, NotFoundError
+from monitor.ingest.inbox import sweep_inbox
 from monitor.ingest.readers import CsvSource
 from monitor.ingest.service import (
     IngestOptions,
@@ -23,7 +24,6 @@ from monitor.ingest.service import (
     ingest_query,
     ingest_source,
     options_for,
-    sweep_inbox,
 )
 from monitor.stats.moments import DayMoments
 from monitor.store.batches import list_batches, rejected_rows_of
@@ -253,19 +253,39 @@ def test_inbox_sweep_archives_and_rejects(store: Store, tmp_path: Path) -> None:
     (inbox / "loads" / "partial.csv.part").write_text("still being written")
     settings = dataclasses.replace(store.settings, ingest=dataclasses.replace(
         store.settings.ingest, inbox=str(inbox)))
-    outcomes = sweep_inbox(settings, now=NOW)
+    outcomes = sweep_inbox(store.engine, settings, NOW).files
     by_name = {o.path.name: o for o in outcomes}
     assert set(by_name) == {"day1.csv", "broken.csv"}
-    assert by_name["day1.csv"].moved_to == inbox / "loads" / "archive" / "day1.csv"
+    assert by_name["day1.csv"].path == inbox / "loads" / "archive" / "day1.csv"
     assert by_name["day1.csv"].summary.accepted == 10
-    assert by_name["broken.csv"].moved_to.parent.name == "rejected"
+    assert by_name["broken.csv"].path.parent.name == "rejected"
     reason = (inbox / "loads" / "rejected" / "broken.csv.reason.txt").read_text()
     assert "missing in" in reason
     assert (inbox / "loads" / "partial.csv.part").exists()
     _demo_rows(10, 12).to_csv(inbox / "loads" / "day1.csv", index=False)  # sent again
-    (again,) = sweep_inbox(settings, now=NOW)
+    (again,) = sweep_inbox(store.engine, settings, NOW).files
     assert again.summary.already_ingested
-    assert again.moved_to == inbox / "loads" / "archive" / "day1-2.csv"
+    assert again.path == inbox / "loads" / "archive" / "day1-2.csv"
+
+
+def test_a_database_error_leaves_inbox_files_where_they_are(store: Store, tmp_path: Path,
+                                                            monkeypatch) -> None:
+    import monitor.ingest.inbox as inbox_module
+
+    inbox = tmp_path / "inbox"
+    (inbox / "loads").mkdir(parents=True)
+    _demo_rows(5, 13).to_csv(inbox / "loads" / "day2.csv", index=False)
+    settings = dataclasses.replace(store.settings, ingest=dataclasses.replace(
+        store.settings.ingest, inbox=str(inbox)))
+
+    def locked(*args, **kwargs):
+        raise DatabaseError("could not store day2.csv: database is locked")
+
+    monkeypatch.setattr(inbox_module, "ingest_file", locked)
+    with pytest.raises(DatabaseError):
+        sweep_inbox(store.engine, settings, NOW)
+    assert (inbox / "loads" / "day2.csv").exists()
+    assert not (inbox / "loads" / "rejected").exists()
 
 
 def test_options_validate() -> None:

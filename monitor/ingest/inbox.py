@@ -5,8 +5,9 @@ Each file is ingested in its own transaction (as ``ingest`` would), then moved b
 whole: unreadable, a missing column; the reason is written next to it as ``NAME.reason.txt``).
 A crash between the ingest's commit and the move leaves the file in the inbox; the next sweep
 ingests it again, which changes nothing (the batch is recognised by its content hash), and then
-moves it. Files whose names start with ``.`` or end in ``.part``/``.tmp`` are being written and
-are left alone; writers should write under such a name and rename when done.
+moves it. A database error stops the sweep and leaves the file where it is. Files whose names
+start with ``.`` or end in ``.part``/``.partial``/``.tmp`` are being written and are left
+alone; writers should write under such a name and rename when done.
 """
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ from typing import Any
 from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.errors import FitwatchError
+from monitor.errors import InputError
 from monitor.ingest.service import ingest_file, options_for
 from monitor.ingest.summary import IngestSummary
 from monitor.store.models import find_model
@@ -66,7 +67,7 @@ def waiting_files(folder: Path) -> list[Path]:
     """Complete data files in one model's folder, oldest first (then by name)."""
     found = [p for p in folder.iterdir()
              if p.is_file() and p.suffix.lower() in SUFFIXES and not p.name.startswith(".")
-             and not p.name.endswith((".part", ".tmp"))]
+             and not p.name.endswith((".part", ".partial", ".tmp"))]
     return sorted(found, key=lambda p: (p.stat().st_mtime_ns, p.name))
 
 
@@ -100,7 +101,7 @@ def _take(engine: Engine, settings: Settings, model: Any, path: Path,
           now: datetime) -> SweptFile:
     try:
         summary = ingest_file(engine, model, path, options_for(settings, model.name, now=now))
-    except FitwatchError as exc:
+    except InputError as exc:  # the file itself is bad; anything else leaves it in place
         log.warning("inbox file %s refused: %s", path, exc)
         moved = _move(path, REJECTED)
         moved.with_name(moved.name + ".reason.txt").write_text(f"{exc}\n", encoding="utf-8")
@@ -121,7 +122,7 @@ def _move(path: Path, where: str) -> Path:
     target = target_dir / path.name
     n = 1
     while target.exists():
-        target = target_dir / f"{path.stem}.{n}{path.suffix}"
         n += 1
+        target = target_dir / f"{path.stem}-{n}{path.suffix}"
     os.replace(path, target)
     return target
