@@ -96,9 +96,12 @@ def build_parser() -> argparse.ArgumentParser:
     show.add_argument("--version", metavar="N", type=int)
     json_flag(show)
 
-    ing = command("ingest", "store a model's new observations from files", _cmd_ingest)
+    ing = command("ingest", "store a model's new observations from files or its SQL source",
+                  _cmd_ingest)
     ing.add_argument("name", metavar="NAME")
-    ing.add_argument("files", metavar="FILE", nargs="+")
+    ing.add_argument("files", metavar="FILE", nargs="*")
+    ing.add_argument("--source", action="store_true",
+                     help="run the model's SQL source ([models.NAME.source]) instead of files")
     ing.add_argument("--strict", action="store_true",
                      help="reject a whole file when any row is bad")
     json_flag(ing)
@@ -200,10 +203,15 @@ def _cmd_init(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.ingest.service import ingest_paths
+    from monitor.ingest.service import ingest_configured_source, ingest_paths
 
-    summaries = ingest_paths(settings, args.name, args.files, strict=args.strict,
-                             progress=wants_progress() and not args.json)
+    if bool(args.files) == args.source:
+        raise UsageError("give either files to ingest or --source (the model's SQL source)")
+    if args.source:
+        summaries = [ingest_configured_source(settings, args.name)]
+    else:
+        summaries = ingest_paths(settings, args.name, args.files, strict=args.strict,
+                                 progress=wants_progress() and not args.json)
     if args.json:
         print(dumps(summaries[0].as_dict() if len(summaries) == 1
                     else [s.as_dict() for s in summaries]))

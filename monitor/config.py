@@ -93,6 +93,29 @@ class Wording:
 
 
 @dataclass(frozen=True)
+class SqlSourceSettings:
+    """A model's rows in another database: a query run by ``ingest --source`` and each night.
+
+    The query may use ``:since`` (the model's latest stored observation time, UTC). The URL is
+    given directly or, when it holds a password, through an environment variable named by
+    ``url_env``; it is read when the source is used, never logged.
+    """
+
+    query: str
+    url: str = ""
+    url_env: str = ""
+
+    def resolved_url(self, environ: Mapping[str, str] | None = None) -> str:
+        if self.url:
+            return self.url
+        value = (os.environ if environ is None else environ).get(self.url_env, "")
+        if not value:
+            raise ConfigError(f"the environment variable {self.url_env} (named by the model's "
+                              "source.url_env) is not set")
+        return value
+
+
+@dataclass(frozen=True)
 class ModelSettings:
     """Settings of one model: the global ones with its ``[models.NAME]`` overrides applied."""
 
@@ -100,6 +123,7 @@ class ModelSettings:
     alerts: AlertSettings
     ranges: Mapping[str, tuple[float, float]]
     words: Wording
+    source: SqlSourceSettings | None = None
 
 
 @dataclass(frozen=True)
@@ -188,7 +212,7 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     models: dict[str, ModelSettings] = {}
     for name, section in r.table(top.get("models", {}), "models", None).items():
         key = f"models.{name}"
-        sec = r.table(section, key, {"check", "alerts", "ranges", "words"})
+        sec = r.table(section, key, {"check", "alerts", "ranges", "words", "source"})
         ranges: dict[str, tuple[float, float]] = {}
         for column, bounds in r.table(sec.get("ranges", {}), f"{key}.ranges", None).items():
             ranges[column] = r.bounds(bounds, f"{key}.ranges.{column}")
@@ -206,6 +230,8 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
             check=_check_settings(r, sec.get("check", {}), f"{key}.check", check),
             alerts=_alert_settings(r, sec.get("alerts", {}), f"{key}.alerts", alerts),
             ranges=ranges, words=words,
+            source=_source_settings(r, sec["source"], f"{key}.source") if "source" in sec
+            else None,
         )
     return Settings(database_url=url, schedule=schedule, check=check, alerts=alerts,
                     ingest=ingest, models=models, source=source)
@@ -292,6 +318,17 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
 
 _EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
 _CRON_FIELD = re.compile(r"[\d*/,\-a-zA-Z]+")
+
+
+def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:
+    sec = r.table(raw, key, {"url", "url_env", "query"})
+    url = r.string(sec, f"{key}.url", "")
+    url_env = r.string(sec, f"{key}.url_env", "")
+    if bool(url) == bool(url_env):
+        raise ConfigError("give exactly one of url and url_env (an environment variable holding "
+                          "the URL, for one with a password)", source=r.source, key=key)
+    return SqlSourceSettings(query=r.string(sec, f"{key}.query", "", non_empty=True), url=url,
+                             url_env=url_env)
 
 
 def _check_cron(cron: str, r: _Reader, key: str) -> None:

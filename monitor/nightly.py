@@ -24,6 +24,8 @@ from monitor.check import CheckOutcome, ModelCheck, local_today, run_checks
 from monitor.config import Settings
 from monitor.errors import FitwatchError
 from monitor.ingest.inbox import Sweep, sweep_inbox
+from monitor.ingest.service import ingest_configured_source
+from monitor.ingest.summary import IngestSummary
 from monitor.store import audit
 from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction
@@ -41,9 +43,11 @@ class NightRun:
     started_at: datetime
     through: date
     sweep: Sweep
+    sources: tuple[IngestSummary, ...]  # rows pulled from models' SQL sources
     checks: CheckOutcome
     alerts: tuple[AlertRun, ...]
     stopped: bool  # a stop request ended the run early
+    problems: tuple[str, ...] = ()  # inbox or SQL source failures (checks still ran)
 
     @property
     def failures(self) -> list[ModelCheck]:
@@ -51,23 +55,29 @@ class NightRun:
 
     @property
     def status(self) -> str:
-        return STOPPED if self.stopped else PARTIAL if self.failures else OK
+        return STOPPED if self.stopped else PARTIAL if self.failures or self.problems else OK
 
     def as_dict(self) -> dict[str, Any]:
         return {"started_at": self.started_at, "through": self.through, "status": self.status,
                 "inbox": [f.as_dict() for f in self.sweep.files],
+                "sources": [s.as_dict() for s in self.sources],
                 "checked": [{"model": r.model, "first_day": r.first_day,
                              "last_day": r.last_day, "status": r.current.status
                              if r.current else None, "error": r.error}
                             for r in self.checks.results],
-                "alerts": [a.as_dict() for a in self.alerts]}
+                "alerts": [a.as_dict() for a in self.alerts],
+                "problems": list(self.problems)}
 
     def sentence(self) -> str:
         days = len(self.checks.checks)
-        parts = [self.sweep.sentence(), f"{days} model-day(s) checked through {self.through}"]
+        parts = [self.sweep.sentence()]
+        if self.sources:
+            parts.append(f"{sum(s.accepted for s in self.sources)} row(s) from SQL sources")
+        parts.append(f"{days} model-day(s) checked through {self.through}")
         if self.failures:
             parts.append("failed: " + "; ".join(f"{r.model} ({r.error})"
                                                 for r in self.failures))
+        parts.extend(self.problems)
         sent = sum(a.sent for a in self.alerts)
         parts.append(f"{sent} alert message(s) sent")
         if self.stopped:
@@ -80,10 +90,12 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
               should_stop: Callable[[], bool] = lambda: False) -> NightRun:
     """Sweep, check every model through yesterday, then alert per newly checked night."""
     through = local_today(now, settings) - timedelta(days=1)
+    problems: list[str] = []  # failures outside a model's check (inbox, SQL sources)
     try:
         sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
     except Exception as exc:  # e.g. the database is locked: the files wait for the next run
         log.exception("sweeping the inbox failed")
+        problems.append(f"inbox: {_describe(exc)}")
         _record_failure(engine, None, _describe(exc), now, actor, stage="inbox")
         sweep = Sweep()
     results: list[ModelCheck] = []
@@ -91,11 +103,13 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
     with engine.connect() as conn:
         names = [m.name for m in list_models(conn)]
     nights: set[date] = set()
+    pulled: list[IngestSummary] = []
     for name in names:
         if should_stop():
             stopped = True
             break
         before = _last_checked(engine, name)
+        pulled.extend(_pull_source(settings, engine, name, now, actor, problems))
         outcome = _check_one(settings, engine, name, through, now, actor)
         results.extend(outcome.results)
         # rechecked old days (late rows) were reported on their own night already
@@ -104,7 +118,22 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
               for night in sorted(nights)]
     if not nights:  # nothing new, but earlier failed deliveries may be due again
         alerts.append(send_due(settings, now=now, engine=engine, mailer=mailer))
-    return NightRun(now, through, sweep, CheckOutcome(tuple(results)), tuple(alerts), stopped)
+    return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
+                    tuple(alerts), stopped, tuple(problems))
+
+
+def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, actor: str,
+                 problems: list[str]) -> list[IngestSummary]:
+    """Rows from the model's SQL source, if it has one; a failure is recorded, checks go on."""
+    if settings.for_model(name).source is None:
+        return []
+    try:
+        return [ingest_configured_source(settings, name, now=now, engine=engine)]
+    except Exception as exc:  # the source database may be down: check what is stored
+        log.exception("reading the SQL source of %s failed", name)
+        problems.append(f"{name} source: {_describe(exc)}")
+        _record_failure(engine, name, _describe(exc), now, actor, stage="source")
+        return []
 
 
 def _last_checked(engine: Engine, name: str) -> date | None:

@@ -14,6 +14,7 @@ from monitor.config import (
     CheckSettings,
     Settings,
     SmtpSettings,
+    SqlSourceSettings,
     load_settings,
     parse_settings,
 )
@@ -38,6 +39,11 @@ def test_example_file_is_valid_and_documents_every_key():
         assert f"\n{name} =" in text
     assert {f.name for f in fields(AlertSettings)} == {"to", "sender", "on", "remind_every_days",
                                                       "eml_dir", "smtp"}
+    source = model.source
+    assert source is not None and ":since" in source.query
+    for f in fields(SqlSourceSettings):
+        assert f"\n{f.name} =" in text or f.name == "url", f"source.{f.name} is not documented"
+    assert "give the url as url" in text.lower()
 
 
 def test_precedence_explicit_then_environment_then_working_directory(tmp_path):
@@ -84,6 +90,9 @@ level = 0.8
     ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
     ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "unknown key"),
     ("[models.a.alerts]\nsender = 'x@example.com'", "models.a.alerts.sender", "unknown key"),
+    ("[models.a.source]\nurl = 'sqlite://'\nurl_env = 'X'\nquery = 'SELECT 1'",
+     "models.a.source", "exactly one of url and url_env"),
+    ("[models.a.source]\nurl = 'sqlite://'", "models.a.source.query", "must not be empty"),
     ("[alerts.smtp]\nhost = 'mail.example.com'\nsecurity = 'none'", "alerts.smtp.security",
      "loopback"),
     ("[alerts.smtp]\nport = 70000", "alerts.smtp.port", "at most 65535"),

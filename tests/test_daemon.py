@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import email
+import json
 import os
 import signal
 import subprocess
@@ -275,3 +276,72 @@ def test_checks_made_by_hand_and_by_the_night_agree(engine: Engine, make_setting
     with engine.connect() as conn:
         stored = last_check(conn, get_model(conn, MODEL).id)
     assert by_night[stored.day] == (stored.status, stored.cusum_upper)
+
+
+# the SQL source --------------------------------------------------------------------------------
+def _erp(tmp: Path, first: date, last: date, seed: int) -> str:
+    """Another database holding the loads, as a planning system's export table would."""
+    from sqlalchemy import create_engine
+
+    url = f"sqlite:///{tmp / 'erp.db'}"
+    erp = create_engine(url)
+    frame = _frame(CALM, first, last, seed)
+    frame["docked_at"] = frame["docked_at"].astype(str)
+    frame.to_sql("loads", erp, index=False, if_exists="append")
+    erp.dispose()
+    return url
+
+
+def _with_source(make_settings, engine: Engine, tmp: Path, url: str) -> Settings:
+    models = {MODEL: {**WORDS[MODEL], "source": {
+        "url": url, "query": "SELECT load_id, docked_at, pallets, load_minutes FROM loads"}}}
+    return make_settings(engine.url.render_as_string(hide_password=False), models=models,
+                         alerts={"to": ["lead@example.com"], "eml_dir": str(tmp / "mail")})
+
+
+def test_the_night_pulls_rows_from_the_models_sql_source(engine: Engine, make_settings,
+                                                         tmp_path: Path) -> None:
+    url = _erp(tmp_path, date(2026, 3, 9), date(2026, 3, 14), 41)
+    world = World(engine, _with_source(make_settings, engine, tmp_path, url), tmp_path)
+    run = run_night(world.settings, engine, now=_now(date(2026, 3, 14)))
+    assert run.status == "ok" and run.sources[0].accepted > 300
+    assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 14)
+    again = run_night(world.settings, engine, now=_now(date(2026, 3, 14)))
+    assert again.sources[0].accepted == 0 and not again.checks.checks
+
+
+def test_a_source_that_is_down_is_recorded_and_the_stored_days_are_still_checked(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    settings = _with_source(make_settings, engine, tmp_path,
+                            f"sqlite:///{tmp_path / 'missing' / 'erp.db'}")
+    world = World(engine, settings, tmp_path)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 10), 42, "days.csv")
+    run = run_night(settings, engine, now=_now(date(2026, 3, 10)))
+    assert run.status == "partial" and "dock_loading source" in run.problems[0]
+    assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 10)
+    with engine.connect() as conn:
+        logged = audit.entries(conn, get_model(conn, MODEL).id, ("failure",))
+    assert logged[0].details["stage"] == "source"
+
+
+def test_ingest_source_command(engine: Engine, make_settings, tmp_path: Path,
+                               capsys: pytest.CaptureFixture[str]) -> None:
+    url = _erp(tmp_path, date(2026, 3, 9), date(2026, 3, 10), 43)
+    World(engine, _settings(make_settings, engine, tmp_path), tmp_path)
+    config = tmp_path / "fitwatch.toml"
+    db = engine.url.render_as_string(hide_password=False)
+    config.write_text(f'[database]\nurl = "{db}"\n[schedule]\ntimezone = "Europe/Berlin"\n'
+                      f'[models.{MODEL}.source]\nurl_env = "FITWATCH_TEST_ERP_URL"\n'
+                      'query = "SELECT * FROM loads"\n')
+    assert main(["--config", str(config), "ingest", MODEL, "--source"]) == 1
+    assert "FITWATCH_TEST_ERP_URL" in capsys.readouterr().err  # not set yet
+    os.environ["FITWATCH_TEST_ERP_URL"] = url
+    try:
+        assert main(["--config", str(config), "ingest", MODEL, "--source", "--json"]) == 0
+        assert json.loads(capsys.readouterr().out)["accepted"] > 100
+        assert main(["--config", str(config), "ingest", MODEL, "--source"]) == 0
+        assert "nothing changed" in capsys.readouterr().out
+    finally:
+        del os.environ["FITWATCH_TEST_ERP_URL"]
+    assert main(["--config", str(config), "ingest", MODEL]) == 1
+    assert "either files" in capsys.readouterr().err

@@ -25,7 +25,7 @@ from sqlalchemy.exc import OperationalError
 from tqdm import tqdm
 
 from monitor.config import Settings
-from monitor.errors import DatabaseError, FitwatchError, StateError
+from monitor.errors import DatabaseError, FitwatchError, StateError, UsageError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
 from monitor.ingest.reasons import Rejection
@@ -53,8 +53,8 @@ from monitor.store.observations import (
 
 log = logging.getLogger(__name__)
 
-__all__ = ["IngestOptions", "IngestSummary", "ingest_file", "ingest_paths", "ingest_query",
-           "ingest_source", "options_for"]
+__all__ = ["IngestOptions", "IngestSummary", "ingest_configured_source", "ingest_file",
+           "ingest_paths", "ingest_query", "ingest_source", "options_for"]
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,20 @@ def ingest_file(engine: Engine, model: ModelRecord, path: str | os.PathLike[str]
                 options: IngestOptions) -> IngestSummary:
     """Ingest one CSV or Parquet file in one transaction."""
     return ingest_source(engine, model, _open(model, path, options), options)
+
+
+def ingest_configured_source(settings: Settings, name: str, *, now: datetime | None = None,
+                             engine: Engine | None = None) -> IngestSummary:
+    """Run model ``name``'s configured SQL source (``[models.NAME.source]``) and store the rows."""
+    source = settings.for_model(name).source
+    if source is None:
+        raise UsageError(f"model '{name}' has no SQL source; add a [models.{name}.source] "
+                         "section with url (or url_env) and query to the settings")
+    with database(settings, engine) as db:
+        with db.connect() as conn:
+            model = get_model(conn, name)
+        return ingest_query(db, model, source.resolved_url(), source.query,
+                            options_for(settings, name, now=now))
 
 
 def ingest_query(engine: Engine, model: ModelRecord, source_url: str, query: str,
