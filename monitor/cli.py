@@ -404,6 +404,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             level=(logging.INFO if args.command == "daemon" else logging.WARNING)
             - 10 * min(args.verbose, 2),
             format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+        if not args.verbose:  # the daemon logs its own runs at INFO; libraries only warnings
+            for library in ("alembic", "apscheduler"):
+                logging.getLogger(library).setLevel(logging.WARNING)
         settings = load_settings(args.config).with_database(args.db)
         return int(args.handler(args, settings))
     except FitwatchError as exc:

@@ -18,7 +18,10 @@ from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check
 from monitor.store.models import ModelRecord, get_model, list_models
+from monitor.store.observations import last_observed_at
 from monitor.store.versions import VersionRecord, active_version, get_version, list_versions
+
+QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
 
 
 @dataclass(frozen=True)
@@ -31,11 +34,19 @@ class ModelStatus:
     active_version: int | None
     behind_days: int  # complete days not yet checked
     nightly: NightlyState | None = None  # None: no daemon has ever run on this database
+    last_rows_day: date | None = None  # the latest day with stored rows
+
+    def quiet_days(self) -> int:
+        """Checked days since the latest day with rows (a feed that stopped shows here)."""
+        if self.last_checked_day is None or self.last_rows_day is None:
+            return 0
+        return max(0, (self.last_checked_day - self.last_rows_day).days)
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.model, "status": self.status, "since": self.since,
                 "last_checked_day": self.last_checked_day, "reasons": list(self.reasons),
                 "active_version": self.active_version, "behind_days": self.behind_days,
+                "last_rows_day": self.last_rows_day,
                 "nightly": self.nightly.as_dict() if self.nightly else None}
 
     def sentence(self) -> str:
@@ -48,6 +59,9 @@ class ModelStatus:
                 f"{self.last_checked_day} (version {self.active_version})")
         if self.behind_days > 0:
             head += f"; {self.behind_days} complete day(s) not checked yet"
+        if self.quiet_days() >= QUIET_DAYS:
+            head += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
+                     "data still arriving?")
         return "\n".join([head, *(f"  - {r}" for r in self.reasons)])
 
 
@@ -63,7 +77,10 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
         for model in models:
             last = last_check(conn, model.id, model=model.name)
             active = active_version(conn, model.id)
-            out.append(replace(_status(model, last, active, yesterday), nightly=nightly))
+            latest = last_observed_at(conn, model)
+            rows_day = latest.astimezone(settings.timezone).date() if latest else None
+            out.append(replace(_status(model, last, active, yesterday), nightly=nightly,
+                               last_rows_day=rows_day))
     return out
 
 

@@ -345,3 +345,16 @@ def test_ingest_source_command(engine: Engine, make_settings, tmp_path: Path,
         del os.environ["FITWATCH_TEST_ERP_URL"]
     assert main(["--config", str(config), "ingest", MODEL]) == 1
     assert "either files" in capsys.readouterr().err
+
+
+def test_status_asks_whether_data_still_arrive_after_quiet_days(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    world = _world(engine, make_settings, tmp_path)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 10), 44, "days.csv")
+    world.check(date(2026, 3, 12))
+    (two,) = model_statuses(world.settings, now=_now(date(2026, 3, 12)), engine=engine)
+    assert two.last_rows_day == date(2026, 3, 10) and "no rows since" not in two.sentence()
+    world.check(date(2026, 3, 13))
+    (three,) = model_statuses(world.settings, now=_now(date(2026, 3, 13)), engine=engine)
+    assert three.quiet_days() == 3
+    assert "no rows since 2026-03-10 (3 days): is the data still arriving?" in three.sentence()
