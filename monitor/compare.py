@@ -8,8 +8,10 @@ imported from elsewhere) is scored as stored. The active version is always score
 
 The recommendation is ``promote`` when the candidate's intervals do not cover significantly less
 than promised and either its day mean squared errors are smaller (one-sided day-blocked test at
-5 %) or the active version's intervals do cover significantly less (the scatter changed, not the
-line); ``keep`` otherwise; ``wait`` when there are too few days to judge.
+5 %), or the active version's intervals do cover significantly less (the scatter changed, not
+the line), or it predicts no worse and its bias chart limit is clearly tighter (a version fitted
+on a short window after a change, refitted on the longer window since); ``keep`` otherwise;
+``wait`` when there are too few days to judge.
 """
 
 from __future__ import annotations
@@ -44,6 +46,7 @@ from monitor.store.versions import (
 MIN_HOLDOUT_DAYS = 3
 MAX_DEFAULT_HOLDOUT_DAYS = 14
 PROMOTE_PVALUE = 0.05
+SHARPER_RATIO = 2 / 3  # a candidate whose bias chart limit is this much tighter is worth it
 
 PROMOTE, KEEP, WAIT = "promote", "keep", "wait"
 
@@ -187,9 +190,9 @@ def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
     c = _score(candidate, candidate_model, rows)
     loss = loss_difference_test(rows.days, rows.y - active_model.predict(rows.x),
                                 rows.y - candidate_model.predict(rows.x))
+    advice = _recommend(model, active, candidate, a, c, loss, ms, unit)
     return Comparison(model, active, candidate, holdout, "refitted" if refit_needed else "stored",
-                      window, a, c, loss, _recommend(model, candidate, a, c, loss, ms, unit),
-                      unit)
+                      window, a, c, loss, advice, unit)
 
 
 def _too_few(days: int, held: int, before: int | None, ms: ModelSettings) -> str:
@@ -216,8 +219,16 @@ def _score(version: VersionRecord, prediction: PredictionModel,
                          version.dispersion or 1.0)
 
 
-def _recommend(model: ModelRecord, candidate: VersionRecord, a: HoldoutScore, c: HoldoutScore,
-               loss: LossDifference, ms: ModelSettings, unit: str) -> Recommendation:
+def sharper(active: VersionRecord, candidate: VersionRecord) -> bool:
+    """The candidate's bias chart limit is clearly tighter (it was fitted on more days)."""
+    if active.cusum_h is None or candidate.cusum_h is None:
+        return False
+    return candidate.cusum_h < SHARPER_RATIO * active.cusum_h
+
+
+def _recommend(model: ModelRecord, active: VersionRecord, candidate: VersionRecord,
+               a: HoldoutScore, c: HoldoutScore, loss: LossDifference, ms: ModelSettings,
+               unit: str) -> Recommendation:
     rmse = f"RMSE {fmt(c.rmse, 3)} against {fmt(a.rmse, 3)}{' ' + unit if unit else ''}"
     cover = (f"its intervals covered {percent(c.coverage.coverage, 1)} of the held-out rows "
              f"(target {percent(candidate.level, 1)}; the active version's "
@@ -238,6 +249,13 @@ def _recommend(model: ModelRecord, candidate: VersionRecord, a: HoldoutScore, c:
             f"{percent(candidate.level, 1)} ({fmt_p(a.coverage.pvalue_low)}), while the "
             f"candidate's covered {percent(c.coverage.coverage, 1)}: the scatter has changed "
             "and the candidate's intervals reflect it.", command)
+    worse = bool(np.isfinite(loss.pvalue) and 1.0 - loss.pvalue < PROMOTE_PVALUE)
+    if covers and not worse and sharper(active, candidate):
+        return Recommendation(
+            PROMOTE, f"On the {c.days} held-out days the candidate predicts as well ({rmse}, "
+            f"{fmt_p(loss.pvalue)}) and {cover}; fitted on more days, it pins the line down "
+            f"better, so its bias chart limit drops from {fmt(active.cusum_h, 3)} to "
+            f"{fmt(candidate.cusum_h, 3)} and a future change is caught sooner.", command)
     if better:
         return Recommendation(
             KEEP, f"The candidate's errors are smaller ({rmse}, {fmt_p(loss.pvalue)}) but "

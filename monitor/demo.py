@@ -28,7 +28,7 @@ from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
 from monitor.refit import Transition, promote, refit
 from monitor.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
-from monitor.status import VersionView
+from monitor.status import VersionView, model_statuses
 from monitor.store import outbox
 from monitor.store.access import database
 from monitor.store.checks import DayCheck
@@ -151,7 +151,9 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
         for subject in mailed:
             say(f"      e-mail to the planning lead: \"{subject}\"\n")
         if outcome.checks and _lead_refits(outcome.checks[-1]):
-            _respond(engine, settings, outcome.checks[-1], now, played, say)
+            _respond(engine, settings, now, played, say)
+        elif outcome.checks and outcome.checks[-1].status == "ok":
+            _sharpen(engine, settings, now, played, say)
     return played
 
 
@@ -172,12 +174,24 @@ def _lead_refits(check: DayCheck) -> bool:
         waited % REFIT_AFTER_DAYS == 0
 
 
-def _respond(engine: Engine, settings: Settings, check: DayCheck, now: datetime,
-             played: _Played, say: Callable[[str], object]) -> None:
+def _sharpen(engine: Engine, settings: Settings, now: datetime, played: _Played,
+             say: Callable[[str], object]) -> None:
+    """When status says the active version can be pinned down better, the lead does it."""
+    (status,) = model_statuses(settings, [MODEL], now=now, engine=engine)
+    if status.sharpen is None:
+        return
+    say(f"\n  fitwatch status says: {status.sharpen.sentence()}\n")
+    _respond(engine, settings, now, played, say, start=status.sharpen.start)
+
+
+def _respond(engine: Engine, settings: Settings, now: datetime, played: _Played,
+             say: Callable[[str], object], start: date | None = None) -> None:
     """What the planning lead does: refit on the days since the change, compare, decide."""
-    say(f"\n  The planning lead runs: fitwatch refit {MODEL}\n")
+    flag = f" --start {start}" if start else ""
+    say(f"\n  The planning lead runs: fitwatch refit {MODEL}{flag}\n")
     try:
-        comparison = refit(settings, MODEL, now=now, actor="planning lead", engine=engine)
+        comparison = refit(settings, MODEL, start=start, now=now, actor="planning lead",
+                           engine=engine)
     except DegenerateDataError as exc:  # too few days since the change to fit on yet
         say(f"    fitwatch: {exc}\n    (the lead tries again a week later)\n\n")
         return

@@ -7,7 +7,7 @@ from dataclasses import dataclass, replace
 from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
-from sqlalchemy import Engine
+from sqlalchemy import Connection, Engine
 
 from monitor.check import local_today
 from monitor.config import Settings
@@ -18,10 +18,12 @@ from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check
 from monitor.store.models import ModelRecord, get_model, list_models
-from monitor.store.observations import last_observed_at
+from monitor.store.observations import last_observed_at, load_day_stats
 from monitor.store.versions import VersionRecord, active_version, get_version, list_versions
 
 QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
+SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
+OK = "ok"
 
 
 @dataclass(frozen=True)
@@ -35,6 +37,7 @@ class ModelStatus:
     behind_days: int  # complete days not yet checked
     nightly: NightlyState | None = None  # None: no daemon has ever run on this database
     last_rows_day: date | None = None  # the latest day with stored rows
+    sharpen: Sharpening | None = None  # refit a loosely pinned version on a longer window
 
     def quiet_days(self) -> int:
         """Checked days since the latest day with rows (a feed that stopped shows here)."""
@@ -47,6 +50,7 @@ class ModelStatus:
                 "last_checked_day": self.last_checked_day, "reasons": list(self.reasons),
                 "active_version": self.active_version, "behind_days": self.behind_days,
                 "last_rows_day": self.last_rows_day,
+                "sharpen": self.sharpen.as_dict() if self.sharpen else None,
                 "nightly": self.nightly.as_dict() if self.nightly else None}
 
     def sentence(self) -> str:
@@ -62,7 +66,8 @@ class ModelStatus:
         if self.quiet_days() >= QUIET_DAYS:
             head += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
                      "data still arriving?")
-        return "\n".join([head, *(f"  - {r}" for r in self.reasons)])
+        extra = [self.sharpen.sentence()] if self.sharpen else []
+        return "\n".join([head, *(f"  - {r}" for r in [*self.reasons, *extra])])
 
 
 def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
@@ -79,9 +84,65 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
             active = active_version(conn, model.id)
             latest = last_observed_at(conn, model)
             rows_day = latest.astimezone(settings.timezone).date() if latest else None
-            out.append(replace(_status(model, last, active, yesterday), nightly=nightly,
-                               last_rows_day=rows_day))
+            status = _status(model, last, active, yesterday)
+            advice = None
+            if active is not None and status.status == OK:
+                advice = sharpen_advice(model.name, active, _days_with_rows(conn, model, active))
+            out.append(replace(status, nightly=nightly, last_rows_day=rows_day,
+                               sharpen=advice))
     return out
+
+
+def _days_with_rows(conn: Connection, model: ModelRecord, version: VersionRecord) -> int:
+    if version.fit_start is None:
+        return 0
+    table = load_day_stats(conn, model, version.fit_start).moments
+    return int((table.n > 0).sum())
+
+
+@dataclass(frozen=True)
+class Sharpening:
+    """Advice to refit a version whose bias chart is wide only for want of days."""
+
+    model: str
+    version: int
+    fit_days: int
+    h: float
+    h_known: float
+    days_since_start: int
+    start: date
+
+    def as_dict(self) -> dict[str, Any]:
+        return {**{f: getattr(self, f) for f in self.__dataclass_fields__},
+                "command": self.command(), "sentence": self.sentence()}
+
+    def command(self) -> str:
+        return f"fitwatch refit {self.model} --start {self.start}"
+
+    def sentence(self) -> str:
+        return (f"Version {self.version} was fitted on {self.fit_days} days, so its bias chart "
+                f"needs a limit of {fmt(self.h, 3)} ({fmt(self.h_known, 3)} if its estimates "
+                f"were exact); {self.days_since_start} days with rows have come since "
+                f"{self.start}: '{self.command()}' would sharpen it")
+
+
+def sharpen_advice(name: str, version: VersionRecord,
+                   days_since_fit_start: int) -> Sharpening | None:
+    """Say so when the version's bias chart is wide only for want of days, and days have come.
+
+    A version fitted on a short window (typically right after a change) pins the line down
+    loosely; the limit that keeps false alarms rare is then far above the one exact parameters
+    would need. Once at least twice as many days with rows exist from the same start, a refit
+    on them tightens the chart without changing the line much (``compare`` then recommends it).
+    """
+    calibration = version.diagnostics.get("calibration") or {}
+    h_known, fit_days = calibration.get("h_known"), version.diagnostics.get("days")
+    if (version.cusum_h is None or not h_known or not fit_days or version.fit_start is None
+            or version.cusum_h < SHARPEN_RATIO * h_known
+            or days_since_fit_start < 2 * fit_days):
+        return None
+    return Sharpening(name, version.number, int(fit_days), float(version.cusum_h),
+                      float(h_known), days_since_fit_start, version.fit_start)
 
 
 def _status(model: ModelRecord, last: DayCheck | None, active: VersionRecord | None,

@@ -39,6 +39,11 @@ def test_demo_runs_end_to_end_and_finds_the_layout_change(tmp_path: Path) -> Non
     between = [c for c in result.checks
                if promoted.effective_day <= c.day < scenario.spread_change]
     assert len(between) > 14 and all(c.status == "ok" for c in between)
+    # once twice the days exist, status suggests pinning the new line down on all of them
+    sharpened = [c for c in result.comparisons
+                 if "bias chart limit drops" in c.recommendation.sentence]
+    assert sharpened and sharpened[0].candidate.cusum_h < sharpened[0].active.cusum_h / 2
+    assert "would sharpen it" in text
     after = [c for c in result.checks if c.day > scenario.spread_change]
     assert after[0].status in ("watch", "refit")
     # the planning lead was told by e-mail (written as .eml files: no SMTP in the demo)

@@ -17,6 +17,7 @@ from monitor.compare import compare
 from monitor.errors import DegenerateDataError, StateError, UsageError
 from monitor.fit import FitRequest, fit_model
 from monitor.refit import acknowledge, promote, refit, rollback
+from monitor.status import model_statuses
 from monitor.store import audit
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
@@ -228,3 +229,26 @@ def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixtur
     assert "interval coverage" in text and "recommendation: promote" in text
     assert main(["--config", str(config), "compare", MODEL, "--candidate", "1"]) == 1
     assert "not a candidate" in capsys.readouterr().err
+
+
+def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World) -> None:
+    """After a change, a version fitted on two weeks needs a wide bias chart limit; once twice
+    the days exist, status suggests a refit from the same start and compare recommends it."""
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 3, 31)),
+              now=_now(date(2026, 4, 12)), engine=changed.engine)
+    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 26), 77, "more.csv")
+    changed.check(date(2026, 4, 26))
+    (status,) = model_statuses(changed.settings, now=_now(date(2026, 4, 26)),
+                               engine=changed.engine)
+    v2 = _versions(changed)[1]
+    assert status.status == "ok" and v2.cusum_h > 1.5 * v2.diagnostics["calibration"]["h_known"]
+    assert status.sharpen is not None
+    assert f"'fitwatch refit {MODEL} --start 2026-03-16' would sharpen it" in status.sentence()
+    result = refit(changed.settings, MODEL, start=date(2026, 3, 16),
+                   now=_now(date(2026, 4, 26)), engine=changed.engine)
+    v3 = _versions(changed)[2]
+    assert v3.cusum_h < 2 / 3 * v2.cusum_h
+    assert result.recommendation.action == "promote"
+    assert "bias chart limit drops" in result.recommendation.sentence
