@@ -12,14 +12,14 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import date, datetime, timedelta
 from typing import Any
 
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
-from monitor.alerts.service import AlertRun, send_due, send_night_alerts
+from monitor.alerts.service import AlertRun, queue_night, send_due
 from monitor.check import CheckOutcome, ModelCheck, local_today, run_checks
 from monitor.config import Settings
 from monitor.errors import FitwatchError
@@ -45,7 +45,8 @@ class NightRun:
     sweep: Sweep
     sources: tuple[IngestSummary, ...]  # rows pulled from models' SQL sources
     checks: CheckOutcome
-    alerts: tuple[AlertRun, ...]
+    nights: tuple[date, ...]  # newly checked nights (their alerts were queued)
+    alerts: AlertRun | None  # None: the alerts failed (see problems)
     stopped: bool  # a stop request ended the run early
     problems: tuple[str, ...] = ()  # inbox or SQL source failures (checks still ran)
 
@@ -65,7 +66,8 @@ class NightRun:
                              "last_day": r.last_day, "status": r.current.status
                              if r.current else None, "error": r.error}
                             for r in self.checks.results],
-                "alerts": [a.as_dict() for a in self.alerts],
+                "nights": list(self.nights),
+                "alerts": self.alerts.as_dict() if self.alerts else None,
                 "problems": list(self.problems)}
 
     def sentence(self) -> str:
@@ -78,8 +80,9 @@ class NightRun:
             parts.append("failed: " + "; ".join(f"{r.model} ({r.error})"
                                                 for r in self.failures))
         parts.extend(self.problems)
-        sent = sum(a.sent for a in self.alerts)
-        parts.append(f"{sent} alert message(s) sent")
+        if self.alerts is not None:
+            parts.append(f"{self.alerts.queued} alert message(s) queued, "
+                         f"{self.alerts.sent} sent")
         if self.stopped:
             parts.append("stopped early on request")
         return "; ".join(parts)
@@ -114,12 +117,30 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
         results.extend(outcome.results)
         # rechecked old days (late rows) were reported on their own night already
         nights.update(c.day for c in outcome.checks if before is None or c.day > before)
-    alerts = [send_night_alerts(settings, night, now=now, engine=engine, mailer=mailer)
-              for night in sorted(nights)]
-    if not nights:  # nothing new, but earlier failed deliveries may be due again
-        alerts.append(send_due(settings, now=now, engine=engine, mailer=mailer))
+    alerts = _alert(settings, engine, sorted(nights), now, mailer, actor, problems)
     return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
-                    tuple(alerts), stopped, tuple(problems))
+                    tuple(sorted(nights)), alerts, stopped, tuple(problems))
+
+
+def _alert(settings: Settings, engine: Engine, nights: list[date], now: datetime,
+           mailer: Mailer | None, actor: str, problems: list[str]) -> AlertRun | None:
+    """Queue each new night's digests, oldest first, then send everything that is due.
+
+    Queueing comes first and apart from sending, so a transport that fails (no SMTP password,
+    a folder that cannot be written) loses no night: its messages wait in the outbox and go
+    out on a later run, once each. Failures are recorded and do not fail the checks.
+    """
+    queued = 0
+    try:
+        for night in nights:
+            queued += queue_night(settings, night, now=now, engine=engine)
+        sent = send_due(settings, now=now, engine=engine, mailer=mailer)
+    except Exception as exc:
+        log.exception("the alerts could not all go out")
+        problems.append(f"alerts: {_describe(exc)}")
+        _record_failure(engine, None, _describe(exc), now, actor, stage="alerts")
+        return None
+    return replace(sent, night=nights[-1] if nights else None, queued=queued)
 
 
 def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, actor: str,

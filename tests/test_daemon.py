@@ -27,6 +27,7 @@ from monitor.store import audit, lease
 from monitor.store.checks import last_check
 from monitor.store.models import get_model
 from monitor.store.schema import scheduler_lease
+from tests.alerts.conftest import RecordingMailer
 from tests.test_check import CALM, HISTORY, MODEL, WORDS, World, _frame, _now, _write
 from tests.test_refit import CHANGED
 
@@ -97,13 +98,14 @@ def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
     run = run_night(world.settings, engine, now=_now(date(2026, 4, 5)))
     checked = [c.day for c in run.checks.checks]
     assert checked[0] == date(2026, 3, 8) and checked[-1] == date(2026, 4, 5)
-    assert [a.night for a in run.alerts] == sorted(set(checked))  # every night, oldest first
+    assert list(run.nights) == sorted(set(checked))  # every night's news was considered
     mails = sorted((tmp_path / "mail").glob("*.eml"))
+    assert run.alerts.queued == run.alerts.sent == len(mails)
     assert mails, "the slope change reached refit: the lead hears of it"
     subjects = [email.message_from_bytes(p.read_bytes(), policy=policy.default)["Subject"]
                 for p in mails]
     assert sum("needs a refit" in s and "reminder" not in s for s in subjects) == 1
-    assert run_night(world.settings, engine, now=_now(date(2026, 4, 5))).alerts[0].queued == 0
+    assert run_night(world.settings, engine, now=_now(date(2026, 4, 5))).alerts.queued == 0
 
 
 def test_one_models_failure_is_recorded_and_the_others_are_checked(
@@ -358,3 +360,31 @@ def test_status_asks_whether_data_still_arrive_after_quiet_days(
     (three,) = model_statuses(world.settings, now=_now(date(2026, 3, 13)), engine=engine)
     assert three.quiet_days() == 3
     assert "no rows since 2026-03-10 (3 days): is the data still arriving?" in three.sentence()
+
+
+def test_alerts_that_cannot_go_out_are_recorded_and_kept_for_later(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    url = engine.url.render_as_string(hide_password=False)
+    smtp = {"host": "localhost", "port": 2525, "username": "night",
+            "password_env": "FITWATCH_TEST_UNSET_PASSWORD"}
+    settings = make_settings(url, models=WORDS, alerts={"to": ["lead@example.com"],
+                                                        "smtp": smtp})
+    world = World(engine, settings, tmp_path, scenario=CHANGED, seed=5)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 31), 45, "weeks.csv")
+    run = run_night(settings, engine, now=_now(date(2026, 3, 31)))
+    assert run.status == "partial" and run.problems[0].startswith("alerts:")
+    assert "FITWATCH_TEST_UNSET_PASSWORD" in run.problems[0]  # names where, never a value
+    assert run.checks.checks[-1].day == date(2026, 3, 31)  # the checks are kept
+    with engine.connect() as conn:
+        pending = conn.execute(select(scheduler_lease.c.name)).all()  # no lease: not a daemon
+        from monitor.store import outbox
+        queued = outbox.rows(conn, "pending")
+    assert not pending and queued  # the refit news waits in the outbox for a later run
+    # the password is fixed (here: a mailer that records): a later run sends each message once
+    mailer = RecordingMailer()
+    later = run_night(settings, engine, now=_now(date(2026, 3, 31)) + timedelta(hours=1),
+                      mailer=mailer)
+    assert later.status == "ok" and later.alerts.sent == len(queued) == len(mailer.sent)
+    again = run_night(settings, engine, now=_now(date(2026, 3, 31)) + timedelta(hours=2),
+                      mailer=mailer)
+    assert again.alerts.sent == 0 and len(mailer.sent) == len(queued)
