@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
 from email.message import EmailMessage
@@ -227,14 +227,14 @@ _ENV = Environment(
 
 
 def compose(digest: Digest, contexts: Mapping[str, ModelContext], *, key: str,
-            chart_model: str | None) -> Composed:
-    """Subject, plain text and HTML for one digest; the chart (if any) shows ``chart_model``."""
+            chart_models: Sequence[str] = ()) -> Composed:
+    """Subject, plain text and HTML for one digest; the chart (if any) shows ``chart_models``."""
     views = [item_view(item, contexts[item.model]) for item in digest.items]
-    cid = chart_cid(key) if chart_model is not None else None
+    cid = chart_cid(key) if chart_models else None
+    shown = ", ".join(f"{m} (level {percent(contexts[m].level)})" for m in chart_models)
+    left_out = [item.model for item in digest.items if item.model not in chart_models]
     values = {"night": digest.night.isoformat(), "items": views, "chart_cid": cid,
-              "chart_model": chart_model, "level": None}
-    if chart_model is not None:
-        values["level"] = percent(contexts[chart_model].level)
+              "chart_models": shown, "left_out": ", ".join(left_out)}
     text = _ENV.get_template("digest.txt").render(**values)
     html = _ENV.get_template("digest.html").render(**values)
     return Composed(subject(digest), text, html, cid)

@@ -49,7 +49,7 @@ from monitor.alerts.news import (
     model_news,
 )
 from monitor.config import Settings
-from monitor.report.charts import alert_chart_png
+from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.store import audit
 from monitor.store import outbox as box
 from monitor.store.access import database
@@ -65,6 +65,7 @@ FIRST_BACKOFF = timedelta(minutes=5)
 MAX_BACKOFF = timedelta(hours=6)
 CLAIM_SECONDS = 600  # a claimed row another sender may not touch (covers one SMTP exchange)
 CHART_DAYS = 60  # days of checks the alert chart shows, ending on the night
+CHART_MODELS = 4  # models a digest's chart shows (the most pressing); the rest: see the report
 
 
 def backoff(attempts: int) -> timedelta:
@@ -154,15 +155,15 @@ def night_news(settings: Settings, conn: Connection,
     return news, contexts
 
 
-def _chart_model(digest: Digest) -> str:
-    """The model the digest's one chart shows: the most pressing one (items are sorted so)."""
-    return digest.items[0].model
+def _chart_models(digest: Digest) -> tuple[str, ...]:
+    """The models the digest's chart shows: the most pressing ones (items are sorted so)."""
+    return tuple(item.model for item in digest.items[:CHART_MODELS])
 
 
-def _chart(conn: Connection, news: ModelNews, level: float) -> bytes:
+def _panel(conn: Connection, news: ModelNews, level: float) -> ChartPanel:
     checks = load_checks(conn, news.check.model_id, news.night - timedelta(days=CHART_DAYS - 1),
                          news.night, model=news.model)
-    return alert_chart_png(checks, level)
+    return ChartPanel(news.model, checks, level)
 
 
 def queue_night(settings: Settings, night: date, *, now: datetime,
@@ -173,19 +174,21 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
             news, contexts = night_news(settings, conn, night)
             wanted = {dedupe_key(d.recipient, night, KIND_NIGHT): d for d in digests(news)}
             known = box.existing_keys(conn, list(wanted))
-            charts: dict[str, bytes] = {}
+            charts: dict[tuple[str, ...], bytes] = {}
+            panels: dict[str, ChartPanel] = {}
             messages = []
             for key, digest in wanted.items():
                 if key in known:
                     continue
-                chart_model = _chart_model(digest)
-                if chart_model not in charts:
-                    item = digest.items[0]
-                    charts[chart_model] = _chart(conn, item, contexts[chart_model].level)
-                composed = compose(digest, contexts, key=key, chart_model=chart_model)
+                shown = _chart_models(digest)
+                if shown not in charts:
+                    for item in digest.items[:CHART_MODELS]:
+                        if item.model not in panels:
+                            panels[item.model] = _panel(conn, item, contexts[item.model].level)
+                    charts[shown] = digest_chart_png([panels[m] for m in shown])
+                composed = compose(digest, contexts, key=key, chart_models=shown)
                 messages.append(box.NewMessage(key, digest.recipient, composed.subject,
-                                               composed.text, composed.html,
-                                               charts[chart_model]))
+                                               composed.text, composed.html, charts[shown]))
         if not messages:
             return 0
         with write_transaction(db) as conn:

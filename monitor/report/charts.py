@@ -14,6 +14,7 @@ from __future__ import annotations
 import io
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
+from dataclasses import dataclass
 from datetime import date
 from typing import Any
 
@@ -168,6 +169,31 @@ def alert_chart_png(checks: Sequence[DayCheck], level: float) -> bytes:
         top, bottom = fig.subplots(2, 1, sharex=True)
         draw_cusum(top, cusum_series(checks))
         draw_coverage(bottom, coverage_series(checks, level))
+        return png_bytes(fig)
+
+
+@dataclass(frozen=True)
+class ChartPanel:
+    """One model's part of a digest chart."""
+
+    model: str
+    checks: Sequence[DayCheck]
+    level: float
+
+
+def digest_chart_png(panels: Sequence[ChartPanel]) -> bytes:
+    """The alert chart for a digest: one :func:`alert_chart_png` pair of panels per model,
+    stacked and titled with the model's name (640 px wide, 360 px per model)."""
+    if len(panels) == 1:
+        return alert_chart_png(panels[0].checks, panels[0].level)
+    size = (ALERT_SIZE[0], ALERT_SIZE[1] * len(panels))
+    with _figure(size) as fig:
+        axes = fig.subplots(2 * len(panels), 1)
+        for i, panel in enumerate(panels):
+            draw_cusum(axes[2 * i], cusum_series(panel.checks),
+                       title=f"{panel.model}: bias CUSUM")
+            draw_coverage(axes[2 * i + 1], coverage_series(panel.checks, panel.level),
+                          title=f"{panel.model}: coverage")
         return png_bytes(fig)
 
 

@@ -67,7 +67,7 @@ def _chart() -> bytes:
 
 def _message(digest: Digest, contexts: dict[str, ModelContext]) -> tuple[EmailMessage, str]:
     key = dedupe_key(LEAD, NIGHT)
-    composed = compose(digest, contexts, key=key, chart_model=digest.items[0].model)
+    composed = compose(digest, contexts, key=key, chart_models=(digest.items[0].model,))
     msg = build_message(key=key, sender=SENDER, recipient=LEAD, subject_line=composed.subject,
                         text=composed.text, html=composed.html, chart_png=_chart(),
                         created_at=datetime(2026, 4, 13, 1, 30, tzinfo=UTC))
@@ -168,3 +168,15 @@ def test_dedupe_key_fits_its_column() -> None:
     long = "x" * 250 + "@example.com"
     key = dedupe_key(long, NIGHT)
     assert len(key) <= 200 and key != dedupe_key("y" + long[1:], NIGHT)
+
+
+def test_a_digest_chart_names_the_models_it_shows_and_points_to_the_report_for_the_rest():
+    names = [f"line_{i}" for i in range(6)]
+    digest = _digest(*[day_check(NIGHT, "refit", NIGHT, model=n, model_id=i + 1)
+                       for i, n in enumerate(names)])
+    contexts = {n: _context(n) for n in names}
+    shown = tuple(item.model for item in digest.items[:4])
+    composed = compose(digest, contexts, key=dedupe_key(LEAD, NIGHT), chart_models=shown)
+    left_out = [item.model for item in digest.items[4:]]
+    assert f"For {', '.join(left_out)}, see 'fitwatch report'." in composed.text
+    assert all(f"{m} (level 95 %)" in composed.html for m in shown)

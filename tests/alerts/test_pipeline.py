@@ -153,9 +153,14 @@ def test_two_models_per_model_recipients_and_eml_files(engine: Engine, make_sett
         "== dock_loading: watch ==")
     assert parsed[OFFICE]["Subject"] == "fitwatch: yard_moves needs a refit"
     assert "dock_loading" not in _text(parsed[OFFICE])
-    # the chart shows the most pressing model, and says so
-    assert "daily coverage of yard_moves" in str(parsed[LEAD].get_body(("html",))
-                                                 .get_content())  # type: ignore[union-attr]
+    # one chart with a pair of panels per model, most pressing first, and it says so
+    html = str(parsed[LEAD].get_body(("html",)).get_content())  # type: ignore[union-attr]
+    assert "daily coverage of yard_moves (level 95 %), dock_loading (level 95 %)" in html
+    image = next(p for p in parsed[LEAD].walk() if p.get_content_type() == "image/png")
+    png = image.get_content()
+    # PNG IHDR width and height (PNG specification, RFC 2083 §4.1.1): 640 × 360 per model
+    assert int.from_bytes(png[16:20], "big") == 640
+    assert int.from_bytes(png[20:24], "big") == 720
     again = send_night_alerts(settings, night, now=_now(night) + timedelta(hours=1),
                               engine=engine)
     assert (again.queued, again.sent) == (0, 0) and sorted(folder.iterdir()) == files

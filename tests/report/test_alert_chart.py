@@ -14,7 +14,7 @@ from dataclasses import replace
 import numpy as np
 from PIL import Image
 
-from monitor.report.charts import ALERT_SIZE, alert_chart_png
+from monitor.report.charts import ALERT_SIZE, ChartPanel, alert_chart_png, digest_chart_png
 from monitor.store.checks import DayCheck, load_checks
 from monitor.store.models import get_model
 from tests.test_check import MODEL, World
@@ -60,3 +60,14 @@ def test_alert_chart_takes_any_sequence_and_copes_with_nothing(calm: World) -> N
     checks = stored_checks(calm)
     assert alert_chart_png(tuple(checks), 0.95) == alert_chart_png(checks, 0.95)
     assert png_size(alert_chart_png([], 0.95)) == ALERT_SIZE
+
+
+def test_digest_chart_stacks_one_pair_of_panels_per_model(changed: World) -> None:
+    checks = stored_checks(changed)
+    panels = [ChartPanel(name, checks, 0.95) for name in ("dock_loading", "yard_moves", "ramp")]
+    data = digest_chart_png(panels)
+    assert png_size(data) == (ALERT_SIZE[0], 3 * ALERT_SIZE[1])
+    assert data == digest_chart_png(panels)  # byte-stable
+    with Image.open(io.BytesIO(data)) as image:  # Pillow as an independent decoder
+        assert image.size == (ALERT_SIZE[0], 3 * ALERT_SIZE[1])
+    assert digest_chart_png(panels[:1]) == alert_chart_png(checks, 0.95)
