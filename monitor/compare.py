@@ -173,7 +173,7 @@ def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
     held = days[-wanted:] if len(days) > wanted else []
     refit_needed = candidate.fit_end is not None and bool(held) and candidate.fit_end >= held[0]
     before = [d for d in days if not held or d < held[0]]
-    wait = _too_few(len(days), len(held), len(before) if refit_needed else None, ms)
+    wait = _too_few(len(days), wanted, len(held), len(before) if refit_needed else None, ms)
     if wait:
         return Comparison(model, active, candidate, None, "stored", None, None, None, None,
                           Recommendation(WAIT, wait, None), unit)
@@ -195,12 +195,12 @@ def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
                       window, a, c, loss, advice, unit)
 
 
-def _too_few(days: int, held: int, before: int | None, ms: ModelSettings) -> str:
+def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSettings) -> str:
     """Why there is too little to judge, or '' when there is enough."""
-    if held < MIN_HOLDOUT_DAYS:
-        return (f"There are {days} days with rows in the candidate's window; at least "
-                f"{MIN_HOLDOUT_DAYS + 1} are needed to hold {MIN_HOLDOUT_DAYS} out and judge it. "
-                "Compare again in a few days.")
+    if held < MIN_HOLDOUT_DAYS or held < wanted:
+        need = max(wanted, MIN_HOLDOUT_DAYS)
+        return (f"There are {days} days with rows in the candidate's window; more than {need} "
+                f"are needed to hold {need} out and judge it. Compare again in a few days.")
     if before is not None and before < ms.check.min_fit_days:
         return (f"Holding out {held} of the {days} days leaves {before} to refit the candidate "
                 f"on; at least {ms.check.min_fit_days} are needed. Hold out fewer days or "

@@ -252,3 +252,11 @@ def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World)
     assert v3.cusum_h < 2 / 3 * v2.cusum_h
     assert result.recommendation.action == "promote"
     assert "bias chart limit drops" in result.recommendation.sentence
+
+
+def test_asking_to_hold_out_more_days_than_there_are_says_so(changed: World) -> None:
+    refit(changed.settings, MODEL, start=date(2026, 3, 30), engine=changed.engine)
+    result = compare(changed.settings, MODEL, holdout_days=12, engine=changed.engine)
+    assert result.recommendation.action == "wait"
+    assert result.recommendation.sentence.startswith(
+        "There are 12 days with rows in the candidate's window; more than 12 are needed")
