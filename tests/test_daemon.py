@@ -213,10 +213,11 @@ def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_ov
                                       stdout=subprocess.DEVNULL, stderr=log_file, text=True)
         _wait(lambda: "waiting for the lease held by first" in log_path.read_text())
         assert second.poll() is None and _lease(engine)["holder"] == "first"  # it waits
+        first_run = _lease(engine)["last_run_finished_at"]
         first.send_signal(signal.SIGTERM)
         assert first.wait(timeout=60) == 0
-        _wait(lambda: _lease(engine)["holder"] == "second"
-              and _lease(engine)["last_run_status"] == "ok")
+        _wait(lambda: (row := _lease(engine))["holder"] == "second"
+              and row["last_run_finished_at"] > first_run and row["last_run_status"] == "ok")
         second.send_signal(signal.SIGTERM)
         assert second.wait(timeout=60) == 0
         assert _lease(engine)["holder"] is None
