@@ -26,7 +26,7 @@ from sqlalchemy import Connection, Engine
 
 from monitor.calendar_days import as_date
 from monitor.config import ModelSettings, Settings
-from monitor.errors import StateError
+from monitor.errors import StateError, UsageError
 from monitor.output import fmt, fmt_p, percent
 from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, loss_difference_test
 from monitor.stats.ols import fit_ols
@@ -139,7 +139,7 @@ def compare(settings: Settings, name: str, *, candidate: int | None = None,
             holdout_days: int | None = None, engine: Engine | None = None) -> Comparison:
     """``compare``: the active version against a candidate (default: the newest one)."""
     if holdout_days is not None and holdout_days < 1:
-        raise StateError(f"--holdout-days must be at least 1; got {holdout_days}")
+        raise UsageError(f"--holdout-days must be at least 1; got {holdout_days}")
     with database(settings, engine) as db, db.connect() as conn:
         model = get_model(conn, name)
         active = active_version(conn, model.id)
