@@ -46,11 +46,13 @@ class Mailer(Protocol):
 
 class DeliveryError(Exception):
     """A message could not be handed on. ``permanent``: retrying the same message cannot help
-    (the server refused it with a 5xx reply, RFC 5321 §4.2.1)."""
+    (the server refused it with a 5xx reply, RFC 5321 §4.2.1). ``unreachable``: no connection
+    could be made, so the other messages of this run would fail the same way."""
 
-    def __init__(self, message: str, *, permanent: bool = False):
+    def __init__(self, message: str, *, permanent: bool = False, unreachable: bool = False):
         super().__init__(message)
         self.permanent = permanent
+        self.unreachable = unreachable
 
 
 def read_password(smtp: SmtpSettings, environ: Mapping[str, str] | None = None) -> str | None:
@@ -148,6 +150,7 @@ class SmtpMailer:
         return conn
 
     def send(self, message: EmailMessage, *, key: str) -> None:
+        connecting = self._conn is None
         try:
             if self._conn is None:
                 self._conn = self._connect()
@@ -170,7 +173,8 @@ class SmtpMailer:
         except (smtplib.SMTPException, OSError) as exc:
             self._drop()
             raise DeliveryError(self._say(f"cannot deliver through {self.where()}: "
-                                          f"{type(exc).__name__}: {exc}")) from None
+                                          f"{type(exc).__name__}: {exc}"),
+                                unreachable=connecting) from None
         if refused:  # only possible with several recipients; ours have one
             raise DeliveryError(self._say(f"{self.where()} refused {sorted(refused)}"),
                                 permanent=True)

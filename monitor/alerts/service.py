@@ -231,6 +231,10 @@ def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Deliver
                 log.warning("alert %s to %s not delivered (attempt %d of %d), next try after "
                             "%s: %s", row.dedupe_key, row.recipient, attempts, MAX_ATTEMPTS,
                             (now + backoff(attempts)).isoformat(), exc)
+            if exc.unreachable:  # the others would wait out the same timeout: next run
+                log.warning("the mail server cannot be reached; the other due alerts wait "
+                            "for the next run")
+                break
             continue
         with write_transaction(db) as conn:  # at once: this commit closes the window
             box.mark_sent(conn, row.id, now)

@@ -348,3 +348,16 @@ def test_scrub_removes_the_password_in_every_form_smtp_uses() -> None:
     cleaned = scrub(reply, secret)
     assert cleaned == "535 5.7.8 rejected *** / *** / ***"
     assert scrub(reply, None) == reply
+
+
+def test_an_unreachable_server_is_tried_once_per_run_not_once_per_message(
+        world: World, make_settings: Callable[..., Settings]) -> None:
+    port = free_port()  # nothing listens there
+    url = world.engine.url.render_as_string(hide_password=False)
+    settings = make_settings(url, models=WORDS, alerts={
+        "to": [LEAD, "night.office@example.com"], "sender": SENDER,
+        "smtp": {"host": "127.0.0.1", "port": port, "security": "none",
+                 "timeout_seconds": 5.0}})
+    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine)
+    assert (run.queued, run.sent, run.retried, run.pending) == (2, 0, 1, 2)
+    assert sorted(row.attempts for row in _rows(world.engine)) == [0, 1]  # second not tried
