@@ -24,7 +24,6 @@ from typing import Any
 import numpy as np
 from sqlalchemy import Connection, Engine
 
-from monitor.calendar_days import as_date
 from monitor.config import ModelSettings, Settings
 from monitor.errors import StateError, UsageError
 from monitor.output import fmt, fmt_p, percent
@@ -34,7 +33,7 @@ from monitor.stats.prediction import PredictionModel
 from monitor.status import VersionView
 from monitor.store.access import database
 from monitor.store.models import ModelRecord, get_model
-from monitor.store.observations import Observations, load_day_stats, load_observations
+from monitor.store.observations import Observations, days_with_rows, load_observations
 from monitor.store.versions import (
     CANDIDATE,
     VersionRecord,
@@ -167,7 +166,7 @@ def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
              candidate: VersionRecord, ms: ModelSettings,
              holdout_days: int | None) -> Comparison:
     unit = ms.words.y_unit
-    days = _days_with_rows(conn, model, candidate.fit_start)
+    days = days_with_rows(conn, model, candidate.fit_start)
     wanted = holdout_days or min(MAX_DEFAULT_HOLDOUT_DAYS,
                                  max(MIN_HOLDOUT_DAYS, math.ceil(len(days) / 4)))
     held = days[-wanted:] if len(days) > wanted else []
@@ -206,11 +205,6 @@ def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSet
                 f"on; at least {ms.check.min_fit_days} are needed. Hold out fewer days or "
                 "compare again in a few days.")
     return ""
-
-
-def _days_with_rows(conn: Connection, model: ModelRecord, first: date | None) -> list[date]:
-    table = load_day_stats(conn, model, first).moments
-    return [as_date(d) for d, n in zip(table.days, table.n, strict=True) if n > 0]
 
 
 def _score(version: VersionRecord, prediction: PredictionModel,

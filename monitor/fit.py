@@ -29,7 +29,7 @@ from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction
 from monitor.store.models import ModelRecord, ModelSpec, create_model, find_model
-from monitor.store.observations import load_day_stats, load_observations
+from monitor.store.observations import days_with_rows, load_observations
 from monitor.store.versions import (
     ACTIVE,
     CANDIDATE,
@@ -143,12 +143,12 @@ def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: dat
         summary = ingest_file(engine, model, request.data, options)
     level = request.level or model_settings.check.level
     with engine.connect() as conn:
-        stored_days = load_day_stats(conn, model).moments.days
-        if len(stored_days) == 0:
+        stored_days = days_with_rows(conn, model)
+        if not stored_days:
             raise StateError(f"model '{model.name}' has no stored observations to fit on; "
                              "give --data FILE")
-        start = request.start or as_date(stored_days[0])
-        end = request.end or as_date(stored_days[-1])
+        start = request.start or stored_days[0]
+        end = request.end or stored_days[-1]
         if start > end:
             raise InputError(f"--start {start} lies after --end {end}")
         obs = load_observations(conn, model, start, end)

@@ -7,7 +7,7 @@ from dataclasses import dataclass, replace
 from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
-from sqlalchemy import Connection, Engine
+from sqlalchemy import Engine
 
 from monitor.check import local_today
 from monitor.config import Settings
@@ -18,7 +18,7 @@ from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check
 from monitor.store.models import ModelRecord, get_model, list_models
-from monitor.store.observations import last_observed_at, load_day_stats
+from monitor.store.observations import days_with_rows, last_observed_at
 from monitor.store.versions import VersionRecord, active_version, get_version, list_versions
 
 QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
@@ -87,17 +87,12 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
             status = _status(model, last, active, yesterday)
             advice = None
             if active is not None and status.status == OK:
-                advice = sharpen_advice(model.name, active, _days_with_rows(conn, model, active))
+                since = (len(days_with_rows(conn, model, active.fit_start))
+                         if active.fit_start else 0)
+                advice = sharpen_advice(model.name, active, since)
             out.append(replace(status, nightly=nightly, last_rows_day=rows_day,
                                sharpen=advice))
     return out
-
-
-def _days_with_rows(conn: Connection, model: ModelRecord, version: VersionRecord) -> int:
-    if version.fit_start is None:
-        return 0
-    table = load_day_stats(conn, model, version.fit_start).moments
-    return int((table.n > 0).sum())
 
 
 @dataclass(frozen=True)

@@ -118,6 +118,18 @@ def load_day_stats(conn: Connection, model: ModelRecord, first_day: date | None 
                           {row.day: int(row.revision) for row in rows})
 
 
+def days_with_rows(conn: Connection, model: ModelRecord, first_day: date | None = None,
+                   last_day: date | None = None) -> list[date]:
+    """The days of ``model`` that have stored rows, in order (their statistics left unread)."""
+    stmt = (select(day_stats.c.day).where(day_stats.c.model_id == model.id, day_stats.c.n > 0)
+            .order_by(day_stats.c.day))
+    if first_day is not None:
+        stmt = stmt.where(day_stats.c.day >= first_day)
+    if last_day is not None:
+        stmt = stmt.where(day_stats.c.day <= last_day)
+    return list(conn.execute(stmt).scalars())
+
+
 def last_observed_at(conn: Connection, model: ModelRecord) -> datetime | None:
     """The latest stored observation time of ``model`` (UTC), or None."""
     last_day = conn.execute(select(func.max(observations.c.day))
