@@ -111,7 +111,7 @@ class SqlSourceSettings:
         value = (os.environ if environ is None else environ).get(self.url_env, "")
         if not value:
             raise ConfigError(f"the environment variable {self.url_env} (named by the model's "
-                              "source.url_env) is not set")
+                              "source.url_env) is not set; set it to the source database's URL")
         return value
 
 

@@ -142,7 +142,8 @@ def _wait_for_lease(worker: NightlyWorker, once: bool, poll_seconds: float) -> b
         other = state.holder if state else "another instance"
         if once:
             raise StateError(f"another fitwatch daemon ({other}) holds this database's lease "
-                             "and runs the nights; nothing done")
+                             "and runs the nights; nothing done (stop that daemon, or let it "
+                             "do the run)")
         if other != said:
             log.warning("waiting for the lease held by %s (expires %s)", other,
                         state.expires_at if state else "?")
