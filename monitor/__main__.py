@@ -1,5 +1,5 @@
 import sys
 
-from monitor.cli import main
+from monitor.interface.cli import main
 
 sys.exit(main())

@@ -19,13 +19,13 @@ import pandas as pd
 import pytest
 from sqlalchemy import Engine, select
 
-from monitor.check import run_checks
-from monitor.cli import main
 from monitor.config import Settings
+from monitor.demo.scenario import Scenario, generate_day
 from monitor.errors import InputError
-from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
-from monitor.scenario import Scenario, generate_day
+from monitor.interface.cli import main
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.monitoring.check import run_checks
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from monitor.store.schema import day_checks

@@ -16,13 +16,13 @@ from pathlib import Path
 import pytest
 from sqlalchemy import Engine, select
 
-from monitor.check import run_checks
-from monitor.cli import main
 from monitor.config import Settings
-from monitor.daemon import last_scheduled, nightly_state, run_daemon
-from monitor.fit import FitRequest, fit_model
-from monitor.nightly import run_night
-from monitor.status import model_statuses
+from monitor.interface.cli import main
+from monitor.interface.status import model_statuses
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.monitoring.check import run_checks
+from monitor.runtime.daemon import last_scheduled, nightly_state, run_daemon
+from monitor.runtime.nightly import run_night
 from monitor.store import audit, lease
 from monitor.store.checks import last_check
 from monitor.store.models import get_model
@@ -115,7 +115,7 @@ def test_one_models_failure_is_recorded_and_the_others_are_checked(
     fit_model(world.settings, FitRequest("yard_moves", history, "load_minutes", ("pallets",),
                                          "docked_at", "load_id"),
               now=_now(HISTORY[1]), engine=engine)
-    import monitor.nightly as nightly
+    import monitor.runtime.nightly as nightly
 
     real = nightly.run_checks
 
@@ -170,7 +170,8 @@ def test_daemon_once_runs_one_night_and_releases_the_lease(
 
 def _daemon_script(config: Path, holder: str) -> list[str]:
     code = ("import logging, sys; from datetime import timedelta;"
-            "from monitor.config import load_settings; from monitor.daemon import run_daemon;"
+            "from monitor.config import load_settings;"
+            "from monitor.runtime.daemon import run_daemon;"
             "logging.basicConfig(level=logging.INFO);"
             f"run_daemon(load_settings({str(config)!r}), holder={holder!r},"
             " ttl=timedelta(seconds=2), poll_seconds=0.2)")
@@ -234,7 +235,7 @@ def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_ov
 def test_last_scheduled_time_follows_the_cron_in_the_configured_zone(make_settings) -> None:
     settings = make_settings("sqlite://", schedule={"cron": "30 2 * * *",
                                                     "timezone": "Europe/Berlin"})
-    from monitor.daemon import cron_trigger
+    from monitor.runtime.daemon import cron_trigger
 
     now = datetime(2026, 3, 29, 6, 0, tzinfo=UTC)  # the night the clocks went forward
     due = last_scheduled(cron_trigger(settings), now - timedelta(days=2), now)

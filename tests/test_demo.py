@@ -5,9 +5,9 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
-from monitor.cli import main
-from monitor.demo import run_demo
-from monitor.scenario import Scenario, generate_demo
+from monitor.demo.run import run_demo
+from monitor.demo.scenario import Scenario, generate_demo
+from monitor.interface.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -12,7 +12,7 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
-from monitor.cli import main
+from monitor.interface.cli import main
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import active_version

@@ -12,12 +12,12 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
-from monitor.cli import main
-from monitor.compare import compare
 from monitor.errors import DegenerateDataError, StateError, UsageError
-from monitor.fit import FitRequest, fit_model
-from monitor.refit import acknowledge, promote, refit, rollback
-from monitor.status import model_statuses
+from monitor.interface.cli import main
+from monitor.interface.status import model_statuses
+from monitor.lifecycle.compare import compare
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.lifecycle.refit import acknowledge, promote, refit, rollback
 from monitor.store import audit
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations

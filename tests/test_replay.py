@@ -10,10 +10,10 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from monitor.cli import main
 from monitor.config import load_settings
-from monitor.demo import run_demo
-from monitor.replay import replay
+from monitor.demo.run import run_demo
+from monitor.interface.cli import main
+from monitor.monitoring.replay import replay
 from monitor.store.models import ModelSpec
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -11,7 +11,7 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
-from monitor.scenario import generate_demo
+from monitor.demo.scenario import generate_demo
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -30,7 +30,7 @@ from monitor.alerts.news import (
     ModelNews,
 )
 from monitor.config import Wording
-from monitor.output import fmt, fmt_p, percent
+from monitor.interface.output import fmt, fmt_p, percent
 
 KIND_NIGHT = "night"  # the nightly digest; the kind part of the dedupe key
 CHART_DOMAIN = "fitwatch.invalid"  # RFC 2606 reserved: an identifier, never a real host

@@ -18,7 +18,7 @@ from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
 from monitor.errors import InputError
-from monitor.output import fmt, to_jsonable
+from monitor.interface.output import fmt, to_jsonable
 from monitor.report import charts
 from monitor.report.series import (
     CoverageSeries,

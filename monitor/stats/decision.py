@@ -4,7 +4,7 @@ Default policy (SPEC §3.11): ``refit`` when the bias CUSUM signals, or the slop
 p < 0.001, or coverage is low at p < 0.001; ``watch`` when any signal has p < 0.01 or the
 CUSUM stands above h/2; otherwise ``ok``. A ``refit`` holds until a promotion or an
 acknowledgement (the caller says whether one is held). Findings carry the figures; turning
-them into sentences in the model's units is the job of :mod:`monitor.wording`.
+them into sentences in the model's units is the job of :mod:`monitor.monitoring.wording`.
 """
 
 from __future__ import annotations

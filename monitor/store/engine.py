@@ -165,19 +165,12 @@ def write_transaction(engine: Engine, *, foreign_keys: bool = True) -> Iterator[
 
 
 # migrations -------------------------------------------------------------------------------------
-def migrations_path() -> Path:
-    """The Alembic script folder: inside the installed package, or beside it in a checkout."""
-    package = Path(__file__).resolve().parent.parent
-    for candidate in (package / "migrations", package.parent / "migrations"):
-        if (candidate / "env.py").is_file():
-            return candidate
-    raise DatabaseError(f"the database migrations are missing (looked in {package}); "
-                        "reinstall fitwatch")
+SCRIPT_LOCATION = "monitor:migrations"  # a package resource: found wherever monitor is installed
 
 
 def alembic_config() -> Config:
     config = Config()
-    config.set_main_option("script_location", str(migrations_path()))
+    config.set_main_option("script_location", SCRIPT_LOCATION)
     return config
 
 

@@ -22,8 +22,8 @@ from sqlalchemy import Engine
 from monitor.alerts.mailer import DeliveryError, EmlFolderMailer
 from monitor.alerts.service import send_night_alerts
 from monitor.config import Settings
-from monitor.fit import FitRequest, fit_model
-from monitor.refit import promote
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.lifecycle.refit import promote
 from monitor.store import outbox
 from monitor.store.checks import insert_checks, last_check
 from monitor.store.models import get_model

@@ -26,11 +26,11 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from monitor.check import run_checks
 from monitor.config import Settings, parse_settings
-from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
-from monitor.nightly import run_night
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.monitoring.check import run_checks
+from monitor.runtime.nightly import run_night
 from monitor.store.engine import init_database, open_engine
 from monitor.store.models import get_model
 

@@ -3,13 +3,14 @@
     python tests/benchmarks/sim_promise.py [--seeds 60] [--days 1000] [--delay-seeds 100]
 
 Each simulated model is fitted on 60 days and then checked every day with the production day
-loop (:func:`monitor.walk.walk`, the same code the nightly check runs), every refit acknowledged
-the next day so that false alarms can be counted. Data: ``y = 9 + 2.1 x + a_day + e`` with about
-78 rows a day, x around 22 (4..33), day shocks ``a ~ N(0, 2.5²)`` and row noise ``e ~ N(0, 5²)``:
-the demo scenario's noise level. Targets: at most one false ``refit`` episode per 1000
-model-days in control; a 10 % slope change flagged within a median of 7 days. The same data go
-through a naive chart as well (no day effects in the standardization, the coverage test or the
-slope test; the CUSUM limit chosen as if the estimates were exact).
+loop (:func:`monitor.monitoring.walk.walk`, the same code the nightly check runs), every refit
+acknowledged the next day so that false alarms can be counted. Data:
+``y = 9 + 2.1 x + a_day + e`` with about 78 rows a day, x around 22 (4..33), day shocks
+``a ~ N(0, 2.5²)`` and row noise ``e ~ N(0, 5²)``: the demo scenario's noise level. Targets: at
+most one false ``refit`` episode per 1000 model-days in control; a 10 % slope change flagged
+within a median of 7 days. The same data go through a naive chart as well (no day effects in
+the standardization, the coverage test or the slope test; the CUSUM limit chosen as if the
+estimates were exact).
 """
 
 from __future__ import annotations
@@ -27,11 +28,11 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from monitor.config import Settings, parse_settings
-from monitor.evaluate import Carry, VersionContext
-from monitor.fit import fit_window
+from monitor.lifecycle.fit import fit_window
+from monitor.monitoring.evaluate import Carry, VersionContext
+from monitor.monitoring.walk import Subject, Timeline, walk
 from monitor.stats.arl import solve_h
 from monitor.stats.calibration import ChartDesign
-from monitor.walk import Subject, Timeline, walk
 
 FIT_DAYS = 60
 START = date(2025, 1, 1)

@@ -20,9 +20,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from monitor.cli import main
 from monitor.errors import InputError, MissingColumnsError
 from monitor.ingest.service import ingest_paths
+from monitor.interface.cli import main
 from monitor.store.batches import rejected_rows_of
 from monitor.store.observations import count_observations, load_observations
 from tests.ingest.conftest import HEADER, NOW, Store, csv_text

@@ -1,6 +1,6 @@
 """Shared worlds for the report tests, built through the real pipeline once per session.
 
-The data come from the project's own scenario generator (``monitor.scenario``) via the
+The data come from the project's own scenario generator (``monitor.demo.scenario``) via the
 ``World`` helper of ``tests/test_check.py``: fit the demo model, ingest days, run the checks.
 Building a world takes a few seconds, so each is built once, on its own SQLite file; the
 report tests only read them.
@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 
 from monitor.config import parse_settings
-from monitor.fit import FitRequest, fit_model
+from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.store.engine import open_engine, upgrade_database
 from tests.test_check import CALM, MODEL, WORDS, World, _now
 from tests.test_refit import CHANGED

@@ -1,28 +1,42 @@
-"""The installed package must carry every subpackage and the migrations (``fitwatch init`` from a
-wheel). Building a wheel needs the network, so that check is manual (see the store report); these
-guard the configuration it relies on."""
+"""The installed package must carry its migrations and data files (``fitwatch init`` from a
+wheel). Building a wheel needs the network, so that check is manual; these guard what it relies on:
+Alembic finds the scripts as a package resource, and every file the code opens at run time is
+declared as package data."""
 
 from __future__ import annotations
 
 import tomllib
+from fnmatch import fnmatch
+from importlib import resources
 from pathlib import Path
 
-from monitor.store.engine import migrations_path
+from alembic.script import ScriptDirectory
+
+from monitor.store.engine import SCRIPT_LOCATION, alembic_config
 
 ROOT = Path(__file__).resolve().parents[2]
 
 
-def test_every_subpackage_is_listed_for_setuptools() -> None:
+def test_alembic_finds_the_migrations_as_a_package_resource() -> None:
+    assert SCRIPT_LOCATION == "monitor:migrations"
+    scripts = ScriptDirectory.from_config(alembic_config())
+    assert scripts.get_revision("0001") is not None
+    folder = resources.files("monitor") / "migrations"
+    assert (folder / "env.py").is_file() and (folder / "script.py.mako").is_file()
+
+
+def test_every_non_python_file_of_the_package_is_declared_as_package_data() -> None:
     config = tomllib.loads((ROOT / "pyproject.toml").read_text(encoding="utf-8"))
-    listed = set(config["tool"]["setuptools"]["packages"])
-    found = {".".join(p.relative_to(ROOT).parts) for p in (ROOT / "monitor").rglob("*")
-             if p.is_dir() and p.name != "__pycache__" and any(p.glob("*.py"))}
-    missing = sorted((found | {"monitor"}) - listed)
-    assert not missing, f"add {missing} to [tool.setuptools] packages in pyproject.toml"
-    assert config["tool"]["setuptools"]["package-dir"]["monitor.migrations"] == "migrations"
-
-
-def test_migrations_are_found_beside_the_package() -> None:
-    path = migrations_path()
-    assert (path / "env.py").is_file() and (path / "script.py.mako").is_file()
-    assert any((path / "versions").glob("0001_*.py"))
+    patterns = config["tool"]["setuptools"]["package-data"]["monitor"]
+    package = ROOT / "monitor"
+    undeclared = []
+    for path in package.rglob("*"):
+        if not path.is_file() or "__pycache__" in path.parts or path.suffix == ".pyc":
+            continue
+        relative = path.relative_to(package).as_posix()
+        in_a_package = (path.parent / "__init__.py").is_file()
+        if path.suffix == ".py" and in_a_package:
+            continue  # a module: packages.find takes it
+        if not any(fnmatch(relative, pattern) for pattern in patterns):
+            undeclared.append(relative)
+    assert not undeclared, f"declare {undeclared} in [tool.setuptools.package-data]"

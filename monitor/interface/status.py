@@ -9,11 +9,11 @@ from typing import Any
 
 from sqlalchemy import Engine
 
-from monitor.check import local_today
 from monitor.config import Settings
-from monitor.daemon import NightlyState, nightly_state
 from monitor.errors import StateError
-from monitor.output import fmt
+from monitor.interface.output import fmt
+from monitor.monitoring.check import local_today
+from monitor.runtime.daemon import NightlyState, nightly_state
 from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.checks import DayCheck, last_check

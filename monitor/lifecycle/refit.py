@@ -16,10 +16,10 @@ from typing import Any
 
 from sqlalchemy import Connection, Engine
 
-from monitor.compare import Comparison, compare
 from monitor.config import Settings
 from monitor.errors import StateError, UsageError
-from monitor.fit import FitRequest, actor_name, fit_model
+from monitor.lifecycle.compare import Comparison, compare
+from monitor.lifecycle.fit import FitRequest, actor_name, fit_model
 from monitor.stats.decision import OK
 from monitor.stats.moments import DayMoments
 from monitor.store import audit

@@ -20,12 +20,12 @@ from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
 from monitor.alerts.service import AlertRun, queue_night, send_due
-from monitor.check import CheckOutcome, ModelCheck, local_today, run_checks
 from monitor.config import Settings
 from monitor.errors import FitwatchError
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
+from monitor.monitoring.check import CheckOutcome, ModelCheck, local_today, run_checks
 from monitor.store import audit
 from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction

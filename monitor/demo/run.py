@@ -1,6 +1,6 @@
 """``fitwatch demo``: the dock-loading scenario end to end on an embedded SQLite file.
 
-Generates the scenario (:mod:`monitor.scenario`), fits the model on the history, then plays the
+Generates the scenario (:mod:`monitor.demo.scenario`), fits the model on the history, then plays the
 monitored weeks night by night: the night's file is ingested and the day checked, with the clock
 set to that night, and the planning lead's view is printed. While a refit is advised the lead
 runs ``refit`` once a week (the first time a week after the advice) and promotes the candidate
@@ -19,16 +19,16 @@ from zoneinfo import ZoneInfo
 from sqlalchemy import Engine
 
 from monitor.alerts.service import send_night_alerts
-from monitor.check import run_checks
-from monitor.check_view import day_line
-from monitor.compare import Comparison
 from monitor.config import Settings, load_settings
+from monitor.demo.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
 from monitor.errors import DegenerateDataError
-from monitor.fit import FitRequest, fit_model
 from monitor.ingest.service import ingest_file, options_for
-from monitor.refit import Transition, promote, refit
-from monitor.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
-from monitor.status import VersionView, model_statuses
+from monitor.interface.check_view import day_line
+from monitor.interface.status import VersionView, model_statuses
+from monitor.lifecycle.compare import Comparison
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.lifecycle.refit import Transition, promote, refit
+from monitor.monitoring.check import run_checks
 from monitor.store import outbox
 from monitor.store.access import database
 from monitor.store.checks import DayCheck

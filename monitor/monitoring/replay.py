@@ -16,22 +16,22 @@ from typing import Any
 import numpy as np
 from sqlalchemy.exc import SQLAlchemyError
 
-from monitor.calendar_days import as_date
-from monitor.check_view import day_document
 from monitor.config import Settings
+from monitor.domain.days import as_date
 from monitor.errors import DatabaseError, InputError, StateError
-from monitor.evaluate import Carry
-from monitor.fit import FittedVersion, fit_window
 from monitor.ingest.frame import FileRows, read_rows
 from monitor.ingest.service import options_for
-from monitor.output import fmt
+from monitor.interface.check_view import day_document
+from monitor.interface.output import fmt
+from monitor.interface.status import VersionView
+from monitor.lifecycle.fit import FittedVersion, fit_window
+from monitor.monitoring.evaluate import Carry
+from monitor.monitoring.walk import Subject, Timeline, walk
 from monitor.stats.decision import REFIT, WATCH
-from monitor.status import VersionView
 from monitor.store.access import database
 from monitor.store.checks import DayCheck
 from monitor.store.models import ModelRecord, ModelSpec, find_model
 from monitor.store.versions import VersionRecord, draft_record
-from monitor.walk import Subject, Timeline, walk
 
 DEFAULT_FIT_DAYS = 60
 

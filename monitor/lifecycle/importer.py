@@ -21,8 +21,8 @@ from sqlalchemy import Engine
 
 from monitor.config import Settings
 from monitor.errors import DegenerateDataError, InputError
-from monitor.evaluate import imported_design
-from monitor.fit import actor_name, same_columns
+from monitor.lifecycle.fit import actor_name, same_columns
+from monitor.monitoring.evaluate import imported_design
 from monitor.stats.calibration import calibrate_h
 from monitor.stats.ols import INTERCEPT
 from monitor.stats.prediction import PredictionModel

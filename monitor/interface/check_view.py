@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from typing import Any
 
-from monitor.check import CheckOutcome
-from monitor.output import fmt, fmt_p, percent
+from monitor.interface.output import fmt, fmt_p, percent
+from monitor.monitoring.check import CheckOutcome
 from monitor.store.checks import DayCheck
 
 

@@ -1,7 +1,7 @@
 """One day's evaluation against the version in force: scores, signals, decision, reasons.
 
 Pure: arrays and stored statistics in, a :class:`~monitor.store.checks.DayCheck` and the state
-carried to the next day out. Loading and storing belong to :mod:`monitor.check`.
+carried to the next day out. Loading and storing belong to :mod:`monitor.monitoring.check`.
 """
 
 from __future__ import annotations
@@ -16,9 +16,10 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from monitor.calendar_days import as_date
 from monitor.config import CheckSettings, Wording
+from monitor.domain.days import as_date
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
+from monitor.monitoring.wording import Figures, reasons_for
 from monitor.stats.calibration import ChartDesign, calibrate_h, standardize_days
 from monitor.stats.change import (
     FTest,
@@ -41,7 +42,6 @@ from monitor.stats.prediction import PredictionModel
 from monitor.stats.spread import SpreadTest, spread_test
 from monitor.store.checks import DayCheck
 from monitor.store.versions import VersionRecord
-from monitor.wording import Figures, reasons_for
 
 FloatArray = NDArray[np.float64]
 

@@ -26,11 +26,11 @@ from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
 from monitor.errors import StateError, UsageError
-from monitor.output import fmt, fmt_p, percent
+from monitor.interface.output import fmt, fmt_p, percent
+from monitor.interface.status import VersionView
 from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, loss_difference_test
 from monitor.stats.ols import fit_ols
 from monitor.stats.prediction import PredictionModel
-from monitor.status import VersionView
 from monitor.store.access import database
 from monitor.store.models import ModelRecord, get_model
 from monitor.store.observations import Observations, days_with_rows, load_observations

@@ -19,8 +19,9 @@ from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
 from monitor.errors import FitwatchError, InputError, StateError
-from monitor.evaluate import Carry
-from monitor.progress import progress_bar
+from monitor.interface.progress import progress_bar
+from monitor.monitoring.evaluate import Carry
+from monitor.monitoring.walk import HISTORY_DAYS, Subject, Timeline, walk
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.checks import (
@@ -35,7 +36,6 @@ from monitor.store.engine import write_transaction
 from monitor.store.models import ModelRecord, get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
 from monitor.store.versions import VersionRecord, scoring_versions
-from monitor.walk import HISTORY_DAYS, Subject, Timeline, walk
 
 log = logging.getLogger(__name__)
 BLOCK_DAYS = 31

@@ -1,8 +1,8 @@
 """Walking a model's days in order: which version scores each day, what each day reads.
 
-Shared by the nightly check (:mod:`monitor.check`, which loads a block of days from the database)
-and by replay (:mod:`monitor.replay`, which reads a history file into memory): one copy of the
-day loop, so a replay behaves exactly as the nights would have.
+Shared by the nightly check (:mod:`monitor.monitoring.check`, which loads a block of days from
+the database) and by replay (:mod:`monitor.monitoring.replay`, which reads a history file into
+memory): one copy of the day loop, so a replay behaves exactly as the nights would have.
 """
 
 from __future__ import annotations
@@ -15,9 +15,9 @@ from datetime import date, datetime, timedelta
 import numpy as np
 from numpy.typing import NDArray
 
-from monitor.calendar_days import as_date
 from monitor.config import ModelSettings
-from monitor.evaluate import Carry, DayInput, VersionContext, evaluate_day
+from monitor.domain.days import as_date
+from monitor.monitoring.evaluate import Carry, DayInput, VersionContext, evaluate_day
 from monitor.stats.decision import REFIT
 from monitor.stats.moments import DayMoments
 from monitor.store.checks import DayCheck

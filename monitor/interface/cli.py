@@ -17,8 +17,8 @@ from typing import Any
 from monitor import __version__
 from monitor.config import Settings, load_settings
 from monitor.errors import FitwatchError, UsageError
-from monitor.output import dumps
-from monitor.progress import wants_progress
+from monitor.interface.output import dumps
+from monitor.interface.progress import wants_progress
 
 log = logging.getLogger("monitor")
 
@@ -222,8 +222,8 @@ def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.fit import FitRequest, fit_model
-    from monitor.status import VersionView
+    from monitor.interface.status import VersionView
+    from monitor.lifecycle.fit import FitRequest, fit_model
 
     request = FitRequest(args.name, Path(args.data) if args.data else None, args.y,
                          tuple(args.x), args.time, args.id, args.start, args.end, args.level)
@@ -242,8 +242,8 @@ def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.importer import import_model
-    from monitor.status import VersionView
+    from monitor.interface.status import VersionView
+    from monitor.lifecycle.importer import import_model
 
     report = import_model(settings, args.name, Path(args.file))
     view = VersionView(report.model, report.version)
@@ -257,7 +257,7 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.status import list_model_lines
+    from monitor.interface.status import list_model_lines
 
     lines = list_model_lines(settings)
     if args.json:
@@ -274,7 +274,7 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.status import show_version
+    from monitor.interface.status import show_version
 
     view = show_version(settings, args.name, args.version)
     print(dumps(view.as_dict()) if args.json else view.text())
@@ -282,8 +282,8 @@ def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.check import run_checks
-    from monitor.check_view import check_document, check_text
+    from monitor.interface.check_view import check_document, check_text
+    from monitor.monitoring.check import run_checks
 
     outcome = run_checks(settings, args.names or None, day=args.day, through=args.through,
                          progress=wants_progress() and not args.json)
@@ -301,7 +301,7 @@ def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.status import model_statuses
+    from monitor.interface.status import model_statuses
 
     statuses = model_statuses(settings, args.names or None)
     if args.json:
@@ -316,8 +316,8 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_compare(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.compare import compare
-    from monitor.refit import refit
+    from monitor.lifecycle.compare import compare
+    from monitor.lifecycle.refit import refit
 
     if args.command == "refit":
         result = refit(settings, args.name, start=args.start, end=args.end,
@@ -338,7 +338,7 @@ def _cmd_report(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.refit import acknowledge, promote, rollback
+    from monitor.lifecycle.refit import acknowledge, promote, rollback
 
     if args.command == "promote":
         result = promote(settings, args.name, args.number, reason=args.reason)
@@ -352,7 +352,7 @@ def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
 
 def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.alerts.service import send_night_alerts
-    from monitor.check import local_today
+    from monitor.monitoring.check import local_today
 
     now = datetime.now(UTC)
     night = args.night or local_today(now, settings) - timedelta(days=1)
@@ -362,7 +362,7 @@ def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.daemon import run_daemon
+    from monitor.runtime.daemon import run_daemon
 
     runs = run_daemon(settings, once=args.once)
     if args.json:
@@ -374,7 +374,7 @@ def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.replay import replay
+    from monitor.monitoring.replay import replay
     from monitor.store.models import ModelSpec
 
     columns = None
@@ -389,7 +389,7 @@ def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_demo(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.demo import run_demo
+    from monitor.demo.run import run_demo
 
     run_demo(Path(args.dir), out=sys.stdout)
     return EXIT_OK

@@ -29,7 +29,7 @@ from sqlalchemy import Engine
 from monitor.alerts.mailer import Mailer
 from monitor.config import Settings
 from monitor.errors import StateError
-from monitor.nightly import NightRun, run_night
+from monitor.runtime.nightly import NightRun, run_night
 from monitor.store import lease
 from monitor.store.access import database
 

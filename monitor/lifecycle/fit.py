@@ -15,8 +15,8 @@ from pathlib import Path
 import numpy as np
 from sqlalchemy import Engine
 
-from monitor.calendar_days import as_date
 from monitor.config import CheckSettings, Settings
+from monitor.domain.days import as_date
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
 from monitor.stats.calibration import Calibration, ChartDesign, calibrate_h
