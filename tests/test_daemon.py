@@ -21,8 +21,9 @@ from monitor.interface.cli import main
 from monitor.interface.status import model_statuses
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.monitoring.check import run_checks
-from monitor.runtime.daemon import last_scheduled, nightly_state, run_daemon
+from monitor.runtime.daemon import run_daemon
 from monitor.runtime.nightly import run_night
+from monitor.runtime.schedule import last_scheduled, nightly_state
 from monitor.store import audit, lease
 from monitor.store.checks import last_check
 from monitor.store.models import get_model
@@ -235,7 +236,7 @@ def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_ov
 def test_last_scheduled_time_follows_the_cron_in_the_configured_zone(make_settings) -> None:
     settings = make_settings("sqlite://", schedule={"cron": "30 2 * * *",
                                                     "timezone": "Europe/Berlin"})
-    from monitor.runtime.daemon import cron_trigger
+    from monitor.runtime.schedule import cron_trigger
 
     now = datetime(2026, 3, 29, 6, 0, tzinfo=UTC)  # the night the clocks went forward
     due = last_scheduled(cron_trigger(settings), now - timedelta(days=2), now)

@@ -243,7 +243,9 @@ def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World)
     (status,) = model_statuses(changed.settings, now=_now(date(2026, 4, 26)),
                                engine=changed.engine)
     v2 = _versions(changed)[1]
-    assert status.status == "ok" and v2.cusum_h > 1.5 * v2.diagnostics["calibration"]["h_known"]
+    calibration = v2.baseline.calibration
+    assert calibration is not None
+    assert status.status == "ok" and calibration.h > 1.5 * calibration.h_known
     assert status.sharpen is not None
     assert f"'fitwatch refit {MODEL} --start 2026-03-16' would sharpen it" in status.sentence()
     result = refit(changed.settings, MODEL, start=date(2026, 3, 16),

@@ -12,9 +12,9 @@ import pytest
 
 from monitor.config import load_settings
 from monitor.demo.run import run_demo
+from monitor.domain.model import ModelSpec
 from monitor.interface.cli import main
 from monitor.monitoring.replay import replay
-from monitor.store.models import ModelSpec
 
 ROOT = Path(__file__).resolve().parents[1]
 COLUMNS = ModelSpec("dock_loading", "load_minutes", ("pallets",), "docked_at", "load_id")

@@ -20,17 +20,16 @@ from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescap
 
 from monitor.alerts.news import (
     ENTERED,
-    REFIT,
     REMINDER,
     RESTART,
     SETTLED,
-    WATCH,
     Action,
     Digest,
     ModelNews,
 )
 from monitor.config import Wording
-from monitor.interface.output import fmt, fmt_p, percent
+from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.status import Status
 
 KIND_NIGHT = "night"  # the nightly digest; the kind part of the dedupe key
 CHART_DOMAIN = "fitwatch.invalid"  # RFC 2606 reserved: an identifier, never a real host
@@ -95,7 +94,8 @@ def chart_cid(key: str) -> str:
 
 # wording --------------------------------------------------------------------------------------
 def _status_phrase(status: str) -> str:
-    return {REFIT: "needs a refit", WATCH: "is on watch"}.get(status, "is in line with its plan")
+    phrases = {Status.REFIT: "needs a refit", Status.WATCH: "is on watch"}
+    return phrases.get(Status(status), "is in line with its plan")
 
 
 def _action_phrase(a: Action) -> str:
@@ -149,7 +149,7 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
     out.append(Figure("Bias chart", f"{fmt(lead, 3)} vs limit {fmt(c.cusum_h, 3)} ({state})",
                       note))
     if c.slope_pvalue is not None:
-        recent = c.details.get("recent_slopes")
+        recent = c.details.recent_slopes
         unit = f" {words.y_unit}" if words.y_unit else ""
         if recent and len(recent) == len(ctx.plan_slopes):
             changes = []
@@ -171,7 +171,7 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
 def next_command(item: ModelNews, ctx: ModelContext) -> tuple[str | None, str]:
     """The exact command to run next, and what it does."""
     m = item.model
-    if item.status == REFIT:
+    if item.status == Status.REFIT:
         if ctx.candidate is not None:
             return (f"fitwatch promote {m} {ctx.candidate}",
                     f"version {ctx.candidate} is fitted and waiting; promote it once its "
@@ -180,7 +180,7 @@ def next_command(item: ModelNews, ctx: ModelContext) -> tuple[str | None, str]:
         return (f"fitwatch refit {m}",
                 "fits a candidate on the days since the change and compares it with the "
                 "active line")
-    if item.status == WATCH:
+    if item.status == Status.WATCH:
         return (f"fitwatch report {m} --out report-{m}",
                 "writes the charts and figures to look at before deciding")
     return None, "nothing to do"
@@ -197,18 +197,18 @@ def subject(digest: Digest) -> str:
     if len(items) == 1:
         item = items[0]
         m = item.model
-        if item.status in (REFIT, WATCH):
+        if item.status in (Status.REFIT, Status.WATCH):
             lead = "reminder, " if ENTERED not in item.events and REMINDER in item.events else ""
             still = "still " if lead else ""
-            what = "needs a refit" if item.status == REFIT else "is on watch"
+            what = "needs a refit" if item.status == Status.REFIT else "is on watch"
             if still:
                 what = what.removeprefix("is ")
             return f"fitwatch: {lead}{m} {still}{what}"
         if RESTART in item.events:
             return f"fitwatch: {m} restarted, first day {item.status}"
         return f"fitwatch: {m} back in line"
-    refit = sum(i.status == REFIT for i in items)
-    watch = sum(i.status == WATCH for i in items)
+    refit = sum(i.status == Status.REFIT for i in items)
+    watch = sum(i.status == Status.WATCH for i in items)
     rest = len(items) - refit - watch
     counts = [f"{n} {word}" for n, word in ((refit, "refit"), (watch, "watch"),
                                             (rest, "back in line")) if n]

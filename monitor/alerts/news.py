@@ -22,12 +22,11 @@ from dataclasses import dataclass
 from datetime import date
 
 from monitor.config import AlertSettings
-from monitor.store.checks import DayCheck
+from monitor.domain.check import DayCheck
+from monitor.domain.status import Status
 
-OK, WATCH, REFIT = "ok", "watch", "refit"
 ENTERED, REMINDER, RESTART, SETTLED = "entered", "reminder", "restart", "settled"
 RESTART_ACTIONS = ("promote", "rollback", "ack")
-_RANK = {OK: 0, WATCH: 1, REFIT: 2}
 
 
 @dataclass(frozen=True)
@@ -65,7 +64,7 @@ class ModelNews:
     @property
     def weight(self) -> int:
         """Order of importance within a digest: refit, then watch, then the rest."""
-        return _RANK.get(self.status, 0) * 10 + (5 if ENTERED in self.events else 0)
+        return Status(self.status).rank * 10 + (5 if ENTERED in self.events else 0)
 
 
 @dataclass(frozen=True)
@@ -79,7 +78,7 @@ class Digest:
 
 def mailed_statuses(alerts: AlertSettings) -> frozenset[str]:
     """Statuses this model mails about: the configured ones, and ``refit`` always."""
-    return frozenset({*alerts.on, REFIT} & {WATCH, REFIT})
+    return frozenset({*alerts.on, Status.REFIT} & {Status.WATCH, Status.REFIT})
 
 
 def model_news(name: str, night: date, check: DayCheck | None, previous: DayCheck | None,
@@ -104,7 +103,7 @@ def model_news(name: str, night: date, check: DayCheck | None, previous: DayChec
             events.append(ENTERED)
         elif held > 0 and held % alerts.remind_every_days == 0:
             events.append(REMINDER)
-    elif (check.status == OK and not taking_effect and previous is not None
+    elif (check.status == Status.OK and not taking_effect and previous is not None
           and previous.status in mailed):
         events.append(SETTLED)
     if not events or not alerts.to:

@@ -49,14 +49,17 @@ from monitor.alerts.news import (
     model_news,
 )
 from monitor.config import Settings
+from monitor.domain.check import DayCheck
+from monitor.domain.model import ModelRecord
+from monitor.domain.version import Version, VersionState
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.store import audit
 from monitor.store import outbox as box
 from monitor.store.access import database
-from monitor.store.checks import DayCheck, last_check, load_checks
+from monitor.store.checks import last_check, load_checks
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, list_models
-from monitor.store.versions import CANDIDATE, VersionRecord, list_versions
+from monitor.store.models import list_models
+from monitor.store.versions import list_versions
 
 log = logging.getLogger(__name__)
 
@@ -123,10 +126,10 @@ def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
 
 
 def _context(settings: Settings, model: ModelRecord, check: DayCheck,
-             versions: Sequence[VersionRecord]) -> ModelContext:
+             versions: Sequence[Version]) -> ModelContext:
     ms = settings.for_model(model.name)
     scoring = next((v for v in versions if v.id == check.version_id), None)
-    candidates = [v.number for v in versions if v.state == CANDIDATE]
+    candidates = [v.number for v in versions if v.state == VersionState.CANDIDATE]
     return ModelContext(
         model=model.name, response=model.response, predictors=model.predictors,
         words=ms.words, level=scoring.level if scoring else ms.check.level,

@@ -21,17 +21,19 @@ from sqlalchemy import Engine
 from monitor.alerts.service import send_night_alerts
 from monitor.config import Settings, load_settings
 from monitor.demo.scenario import DEFAULT_SEED, TIMEZONE, DemoFiles, Scenario, generate_demo
+from monitor.domain.check import DayCheck
 from monitor.errors import DegenerateDataError
 from monitor.ingest.service import ingest_file, options_for
 from monitor.interface.check_view import day_line
-from monitor.interface.status import VersionView, model_statuses
+from monitor.interface.compare_view import comparison_text
+from monitor.interface.status import model_statuses
+from monitor.interface.versions import VersionView
 from monitor.lifecycle.compare import Comparison
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import Transition, promote, refit
 from monitor.monitoring.check import run_checks
 from monitor.store import outbox
 from monitor.store.access import database
-from monitor.store.checks import DayCheck
 from monitor.store.engine import init_database
 from monitor.store.models import get_model
 
@@ -143,7 +145,7 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
         for check in outcome.checks:
             played.checks.append(check)
             say("  " + day_line(check) + "\n")
-            found = tuple((f["signal"], f["level"]) for f in check.details["findings"])
+            found = tuple((f.signal, f.level) for f in check.details.findings)
             if (check.status, found) != status:
                 for reason in check.reasons:
                     say(f"      {reason}\n")
@@ -196,7 +198,7 @@ def _respond(engine: Engine, settings: Settings, now: datetime, played: _Played,
         say(f"    fitwatch: {exc}\n    (the lead tries again a week later)\n\n")
         return
     played.comparisons.append(comparison)
-    say("".join(f"    {line}\n" for line in comparison.text().splitlines()))
+    say("".join(f"    {line}\n" for line in comparison_text(comparison).splitlines()))
     if comparison.recommendation.action == "promote":
         number = comparison.candidate.number
         reason = f"refit on the days since {comparison.candidate.fit_start}"

@@ -16,10 +16,10 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from monitor.domain.model import ModelSpec
 from monitor.ingest.readers import open_file
 from monitor.ingest.service import IngestOptions
 from monitor.ingest.validate import Rules, check_rows
-from monitor.store.models import ModelSpec
 
 
 @dataclass(frozen=True, eq=False)

@@ -25,6 +25,7 @@ from sqlalchemy.exc import OperationalError
 from tqdm import tqdm
 
 from monitor.config import Settings
+from monitor.domain.model import ModelRecord
 from monitor.errors import DatabaseError, FitwatchError, StateError, UsageError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
@@ -40,7 +41,7 @@ from monitor.store.batches import (
     start_batch,
 )
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, find_model_by_id, get_model
+from monitor.store.models import find_model_by_id, get_model
 from monitor.store.observations import (
     InsertResult,
     PreparedRows,

@@ -21,10 +21,10 @@ import pyarrow as pa
 import pyarrow.compute as pc
 from numpy.typing import NDArray
 
+from monitor.domain.model import ModelSpec
 from monitor.ingest.keys import content_keys
 from monitor.ingest.readers import RawChunk
 from monitor.ingest.reasons import Rejection, quote_value
-from monitor.store.models import ModelSpec
 
 KEY_LIMIT = 200  # characters of an id (the width of observations.obs_key)
 _NUMBER = r"^[+-]?(([0-9]+[.]?[0-9]*|[.][0-9]+)([eE][+-]?[0-9]+)?|inf|infinity|nan)$"

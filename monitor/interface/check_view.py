@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from monitor.interface.output import fmt, fmt_p, percent
+from monitor.domain.check import DayCheck
+from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.monitoring.check import CheckOutcome
-from monitor.store.checks import DayCheck
 
 
 def day_document(c: DayCheck) -> dict[str, Any]:

@@ -10,7 +10,7 @@ import argparse
 import logging
 import sys
 from collections.abc import Callable, Sequence
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, date, datetime
 from pathlib import Path
 from typing import Any
 
@@ -222,7 +222,7 @@ def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.interface.status import VersionView
+    from monitor.interface.versions import VersionView
     from monitor.lifecycle.fit import FitRequest, fit_model
 
     request = FitRequest(args.name, Path(args.data) if args.data else None, args.y,
@@ -242,7 +242,7 @@ def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.interface.status import VersionView
+    from monitor.interface.versions import VersionView
     from monitor.lifecycle.importer import import_model
 
     report = import_model(settings, args.name, Path(args.file))
@@ -257,7 +257,7 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.interface.status import list_model_lines
+    from monitor.interface.versions import list_model_lines
 
     lines = list_model_lines(settings)
     if args.json:
@@ -274,7 +274,7 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.interface.status import show_version
+    from monitor.interface.versions import show_version
 
     view = show_version(settings, args.name, args.version)
     print(dumps(view.as_dict()) if args.json else view.text())
@@ -316,6 +316,7 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_compare(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface.compare_view import comparison_document, comparison_text
     from monitor.lifecycle.compare import compare
     from monitor.lifecycle.refit import refit
 
@@ -325,7 +326,7 @@ def _cmd_compare(args: argparse.Namespace, settings: Settings) -> int:
     else:
         result = compare(settings, args.name, candidate=args.candidate,
                          holdout_days=args.holdout_days)
-    print(dumps(result.as_dict()) if args.json else result.text())
+    print(dumps(comparison_document(result)) if args.json else comparison_text(result))
     return EXIT_OK
 
 
@@ -352,10 +353,10 @@ def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
 
 def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.alerts.service import send_night_alerts
-    from monitor.monitoring.check import local_today
+    from monitor.domain.days import yesterday
 
     now = datetime.now(UTC)
-    night = args.night or local_today(now, settings) - timedelta(days=1)
+    night = args.night or yesterday(now, settings.timezone)
     result = send_night_alerts(settings, night, now=now)
     print(dumps(result.as_dict()) if args.json else result.sentence())
     return EXIT_OK
@@ -374,8 +375,9 @@ def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.domain.model import ModelSpec
+    from monitor.interface.replay_view import replay_document, replay_text
     from monitor.monitoring.replay import replay
-    from monitor.store.models import ModelSpec
 
     columns = None
     if args.y or args.x or args.time:
@@ -384,7 +386,7 @@ def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:
         columns = ModelSpec(args.name, args.y, tuple(args.x), args.time, args.id)
     report = replay(settings, args.name, Path(args.file), columns=columns,
                     fit_end=args.fit_end, acknowledge_refits=args.ack_each)
-    print(dumps(report.as_dict()) if args.json else report.text())
+    print(dumps(replay_document(report)) if args.json else replay_text(report))
     return EXIT_OK
 
 

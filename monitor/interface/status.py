@@ -1,35 +1,37 @@
-"""Read-only views: ``status``, ``model list`` and ``model show``."""
+"""The read-only ``status`` view: where each model stands, why, and whether the nights run."""
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, date, datetime
 from typing import Any
 
 from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.errors import StateError
-from monitor.interface.output import fmt
-from monitor.monitoring.check import local_today
-from monitor.runtime.daemon import NightlyState, nightly_state
+from monitor.domain.check import DayCheck
+from monitor.domain.days import local_day, yesterday
+from monitor.domain.model import ModelRecord
+from monitor.domain.phrasing import fmt
+from monitor.domain.status import Status
+from monitor.domain.version import Version
+from monitor.runtime.schedule import NightlyState, nightly_state
 from monitor.store import lease
 from monitor.store.access import database
-from monitor.store.checks import DayCheck, last_check
-from monitor.store.models import ModelRecord, get_model, list_models
+from monitor.store.checks import last_check
+from monitor.store.models import get_model, list_models
 from monitor.store.observations import days_with_rows, last_observed_at
-from monitor.store.versions import VersionRecord, active_version, get_version, list_versions
+from monitor.store.versions import active_version
 
 QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
 SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
-OK = "ok"
 
 
 @dataclass(frozen=True)
 class ModelStatus:
     model: str
-    status: str | None  # None: never checked
+    status: Status | None  # None: never checked
     since: date | None
     last_checked_day: date | None
     reasons: tuple[str, ...]
@@ -73,7 +75,7 @@ class ModelStatus:
 def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
                    now: datetime | None = None, engine: Engine | None = None) -> list[ModelStatus]:
     now = now or datetime.now(UTC)
-    yesterday = local_today(now, settings) - timedelta(days=1)
+    last_day = yesterday(now, settings.timezone)
     out = []
     with database(settings, engine) as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
@@ -83,10 +85,10 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
             last = last_check(conn, model.id, model=model.name)
             active = active_version(conn, model.id)
             latest = last_observed_at(conn, model)
-            rows_day = latest.astimezone(settings.timezone).date() if latest else None
-            status = _status(model, last, active, yesterday)
+            rows_day = local_day(latest, settings.timezone) if latest else None
+            status = _status(model, last, active, last_day)
             advice = None
-            if active is not None and status.status == OK:
+            if active is not None and status.status == Status.OK:
                 since = (len(days_with_rows(conn, model, active.fit_start))
                          if active.fit_start else 0)
                 advice = sharpen_advice(model.name, active, since)
@@ -121,7 +123,7 @@ class Sharpening:
                 f"{self.start}: '{self.command()}' would sharpen it")
 
 
-def sharpen_advice(name: str, version: VersionRecord,
+def sharpen_advice(name: str, version: Version,
                    days_since_fit_start: int) -> Sharpening | None:
     """Say so when the version's bias chart is wide only for want of days, and days have come.
 
@@ -130,128 +132,22 @@ def sharpen_advice(name: str, version: VersionRecord,
     would need. Once at least twice as many days with rows exist from the same start, a refit
     on them tightens the chart without changing the line much (``compare`` then recommends it).
     """
-    calibration = version.diagnostics.get("calibration") or {}
-    h_known, fit_days = calibration.get("h_known"), version.diagnostics.get("days")
-    if (version.cusum_h is None or not h_known or not fit_days or version.fit_start is None
-            or version.cusum_h < SHARPEN_RATIO * h_known
+    calibration, fit_days = version.baseline.calibration, version.baseline.fit_days
+    if (calibration is None or not fit_days or version.fit_start is None
+            or calibration.h < SHARPEN_RATIO * calibration.h_known
             or days_since_fit_start < 2 * fit_days):
         return None
-    return Sharpening(name, version.number, int(fit_days), float(version.cusum_h),
-                      float(h_known), days_since_fit_start, version.fit_start)
+    return Sharpening(name, version.number, int(fit_days), calibration.h,
+                      calibration.h_known, days_since_fit_start, version.fit_start)
 
 
-def _status(model: ModelRecord, last: DayCheck | None, active: VersionRecord | None,
-            yesterday: date) -> ModelStatus:
+def _status(model: ModelRecord, last: DayCheck | None, active: Version | None,
+            last_day: date) -> ModelStatus:
     number = active.number if active else None
     if last is None:
         behind = 0
         if active is not None and active.active_from is not None:
-            behind = max(0, (yesterday - active.active_from).days + 1)
+            behind = max(0, (last_day - active.active_from).days + 1)
         return ModelStatus(model.name, None, None, None, (), number, behind)
     return ModelStatus(model.name, last.status, last.status_since, last.day,
-                       tuple(last.reasons), number, max(0, (yesterday - last.day).days))
-
-
-@dataclass(frozen=True, eq=False)
-class VersionView:
-    model: ModelRecord
-    version: VersionRecord
-
-    def as_dict(self) -> dict[str, Any]:
-        v, m = self.version, self.model
-        diag = v.diagnostics
-        return {
-            "model": m.name, "version": v.number, "state": v.state, "source": v.source,
-            "response": m.response, "predictors": list(m.predictors),
-            "coefficients": v.coefficient_map(),
-            "std_errors": v.coefficient_map(v.std_errors) if v.std_errors is not None else None,
-            "s": v.s, "dof": v.dof, "r_squared": v.r_squared,
-            "adj_r_squared": v.adj_r_squared, "n": v.n, "level": v.level,
-            "condition_number": v.condition_number,
-            "fit_window": [v.fit_start, v.fit_end], "active_from": v.active_from,
-            "active_until": v.active_until,
-            "ranges": None if v.x_min is None else {
-                name: [float(lo), float(hi)]
-                for name, lo, hi in zip(m.predictors, v.x_min, v.x_max, strict=True)},
-            "day_effects": {"tau2": v.tau2, "sigma_w2": v.sigma_w2,
-                            "present": diag.get("day_effects_present")},
-            "dispersion": v.dispersion,
-            "cusum": {"k": v.cusum_k, "h": v.cusum_h, **{
-                key: diag.get("calibration", {}).get(key)
-                for key in ("target_arl", "guarantee", "h_known", "arl_known", "calibrated")}},
-            "created_at": v.created_at, "created_by": v.created_by, "note": v.note,
-        }
-
-    def text(self) -> str:
-        d = self.as_dict()
-        v = self.version
-        lines = [f"{d['model']} version {v.number} ({v.state}, {v.source}d)"
-                 if v.source == "import" else f"{d['model']} version {v.number} ({v.state})",
-                 f"  {self.model.response} = " + " + ".join(
-                     f"{fmt(val, 4)}" + ("" if term == "intercept" else f" × {term}")
-                     for term, val in d["coefficients"].items())]
-        if d["std_errors"]:
-            lines.append("  standard errors: " + ", ".join(
-                f"{t} {fmt(se, 3)}" for t, se in d["std_errors"].items()))
-        lines.append(f"  s = {fmt(v.s, 4)} on {v.dof} degrees of freedom"
-                     + (f", R² = {v.r_squared:.4f}" if v.r_squared is not None else "")
-                     + (f", n = {v.n}" if v.n else ""))
-        if v.fit_start:
-            lines.append(f"  fit window {v.fit_start} .. {v.fit_end}")
-        if v.active_from:
-            until = f" through {v.active_until}" if v.active_until else ""
-            lines.append(f"  scores days from {v.active_from}{until}")
-        if v.tau2 is not None and v.sigma_w2 is not None:
-            lines.append(f"  day-to-day sd {fmt(v.tau2 ** 0.5, 3)}, within-day sd "
-                         f"{fmt(v.sigma_w2 ** 0.5, 3)}; miss dispersion {fmt(v.dispersion, 3)}")
-        if v.cusum_h is not None:
-            cal = d["cusum"]
-            lines.append(f"  bias chart k = {fmt(v.cusum_k, 2)}, h = {fmt(v.cusum_h, 3)} "
-                         f"(target {fmt(cal['target_arl'], 4)} days between false alarms, "
-                         f"held with probability {fmt(cal['guarantee'], 2)})")
-        return "\n".join(lines)
-
-
-def show_version(settings: Settings, name: str, number: int | None = None, *,
-                 engine: Engine | None = None) -> VersionView:
-    with database(settings, engine) as db, db.connect() as conn:
-        model = get_model(conn, name)
-        if number is None:
-            version = active_version(conn, model.id)
-            if version is None:
-                versions = list_versions(conn, model.id)
-                if not versions:
-                    raise StateError(f"model '{name}' has no fitted version yet")
-                version = versions[-1]
-        else:
-            version = get_version(conn, model.id, number, model_name=name)
-    return VersionView(model, version)
-
-
-@dataclass(frozen=True)
-class ModelLine:
-    name: str
-    formula: str
-    active_version: int | None
-    versions: int
-    status: str | None
-    last_checked_day: date | None
-
-    def as_dict(self) -> dict[str, Any]:
-        return {"model": self.name, "formula": self.formula,
-                "active_version": self.active_version, "versions": self.versions,
-                "status": self.status, "last_checked_day": self.last_checked_day}
-
-
-def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
-    out = []
-    with database(settings, engine) as db, db.connect() as conn:
-        for model in list_models(conn):
-            versions = list_versions(conn, model.id)
-            active = next((v for v in versions if v.state == "active"), None)
-            last = last_check(conn, model.id)
-            out.append(ModelLine(model.name,
-                                 f"{model.response} ~ {' + '.join(model.predictors)}",
-                                 active.number if active else None, len(versions),
-                                 last.status if last else None, last.day if last else None))
-    return out
+                       tuple(last.reasons), number, max(0, (last_day - last.day).days))

@@ -19,28 +19,22 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from datetime import date, timedelta
-from typing import Any
 
 import numpy as np
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
+from monitor.domain.model import ModelRecord
+from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError, UsageError
-from monitor.interface.output import fmt, fmt_p, percent
-from monitor.interface.status import VersionView
 from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, loss_difference_test
 from monitor.stats.ols import fit_ols
 from monitor.stats.prediction import PredictionModel
 from monitor.store.access import database
-from monitor.store.models import ModelRecord, get_model
+from monitor.store.models import get_model
 from monitor.store.observations import Observations, days_with_rows, load_observations
-from monitor.store.versions import (
-    CANDIDATE,
-    VersionRecord,
-    active_version,
-    get_version,
-    list_versions,
-)
+from monitor.store.versions import active_version, get_version, list_versions
 
 MIN_HOLDOUT_DAYS = 3
 MAX_DEFAULT_HOLDOUT_DAYS = 14
@@ -62,8 +56,8 @@ class Comparison:
     """Both versions' figures on the held-out days and what to do about them."""
 
     model: ModelRecord
-    active: VersionRecord
-    candidate: VersionRecord
+    active: Version
+    candidate: Version
     holdout: tuple[date, date] | None
     evaluated_as: str  # "refitted" (on the days before the hold-out) or "stored"
     evaluation_window: tuple[date, date] | None  # the refit's days, when refitted
@@ -72,66 +66,6 @@ class Comparison:
     loss: LossDifference | None
     recommendation: Recommendation
     unit: str
-
-    def as_dict(self) -> dict[str, Any]:
-        return {
-            "model": self.model.name,
-            "active": VersionView(self.model, self.active).as_dict(),
-            "candidate": VersionView(self.model, self.candidate).as_dict(),
-            "holdout": {
-                "first_day": self.holdout[0] if self.holdout else None,
-                "last_day": self.holdout[1] if self.holdout else None,
-                "candidate_evaluated_as": self.evaluated_as,
-                "candidate_evaluation_window": list(self.evaluation_window)
-                if self.evaluation_window else None,
-                "active": self.active_score.as_dict() if self.active_score else None,
-                "candidate": self.candidate_score.as_dict() if self.candidate_score else None,
-                "loss_difference": None if self.loss is None else {
-                    "statistic": self.loss.statistic, "pvalue": self.loss.pvalue,
-                    "df": self.loss.df, "mean_difference": self.loss.mean_difference},
-            },
-            "recommendation": {"action": self.recommendation.action,
-                               "sentence": self.recommendation.sentence,
-                               "command": self.recommendation.command},
-        }
-
-    def text(self) -> str:
-        a, c, m = self.active, self.candidate, self.model
-        lines = [f"{m.name}: active version {a.number} against candidate version {c.number} "
-                 f"(fitted on {_window(c)}, {c.n} rows)"]
-        for i, term in enumerate(a.terms):
-            lines.append(f"  {term:<14} {fmt(float(a.coefficients[i]), 4):>12} -> "
-                         f"{fmt(float(c.coefficients[i]), 4)}")
-        lines.append(f"  {'s':<14} {fmt(a.s, 4):>12} -> {fmt(c.s, 4)}")
-        lines.append(f"  {'chart limit h':<14} {fmt(a.cusum_h, 3):>12} -> {fmt(c.cusum_h, 3)}"
-                     + ("\n  (a short window pins the candidate down loosely, so its bias "
-                        "chart needs a wider limit; it sharpens with a longer window)"
-                        if (c.cusum_h or 0) > 1.5 * (a.cusum_h or float("inf")) else ""))
-        if self.holdout and self.active_score and self.candidate_score:
-            how = ("refitted on " + _days(self.evaluation_window)
-                   if self.evaluated_as == "refitted" else "as stored")
-            lines.append(f"held out {_days(self.holdout)} ({self.active_score.days} days, "
-                         f"{self.active_score.n} rows); candidate {how}:")
-            lines.append(f"  {'':<20}{'active v' + str(a.number):>14}"
-                         f"{'candidate v' + str(c.number):>16}")
-            for label, key in (("interval coverage", "coverage"), ("bias", "bias"),
-                               ("RMSE", "rmse"), ("interval width", "mean_width")):
-                av, cv = self._cell(self.active_score, key), self._cell(self.candidate_score, key)
-                lines.append(f"  {label:<20}{av:>14}{cv:>16}")
-            lines.append(f"  (target coverage {percent(a.level, 1)}; smaller errors: "
-                         f"{fmt_p(self.loss.pvalue if self.loss else None)})")
-        lines.append(f"recommendation: {self.recommendation.action}. "
-                     f"{self.recommendation.sentence}")
-        if self.recommendation.command:
-            lines.append(f"next: {self.recommendation.command}")
-        return "\n".join(lines)
-
-    def _cell(self, score: HoldoutScore, key: str) -> str:
-        if key == "coverage":
-            return percent(score.coverage.coverage, 1)
-        value = getattr(score, key)
-        sign = "+" if key == "bias" and value > 0 else ""
-        return f"{sign}{fmt(value, 3)}{' ' + self.unit if self.unit else ''}"
 
 
 def compare(settings: Settings, name: str, *, candidate: int | None = None,
@@ -148,22 +82,22 @@ def compare(settings: Settings, name: str, *, candidate: int | None = None,
         return _compare(conn, model, active, chosen, settings.for_model(name), holdout_days)
 
 
-def _candidate(conn: Connection, model: ModelRecord, number: int | None) -> VersionRecord:
+def _candidate(conn: Connection, model: ModelRecord, number: int | None) -> Version:
     if number is not None:
         version = get_version(conn, model.id, number, model_name=model.name)
-        if version.state != CANDIDATE:
+        if version.state != VersionState.CANDIDATE:
             raise StateError(f"version {number} of '{model.name}' is {version.state}, not a "
                              "candidate")
         return version
-    candidates = [v for v in list_versions(conn, model.id) if v.state == CANDIDATE]
+    candidates = [v for v in list_versions(conn, model.id) if v.state == VersionState.CANDIDATE]
     if not candidates:
         raise StateError(f"'{model.name}' has no candidate version; fit one with "
                          f"'fitwatch refit {model.name}'")
     return candidates[-1]
 
 
-def _compare(conn: Connection, model: ModelRecord, active: VersionRecord,
-             candidate: VersionRecord, ms: ModelSettings,
+def _compare(conn: Connection, model: ModelRecord, active: Version,
+             candidate: Version, ms: ModelSettings,
              holdout_days: int | None) -> Comparison:
     unit = ms.words.y_unit
     days = days_with_rows(conn, model, candidate.fit_start)
@@ -207,20 +141,20 @@ def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSet
     return ""
 
 
-def _score(version: VersionRecord, prediction: PredictionModel,
+def _score(version: Version, prediction: PredictionModel,
            rows: Observations) -> HoldoutScore:
     return holdout_score(prediction, rows.x, rows.y, rows.days, version.level,
-                         version.dispersion or 1.0)
+                         version.baseline.dispersion or 1.0)
 
 
-def sharper(active: VersionRecord, candidate: VersionRecord) -> bool:
+def sharper(active: Version, candidate: Version) -> bool:
     """The candidate's bias chart limit is clearly tighter (it was fitted on more days)."""
     if active.cusum_h is None or candidate.cusum_h is None:
         return False
     return candidate.cusum_h < SHARPER_RATIO * active.cusum_h
 
 
-def _recommend(model: ModelRecord, active: VersionRecord, candidate: VersionRecord,
+def _recommend(model: ModelRecord, active: Version, candidate: Version,
                a: HoldoutScore, c: HoldoutScore, loss: LossDifference, ms: ModelSettings,
                unit: str) -> Recommendation:
     rmse = f"RMSE {fmt(c.rmse, 3)} against {fmt(a.rmse, 3)}{' ' + unit if unit else ''}"
@@ -258,13 +192,3 @@ def _recommend(model: ModelRecord, active: VersionRecord, candidate: VersionReco
     return Recommendation(
         KEEP, f"On the {c.days} held-out days the candidate is not clearly better ({rmse}, "
         f"{fmt_p(loss.pvalue)}); {cover}.", None)
-
-
-def _window(v: VersionRecord) -> str:
-    if v.fit_start is None or v.fit_end is None:
-        return "data from elsewhere"
-    return _days((v.fit_start, v.fit_end))
-
-
-def _days(window: tuple[date, date] | None) -> str:
-    return "—" if window is None else f"{window[0]} .. {window[1]}"

@@ -17,6 +17,16 @@ from sqlalchemy import Engine
 
 from monitor.config import CheckSettings, Settings
 from monitor.domain.days import as_date
+from monitor.domain.model import ModelRecord, ModelSpec
+from monitor.domain.version import (
+    Baseline,
+    ChartCalibration,
+    Line,
+    Version,
+    VersionDraft,
+    VersionSource,
+    VersionState,
+)
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
 from monitor.stats.calibration import Calibration, ChartDesign, calibrate_h
@@ -28,17 +38,9 @@ from monitor.stats.prediction import PredictionModel
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, ModelSpec, create_model, find_model
+from monitor.store.models import create_model, find_model
 from monitor.store.observations import days_with_rows, load_observations
-from monitor.store.versions import (
-    ACTIVE,
-    CANDIDATE,
-    NewVersion,
-    VersionRecord,
-    active_version,
-    calibration_summary,
-    insert_version,
-)
+from monitor.store.versions import active_version, insert_version
 
 
 @dataclass(frozen=True, eq=False)
@@ -53,25 +55,22 @@ class FittedVersion:
     first_day: date
     last_day: date
 
-    def to_new_version(self, level: float, settings: CheckSettings) -> NewVersion:
-        f, e, c = self.fit, self.effects, self.calibration
-        return NewVersion(
-            source="fit", level=level, terms=f.terms, coefficients=np.array(f.coef),
-            s=f.s, dof=f.dof, n=f.n, fit_start=self.first_day, fit_end=self.last_day,
-            std_errors=f.std_errors, covariance=f.cov, xmean=np.array(f.xmean),
+    def draft(self, level: float) -> VersionDraft:
+        """The version this fit makes, ready to store."""
+        f, e = self.fit, self.effects
+        line = Line(
+            terms=f.terms, coefficients=np.array(f.coef), s=f.s, dof=f.dof, level=level,
+            n=f.n, std_errors=f.std_errors, covariance=f.cov, xmean=np.array(f.xmean),
             slope_inverse=np.array(f.slope_inverse), x_min=np.array(f.x_min),
             x_max=np.array(f.x_max), r_squared=f.r_squared, adj_r_squared=f.adj_r_squared,
-            condition_number=f.condition_number, tau2=e.tau2, sigma_w2=e.sigma_w2,
-            dispersion=self.dispersion, cusum_k=c.k, cusum_h=c.h,
-            reference=self.days,
-            diagnostics={
-                "day_effects": {name: getattr(e, name) for name in DayEffects.__dataclass_fields__},
-                "day_effects_present": e.present(settings.day_effects_alpha),
-                "calibration": calibration_summary(c),
-                "days": len(self.days),
-                "tvalues": list(map(float, f.tvalues)), "pvalues": list(map(float, f.pvalues)),
-            },
-        )
+            condition_number=f.condition_number, tvalues=tuple(map(float, f.tvalues)),
+            pvalues=tuple(map(float, f.pvalues)))
+        baseline = Baseline(tau2=e.tau2, sigma_w2=e.sigma_w2, dispersion=self.dispersion,
+                            day_effects=e, reference=self.days,
+                            calibration=ChartCalibration.of(self.calibration),
+                            fit_days=len(self.days))
+        return VersionDraft(source=VersionSource.FIT, line=line, baseline=baseline,
+                            fit_start=self.first_day, fit_end=self.last_day)
 
 
 def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str, ...],
@@ -113,7 +112,7 @@ class FitRequest:
 @dataclass(frozen=True, eq=False)
 class FitReport:
     model: ModelRecord
-    version: VersionRecord
+    version: Version
     fitted: FittedVersion
     ingest: IngestSummary | None
 
@@ -155,10 +154,10 @@ def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: dat
     if len(obs.y) == 0:
         raise StateError(f"model '{model.name}' has no observations between {start} and {end}")
     fitted = fit_window(obs.x, obs.y, obs.days, model.predictors, level, model_settings.check)
-    new = fitted.to_new_version(level, model_settings.check)
+    new = fitted.draft(level)
     with write_transaction(engine) as conn:
         current = active_version(conn, model.id)
-        state = ACTIVE if current is None else CANDIDATE
+        state = VersionState.ACTIVE if current is None else VersionState.CANDIDATE
         active_from = fitted.last_day + timedelta(days=1) if current is None else None
         version = insert_version(conn, model.id, new, state=state, active_from=active_from,
                                  now=now, actor=actor)

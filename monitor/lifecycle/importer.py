@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import json
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -20,25 +20,27 @@ import numpy as np
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.days import local_day
+from monitor.domain.model import ModelRecord, ModelSpec
+from monitor.domain.version import (
+    Baseline,
+    Line,
+    Version,
+    VersionDraft,
+    VersionSource,
+    VersionState,
+)
 from monitor.errors import DegenerateDataError, InputError
 from monitor.lifecycle.fit import actor_name, same_columns
-from monitor.monitoring.evaluate import imported_design
+from monitor.monitoring.context import imported_design
 from monitor.stats.calibration import calibrate_h
 from monitor.stats.ols import INTERCEPT
 from monitor.stats.prediction import PredictionModel
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, ModelSpec, create_model, find_model
-from monitor.store.versions import (
-    ACTIVE,
-    CANDIDATE,
-    NewVersion,
-    VersionRecord,
-    active_version,
-    insert_version,
-    set_cusum,
-)
+from monitor.store.models import create_model, find_model
+from monitor.store.versions import active_version, insert_version
 
 REQUIRED = ("response", "predictors", "time_column", "coefficients", "s", "dof")
 OPTIONAL = ("id_column", "level", "covariance", "n", "fit_start", "fit_end", "active_from",
@@ -48,7 +50,7 @@ OPTIONAL = ("id_column", "level", "covariance", "n", "fit_start", "fit_end", "ac
 @dataclass(frozen=True, eq=False)
 class ImportReport:
     model: ModelRecord
-    version: VersionRecord
+    version: Version
     warnings: tuple[str, ...]
 
 
@@ -136,17 +138,20 @@ def import_model(settings: Settings, name: str, path: Path, *, now: datetime | N
     if tau2 is None:
         notes.append("no day-effect variances (tau2, sigma_w2): days are assumed independent")
     fit_start, fit_end = _day(data, "fit_start", path), _day(data, "fit_end", path)
-    new = NewVersion(
-        source="import", level=float(level), terms=terms, coefficients=coef, s=float(s),
-        dof=int(dof), n=model_check.n or _number(data, "n", path), fit_start=fit_start,
-        fit_end=fit_end, covariance=cov_arr,
-        std_errors=None if cov_arr is None else np.sqrt(np.diag(cov_arr)),
-        xmean=model_check.xmean, slope_inverse=model_check.slope_inverse, x_min=x_min,
-        x_max=x_max, tau2=tau2, sigma_w2=sigma_w2,
-        dispersion=_number(data, "dispersion", path, 1.0), note=data.get("note"),
-        diagnostics={"import_notes": notes, "imported_from": str(path)},
-    )
     cs = settings.for_model(name).check
+    line = Line(terms=terms, coefficients=coef, s=float(s), dof=int(dof), level=float(level),
+                n=model_check.n or _number(data, "n", path), covariance=cov_arr,
+                std_errors=None if cov_arr is None else np.sqrt(np.diag(cov_arr)),
+                xmean=model_check.xmean, slope_inverse=model_check.slope_inverse, x_min=x_min,
+                x_max=x_max)
+    baseline = Baseline(tau2=tau2, sigma_w2=sigma_w2,
+                        dispersion=_number(data, "dispersion", path, 1.0))
+    draft = VersionDraft(source=VersionSource.IMPORT, line=line, baseline=baseline,
+                         fit_start=fit_start, fit_end=fit_end, note=data.get("note"),
+                         notes=tuple(notes), imported_from=str(path))
+    calibration = calibrate_h(imported_design(draft), k=cs.cusum_k,
+                              target_arl=cs.cusum_arl_days, guarantee=cs.guarantee)
+    draft = replace(draft, baseline=baseline.calibrated(calibration))
     with database(settings, engine) as db, write_transaction(db) as conn:
         model = find_model(conn, name)
         spec = ModelSpec(name, data["response"], tuple(predictors), data["time_column"],
@@ -161,12 +166,10 @@ def import_model(settings: Settings, name: str, path: Path, *, now: datetime | N
         if current is None:
             active_from = (_day(data, "active_from", path)
                            or (fit_end + timedelta(days=1) if fit_end else None)
-                           or now.astimezone(settings.timezone).date())
-        draft = insert_version(conn, model.id, new, state=ACTIVE if current is None else CANDIDATE,
-                               active_from=active_from, now=now, actor=actor)
-        calibration = calibrate_h(imported_design(draft), k=cs.cusum_k,
-                                  target_arl=cs.cusum_arl_days, guarantee=cs.guarantee)
-        version = set_cusum(conn, draft, calibration)
+                           or local_day(now, settings.timezone))
+        state = VersionState.ACTIVE if current is None else VersionState.CANDIDATE
+        version = insert_version(conn, model.id, draft, state=state, active_from=active_from,
+                                 now=now, actor=actor)
         audit.record(conn, action="import", actor=actor, at=now, model_id=model.id,
                      version_id=version.id, effective_day=active_from,
                      details={"version": version.number, "file": str(path), "notes": notes})

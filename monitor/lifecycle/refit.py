@@ -17,22 +17,19 @@ from typing import Any
 from sqlalchemy import Connection, Engine
 
 from monitor.config import Settings
+from monitor.domain.check import DayCheck
+from monitor.domain.model import ModelRecord
+from monitor.domain.status import Status
+from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError, UsageError
 from monitor.lifecycle.compare import Comparison, compare
 from monitor.lifecycle.fit import FitRequest, actor_name, fit_model
-from monitor.stats.decision import OK
-from monitor.stats.moments import DayMoments
 from monitor.store import audit
 from monitor.store.access import database
-from monitor.store.checks import DayCheck, last_check
+from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, get_model
+from monitor.store.models import get_model
 from monitor.store.versions import (
-    ACTIVE,
-    CANDIDATE,
-    RETIRED,
-    NewVersion,
-    VersionRecord,
     active_version,
     get_version,
     insert_version,
@@ -91,7 +88,9 @@ def refit(settings: Settings, name: str, *, start: date | None = None, end: date
 
 
 def _estimated_change(name: str, last: DayCheck | None) -> date:
-    found = None if last is None or last.status == OK else (last.change_day or last.cusum_onset)
+    found = None
+    if last is not None and last.status != Status.OK:
+        found = last.change_day or last.cusum_onset
     if last is None or found is None:
         said = ("has not been checked yet" if last is None
                 else f"is {last.status} and no change day has been estimated")
@@ -107,7 +106,7 @@ def promote(settings: Settings, name: str, number: int, *, reason: str | None = 
     with database(settings, engine) as db, write_transaction(db) as conn:
         model = get_model(conn, name)
         candidate = get_version(conn, model.id, number, model_name=name)
-        if candidate.state != CANDIDATE:
+        if candidate.state != VersionState.CANDIDATE:
             raise StateError(f"version {number} of '{name}' is {candidate.state}, not a "
                              "candidate; only candidates can be promoted")
         current = _active(conn, model)
@@ -136,7 +135,8 @@ def rollback(settings: Settings, name: str, *, reason: str | None = None,
             raise StateError(f"'{name}' has had no other active version to roll back to")
         target = max(earlier, key=lambda v: (v.active_from, v.number))
         day = _next_day(conn, model, current)
-        copy = insert_version(conn, model.id, _copy_of(target), state=CANDIDATE,
+        copy = insert_version(conn, model.id, target.copied(f"copy of version {target.number}"),
+                              state=VersionState.CANDIDATE,
                               active_from=None, now=now, actor=actor)
         _hand_over(conn, current, copy, day)
         audit.record(conn, action="rollback", actor=actor, at=now, model_id=model.id,
@@ -155,7 +155,7 @@ def acknowledge(settings: Settings, name: str, *, reason: str | None = None,
         model = get_model(conn, name)
         current = _active(conn, model)
         last = last_check(conn, model.id)
-        if last is None or last.status == OK:
+        if last is None or last.status == Status.OK:
             state = "not been checked yet" if last is None else f"been ok since {last.status_since}"
             raise StateError(f"'{name}' has {state}: there is no advice to acknowledge")
         day = last.day + timedelta(days=1)
@@ -165,7 +165,7 @@ def acknowledge(settings: Settings, name: str, *, reason: str | None = None,
     return Transition(name, "ack", day, current.number, current.number, reason, actor)
 
 
-def _active(conn: Connection, model: ModelRecord) -> VersionRecord:
+def _active(conn: Connection, model: ModelRecord) -> Version:
     current = active_version(conn, model.id)
     if current is None:
         raise StateError(f"'{model.name}' has no active version; fit one with "
@@ -173,7 +173,7 @@ def _active(conn: Connection, model: ModelRecord) -> VersionRecord:
     return current
 
 
-def _next_day(conn: Connection, model: ModelRecord, current: VersionRecord) -> date:
+def _next_day(conn: Connection, model: ModelRecord, current: Version) -> date:
     """The first day not checked yet (changes never rewrite checked days)."""
     last = last_check(conn, model.id)
     if last is not None:
@@ -182,24 +182,7 @@ def _next_day(conn: Connection, model: ModelRecord, current: VersionRecord) -> d
     return current.active_from
 
 
-def _hand_over(conn: Connection, current: VersionRecord, incoming: VersionRecord,
-               day: date) -> None:
-    set_state(conn, current.id, state=RETIRED, active_from=current.active_from,
+def _hand_over(conn: Connection, current: Version, incoming: Version, day: date) -> None:
+    set_state(conn, current, state=VersionState.RETIRED, active_from=current.active_from,
               active_until=day - timedelta(days=1))
-    set_state(conn, incoming.id, state=ACTIVE, active_from=day, active_until=None)
-
-
-def _copy_of(version: VersionRecord) -> NewVersion:
-    """A stored version's parameters as a new version (for a rollback)."""
-    return NewVersion(
-        source=version.source, level=version.level, terms=version.terms,
-        coefficients=version.coefficients, s=version.s, dof=version.dof, n=version.n,
-        fit_start=version.fit_start, fit_end=version.fit_end, std_errors=version.std_errors,
-        covariance=version.covariance, xmean=version.xmean, slope_inverse=version.slope_inverse,
-        x_min=version.x_min, x_max=version.x_max, r_squared=version.r_squared,
-        adj_r_squared=version.adj_r_squared, condition_number=version.condition_number,
-        tau2=version.tau2, sigma_w2=version.sigma_w2, dispersion=version.dispersion,
-        cusum_k=version.cusum_k, cusum_h=version.cusum_h,
-        reference=DayMoments.from_dict(version.reference) if version.reference else None,
-        diagnostics=dict(version.diagnostics), note=f"copy of version {version.number}",
-    )
+    set_state(conn, incoming, state=VersionState.ACTIVE, active_from=day, active_until=None)

@@ -18,14 +18,17 @@ from datetime import UTC, date, datetime, timedelta
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
+from monitor.domain.check import Carry, DayCheck
+from monitor.domain.days import local_day
+from monitor.domain.model import ModelRecord
+from monitor.domain.status import Status, worst
+from monitor.domain.version import Version
 from monitor.errors import FitwatchError, InputError, StateError
 from monitor.interface.progress import progress_bar
-from monitor.monitoring.evaluate import Carry
 from monitor.monitoring.walk import HISTORY_DAYS, Subject, Timeline, walk
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.checks import (
-    DayCheck,
     delete_checks_from,
     earliest_stale_day,
     insert_checks,
@@ -33,9 +36,9 @@ from monitor.store.checks import (
     load_checks,
 )
 from monitor.store.engine import write_transaction
-from monitor.store.models import ModelRecord, get_model, list_models
+from monitor.store.models import get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
-from monitor.store.versions import VersionRecord, scoring_versions
+from monitor.store.versions import scoring_versions
 
 log = logging.getLogger(__name__)
 BLOCK_DAYS = 31
@@ -63,14 +66,8 @@ class CheckOutcome:
     def checks(self) -> list[DayCheck]:
         return [c for r in self.results for c in r.checks]
 
-    def worst_status(self) -> str | None:
-        order = {"ok": 0, "watch": 1, "refit": 2}
-        statuses = [r.current.status for r in self.results if r.current]
-        return max(statuses, key=order.__getitem__) if statuses else None
-
-
-def local_today(now: datetime, settings: Settings) -> date:
-    return now.astimezone(settings.timezone).date()
+    def worst_status(self) -> Status | None:
+        return worst(r.current.status for r in self.results if r.current)
 
 
 def run_checks(settings: Settings, names: Sequence[str] | None = None, *,
@@ -83,7 +80,7 @@ def run_checks(settings: Settings, names: Sequence[str] | None = None, *,
     result and does not stop the others.
     """
     now = now or datetime.now(UTC)
-    today = local_today(now, settings)
+    today = local_day(now, settings.timezone)
     end = day or through or (today - timedelta(days=1))
     if end >= today:
         raise InputError(f"{end} is not over yet in {settings.timezone.key} (today is {today}); "
@@ -165,7 +162,7 @@ def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end
 
 
 def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
-                 versions: list[VersionRecord], first: date, last: date,
+                 versions: list[Version], first: date, last: date,
                  now: datetime) -> list[DayCheck]:
     """Load what the days ``first..last`` need (one query each), then walk them."""
     cs = settings.check
@@ -188,5 +185,4 @@ def _carry_before(conn: Connection, model: ModelRecord, day: date, window: int) 
         return Carry.initial()
     earlier = load_checks(conn, model.id, day - timedelta(days=window - 1),
                           day - timedelta(days=1))
-    coverage_days = tuple((c.day, c.n, c.covered) for c in earlier)
-    return Carry.after(previous, coverage_days)
+    return Carry.after(previous, tuple(c.coverage_day for c in earlier))

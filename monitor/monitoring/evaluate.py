@@ -1,6 +1,6 @@
 """One day's evaluation against the version in force: scores, signals, decision, reasons.
 
-Pure: arrays and stored statistics in, a :class:`~monitor.store.checks.DayCheck` and the state
+Pure: arrays and stored statistics in, a :class:`~monitor.domain.check.DayCheck` and the state
 carried to the next day out. Loading and storing belong to :mod:`monitor.monitoring.check`.
 """
 
@@ -10,17 +10,27 @@ import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, replace
-from datetime import date, datetime, timedelta
-from typing import Any
+from datetime import date, datetime
 
 import numpy as np
 from numpy.typing import NDArray
 
 from monitor.config import CheckSettings, Wording
+from monitor.domain.check import (
+    Carry,
+    CheckDetails,
+    CheckState,
+    CoverageDay,
+    DayCheck,
+    SideRun,
+    SupFSummary,
+)
 from monitor.domain.days import as_date
+from monitor.domain.status import Status
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
+from monitor.monitoring.context import VersionContext
 from monitor.monitoring.wording import Figures, reasons_for
-from monitor.stats.calibration import ChartDesign, calibrate_h, standardize_days
+from monitor.stats.calibration import standardize_days
 from monitor.stats.change import (
     FTest,
     SupF,
@@ -31,153 +41,14 @@ from monitor.stats.change import (
     slope_change_test,
     sup_f_test,
 )
-from monitor.stats.coverage import CoverageTest
-from monitor.stats.cusum import CusumState, tabular_cusum
-from monitor.stats.day_effects import DayEffects, day_residuals
-from monitor.stats.decision import OK, REFIT, Evidence, Policy, Verdict, decide
-from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
+from monitor.stats.cusum import tabular_cusum
+from monitor.stats.day_effects import day_residuals
+from monitor.stats.decision import Evidence, Policy, Verdict, decide
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
-from monitor.stats.prediction import PredictionModel
 from monitor.stats.spread import SpreadTest, spread_test
-from monitor.store.checks import DayCheck
-from monitor.store.versions import VersionRecord
 
 FloatArray = NDArray[np.float64]
-
-
-@dataclass(frozen=True, eq=False)
-class VersionContext:
-    """What scoring a day against one version needs; built once per version and run."""
-
-    version: VersionRecord
-    model: PredictionModel
-    reference_days: DayMoments  # the fit window's day statistics, frozen at fit time
-    design: ChartDesign
-    h: float
-    day_effects: bool  # the fit window showed day effects: decide slopes with the CR1 test
-    sigma_w2: float | None
-    within_df: int | None
-    dispersion: float
-    misses: GuardedMissLaw  # the in-control law of interval misses under day effects
-    first_recent_day: date  # the recent window never reaches into the fit window
-
-    @property
-    def reference(self) -> Moments:
-        return self.reference_days.total()
-
-
-    @classmethod
-    def build(cls, version: VersionRecord, settings: CheckSettings) -> VersionContext:
-        """The scoring context of a stored version under the current check settings."""
-        diag = version.diagnostics
-        effects = DayEffects(**diag["day_effects"]) if diag.get("day_effects") else None
-        if version.reference is not None and effects is not None:
-            reference = DayMoments.from_dict(version.reference)
-            fit = fit_moments(reference.total(), version.terms[1:])
-            design = ChartDesign.from_fit(fit, reference, effects)
-        else:
-            reference = DayMoments.empty(version.k + 1)
-            design = imported_design(version)
-        h = version.cusum_h
-        stored = diag.get("calibration", {})
-        wanted = {"k": settings.cusum_k, "target_arl": settings.cusum_arl_days,
-                  "guarantee": settings.guarantee}
-        if h is None or any(stored.get(key) != value for key, value in wanted.items()):
-            h = calibrate_h(design, **wanted).h
-        first_recent = (version.fit_end + timedelta(days=1) if version.fit_end
-                        else version.active_from)
-        assert first_recent is not None
-        model = version.prediction_model()
-        half_width = model.critical_value(version.level) * model.s
-        if effects is not None:
-            misses = GuardedMissLaw.around(effects.tau2, effects.sigma_w2, half_width,
-                                           spread_uncertainty(effects), settings.guarantee)
-        else:  # fitted elsewhere: the day effects given at import, else none
-            misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
-                                           1.0 / np.sqrt(2.0 * version.dof), settings.guarantee)
-        return cls(version=version, model=model, reference_days=reference,
-                   design=design, h=float(h),
-                   day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
-                   sigma_w2=effects.sigma_w2 if effects else version.sigma_w2,
-                   within_df=effects.df_within if effects else None,
-                   dispersion=version.dispersion or 1.0, misses=misses,
-                   first_recent_day=first_recent)
-
-
-def imported_design(version: VersionRecord) -> ChartDesign:
-    """A chart design for a version fitted elsewhere (no day statistics of its fit window).
-
-    Day effects are those given at import (none by default). With a covariance matrix the
-    coefficients' uncertainty enters the standardization as usual; without one it is unknown
-    and left out (the slope block is made so large that its inverse vanishes).
-    """
-    model = version.prediction_model()
-    k = version.k
-    a = np.zeros((k + 1, k + 1))
-    if model.has_leverage and model.n and model.slope_inverse is not None:
-        a[0, 0] = model.n
-        a[1:, 1:] = np.linalg.inv(model.slope_inverse)
-        xmean = model.xmean if model.xmean is not None else np.zeros(k)
-    else:
-        a[0, 0] = version.dof + k + 1
-        a[1:, 1:] = np.eye(k) * 1e200
-        xmean = np.zeros(k)
-    tau2 = version.tau2 or 0.0
-    sigma_w2 = version.sigma_w2 if version.sigma_w2 else max(model.s**2 - tau2, 0.0)
-    return ChartDesign(counts=np.zeros(0), rows=np.zeros((0, k + 1)), a=a,
-                       b=np.zeros((k + 1, k + 1)), xmean=xmean, tau2=tau2, sigma_w2=sigma_w2,
-                       n0=1.0, n_rows=int(a[0, 0]), n_days=0)
-
-
-@dataclass(frozen=True)
-class Carry:
-    """What one day hands to the next: CUSUM state, run onsets and sums, status, coverage."""
-
-    cusum: CusumState
-    upper_onset: date | None
-    lower_onset: date | None
-    upper_resid: float  # sum of residuals since the upper run began (response units)
-    upper_rows: int
-    lower_resid: float
-    lower_rows: int
-    status: str
-    status_since: date | None
-    coverage_days: tuple[tuple[date, int, int], ...]  # (day, rows, covered), oldest first
-    fresh_from: date | None = None  # windows count days from here (last restart), if set
-
-    @classmethod
-    def initial(cls) -> Carry:
-        return cls(CusumState.zero(), None, None, 0.0, 0, 0.0, 0, OK, None, ())
-
-    @classmethod
-    def after(cls, check: DayCheck, coverage_days: tuple[tuple[date, int, int], ...]) -> Carry:
-        """The state after a stored check; ``coverage_days`` are the checks before it."""
-        d = check.details.get("cusum", {})
-        fresh = _day(check.details.get("fresh_from"))
-        kept = tuple(c for c in coverage_days if fresh is None or c[0] >= fresh)
-        return cls(
-            CusumState(check.cusum_upper, check.cusum_lower, check.cusum_upper_run,
-                       check.cusum_lower_run),
-            _day(d.get("upper_onset")), _day(d.get("lower_onset")),
-            float(d.get("upper_resid", 0.0)), int(d.get("upper_rows", 0)),
-            float(d.get("lower_resid", 0.0)), int(d.get("lower_rows", 0)),
-            check.status, check.status_since, kept, fresh)
-
-    def restarted(self, day: date) -> Carry:
-        """Everything starts afresh on ``day`` (a promotion or an acknowledgement takes effect).
-
-        The CUSUM is back at zero, a held refit is released, the status starts anew (its
-        "since" is the restart day at the earliest), and the coverage and test windows count
-        only days from ``day``: evidence that was acted upon is not counted twice.
-        """
-        return replace(self, cusum=CusumState.zero(), upper_onset=None, lower_onset=None,
-                       upper_resid=0.0, upper_rows=0, lower_resid=0.0, lower_rows=0,
-                       status=OK, status_since=None, coverage_days=(), fresh_from=day)
-
-
-def _day(value: Any) -> date | None:
-    return date.fromisoformat(value) if value else None
 
 
 @dataclass(frozen=True, eq=False)
@@ -213,16 +84,16 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
 
     # coverage over the rolling window, then the bias CUSUM ------------------------------
     window = settings.coverage_window_days
-    recent_cov = (*((d, m, c) for d, m, c in carry.coverage_days
-                    if (data.day - d).days < window), (data.day, n, covered))
-    w_rows = sum(m for _, m, _ in recent_cov)
-    w_cov = sum(c for _, _, c in recent_cov)
-    cov = (ctx.misses.test([m for _, m, _ in recent_cov], w_cov, level, ctx.dispersion)
+    recent_cov = (*(c for c in carry.coverage_days if (data.day - c.day).days < window),
+                  CoverageDay(data.day, n, covered))
+    w_rows = sum(c.rows for c in recent_cov)
+    w_cov = sum(c.covered for c in recent_cov)
+    cov = (ctx.misses.test([c.rows for c in recent_cov], w_cov, level, ctx.dispersion)
            if w_rows else None)
     carry = replace(carry, coverage_days=recent_cov)
     cusum_u, carry = _step_cusum(ctx, carry, data, residuals, settings)
-    state = carry.cusum
-    lead = _Leading.of(carry, settings.cusum_k)
+    state = carry.state.cusum
+    lead = _Leading.of(carry.state, settings.cusum_k)
 
     # slope, change date, spread over the recent window ------------------------------------
     with _quiet() as notes:
@@ -237,7 +108,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         spread_pvalue=spread.pvalue if spread else float("nan"),
     )
     policy = Policy(settings.refit_pvalue, settings.watch_pvalue, settings.watch_cusum_fraction)
-    verdict = decide(evidence, policy, refit_held=carry.status == REFIT)
+    verdict = decide(evidence, policy, refit_held=carry.status == Status.REFIT)
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
@@ -290,10 +161,10 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         supf_pvalue=supf.pvalue if supf else None,
         spread_ratio=spread.ratio if spread else None,
         spread_pvalue=spread.pvalue if spread else None,
-        status=verdict.status, status_since=since, reasons=reasons,
-        details=_details(carry, verdict, slope, classic, predictive, supf, spread,
-                         lead.shift_std, recent_fit, notes),
-        checked_at=now, model=model_name,
+        status=verdict.status, status_since=since, reasons=tuple(reasons),
+        details=_details(verdict, slope, classic, predictive, supf, spread, lead.shift_std,
+                         recent_fit, notes),
+        state=carry.state, checked_at=now, model=model_name,
     )
     return check, carry
 
@@ -309,17 +180,13 @@ class _Leading:
     shift_std: float  # Montgomery's ±(k + C/N), standardized units
 
     @classmethod
-    def of(cls, carry: Carry, k: float) -> _Leading:
-        state = carry.cusum
-        if state.upper >= state.lower:
-            value, run, onset, rows, resid, sign = (state.upper, state.upper_run,
-                                                    carry.upper_onset, carry.upper_rows,
-                                                    carry.upper_resid, 1.0)
+    def of(cls, state: CheckState, k: float) -> _Leading:
+        c = state.cusum
+        if c.upper >= c.lower:
+            value, run, side, sign = c.upper, c.upper_run, state.upper, 1.0
         else:
-            value, run, onset, rows, resid, sign = (state.lower, state.lower_run,
-                                                    carry.lower_onset, carry.lower_rows,
-                                                    carry.lower_resid, -1.0)
-        return cls(value, run, onset, resid / rows if rows else float("nan"),
+            value, run, side, sign = c.lower, c.lower_run, state.lower, -1.0
+        return cls(value, run, side.onset, side.mean,
                    sign * (k + value / run) if run else float("nan"))
 
 
@@ -333,30 +200,30 @@ def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: Fl
         u = standardize_days(residuals, np.ones(n), data.x, ctx.design)
     else:
         u = standardize_days([residuals.mean()], [n], data.x.mean(axis=0)[None, :], ctx.design)
-    path = tabular_cusum(u, settings.cusum_k, ctx.h, carry.cusum)
-    state = path.state
+    before = carry.state
+    path = tabular_cusum(u, settings.cusum_k, ctx.h, before.cusum)
+    after = path.state
     total, steps = float(residuals.sum()), len(u)
-    up = _run_update(carry.cusum.upper_run, state.upper_run, steps, carry.upper_onset,
-                     carry.upper_resid, carry.upper_rows, data.day, total, n)
-    low = _run_update(carry.cusum.lower_run, state.lower_run, steps, carry.lower_onset,
-                      carry.lower_resid, carry.lower_rows, data.day, total, n)
-    carry = replace(carry, cusum=state, upper_onset=up[0], upper_resid=up[1], upper_rows=up[2],
-                    lower_onset=low[0], lower_resid=low[1], lower_rows=low[2])
-    return float(u[-1]) if len(u) == 1 else float(np.mean(u)), carry
+    upper = _run_update(before.upper, before.cusum.upper_run, after.upper_run, steps, data.day,
+                        total, n)
+    lower = _run_update(before.lower, before.cusum.lower_run, after.lower_run, steps, data.day,
+                        total, n)
+    state = replace(before, cusum=after, upper=upper, lower=lower)
+    return float(u[-1]) if len(u) == 1 else float(np.mean(u)), replace(carry, state=state)
 
 
-def _run_update(before: int, after: int, steps: int, onset: date | None, resid: float,
-                rows: int, day: date, total: float, n: int) -> tuple[date | None, float, int]:
+def _run_update(run: SideRun, before: int, after: int, steps: int, day: date, total: float,
+                n: int) -> SideRun:
     """Onset day and residual sums of a CUSUM side's current run (none when it stands at 0).
 
     The run continues when it grew by exactly today's steps; otherwise it began today (for
     per-row steps: somewhere among today's rows, and the day is the onset's resolution).
     """
     if after == 0:
-        return None, 0.0, 0
-    if before > 0 and onset is not None and after == before + steps:
-        return onset, resid + total, rows + n
-    return day, total, n
+        return SideRun()
+    if before > 0 and run.onset is not None and after == before + steps:
+        return SideRun(run.onset, run.resid + total, run.rows + n)
+    return SideRun(day, total, n)
 
 
 def _change_tests(ctx: VersionContext, recent: DayMoments
@@ -421,42 +288,18 @@ def _spread(ctx: VersionContext, recent: DayMoments) -> SpreadTest | None:
     return spread_test(resid, ctx.model.s, ctx.model.dof, ctx.sigma_w2, ctx.within_df)
 
 
-def _details(carry: Carry, verdict: Verdict, slope: FTest | None, classic: FTest | None,
+def _details(verdict: Verdict, slope: FTest | None, classic: FTest | None,
              predictive: FTest | None, supf: SupF | None, spread: SpreadTest | None,
-             shift_std: float, recent_fit: FloatArray | None, notes: list[str]) -> dict[str, Any]:
-    def test(t: FTest | None) -> dict[str, Any] | None:
-        if t is None:
-            return None
-        return {"name": t.name, "statistic": t.statistic, "pvalue": t.pvalue,
-                "df_num": t.df_num, "df_den": t.df_den, "clusters": t.n_clusters,
-                "reason": t.reason}
-
-    return {
-        "fresh_from": carry.fresh_from.isoformat() if carry.fresh_from else None,
-        "cusum": {
-            "upper_onset": carry.upper_onset.isoformat() if carry.upper_onset else None,
-            "lower_onset": carry.lower_onset.isoformat() if carry.lower_onset else None,
-            "upper_resid": carry.upper_resid, "upper_rows": carry.upper_rows,
-            "lower_resid": carry.lower_resid, "lower_rows": carry.lower_rows,
-            "shift_std": shift_std,
-        },
-        "findings": [{"signal": f.signal, "level": f.level, "kind": f.kind}
-                     for f in verdict.findings],
-        "held": verdict.held,
-        "slope_decision": test(slope), "slope_classic": test(classic),
-        "predictive_failure": test(predictive),
-        "supf": None if supf is None else {
-            "statistic": supf.statistic, "pvalue": supf.pvalue, "bound": supf.pvalue_bound,
-            "q": supf.q, "lambda_bounds": list(supf.lambda_bounds),
-            "first_new_day": None if supf.first_new_day is None
-            else as_date(supf.first_new_day).isoformat()},
-        "spread": None if spread is None else {
-            "ratio": spread.ratio, "statistic": spread.statistic, "df_num": spread.df_num,
-            "df_den": spread.df_den, "pvalue": spread.pvalue,
-            "pvalue_narrower": spread.pvalue_narrower, "method": spread.method},
-        "recent_slopes": None if recent_fit is None else list(map(float, recent_fit)),
-        "notes": notes,
-    }
+             shift_std: float, recent_fit: FloatArray | None, notes: list[str]) -> CheckDetails:
+    summary = None if supf is None else SupFSummary(
+        statistic=supf.statistic, pvalue=supf.pvalue, bound=supf.pvalue_bound, q=supf.q,
+        lambda_bounds=(float(supf.lambda_bounds[0]), float(supf.lambda_bounds[1])),
+        first_new_day=None if supf.first_new_day is None else as_date(supf.first_new_day))
+    return CheckDetails(
+        findings=verdict.findings, held=verdict.held, slope_decision=slope,
+        slope_classic=classic, predictive_failure=predictive, supf=summary, spread=spread,
+        recent_slopes=None if recent_fit is None else tuple(map(float, recent_fit)),
+        shift_std=shift_std, notes=tuple(notes))
 
 
-__all__ = ["Carry", "CoverageTest", "DayInput", "VersionContext", "evaluate_day"]
+__all__ = ["DayInput", "VersionContext", "evaluate_day"]

@@ -11,36 +11,33 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 from sqlalchemy.exc import SQLAlchemyError
 
 from monitor.config import Settings
+from monitor.domain.check import Carry, DayCheck
 from monitor.domain.days import as_date
+from monitor.domain.model import ModelSpec
+from monitor.domain.status import Status
+from monitor.domain.version import Version, VersionDraft, VersionState
 from monitor.errors import DatabaseError, InputError, StateError
 from monitor.ingest.frame import FileRows, read_rows
 from monitor.ingest.service import options_for
-from monitor.interface.check_view import day_document
-from monitor.interface.output import fmt
-from monitor.interface.status import VersionView
 from monitor.lifecycle.fit import FittedVersion, fit_window
-from monitor.monitoring.evaluate import Carry
 from monitor.monitoring.walk import Subject, Timeline, walk
-from monitor.stats.decision import REFIT, WATCH
 from monitor.store.access import database
-from monitor.store.checks import DayCheck
-from monitor.store.models import ModelRecord, ModelSpec, find_model
-from monitor.store.versions import VersionRecord, draft_record
+from monitor.store.models import find_model
 
 DEFAULT_FIT_DAYS = 60
+NOT_STORED = 0  # the model id of checks that a replay computes and never stores
 
 
 @dataclass(frozen=True)
 class Episode:
     """A run of consecutive days in one alerting status."""
 
-    status: str
+    status: Status
     first_day: date
     last_day: date
     reasons: tuple[str, ...]  # those of its first day
@@ -52,14 +49,14 @@ class Episode:
 
 @dataclass(frozen=True, eq=False)
 class ReplayReport:
-    model: ModelRecord
+    model: ModelSpec
     rows: FileRows
     fitted: FittedVersion
-    version: VersionRecord
+    version: Version
     checks: tuple[DayCheck, ...]
     acknowledged: bool
 
-    def episodes(self, status: str = REFIT) -> list[Episode]:
+    def episodes(self, status: Status = Status.REFIT) -> list[Episode]:
         out: list[Episode] = []
         for c in self.checks:
             if c.status != status:
@@ -71,58 +68,17 @@ class ReplayReport:
                 out.append(Episode(status, c.day, c.day, tuple(c.reasons)))
         return out
 
-    def counts(self) -> dict[str, int]:
-        return {s: sum(c.status == s for c in self.checks) for s in ("ok", WATCH, REFIT)}
-
-    def as_dict(self) -> dict[str, Any]:
-        return {
-            "model": self.model.name, "source": self.rows.source,
-            "rows": {"read": self.rows.read, "used": self.rows.accepted,
-                     "duplicates": self.rows.duplicates, "rejected": self.rows.rejected,
-                     "reasons": dict(self.rows.reasons)},
-            "version": VersionView(self.model, self.version).as_dict(),
-            "days": len(self.checks), "status_days": self.counts(),
-            "acknowledge_refits": self.acknowledged,
-            "episodes": [{"status": e.status, "first_day": e.first_day, "last_day": e.last_day,
-                          "days": e.days, "reasons": list(e.reasons)}
-                         for s in (REFIT, WATCH) for e in self.episodes(s)],
-            "checks": [day_document(c) for c in self.checks],
-        }
-
-    def text(self) -> str:
-        r, f = self.rows, self.fitted.fit
-        terms = " + ".join(fmt(v, 4) + ("" if t == "intercept" else f" × {t}")
-                           for t, v in zip(f.terms, f.coef, strict=True))
-        counts = self.counts()
-        lines = [
-            f"replay of {self.model.name} on {r.source}: {r.read:,} rows read, {r.accepted:,} "
-            f"used, {r.duplicates:,} duplicates, {r.rejected:,} rejected",
-            f"fitted on {self.fitted.first_day} .. {self.fitted.last_day}: "
-            f"{self.model.response} = {terms} (s = {fmt(f.s, 4)}, h = "
-            f"{fmt(self.version.cusum_h, 3)})",
-        ]
-        if not self.checks:
-            lines.append("no days after the fit window to check")
-            return "\n".join(lines)
-        refits, watches = self.episodes(REFIT), self.episodes(WATCH)
-        lines.append(
-            f"checked {self.checks[0].day} .. {self.checks[-1].day} ({len(self.checks)} days): "
-            f"{counts['ok']} ok, {counts[WATCH]} watch, {counts[REFIT]} refit; "
-            f"{len(refits)} refit and {len(watches)} watch episode(s)"
-            + (" (each refit acknowledged the next day)" if self.acknowledged else ""))
-        for e in sorted(refits + watches, key=lambda e: e.first_day):
-            lines.append(f"  {e.first_day} {e.status.upper()} for {e.days} day(s):")
-            lines.extend(f"    - {reason}" for reason in e.reasons)
-        return "\n".join(lines)
+    def counts(self) -> dict[Status, int]:
+        return {s: sum(c.status == s for c in self.checks) for s in Status}
 
 
 def replay(settings: Settings, name: str, path: Path, *, columns: ModelSpec | None = None,
            fit_end: date | None = None, acknowledge_refits: bool = False,
            now: datetime | None = None) -> ReplayReport:
     now = now or datetime.now(UTC)
-    model = _model(settings, name, columns, now)
+    model = _model(settings, name, columns)
     ms = settings.for_model(name)
-    rows = read_rows(path, model.spec, options_for(settings, name, now=now))
+    rows = read_rows(path, model, options_for(settings, name, now=now))
     if rows.accepted == 0:
         raise InputError(f"{path}: no usable rows to replay")
     first = as_date(rows.days.min())
@@ -134,24 +90,27 @@ def replay(settings: Settings, name: str, path: Path, *, columns: ModelSpec | No
     level = ms.check.level
     fitted = fit_window(rows.x[in_fit], rows.y[in_fit], rows.days[in_fit], model.predictors,
                         level, ms.check)
-    version = draft_record(fitted.to_new_version(level, ms.check),
-                           active_from=fitted.last_day + timedelta(days=1), now=now,
-                           actor="replay")
+    version = in_memory_version(fitted.draft(level), now)
     timeline = Timeline.from_rows(rows.days, rows.x, rows.y)
     assert version.active_from is not None
-    checks, _ = walk(Subject(0, name, model.response, ms), [version], timeline,
+    checks, _ = walk(Subject(NOT_STORED, name, model.response, ms), [version], timeline,
                      version.active_from, as_date(rows.days.max()), Carry.initial(), now=now,
                      acknowledge_refits=acknowledge_refits)
     return ReplayReport(model, rows, fitted, version, tuple(checks), acknowledge_refits)
 
 
-def _model(settings: Settings, name: str, columns: ModelSpec | None,
-           now: datetime) -> ModelRecord:
+def in_memory_version(draft: VersionDraft, now: datetime) -> Version:
+    """The active version a replay scores with: version 1, from the day after its window."""
+    assert draft.fit_end is not None
+    return Version(id=1, model_id=NOT_STORED, number=1, state=VersionState.ACTIVE,
+                   draft=draft, active_from=draft.fit_end + timedelta(days=1),
+                   active_until=None, created_at=now, created_by="replay")
+
+
+def _model(settings: Settings, name: str, columns: ModelSpec | None) -> ModelSpec:
     """The model's columns: as given, else as stored in the database."""
     if columns is not None:
-        return ModelRecord(name=name, response=columns.response, predictors=columns.predictors,
-                           time_column=columns.time_column, id_column=columns.id_column,
-                           id=0, created_at=now)
+        return columns
     try:
         with database(settings) as engine, engine.connect() as conn:
             stored = find_model(conn, name)
@@ -161,4 +120,4 @@ def _model(settings: Settings, name: str, columns: ModelSpec | None,
     if stored is None:
         raise StateError(f"model '{name}' is not in the database; give its columns with --y, "
                          "--x and --time")
-    return stored
+    return stored.spec

@@ -16,12 +16,12 @@ import numpy as np
 from numpy.typing import NDArray
 
 from monitor.config import ModelSettings
+from monitor.domain.check import Carry, DayCheck
 from monitor.domain.days import as_date
-from monitor.monitoring.evaluate import Carry, DayInput, VersionContext, evaluate_day
-from monitor.stats.decision import REFIT
+from monitor.domain.status import Status
+from monitor.domain.version import Version
+from monitor.monitoring.evaluate import DayInput, VersionContext, evaluate_day
 from monitor.stats.moments import DayMoments
-from monitor.store.checks import DayCheck
-from monitor.store.versions import VersionRecord
 
 HISTORY_DAYS = 365  # how far back a change day is looked for
 
@@ -76,7 +76,7 @@ class Subject:
     settings: ModelSettings
 
 
-def version_on(versions: Sequence[VersionRecord], day: date) -> VersionRecord | None:
+def version_on(versions: Sequence[Version], day: date) -> Version | None:
     """The version scoring ``day`` (the last to take over before or on it)."""
     found = None
     for v in versions:
@@ -85,7 +85,7 @@ def version_on(versions: Sequence[VersionRecord], day: date) -> VersionRecord | 
     return found
 
 
-def walk(subject: Subject, versions: Sequence[VersionRecord], timeline: Timeline, first: date,
+def walk(subject: Subject, versions: Sequence[Version], timeline: Timeline, first: date,
          last: date, carry: Carry, *, now: datetime, resets: frozenset[date] = frozenset(),
          acknowledge_refits: bool = False,
          contexts: dict[int, VersionContext] | None = None) -> tuple[list[DayCheck], Carry]:
@@ -109,7 +109,7 @@ def walk(subject: Subject, versions: Sequence[VersionRecord], timeline: Timeline
             ctx = contexts[version.id]
             took_over = (previous is not None and previous != version.id) \
                 or version.active_from == day
-            if took_over or day in resets or (acknowledge_refits and carry.status == REFIT):
+            if took_over or day in resets or (acknowledge_refits and carry.status == Status.REFIT):
                 carry = carry.restarted(day)
             previous = version.id
             data = timeline.day_input(day, ctx, cs.test_window_days, carry.fresh_from)

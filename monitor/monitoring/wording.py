@@ -10,7 +10,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from monitor.config import Wording
-from monitor.interface.output import fmt, fmt_p, percent
+from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict

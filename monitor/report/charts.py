@@ -26,6 +26,7 @@ from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
+from monitor.domain.check import DayCheck
 from monitor.report.series import (
     CoverageSeries,
     CusumSeries,
@@ -34,7 +35,6 @@ from monitor.report.series import (
     coverage_series,
     cusum_series,
 )
-from monitor.store.checks import DayCheck
 
 # Okabe & Ito (2008), "Color Universal Design": distinguishable with the common colour-vision
 # deficiencies. Roles, not meanings: nothing here encodes a status by colour alone.

@@ -17,8 +17,13 @@ from jinja2 import Environment, PackageLoader, StrictUndefined
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
+from monitor.domain.check import DayCheck
+from monitor.domain.days import local_day, yesterday
+from monitor.domain.model import ModelRecord
+from monitor.domain.phrasing import fmt
+from monitor.domain.version import Version, VersionState
 from monitor.errors import InputError
-from monitor.interface.output import fmt, to_jsonable
+from monitor.interface.output import to_jsonable
 from monitor.report import charts
 from monitor.report.series import (
     CoverageSeries,
@@ -31,10 +36,10 @@ from monitor.report.series import (
     scatter_series,
 )
 from monitor.store.access import database
-from monitor.store.checks import DayCheck, last_check, load_checks
-from monitor.store.models import ModelRecord, get_model
+from monitor.store.checks import last_check, load_checks
+from monitor.store.models import get_model
 from monitor.store.observations import last_observed_at, load_observations
-from monitor.store.versions import ACTIVE, CANDIDATE, VersionRecord, list_versions
+from monitor.store.versions import list_versions
 
 PAGE = "index.html"
 _TEMPLATE = "report.html.j2"
@@ -72,8 +77,8 @@ class ReportData:
 
     model: ModelRecord
     settings: ModelSettings
-    active: VersionRecord | None
-    candidate: VersionRecord | None
+    active: Version | None
+    candidate: Version | None
     last: DayCheck | None  # the model's latest check, possibly before the period
     checks: tuple[DayCheck, ...]
     scatter: ScatterSeries
@@ -125,8 +130,9 @@ def load_report_data(conn: Connection, settings: Settings, name: str, now: datet
     model = get_model(conn, name)
     own = settings.for_model(name)
     versions = list_versions(conn, model.id)
-    active = next((v for v in versions if v.state == ACTIVE), None)
-    candidate = max((v for v in versions if v.state == CANDIDATE), key=lambda v: v.number,
+    active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
+    candidate = max((v for v in versions if v.state == VersionState.CANDIDATE),
+                    key=lambda v: v.number,
                     default=None)
     last = last_check(conn, model.id, model=name)
     if last is not None:
@@ -134,8 +140,7 @@ def load_report_data(conn: Connection, settings: Settings, name: str, now: datet
     else:
         latest = last_observed_at(conn, model)
         zone = settings.timezone
-        last_day = (latest.astimezone(zone).date() if latest is not None
-                    else now.astimezone(zone).date() - timedelta(days=1))
+        last_day = local_day(latest, zone) if latest is not None else yesterday(now, zone)
     first_day = last_day - timedelta(days=days - 1)
     checks = tuple(load_checks(conn, model.id, first_day, last_day, model=name))
     rows = load_observations(conn, model, first_day, last_day)
@@ -154,31 +159,31 @@ def load_report_data(conn: Connection, settings: Settings, name: str, now: datet
 
 
 # the page ---------------------------------------------------------------------------------------
-def _plus_minus(version: VersionRecord, i: int) -> str:
+def _plus_minus(version: Version, i: int) -> str:
     value = fmt(float(version.coefficients[i]), 4)
-    if version.std_errors is None or not np.isfinite(version.std_errors[i]):
+    if version.line.std_errors is None or not np.isfinite(version.line.std_errors[i]):
         return value
-    return f"{value} ± {fmt(float(version.std_errors[i]), 3)}"
+    return f"{value} ± {fmt(float(version.line.std_errors[i]), 3)}"
 
 
-def _version_view(version: VersionRecord | None) -> dict[str, Any] | None:
+def _version_view(version: Version | None) -> dict[str, Any] | None:
     if version is None:
         return None
     return {
         "number": version.number, "state": version.state,
         "coefficients": [{"term": t, "value": _plus_minus(version, i)}
                          for i, t in enumerate(version.terms)],
-        "s": fmt(version.s, 4), "dof": version.dof, "n": version.n,
+        "s": fmt(version.line.s, 4), "dof": version.line.dof, "n": version.line.n,
         "level": f"{version.level * 100:g} %",
-        "r_squared": fmt(version.r_squared, 4),
+        "r_squared": fmt(version.line.r_squared, 4),
         "fit_window": (f"{version.fit_start} .. {version.fit_end}"
                        if version.fit_start else "not recorded"),
         "active_from": version.active_from,
     }
 
 
-def _comparison(active: VersionRecord | None,
-                candidate: VersionRecord | None) -> list[dict[str, str]]:
+def _comparison(active: Version | None,
+                candidate: Version | None) -> list[dict[str, str]]:
     if active is None or candidate is None:
         return []
     terms = list(dict.fromkeys((*active.terms, *candidate.terms)))
@@ -188,7 +193,8 @@ def _comparison(active: VersionRecord | None,
         c = (_plus_minus(candidate, candidate.terms.index(term))
              if term in candidate.terms else "—")
         rows.append({"term": term, "active": a, "candidate": c})
-    rows.append({"term": "s", "active": fmt(active.s, 4), "candidate": fmt(candidate.s, 4)})
+    rows.append({"term": "s", "active": fmt(active.line.s, 4),
+                 "candidate": fmt(candidate.line.s, 4)})
     return rows
 
 

@@ -14,9 +14,9 @@ from datetime import date, timedelta
 
 import numpy as np
 
-from monitor.store.checks import DayCheck
+from monitor.domain.check import DayCheck
+from monitor.domain.version import Version
 from monitor.store.observations import Observations
-from monitor.store.versions import VersionRecord
 
 GRID_POINTS = 121
 
@@ -109,7 +109,7 @@ def cusum_series(checks: Sequence[DayCheck]) -> CusumSeries:
 class VersionLine:
     """One version's mean line and prediction band over a grid of its (single) predictor.
 
-    Computed with :meth:`VersionRecord.prediction_model` at the version's own level: the same
+    Computed with :meth:`Version.prediction_model` at the version's own level: the same
     interval the nightly check scores with.
     """
 
@@ -124,15 +124,16 @@ class VersionLine:
     fit_x_max: float | None
 
 
-def version_line(version: VersionRecord, grid: np.ndarray) -> VersionLine:
+def version_line(version: Version, grid: np.ndarray) -> VersionLine:
     """``version``'s line and band at the points of ``grid`` (a model with one predictor)."""
     if version.k != 1:
         raise ValueError(f"a line needs a model with one predictor; this one has {version.k}")
     model = version.prediction_model()
     xs = np.asarray(grid, dtype=float).reshape(-1, 1)
     lower, upper = model.interval(xs, version.level)
-    lo = float(version.x_min[0]) if version.x_min is not None else None
-    hi = float(version.x_max[0]) if version.x_max is not None else None
+    x_min, x_max = version.line.x_min, version.line.x_max
+    lo = float(x_min[0]) if x_min is not None else None
+    hi = float(x_max[0]) if x_max is not None else None
     return VersionLine(version.number, version.state, version.level, xs[:, 0], model.predict(xs),
                        lower, upper, lo, hi)
 
@@ -155,7 +156,7 @@ class ScatterSeries:
         return len(self.y) == 0 and not self.lines
 
 
-def scatter_series(observations: Observations, versions: Sequence[VersionRecord],
+def scatter_series(observations: Observations, versions: Sequence[Version],
                    recent_from: date, x_label: str, y_label: str) -> ScatterSeries:
     """Rows and lines for the scatter; the grid spans the rows and every version's fit range."""
     x = observations.x[:, 0] if observations.x.shape[1] else np.zeros(len(observations))
@@ -167,9 +168,9 @@ def scatter_series(observations: Observations, versions: Sequence[VersionRecord]
         note = ("lines are drawn for one-predictor models only; this model has "
                 f"{versions[0].k} predictors, the rows are shown against the first")
     elif versions:
-        ends = [x] + [np.array([v.x_min[0], v.x_max[0]]) for v in versions
-                      if v.x_min is not None and v.x_max is not None
-                      and np.isfinite(v.x_min[0]) and np.isfinite(v.x_max[0])]
+        ends = [x] + [np.array([v.line.x_min[0], v.line.x_max[0]]) for v in versions
+                      if v.line.x_min is not None and v.line.x_max is not None
+                      and np.isfinite(v.line.x_min[0]) and np.isfinite(v.line.x_max[0])]
         span = np.concatenate(ends)
         if len(span):
             grid = np.linspace(span.min(), span.max(), GRID_POINTS)
@@ -201,7 +202,7 @@ class ResidualSeries:
 
 
 def residual_series(observations: Observations, checks: Sequence[DayCheck],
-                    versions: Sequence[VersionRecord]) -> ResidualSeries:
+                    versions: Sequence[Version]) -> ResidualSeries:
     days, indexed = _by_day(checks)
     by_id = {v.id: v for v in versions}
     row_day = observations.days

@@ -17,36 +17,27 @@ import socket
 import threading
 import uuid
 from collections.abc import Callable
-from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
 from types import FrameType
-from typing import Any
 
 from apscheduler.schedulers.background import BackgroundScheduler
-from apscheduler.triggers.cron import CronTrigger
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
 from monitor.config import Settings
 from monitor.errors import StateError
 from monitor.runtime.nightly import NightRun, run_night
+from monitor.runtime.schedule import LATE_GRACE, LEASE_TTL, cron_trigger
 from monitor.store import lease
 from monitor.store.access import database
 
 log = logging.getLogger(__name__)
 
-LEASE_TTL = timedelta(minutes=10)
 WAIT_POLL_SECONDS = 30.0
-LATE_GRACE = timedelta(hours=1)  # a run that has not started this long after its time is late
-STALE_HEARTBEATS = 3  # missed heartbeats before a holder counts as gone
 
 
 def holder_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
-
-
-def cron_trigger(settings: Settings) -> CronTrigger:
-    return CronTrigger.from_crontab(settings.schedule.cron, timezone=settings.timezone)
 
 
 class NightlyWorker:
@@ -161,58 +152,3 @@ def _stop_on_signals(stop: threading.Event) -> None:
 
     for sig in (signal.SIGTERM, signal.SIGINT):
         signal.signal(sig, handler)
-
-
-@dataclass(frozen=True)
-class NightlyState:
-    """What ``status`` says about the nightly runs (from the lease row)."""
-
-    last_started: datetime | None
-    last_finished: datetime | None
-    last_status: str | None
-    due: datetime | None  # the latest scheduled time that has passed
-    late: bool
-    daemon_alive: bool
-
-    def as_dict(self) -> dict[str, Any]:
-        return {"last_run_started_at": self.last_started,
-                "last_run_finished_at": self.last_finished,
-                "last_run_status": self.last_status, "due": self.due, "late": self.late,
-                "daemon_alive": self.daemon_alive}
-
-    def sentence(self) -> str:
-        when = (self.last_finished or self.last_started)
-        done = (f"last nightly run {when:%Y-%m-%d %H:%M %Z} ({self.last_status})" if when
-                else "no nightly run yet")
-        if self.late:
-            return (f"LATE: the nightly run due {self.due:%Y-%m-%d %H:%M %Z} has not started; "
-                    f"{done}; daemon {'running' if self.daemon_alive else 'not running'}")
-        return f"{done}; daemon {'running' if self.daemon_alive else 'not running'}"
-
-
-def nightly_state(settings: Settings, state: lease.LeaseState, now: datetime) -> NightlyState:
-    """Is the nightly run late? Compares the last start with the schedule's latest time."""
-    zone = settings.timezone
-    due = last_scheduled(cron_trigger(settings), now - timedelta(days=8), now)
-    started = state.last_run_started_at
-    late = due is not None and now - due > LATE_GRACE and (started is None or started < due)
-    beat = state.heartbeat_at
-    alive = state.holder is not None and beat is not None and \
-        now - beat < STALE_HEARTBEATS * LEASE_TTL / 4 + timedelta(minutes=1)
-
-    def local(t: datetime | None) -> datetime | None:
-        return t.astimezone(zone) if t else None
-
-    return NightlyState(local(started), local(state.last_run_finished_at),
-                        state.last_run_status, local(due), late, alive)
-
-
-def last_scheduled(trigger: CronTrigger, since: datetime, now: datetime) -> datetime | None:
-    """The latest fire time of ``trigger`` in ``(since, now]``."""
-    found, fire = None, trigger.get_next_fire_time(None, since)
-    for _ in range(100_000):
-        if fire is None or fire > now:
-            return found
-        found = fire
-        fire = trigger.get_next_fire_time(fire, fire + timedelta(seconds=1))
-    return found

@@ -13,7 +13,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Callable
 from dataclasses import dataclass, replace
-from datetime import date, datetime, timedelta
+from datetime import date, datetime
 from typing import Any
 
 from sqlalchemy import Engine
@@ -21,11 +21,12 @@ from sqlalchemy import Engine
 from monitor.alerts.mailer import Mailer
 from monitor.alerts.service import AlertRun, queue_night, send_due
 from monitor.config import Settings
+from monitor.domain.days import yesterday
 from monitor.errors import FitwatchError
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
-from monitor.monitoring.check import CheckOutcome, ModelCheck, local_today, run_checks
+from monitor.monitoring.check import CheckOutcome, ModelCheck, run_checks
 from monitor.store import audit
 from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction
@@ -92,7 +93,7 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
               mailer: Mailer | None = None, actor: str = "daemon",
               should_stop: Callable[[], bool] = lambda: False) -> NightRun:
     """Sweep, check every model through yesterday, then alert per newly checked night."""
-    through = local_today(now, settings) - timedelta(days=1)
+    through = yesterday(now, settings.timezone)
     problems: list[str] = []  # failures outside a model's check (inbox, SQL sources)
     try:
         sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)

@@ -12,8 +12,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-OK, WATCH, REFIT = "ok", "watch", "refit"
-_RANK = {OK: 0, WATCH: 1, REFIT: 2}
+from monitor.domain.status import Status
 
 
 @dataclass(frozen=True)
@@ -45,19 +44,15 @@ class Evidence:
 @dataclass(frozen=True)
 class Finding:
     signal: str  # coverage | bias | slope | spread
-    level: str  # watch | refit
+    level: Status  # watch | refit
     kind: str  # low | high | upper | lower | changed | wider
 
 
 @dataclass(frozen=True)
 class Verdict:
-    status: str
+    status: Status
     findings: tuple[Finding, ...]
     held: bool  # a refit from an earlier day still stands
-
-    @property
-    def rank(self) -> int:
-        return _RANK[self.status]
 
 
 def _below(p: float, threshold: float) -> bool:
@@ -70,24 +65,24 @@ def decide(evidence: Evidence, policy: Policy = Policy(), *, refit_held: bool = 
 
     def by_p(signal: str, kind: str, p: float, refit_allowed: bool) -> None:
         if refit_allowed and _below(p, policy.refit_pvalue):
-            found.append(Finding(signal, REFIT, kind))
+            found.append(Finding(signal, Status.REFIT, kind))
         elif _below(p, policy.watch_pvalue):
-            found.append(Finding(signal, WATCH, kind))
+            found.append(Finding(signal, Status.WATCH, kind))
 
     e = evidence
     if e.cusum_upper > e.cusum_h or e.cusum_lower > e.cusum_h:
         side = "upper" if e.cusum_upper >= e.cusum_lower else "lower"
-        found.append(Finding("bias", REFIT, side))
+        found.append(Finding("bias", Status.REFIT, side))
     elif max(e.cusum_upper, e.cusum_lower) > policy.watch_cusum_fraction * e.cusum_h:
         side = "upper" if e.cusum_upper >= e.cusum_lower else "lower"
-        found.append(Finding("bias", WATCH, side))
+        found.append(Finding("bias", Status.WATCH, side))
     by_p("slope", "changed", e.slope_pvalue, refit_allowed=True)
     by_p("coverage", "low", e.coverage_pvalue_low, refit_allowed=True)
     by_p("coverage", "high", e.coverage_pvalue_high, refit_allowed=False)
     by_p("spread", "wider", e.spread_pvalue, refit_allowed=False)
 
-    found.sort(key=lambda f: -_RANK[f.level])
-    status = max((f.level for f in found), key=_RANK.__getitem__, default=OK)
+    found.sort(key=lambda f: -f.level.rank)
+    status = max((f.level for f in found), key=lambda s: s.rank, default=Status.OK)
     if refit_held:
-        status = REFIT
+        status = Status.REFIT
     return Verdict(status, tuple(found), held=refit_held)

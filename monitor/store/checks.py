@@ -1,86 +1,52 @@
-"""Day checks: one row per model and day, every figure of the check plus the CUSUM state."""
+"""Stored day checks: one row per model and day, every figure of the check plus its state.
+
+:func:`_row` and :func:`_check` are the one place where a :class:`~monitor.domain.check.DayCheck`
+meets the ``day_checks`` columns; its details and the state handed to the next day are JSON
+documents written and read with :mod:`monitor.domain.codec`.
+"""
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field, fields
-from datetime import date, datetime
+import math
+from dataclasses import fields
+from datetime import date
 from typing import Any
 
 from sqlalchemy import Connection, and_, delete, func, insert, select
 
-from monitor.store.schema import day_checks, day_stats, jsonable
+from monitor.domain.check import CheckDetails, CheckState, DayCheck
+from monitor.domain.codec import decode, encode
+from monitor.domain.status import Status
+from monitor.store.schema import day_checks, day_stats
+
+_COLUMNS = tuple(f.name for f in fields(DayCheck) if f.name != "model")
+_TYPED = {"details": CheckDetails, "state": CheckState}
 
 
-@dataclass(frozen=True)
-class DayCheck:
-    """The stored result of checking one model on one day."""
-
-    model_id: int
-    day: date
-    version_id: int
-    stats_revision: int
-    n: int
-    covered: int
-    extrapolated: int
-    coverage: float | None
-    mean_residual: float | None
-    window_n: int
-    window_covered: int
-    window_coverage: float | None
-    wilson_low: float | None
-    wilson_high: float | None
-    coverage_p_low: float | None
-    coverage_p_high: float | None
-    cusum_u: float | None
-    cusum_upper: float
-    cusum_lower: float
-    cusum_upper_run: int
-    cusum_lower_run: int
-    cusum_h: float
-    cusum_signal: bool
-    cusum_onset: date | None
-    cusum_shift: float | None
-    slope_statistic: float | None
-    slope_pvalue: float | None
-    slope_method: str | None
-    chow_statistic: float | None
-    chow_pvalue: float | None
-    change_day: date | None
-    supf_statistic: float | None
-    supf_pvalue: float | None
-    spread_ratio: float | None
-    spread_pvalue: float | None
-    status: str
-    status_since: date
-    reasons: list[str]
-    details: dict[str, Any]
-    checked_at: datetime
-    model: str = field(default="", compare=False)
-
-    def row(self) -> dict[str, Any]:
-        values = {f.name: getattr(self, f.name) for f in fields(self) if f.name != "model"}
-        values["reasons"] = list(self.reasons)
-        values["details"] = jsonable(self.details)
-        for key, value in values.items():
-            if isinstance(value, float) and value != value:
-                values[key] = None
-        return values
-
-    def as_dict(self) -> dict[str, Any]:
-        return asdict(self)
+def _row(check: DayCheck) -> dict[str, Any]:
+    values = {name: getattr(check, name) for name in _COLUMNS}
+    for name, value in values.items():
+        if name in _TYPED or name == "reasons":
+            values[name] = encode(value)
+        elif isinstance(value, float) and not math.isfinite(value):
+            values[name] = None
+    values["status"] = check.status.value
+    return values
 
 
-_COLUMNS = [f.name for f in fields(DayCheck) if f.name != "model"]
-
-
-def _record(row: Any, model: str = "") -> DayCheck:
+def _check(row: Any, model: str = "") -> DayCheck:
     m = row._mapping
-    return DayCheck(**{name: m[name] for name in _COLUMNS}, model=model)
+    values = {name: m[name] for name in _COLUMNS}
+    values["reasons"] = tuple(values["reasons"])
+    values["status"] = Status(values["status"])
+    for name, kind in _TYPED.items():
+        values[name] = decode(kind, values[name] or {})
+    return DayCheck(**values, model=model)
 
 
 def insert_checks(conn: Connection, checks: list[DayCheck]) -> None:
     if checks:
-        conn.execute(insert(day_checks), [c.row() for c in checks])
+        conn.execute(insert(day_checks), [_row(c) for c in checks])
 
 
 def delete_checks_from(conn: Connection, model_id: int, first_day: date) -> int:
@@ -96,7 +62,7 @@ def load_checks(conn: Connection, model_id: int, first_day: date | None = None,
         query = query.where(day_checks.c.day >= first_day)
     if last_day is not None:
         query = query.where(day_checks.c.day <= last_day)
-    return [_record(r, model) for r in conn.execute(query.order_by(day_checks.c.day))]
+    return [_check(r, model) for r in conn.execute(query.order_by(day_checks.c.day))]
 
 
 def last_check(conn: Connection, model_id: int, before: date | None = None,
@@ -105,7 +71,7 @@ def last_check(conn: Connection, model_id: int, before: date | None = None,
     if before is not None:
         query = query.where(day_checks.c.day < before)
     row = conn.execute(query.order_by(day_checks.c.day.desc()).limit(1)).first()
-    return _record(row, model) if row is not None else None
+    return _check(row, model) if row is not None else None
 
 
 def earliest_stale_day(conn: Connection, model_id: int) -> date | None:

@@ -35,8 +35,8 @@ from sqlalchemy import (
 )
 from sqlalchemy.dialects import postgresql, sqlite
 
+from monitor.domain.model import ModelRecord
 from monitor.stats.moments import DayMoments, Moments
-from monitor.store.models import ModelRecord
 from monitor.store.schema import day_stats, observations, predictor_columns
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)

@@ -211,6 +211,7 @@ day_checks = Table(
     Column("status_since", Date, nullable=False),
     Column("reasons", JSON, nullable=False),
     Column("details", JSON, nullable=False),
+    Column("state", JSON, nullable=False),  # monitor.domain.check.CheckState, for the next day
     Column("checked_at", UtcDateTime, nullable=False),
 )
 

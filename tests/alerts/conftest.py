@@ -17,7 +17,8 @@ from aiosmtpd.controller import Controller
 from aiosmtpd.smtp import AuthResult, LoginPassword
 
 from monitor.alerts.mailer import DeliveryError
-from monitor.store.checks import DayCheck
+from monitor.domain.check import CheckDetails, CheckState, DayCheck
+from monitor.domain.status import Status
 
 SMTP_USER = "fitwatch-night"
 SMTP_PASSWORD = "s3cret-Pa55-word-for-tests"
@@ -38,9 +39,9 @@ def day_check(day: date, status: str = "ok", since: date | None = None, *, model
         "cusum_onset": None, "cusum_shift": None, "slope_statistic": 0.8, "slope_pvalue": 0.37,
         "slope_method": "clustered", "chow_statistic": 0.9, "chow_pvalue": 0.4,
         "change_day": None, "supf_statistic": 3.0, "supf_pvalue": 0.5, "spread_ratio": 1.02,
-        "spread_pvalue": 0.4, "status": status, "status_since": since or day,
-        "reasons": reasons if reasons is not None else [f"{status} on {day}"],
-        "details": {"recent_slopes": None},
+        "spread_pvalue": 0.4, "status": Status(status), "status_since": since or day,
+        "reasons": tuple(reasons) if reasons is not None else (f"{status} on {day}",),
+        "details": CheckDetails(), "state": CheckState(),
         "checked_at": datetime.combine(day + timedelta(days=1), datetime.min.time(), UTC),
     }
     values.update(figures)

@@ -25,6 +25,7 @@ from monitor.alerts.compose import (
 )
 from monitor.alerts.news import Digest, model_news
 from monitor.config import AlertSettings, Wording
+from monitor.domain.check import CheckDetails
 from monitor.report.charts import alert_chart_png
 from tests.alerts.conftest import day_check
 
@@ -48,7 +49,7 @@ def _refit_check(reasons: list[str] | None = None):
         wilson_high=0.48, coverage_p_low=1e-9, cusum_upper=14.2, cusum_h=10.9,
         cusum_signal=True, cusum_onset=date(2026, 3, 16), slope_statistic=449.0,
         slope_pvalue=1e-12, change_day=date(2026, 3, 16),
-        details={"recent_slopes": [2.62]})
+        details=CheckDetails(recent_slopes=(2.62,)))
 
 
 def _digest(*checks, recipients=(LEAD,)) -> Digest:

@@ -64,8 +64,9 @@ def baseline(csv_path: Path, db_path: Path) -> None:
 def prepare_fitwatch(url: str, with_id: bool) -> None:
     from datetime import UTC, datetime
 
+    from monitor.domain.model import ModelSpec
     from monitor.store.engine import open_engine, upgrade_database
-    from monitor.store.models import ModelSpec, create_model
+    from monitor.store.models import create_model
 
     engine = open_engine(url)
     upgrade_database(engine)

@@ -11,7 +11,8 @@ import pytest
 from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.store.models import ModelRecord, ModelSpec, create_model
+from monitor.domain.model import ModelRecord, ModelSpec
+from monitor.store.models import create_model
 
 NOW = datetime(2026, 4, 1, 12, tzinfo=UTC)
 LOADS = ModelSpec("loads", "load_minutes", ("pallets",), "docked_at", "load_id")

@@ -12,9 +12,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from sqlalchemy import func, select
 
+from monitor.domain.model import ModelSpec
 from monitor.errors import InputError
 from monitor.ingest.service import ingest_file, options_for
-from monitor.store.models import ModelSpec, create_model
+from monitor.store.models import create_model
 from monitor.store.observations import count_observations
 from monitor.store.schema import rejected_rows
 from tests.ingest.conftest import HEADER, NOW

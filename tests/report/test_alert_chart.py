@@ -14,8 +14,9 @@ from dataclasses import replace
 import numpy as np
 from PIL import Image
 
+from monitor.domain.check import DayCheck
 from monitor.report.charts import ALERT_SIZE, ChartPanel, alert_chart_png, digest_chart_png
-from monitor.store.checks import DayCheck, load_checks
+from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from tests.test_check import MODEL, World
 

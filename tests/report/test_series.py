@@ -14,6 +14,7 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+from monitor.domain.version import Version
 from monitor.report.page import load_report_data
 from monitor.report.series import (
     calendar,
@@ -25,21 +26,21 @@ from monitor.report.series import (
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
-from monitor.store.versions import VersionRecord, list_versions
+from monitor.store.versions import list_versions
 from tests.report.conftest import LAST_DAY
 from tests.test_check import MODEL, World, _now
 
 
-def _versions(world: World) -> list[VersionRecord]:
+def _versions(world: World) -> list[Version]:
     with world.engine.connect() as conn:
         return list_versions(conn, get_model(conn, MODEL).id)
 
 
-def _statsmodels_fit(world: World, version: VersionRecord):
+def _statsmodels_fit(world: World, version: Version):
     with world.engine.connect() as conn:
         rows = load_observations(conn, get_model(conn, MODEL), version.fit_start,
                                  version.fit_end)
-    assert len(rows) == version.n
+    assert len(rows) == version.line.n
     return sm.OLS(rows.y, sm.add_constant(rows.x[:, 0])).fit()
 
 
@@ -53,8 +54,8 @@ def test_band_equals_statsmodels_prediction_interval(changed: World, number: int
     np.testing.assert_allclose(line.mean, frame["mean"], rtol=1e-9)
     np.testing.assert_allclose(line.lower, frame["obs_ci_lower"], rtol=1e-9)
     np.testing.assert_allclose(line.upper, frame["obs_ci_upper"], rtol=1e-9)
-    assert (line.fit_x_min, line.fit_x_max) == (float(version.x_min[0]),
-                                                float(version.x_max[0]))
+    assert (line.fit_x_min, line.fit_x_max) == (float(version.line.x_min[0]),
+                                                float(version.line.x_max[0]))
 
 
 def test_scatter_series_of_the_report(changed: World) -> None:
@@ -72,8 +73,8 @@ def test_scatter_series_of_the_report(changed: World) -> None:
     assert 0 < scatter.recent.sum() < len(scatter.recent)
     np.testing.assert_array_equal(scatter.x, rows.x[:, 0])
     grid = scatter.lines[0].x
-    assert grid.min() <= min(scatter.x.min(), data.active.x_min[0])
-    assert grid.max() >= max(scatter.x.max(), data.active.x_max[0])
+    assert grid.min() <= min(scatter.x.min(), data.active.line.x_min[0])
+    assert grid.max() >= max(scatter.x.max(), data.active.line.x_max[0])
 
 
 def test_coverage_series_equals_the_stored_checks_with_gaps(calm: World) -> None:
@@ -132,7 +133,7 @@ def test_residuals_match_the_checks_and_statsmodels(changed: World) -> None:
     z = (rows.y - prediction.predicted_mean) / prediction.se_obs
     np.testing.assert_allclose(series.z, z, rtol=1e-8, atol=1e-10)
     # the interval's edge in z units: Student's t quantile (scipy.stats as the reference)
-    t = stats.t.ppf(0.5 + version.level / 2, version.dof)
+    t = stats.t.ppf(0.5 + version.level / 2, version.line.dof)
     assert np.nanmax(np.abs(series.limit - t)) < 1e-12
     position = {d: i for i, d in enumerate(series.days)}
     for check in checks:

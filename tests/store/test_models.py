@@ -6,8 +6,9 @@ from datetime import UTC, datetime
 
 import pytest
 
+from monitor.domain.model import ModelSpec
 from monitor.errors import InputError, NotFoundError, StateError
-from monitor.store.models import ModelSpec, create_model, find_model, get_model, list_models
+from monitor.store.models import create_model, find_model, get_model, list_models
 
 NOW = datetime(2026, 3, 14, 12, tzinfo=UTC)
 LOADS = ModelSpec("loads", "load_minutes", ("pallets",), "docked_at", "load_id")

@@ -13,9 +13,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from monitor.domain.model import ModelSpec
 from monitor.stats.moments import DayMoments
 from monitor.store.batches import start_batch
-from monitor.store.models import ModelSpec, create_model
+from monitor.store.models import create_model
 from monitor.store.observations import (
     count_observations,
     insert_observations,

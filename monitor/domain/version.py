@@ -1,0 +1,215 @@
+"""Versions of a model: the fitted line a planner predicts with, and what the monitor knows of
+the process it was fitted on.
+
+A :class:`VersionDraft` is what a fit or an import produces; storing it gives a :class:`Version`
+(its number, state and the days it scores). Both are plain typed values with no SQL; the store
+turns them into rows and back in one place (``monitor.store.versions``).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from datetime import date, datetime
+from enum import StrEnum
+
+import numpy as np
+from numpy.typing import NDArray
+
+from monitor.stats.calibration import Calibration
+from monitor.stats.day_effects import DayEffects
+from monitor.stats.moments import DayMoments
+from monitor.stats.prediction import PredictionModel
+
+FloatArray = NDArray[np.float64]
+
+
+class VersionState(StrEnum):
+    ACTIVE = "active"  # scores the model's days now
+    CANDIDATE = "candidate"  # fitted by refit (or a later fit), not promoted
+    RETIRED = "retired"  # scored an earlier run of days
+
+
+class VersionSource(StrEnum):
+    FIT = "fit"
+    IMPORT = "import"
+
+
+@dataclass(frozen=True, eq=False)
+class Line:
+    """The fitted line: coefficients and everything a prediction interval needs."""
+
+    terms: tuple[str, ...]  # "intercept", then the predictors
+    coefficients: FloatArray
+    s: float
+    dof: int
+    level: float  # the interval level the version was fitted for
+    n: int | None = None
+    std_errors: FloatArray | None = None
+    covariance: FloatArray | None = None
+    xmean: FloatArray | None = None
+    slope_inverse: FloatArray | None = None  # (centred X'X of the predictors)^-1
+    x_min: FloatArray | None = None
+    x_max: FloatArray | None = None
+    r_squared: float | None = None
+    adj_r_squared: float | None = None
+    condition_number: float | None = None
+    tvalues: tuple[float, ...] | None = None
+    pvalues: tuple[float, ...] | None = None
+
+    @property
+    def k(self) -> int:
+        return len(self.terms) - 1
+
+    def prediction_model(self) -> PredictionModel:
+        k = self.k
+        lo = self.x_min if self.x_min is not None else np.full(k, -np.inf)
+        hi = self.x_max if self.x_max is not None else np.full(k, np.inf)
+        if self.slope_inverse is not None and self.xmean is not None and self.n:
+            return PredictionModel(self.terms, self.coefficients, self.s, self.dof, self.n,
+                                   self.xmean, self.slope_inverse, lo, hi)
+        return PredictionModel.from_covariance(self.terms, self.coefficients, self.s, self.dof,
+                                               self.covariance, lo, hi)
+
+    def coefficient_map(self, values: FloatArray | None = None) -> dict[str, float | None]:
+        """``{term: value}`` for the coefficients (or another array in the same order)."""
+        vals = self.coefficients if values is None else values
+        return {t: (float(v) if np.isfinite(v) else None)
+                for t, v in zip(self.terms, vals, strict=True)}
+
+
+@dataclass(frozen=True)
+class ChartCalibration:
+    """The bias chart's decision interval and what it promises (the stored form of
+    :class:`monitor.stats.calibration.Calibration`, without the bootstrap draws)."""
+
+    k: float
+    target_arl: float
+    guarantee: float
+    h: float
+    h_known: float  # the limit exact parameters would need
+    arl_known: float  # the ARL that ``h`` gives with exact parameters
+    draws: int
+    seed: int
+    calibrated: bool
+    reason: str = ""
+
+    @classmethod
+    def of(cls, c: Calibration) -> ChartCalibration:
+        return cls(k=c.k, target_arl=c.target_arl, guarantee=c.guarantee, h=c.h,
+                   h_known=c.h_known, arl_known=c.arl_known, draws=c.draws, seed=c.seed,
+                   calibrated=c.calibrated, reason=c.reason)
+
+    def matches(self, k: float, target_arl: float, guarantee: float) -> bool:
+        """Whether this calibration was made for these settings."""
+        return (self.k, self.target_arl, self.guarantee) == (k, target_arl, guarantee)
+
+
+@dataclass(frozen=True, eq=False)
+class Baseline:
+    """What the fit window says about the in-control process; the charts are calibrated on it.
+
+    ``reference`` holds the fit window's day statistics (None for an imported version, whose
+    window is not in the database); ``day_effects`` the variance components of its residuals.
+    """
+
+    tau2: float | None = None
+    sigma_w2: float | None = None
+    dispersion: float | None = None
+    day_effects: DayEffects | None = None
+    reference: DayMoments | None = None
+    calibration: ChartCalibration | None = None
+    fit_days: int | None = None  # days with rows in the fit window
+
+    def calibrated(self, calibration: Calibration) -> Baseline:
+        return replace(self, calibration=ChartCalibration.of(calibration))
+
+
+@dataclass(frozen=True, eq=False)
+class VersionDraft:
+    """A version before it is stored: the fit (or import) and its window."""
+
+    source: VersionSource
+    line: Line
+    baseline: Baseline
+    fit_start: date | None = None
+    fit_end: date | None = None
+    note: str | None = None
+    notes: tuple[str, ...] = ()  # caveats found while importing (missing covariance, ...)
+    imported_from: str | None = None
+
+    @property
+    def cusum_h(self) -> float | None:
+        c = self.baseline.calibration
+        return c.h if c else None
+
+
+@dataclass(frozen=True, eq=False)
+class Version:
+    """A stored version: the draft, its number, its state and the run of days it scores."""
+
+    id: int
+    model_id: int
+    number: int
+    state: VersionState
+    draft: VersionDraft
+    active_from: date | None
+    active_until: date | None
+    created_at: datetime
+    created_by: str | None = None
+
+    # what most callers read ------------------------------------------------------------
+    @property
+    def line(self) -> Line:
+        return self.draft.line
+
+    @property
+    def baseline(self) -> Baseline:
+        return self.draft.baseline
+
+    @property
+    def source(self) -> VersionSource:
+        return self.draft.source
+
+    @property
+    def fit_start(self) -> date | None:
+        return self.draft.fit_start
+
+    @property
+    def fit_end(self) -> date | None:
+        return self.draft.fit_end
+
+    @property
+    def note(self) -> str | None:
+        return self.draft.note
+
+    @property
+    def terms(self) -> tuple[str, ...]:
+        return self.line.terms
+
+    @property
+    def coefficients(self) -> FloatArray:
+        return self.line.coefficients
+
+    @property
+    def level(self) -> float:
+        return self.line.level
+
+    @property
+    def k(self) -> int:
+        return self.line.k
+
+    @property
+    def cusum_h(self) -> float | None:
+        return self.draft.cusum_h
+
+    def prediction_model(self) -> PredictionModel:
+        return self.line.prediction_model()
+
+    def scores_day(self, day: date) -> bool:
+        if self.active_from is None or day < self.active_from:
+            return False
+        return self.active_until is None or day <= self.active_until
+
+    def copied(self, note: str) -> VersionDraft:
+        """This version's fit as a new draft (a rollback stores such a copy)."""
+        return replace(self.draft, note=note)

@@ -1,0 +1,141 @@
+"""Read-only views of versions: ``model show``, ``model list`` and the version documents that
+``model fit``, ``refit`` and ``compare`` print."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import date
+from typing import Any
+
+from sqlalchemy import Engine
+
+from monitor.config import Settings
+from monitor.domain.model import ModelSpec
+from monitor.domain.phrasing import fmt, percent
+from monitor.domain.version import Version, VersionSource, VersionState
+from monitor.errors import StateError
+from monitor.store.access import database
+from monitor.store.checks import last_check
+from monitor.store.models import get_model, list_models
+from monitor.store.versions import active_version, get_version, list_versions
+
+
+def version_document(model: ModelSpec, version: Version) -> dict[str, Any]:
+    """The JSON document of a version (``model show --json`` and inside others)."""
+    return VersionView(model, version).as_dict()
+
+
+@dataclass(frozen=True, eq=False)
+class VersionView:
+    model: ModelSpec
+    version: Version
+
+    def as_dict(self) -> dict[str, Any]:
+        v, m = self.version, self.model
+        line, base = v.line, v.baseline
+        cal = base.calibration
+        return {
+            "model": m.name, "version": v.number, "state": v.state, "source": v.source,
+            "response": m.response, "predictors": list(m.predictors),
+            "coefficients": line.coefficient_map(),
+            "std_errors": (line.coefficient_map(line.std_errors)
+                           if line.std_errors is not None else None),
+            "s": line.s, "dof": line.dof, "r_squared": line.r_squared,
+            "adj_r_squared": line.adj_r_squared, "n": line.n, "level": line.level,
+            "condition_number": line.condition_number,
+            "fit_window": [v.fit_start, v.fit_end], "active_from": v.active_from,
+            "active_until": v.active_until,
+            "ranges": None if line.x_min is None or line.x_max is None else {
+                name: [float(lo), float(hi)]
+                for name, lo, hi in zip(m.predictors, line.x_min, line.x_max, strict=True)},
+            "day_effects": {"tau2": base.tau2, "sigma_w2": base.sigma_w2,
+                            "present": None if base.day_effects is None
+                            else base.day_effects.present()},
+            "dispersion": base.dispersion,
+            "cusum": {"k": cal.k if cal else None, "h": cal.h if cal else None,
+                      "target_arl": cal.target_arl if cal else None,
+                      "guarantee": cal.guarantee if cal else None,
+                      "h_known": cal.h_known if cal else None,
+                      "arl_known": cal.arl_known if cal else None,
+                      "calibrated": cal.calibrated if cal else None},
+            "notes": list(v.draft.notes),
+            "created_at": v.created_at, "created_by": v.created_by, "note": v.note,
+        }
+
+    def text(self) -> str:
+        d = self.as_dict()
+        v = self.version
+        line, base = v.line, v.baseline
+        origin = ", imported" if v.source == VersionSource.IMPORT else ""
+        lines = [f"{d['model']} version {v.number} ({v.state}{origin})",
+                 f"  {self.model.response} = " + " + ".join(
+                     f"{fmt(val, 4)}" + ("" if term == "intercept" else f" × {term}")
+                     for term, val in d["coefficients"].items())]
+        if d["std_errors"]:
+            lines.append("  standard errors: " + ", ".join(
+                f"{t} {fmt(se, 3)}" for t, se in d["std_errors"].items()))
+        rows = f" from {line.n:,} rows" if line.n else ""
+        fit = f", explains {percent(line.r_squared, 1)} of the variation" \
+            if line.r_squared is not None else ""
+        lines.append(f"  typical scatter around the line {fmt(line.s, 4)}{rows}{fit}")
+        if v.fit_start:
+            lines.append(f"  fit window {v.fit_start} .. {v.fit_end}")
+        if v.active_from:
+            until = f" through {v.active_until}" if v.active_until else ""
+            lines.append(f"  scores days from {v.active_from}{until}")
+        if base.tau2 is not None and base.sigma_w2 is not None:
+            lines.append(f"  day-to-day sd {fmt(base.tau2 ** 0.5, 3)}, within-day sd "
+                         f"{fmt(base.sigma_w2 ** 0.5, 3)}")
+        cal = base.calibration
+        if cal is not None:
+            promise = (f"held with probability {fmt(cal.guarantee, 2)}" if cal.calibrated
+                       else f"with the fitted values taken as exact: {cal.reason}")
+            lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
+                         f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
+        lines.extend(f"  note: {note}" for note in v.draft.notes)
+        return "\n".join(lines)
+
+
+def show_version(settings: Settings, name: str, number: int | None = None, *,
+                 engine: Engine | None = None) -> VersionView:
+    with database(settings, engine) as db, db.connect() as conn:
+        model = get_model(conn, name)
+        if number is None:
+            version = active_version(conn, model.id)
+            if version is None:
+                versions = list_versions(conn, model.id)
+                if not versions:
+                    raise StateError(f"model '{name}' has no fitted version yet")
+                version = versions[-1]
+        else:
+            version = get_version(conn, model.id, number, model_name=name)
+    return VersionView(model, version)
+
+
+@dataclass(frozen=True)
+class ModelLine:
+    name: str
+    formula: str
+    active_version: int | None
+    versions: int
+    status: str | None
+    last_checked_day: date | None
+
+    def as_dict(self) -> dict[str, Any]:
+        return {"model": self.name, "formula": self.formula,
+                "active_version": self.active_version, "versions": self.versions,
+                "status": self.status, "last_checked_day": self.last_checked_day}
+
+
+def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
+    out = []
+    with database(settings, engine) as db, db.connect() as conn:
+        for model in list_models(conn):
+            versions = list_versions(conn, model.id)
+            active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
+            last = last_check(conn, model.id)
+            out.append(ModelLine(model.name,
+                                 f"{model.response} ~ {' + '.join(model.predictors)}",
+                                 active.number if active else None, len(versions),
+                                 last.status if last else None, last.day if last else None))
+    return out

@@ -1,0 +1,107 @@
+"""What scoring days against one version needs, built once per version from its baseline.
+
+The prediction model, the fit window's day statistics, the bias chart's design and limit, and
+the in-control law of interval misses; for an imported version (whose fit window is not stored)
+a design from what the import gave.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import date, timedelta
+
+import numpy as np
+
+from monitor.config import CheckSettings
+from monitor.domain.version import Version, VersionDraft
+from monitor.stats.calibration import ChartDesign, calibrate_h
+from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
+from monitor.stats.moments import DayMoments, Moments
+from monitor.stats.ols import fit_moments
+from monitor.stats.prediction import PredictionModel
+
+
+@dataclass(frozen=True, eq=False)
+class VersionContext:
+    """What scoring a day against one version needs; built once per version and run."""
+
+    version: Version
+    model: PredictionModel
+    reference_days: DayMoments  # the fit window's day statistics, frozen at fit time
+    design: ChartDesign
+    h: float
+    day_effects: bool  # the fit window showed day effects: decide slopes with the CR1 test
+    sigma_w2: float | None
+    within_df: int | None
+    dispersion: float
+    misses: GuardedMissLaw  # the in-control law of interval misses under day effects
+    first_recent_day: date  # the recent window never reaches into the fit window
+
+    @property
+    def reference(self) -> Moments:
+        return self.reference_days.total()
+
+    @classmethod
+    def build(cls, version: Version, settings: CheckSettings) -> VersionContext:
+        """The scoring context of a stored version under the current check settings."""
+        base = version.baseline
+        effects = base.day_effects
+        if base.reference is not None and effects is not None:
+            reference = base.reference
+            fit = fit_moments(reference.total(), version.terms[1:])
+            design = ChartDesign.from_fit(fit, reference, effects)
+        else:
+            reference = DayMoments.empty(version.k + 1)
+            design = imported_design(version)
+        stored = base.calibration
+        if stored is not None and stored.matches(settings.cusum_k, settings.cusum_arl_days,
+                                                 settings.guarantee):
+            h = stored.h
+        else:
+            h = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
+                            guarantee=settings.guarantee).h
+        first_recent = (version.fit_end + timedelta(days=1) if version.fit_end
+                        else version.active_from)
+        assert first_recent is not None
+        model = version.prediction_model()
+        half_width = model.critical_value(version.level) * model.s
+        if effects is not None:
+            misses = GuardedMissLaw.around(effects.tau2, effects.sigma_w2, half_width,
+                                           spread_uncertainty(effects), settings.guarantee)
+        else:  # fitted elsewhere: the day effects given at import, else none
+            misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
+                                           1.0 / np.sqrt(2.0 * version.line.dof),
+                                           settings.guarantee)
+        return cls(version=version, model=model, reference_days=reference,
+                   design=design, h=float(h),
+                   day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
+                   sigma_w2=effects.sigma_w2 if effects else base.sigma_w2,
+                   within_df=effects.df_within if effects else None,
+                   dispersion=base.dispersion or 1.0, misses=misses,
+                   first_recent_day=first_recent)
+
+
+def imported_design(version: Version | VersionDraft) -> ChartDesign:
+    """A chart design for a version fitted elsewhere (no day statistics of its fit window).
+
+    Day effects are those given at import (none by default). With a covariance matrix the
+    coefficients' uncertainty enters the standardization as usual; without one it is unknown
+    and left out (the slope block is made so large that its inverse vanishes).
+    """
+    line, base = version.line, version.baseline
+    model = line.prediction_model()
+    k = line.k
+    a = np.zeros((k + 1, k + 1))
+    if model.has_leverage and model.n and model.slope_inverse is not None:
+        a[0, 0] = model.n
+        a[1:, 1:] = np.linalg.inv(model.slope_inverse)
+        xmean = model.xmean if model.xmean is not None else np.zeros(k)
+    else:
+        a[0, 0] = line.dof + k + 1
+        a[1:, 1:] = np.eye(k) * 1e200
+        xmean = np.zeros(k)
+    tau2 = base.tau2 or 0.0
+    sigma_w2 = base.sigma_w2 if base.sigma_w2 else max(model.s**2 - tau2, 0.0)
+    return ChartDesign(counts=np.zeros(0), rows=np.zeros((0, k + 1)), a=a,
+                       b=np.zeros((k + 1, k + 1)), xmean=xmean, tau2=tau2, sigma_w2=sigma_w2,
+                       n0=1.0, n_rows=int(a[0, 0]), n_days=0)
