@@ -37,8 +37,9 @@ class CheckSettings:
     guarantee: float = 0.95
     cusum_unit: str = "day"
     refit_pvalue: float = 0.001
-    watch_pvalue: float = 0.01
-    watch_cusum_fraction: float = 0.5
+    watch_pvalue: float = 0.002
+    watch_cusum_fraction: float = 0.75
+    watch_clear_days: int = 3  # days in a row without a finding before watch returns to ok
     day_effects_alpha: float = 0.05
     min_fit_days: int = 5
 

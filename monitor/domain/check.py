@@ -40,6 +40,9 @@ class CheckState:
     upper: SideRun = field(default_factory=SideRun)
     lower: SideRun = field(default_factory=SideRun)
     fresh_from: date | None = None  # windows count days from here (the last restart), if set
+    last_u: float | None = None  # the latest standardized day mean (the chart prewhitens by it)
+    day_spread: float | None = None  # this day's log day spread (the robust spread test's unit)
+    clean_days: int = 0  # days in a row without a finding, up to this one
 
 
 @dataclass(frozen=True)
@@ -49,6 +52,7 @@ class CoverageDay:
     day: date
     rows: int
     covered: int
+    spread: float | None = None  # log day spread (monitor.stats.diagnosis.day_spread)
 
 
 @dataclass(frozen=True)
@@ -75,14 +79,17 @@ class Carry:
     def fresh_from(self) -> date | None:
         return self.state.fresh_from
 
-    def restarted(self, day: date) -> Carry:
+    def restarted(self, day: date, *, same_version: bool = False) -> Carry:
         """Everything starts afresh on ``day`` (a promotion or an acknowledgement takes effect).
 
         The CUSUM is back at zero, a held refit is released, the status starts anew (its
         "since" is the restart day at the earliest), and the coverage and test windows count
-        only days from ``day``: evidence that was acted upon is not counted twice.
+        only days from ``day``: evidence that was acted upon is not counted twice. Under the
+        same version (an acknowledgement) the chart's prewhitening still knows yesterday's day
+        mean; a new version starts without it.
         """
-        return Carry(CheckState(fresh_from=day), Status.OK, None, ())
+        last_u = self.state.last_u if same_version else None
+        return Carry(CheckState(fresh_from=day, last_u=last_u), Status.OK, None, ())
 
 
 @dataclass(frozen=True)
@@ -162,7 +169,7 @@ class DayCheck:
 
     @property
     def coverage_day(self) -> CoverageDay:
-        return CoverageDay(self.day, self.n, self.covered)
+        return CoverageDay(self.day, self.n, self.covered, self.state.day_spread)
 
     @property
     def cusum_value(self) -> float:

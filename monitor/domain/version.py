@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 
 from monitor.stats.calibration import Calibration
 from monitor.stats.day_effects import DayEffects
+from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
 from monitor.stats.prediction import PredictionModel
 
@@ -119,6 +120,7 @@ class Baseline:
     reference: DayMoments | None = None
     calibration: ChartCalibration | None = None
     fit_days: int | None = None  # days with rows in the fit window
+    diagnosis: FitDiagnosis | None = None  # the fit window's departures (None: imported)
 
     def calibrated(self, calibration: Calibration) -> Baseline:
         return replace(self, calibration=ChartCalibration.of(calibration))

@@ -3,17 +3,19 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import date
 from typing import Any
 
 from sqlalchemy import Engine
 
-from monitor.config import Settings
+from monitor.config import Settings, Wording
+from monitor.domain.codec import encode
 from monitor.domain.model import ModelSpec
 from monitor.domain.phrasing import fmt, percent
 from monitor.domain.version import Version, VersionSource, VersionState
 from monitor.errors import StateError
+from monitor.monitoring.wording import WindowFinding, window_findings
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
@@ -29,6 +31,7 @@ def version_document(model: ModelSpec, version: Version) -> dict[str, Any]:
 class VersionView:
     model: ModelSpec
     version: Version
+    words: Wording = field(default_factory=Wording)
 
     def as_dict(self) -> dict[str, Any]:
         v, m = self.version, self.model
@@ -58,6 +61,10 @@ class VersionView:
                       "h_known": cal.h_known if cal else None,
                       "arl_known": cal.arl_known if cal else None,
                       "calibrated": cal.calibrated if cal else None},
+            "fit_window_findings": [
+                {"topic": f.topic, "found": f.found, "text": f.text}
+                for f in self.findings()],
+            "fit_window_tests": encode(base.diagnosis) if base.diagnosis else None,
             "notes": list(v.draft.notes),
             "created_at": v.created_at, "created_by": v.created_by, "note": v.note,
         }
@@ -92,8 +99,21 @@ class VersionView:
                        else f"with the fitted values taken as exact: {cal.reason}")
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
                          f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
+        found = [f for f in self.findings() if f.found]
+        if found:
+            lines.append("  the fit window shows:")
+            lines.extend(f"    - {f.text}" for f in found)
+        elif base.diagnosis is not None:
+            lines.append("  the fit window shows no persistence, weekday rhythm, spread growing "
+                         "with the predictors or excess outliers")
         lines.extend(f"  note: {note}" for note in v.draft.notes)
         return "\n".join(lines)
+
+    def findings(self) -> list[WindowFinding]:
+        d = self.version.baseline.diagnosis
+        if d is None:
+            return []
+        return window_findings(d, self.words, self.model.response, self.model.predictors)
 
 
 def show_version(settings: Settings, name: str, number: int | None = None, *,
@@ -109,7 +129,7 @@ def show_version(settings: Settings, name: str, number: int | None = None, *,
                 version = versions[-1]
         else:
             version = get_version(conn, model.id, number, model_name=name)
-    return VersionView(model, version)
+    return VersionView(model, version, settings.for_model(name).words)
 
 
 @dataclass(frozen=True)

@@ -29,9 +29,10 @@ from monitor.domain.version import (
 )
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
-from monitor.stats.calibration import Calibration, ChartDesign, calibrate_h
+from monitor.stats.calibration import Calibration, ChartDesign, Persistence, calibrate_h
 from monitor.stats.coverage import miss_dispersion
 from monitor.stats.day_effects import DayEffects, day_effects_of_fit
+from monitor.stats.diagnosis import FitDiagnosis, diagnose
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit, fit_ols
 from monitor.stats.prediction import PredictionModel
@@ -54,6 +55,7 @@ class FittedVersion:
     days: DayMoments
     first_day: date
     last_day: date
+    diagnosis: FitDiagnosis | None = None
 
     def draft(self, level: float) -> VersionDraft:
         """The version this fit makes, ready to store."""
@@ -68,7 +70,7 @@ class FittedVersion:
         baseline = Baseline(tau2=e.tau2, sigma_w2=e.sigma_w2, dispersion=self.dispersion,
                             day_effects=e, reference=self.days,
                             calibration=ChartCalibration.of(self.calibration),
-                            fit_days=len(self.days))
+                            fit_days=len(self.days), diagnosis=self.diagnosis)
         return VersionDraft(source=VersionSource.FIT, line=line, baseline=baseline,
                             fit_start=self.first_day, fit_end=self.last_day)
 
@@ -88,12 +90,23 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
     scores = PredictionModel.from_fit(fit).score(x, y, level)
     misses = DayMoments.from_rows(days, (~scores.inside).astype(np.float64)[:, None])
     dispersion = miss_dispersion(misses.n, misses.mean[:, 0] * misses.n)
-    design = ChartDesign.from_fit(fit, table, effects)
+    diagnosis = diagnose_window(fit, table, days, x, y, effects, float(scores.inside.mean()))
+    design = ChartDesign.from_fit(fit, table, effects, Persistence.of(diagnosis))
     calibration = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
                               guarantee=settings.guarantee)
     first = as_date(table.days[0])
     last = as_date(table.days[-1])
-    return FittedVersion(fit, effects, dispersion, calibration, table, first, last)
+    return FittedVersion(fit, effects, dispersion, calibration, table, first, last, diagnosis)
+
+
+def diagnose_window(fit: OLSFit, table: DayMoments, days: np.ndarray, x: np.ndarray,
+                    y: np.ndarray, effects: DayEffects, covered: float) -> FitDiagnosis:
+    """The fit window's departures from the textbook model (:mod:`monitor.stats.diagnosis`)."""
+    day_index = np.searchsorted(np.asarray(table.days, dtype="datetime64[D]"),
+                                np.asarray(days, dtype="datetime64[D]"))
+    weekdays = [as_date(d).weekday() for d in table.days]
+    resid = y - fit.coef[0] - x @ fit.coef[1:]
+    return diagnose(resid, day_index, weekdays, x, effects.tau2, effects.sigma_w2, covered)
 
 
 @dataclass(frozen=True)

@@ -17,7 +17,7 @@ from datetime import UTC, date, datetime, timedelta
 
 from sqlalchemy import Connection, Engine
 
-from monitor.config import ModelSettings, Settings
+from monitor.config import CheckSettings, ModelSettings, Settings
 from monitor.domain.check import Carry, DayCheck
 from monitor.domain.days import local_day
 from monitor.domain.model import ModelRecord
@@ -166,7 +166,7 @@ def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
                  now: datetime) -> list[DayCheck]:
     """Load what the days ``first..last`` need (one query each), then walk them."""
     cs = settings.check
-    carry = _carry_before(conn, model, first, cs.coverage_window_days)
+    carry = _carry_before(conn, model, first, carried_days(cs))
     obs = load_observations(conn, model, first, last)
     stats_from = first - timedelta(days=max(cs.test_window_days - 1, HISTORY_DAYS))
     stored = load_day_stats(conn, model, stats_from, last)
@@ -177,6 +177,11 @@ def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
     subject = Subject(model.id, model.name, model.response, settings)
     checks, _ = walk(subject, versions, timeline, first, last, carry, now=now, resets=resets)
     return checks
+
+
+def carried_days(settings: CheckSettings) -> int:
+    """How many days back the carry keeps (the coverage window and the spread test's)."""
+    return max(settings.coverage_window_days, settings.test_window_days)
 
 
 def _carry_before(conn: Connection, model: ModelRecord, day: date, window: int) -> Carry:

@@ -11,13 +11,21 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 import numpy as np
+from scipy import stats
 
 from monitor.config import CheckSettings
 from monitor.domain.version import Version, VersionDraft
-from monitor.stats.calibration import ChartDesign, calibrate_h
+from monitor.stats.calibration import (
+    ChartDesign,
+    Persistence,
+    calibrate_h,
+    shock_persistence,
+)
+from monitor.stats.diagnosis import MAX_PERSISTENCE
 from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
+from monitor.stats.persistent_misses import PersistentMissLaw
 from monitor.stats.prediction import PredictionModel
 
 
@@ -34,7 +42,7 @@ class VersionContext:
     sigma_w2: float | None
     within_df: int | None
     dispersion: float
-    misses: GuardedMissLaw  # the in-control law of interval misses under day effects
+    misses: PersistentMissLaw  # the in-control law of interval misses under day effects
     first_recent_day: date  # the recent window never reaches into the fit window
 
     @property
@@ -49,7 +57,8 @@ class VersionContext:
         if base.reference is not None and effects is not None:
             reference = base.reference
             fit = fit_moments(reference.total(), version.terms[1:])
-            design = ChartDesign.from_fit(fit, reference, effects)
+            design = ChartDesign.from_fit(fit, reference, effects,
+                                          Persistence.of(base.diagnosis))
         else:
             reference = DayMoments.empty(version.k + 1)
             design = imported_design(version)
@@ -65,9 +74,16 @@ class VersionContext:
         assert first_recent is not None
         model = version.prediction_model()
         half_width = model.critical_value(version.level) * model.s
+        phi_a = shock_persistence(_guarded_persistence(design, settings.guarantee), design.tau2,
+                                  design.sigma_w2, design.counts)
         if effects is not None:
+            # persistent shocks make the spread's estimate less certain: the variance of a
+            # sample variance of an AR(1) series is (1 + phi²)/(1 - phi²) times larger
+            # (Bartlett 1946, from memory)
+            inflate = np.sqrt((1 + phi_a**2) / (1 - phi_a**2))
             misses = GuardedMissLaw.around(effects.tau2, effects.sigma_w2, half_width,
-                                           spread_uncertainty(effects), settings.guarantee)
+                                           spread_uncertainty(effects) * inflate,
+                                           settings.guarantee)
         else:  # fitted elsewhere: the day effects given at import, else none
             misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
                                            1.0 / np.sqrt(2.0 * version.line.dof),
@@ -77,8 +93,20 @@ class VersionContext:
                    day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
                    sigma_w2=effects.sigma_w2 if effects else base.sigma_w2,
                    within_df=effects.df_within if effects else None,
-                   dispersion=base.dispersion or 1.0, misses=misses,
+                   dispersion=base.dispersion or 1.0,
+                   misses=PersistentMissLaw(misses, phi_a),
                    first_recent_day=first_recent)
+
+
+def _guarded_persistence(design: ChartDesign, guarantee: float) -> float:
+    """The persistence the coverage law assumes: when the fit window showed persistence, its
+    estimate raised to the ``guarantee`` quantile of its sampling law ``N(phi, (1 - phi²)/G)``
+    (Bartlett 1946, from memory), as the spread is; else the bias-corrected estimate."""
+    phi = design.phi_true
+    if design.phi <= 0 or design.n_days < 3:
+        return phi
+    se = float(np.sqrt((1 - phi**2) / design.n_days))
+    return float(min(phi + stats.norm.ppf(guarantee) * se, MAX_PERSISTENCE))
 
 
 def imported_design(version: Version | VersionDraft) -> ChartDesign:

@@ -26,11 +26,12 @@ from monitor.domain.check import (
     SupFSummary,
 )
 from monitor.domain.days import as_date
+from monitor.domain.phrasing import percent
 from monitor.domain.status import Status
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
 from monitor.monitoring.context import VersionContext
 from monitor.monitoring.wording import Figures, reasons_for
-from monitor.stats.calibration import standardize_days
+from monitor.stats.calibration import prewhiten, standardize_days
 from monitor.stats.change import (
     FTest,
     SupF,
@@ -44,11 +45,13 @@ from monitor.stats.change import (
 from monitor.stats.cusum import tabular_cusum
 from monitor.stats.day_effects import day_residuals
 from monitor.stats.decision import Evidence, Policy, Verdict, decide
+from monitor.stats.diagnosis import day_spread, robust_spread_test
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.spread import SpreadTest, spread_test
 
 FloatArray = NDArray[np.float64]
+MIN_SPREAD_DAYS = 5  # fit days with a day spread below which the classical spread test is kept
 
 
 @dataclass(frozen=True, eq=False)
@@ -84,13 +87,16 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
 
     # coverage over the rolling window, then the bias CUSUM ------------------------------
     window = settings.coverage_window_days
-    recent_cov = (*(c for c in carry.coverage_days if (data.day - c.day).days < window),
-                  CoverageDay(data.day, n, covered))
+    today = CoverageDay(data.day, n, covered, day_spread(residuals) if n else None)
+    kept = max(window, settings.test_window_days)
+    carried = (*(c for c in carry.coverage_days if (data.day - c.day).days < kept), today)
+    recent_cov = tuple(c for c in carried if (data.day - c.day).days < window)
     w_rows = sum(c.rows for c in recent_cov)
     w_cov = sum(c.covered for c in recent_cov)
     cov = (ctx.misses.test([c.rows for c in recent_cov], w_cov, level, ctx.dispersion)
            if w_rows else None)
-    carry = replace(carry, coverage_days=recent_cov)
+    carry = replace(carry, coverage_days=carried,
+                    state=replace(carry.state, day_spread=today.spread))
     cusum_u, carry = _step_cusum(ctx, carry, data, residuals, settings)
     state = carry.state.cusum
     lead = _Leading.of(carry.state, settings.cusum_k)
@@ -98,8 +104,10 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     # slope, change date, spread over the recent window ------------------------------------
     with _quiet() as notes:
         slope, chow, classic, predictive, supf, recent_fit = _change_tests(ctx, data.recent_days)
-        spread = _spread(ctx, data.recent_days)
+        spread = _spread(ctx, data.recent_days, carried, settings.test_window_days)
 
+    if cov is not None and cov.pvalue_high < settings.watch_pvalue:
+        notes.append(_wider_than_needed(ctx, cov.coverage, window))
     evidence = Evidence(
         coverage_pvalue_low=cov.pvalue_low if cov else float("nan"),
         coverage_pvalue_high=cov.pvalue_high if cov else float("nan"),
@@ -109,6 +117,12 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     )
     policy = Policy(settings.refit_pvalue, settings.watch_pvalue, settings.watch_cusum_fraction)
     verdict = decide(evidence, policy, refit_held=carry.status == Status.REFIT)
+    clean = carry.state.clean_days + 1 if not verdict.findings else 0
+    watch_held = (verdict.status == Status.OK and carry.status == Status.WATCH
+                  and clean < settings.watch_clear_days)
+    if watch_held:
+        verdict = replace(verdict, status=Status.WATCH)
+    carry = replace(carry, state=replace(carry.state, clean_days=clean))
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
@@ -135,6 +149,9 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         held_since=carry.status_since if verdict.held else None,
     )
     reasons = reasons_for(verdict, figures, words, response)
+    if watch_held:
+        reasons.insert(0, f"Still on watch: back to ok after {settings.watch_clear_days} days in "
+                          f"a row without a finding ({clean} so far)")
     carry = replace(carry, status=verdict.status, status_since=since)
     check = DayCheck(
         model_id=model_id, day=data.day, version_id=ctx.version.id,
@@ -196,11 +213,15 @@ def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: Fl
     n = len(residuals)
     if n == 0:
         return None, carry  # an empty day does not move the chart
+    before = carry.state
+    last_u = before.last_u
     if settings.cusum_unit == "observation":
         u = standardize_days(residuals, np.ones(n), data.x, ctx.design)
     else:
-        u = standardize_days([residuals.mean()], [n], data.x.mean(axis=0)[None, :], ctx.design)
-    before = carry.state
+        day_u = standardize_days([residuals.mean()], [n], data.x.mean(axis=0)[None, :],
+                                 ctx.design)
+        last_u = float(day_u[0])
+        u = np.array([prewhiten(last_u, before.last_u, ctx.design.phi)])
     path = tabular_cusum(u, settings.cusum_k, ctx.h, before.cusum)
     after = path.state
     total, steps = float(residuals.sum()), len(u)
@@ -208,7 +229,7 @@ def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: Fl
                         total, n)
     lower = _run_update(before.lower, before.cusum.lower_run, after.lower_run, steps, data.day,
                         total, n)
-    state = replace(before, cusum=after, upper=upper, lower=lower)
+    state = replace(before, cusum=after, upper=upper, lower=lower, last_u=last_u)
     return float(u[-1]) if len(u) == 1 else float(np.mean(u)), replace(carry, state=state)
 
 
@@ -281,11 +302,34 @@ def _slopes(window: Moments) -> FloatArray | None:
         return None
 
 
-def _spread(ctx: VersionContext, recent: DayMoments) -> SpreadTest | None:
+def _spread(ctx: VersionContext, recent: DayMoments, days: tuple[CoverageDay, ...],
+            window: int) -> SpreadTest | None:
+    """The spread figures: the classical ratio always; the test on day spreads against the fit
+    window's when the version has them (robust to heavy tails), else the variance-ratio F."""
     if int(np.asarray(recent.n).sum()) == 0:
         return None
     resid = day_residuals(recent, ctx.version.coefficients)
-    return spread_test(resid, ctx.model.s, ctx.model.dof, ctx.sigma_w2, ctx.within_df)
+    classical = spread_test(resid, ctx.model.s, ctx.model.dof, ctx.sigma_w2, ctx.within_df)
+    diagnosis = ctx.version.baseline.diagnosis
+    if diagnosis is None or len(diagnosis.day_spreads) < MIN_SPREAD_DAYS:
+        return classical
+    last = days[-1].day
+    fresh = [c.spread for c in days if c.spread is not None and (last - c.day).days < window]
+    robust = robust_spread_test(fresh, diagnosis.day_spreads)
+    if robust is None:
+        return classical
+    return SpreadTest(robust.ratio, robust.statistic, robust.df, float("inf"),
+                      robust.pvalue, robust.pvalue_narrower, "day spreads")
+
+
+def _wider_than_needed(ctx: VersionContext, coverage: float, window: int) -> str:
+    """The notice for a window that covers more often than the in-control law expects."""
+    diagnosis = ctx.version.baseline.diagnosis
+    own = (f"; the fit window itself covered {percent(diagnosis.fit_coverage)}"
+           if diagnosis is not None else "")
+    return (f"intervals are wider than needed: {percent(coverage)} of the last {window} days' "
+            f"rows fell inside{own}. Reported only: it does not change the status (heavy "
+            "tails or outliers at fit time make intervals wide for the other rows)")
 
 
 def _details(verdict: Verdict, slope: FTest | None, classic: FTest | None,

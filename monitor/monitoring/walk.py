@@ -110,7 +110,7 @@ def walk(subject: Subject, versions: Sequence[Version], timeline: Timeline, firs
             took_over = (previous is not None and previous != version.id) \
                 or version.active_from == day
             if took_over or day in resets or (acknowledge_refits and carry.status == Status.REFIT):
-                carry = carry.restarted(day)
+                carry = carry.restarted(day, same_version=not took_over)
             previous = version.id
             data = timeline.day_input(day, ctx, cs.test_window_days, carry.fresh_from)
             check, carry = evaluate_day(ctx, carry, data, cs, subject.settings.words,

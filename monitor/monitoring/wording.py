@@ -14,6 +14,7 @@ from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
+from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.spread import SpreadTest
 
 
@@ -78,7 +79,7 @@ def _bias(finding: Finding, f: Figures, words: Wording, response: str) -> str:
     if finding.level == "refit":
         return (f"{lead}; the bias chart stands at {fmt(f.cusum_value, 2)}, over its limit of "
                 f"{fmt(f.h, 2)}")
-    return (f"{lead}; the bias chart stands at {fmt(f.cusum_value, 2)}, past half its limit of "
+    return (f"{lead}; the bias chart stands at {fmt(f.cusum_value, 2)}, nearing its limit of "
             f"{fmt(f.h, 2)}")
 
 
@@ -131,3 +132,70 @@ def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> 
 
 def _capital(text: str) -> str:
     return text[:1].upper() + text[1:] if text else text
+
+
+WINDOW_ALPHA = 0.01  # a fit-window finding is reported below this p-value
+_WEEKDAYS = ("Mondays", "Tuesdays", "Wednesdays", "Thursdays", "Fridays", "Saturdays",
+             "Sundays")
+
+
+@dataclass(frozen=True)
+class WindowFinding:
+    """One question asked of the fit window, answered in plain words."""
+
+    topic: str  # persistence | weekday | spread_with_x | tails
+    found: bool
+    text: str
+
+
+def window_findings(d: FitDiagnosis, words: Wording, response: str,
+                    predictors: tuple[str, ...]) -> list[WindowFinding]:
+    """What the fit window shows beyond the textbook model, and what the monitor does about it."""
+    out = []
+    lb = d.persistence_test
+    if d.chart_persistence() > 0:
+        out.append(WindowFinding("persistence", True, (
+            f"day shocks carry over to the next day (r = {fmt(d.persistence, 2)}): the bias "
+            "chart and the coverage test allow for it, so a run of high days is not taken "
+            "for a change as readily")))
+    else:
+        out.append(WindowFinding("persistence", False, (
+            f"day shocks look independent from one day to the next (r = "
+            f"{fmt(d.persistence, 2)}; all lags to {int(lb.df[0]) if lb.df else 0}: "
+            f"{fmt_p(lb.pvalue)})")))
+    wd = d.weekday_test
+    if wd.significant(WINDOW_ALPHA):
+        effects = [(abs(v), i, v) for i, v in enumerate(d.weekday_effects) if v is not None]
+        parts = [f"{_WEEKDAYS[i]} run {_amount(v, words, response)} "
+                 f"{'above' if v > 0 else 'below'} plan"
+                 for _, i, v in sorted(effects, reverse=True)[:2]]
+        out.append(WindowFinding("weekday", True, (
+            "; ".join(parts) + f" (weekday test {fmt_p(wd.pvalue)}): the monitor counts this "
+            "rhythm as day-to-day variation, which widens its limits and slows detection; "
+            "consider a weekday predictor")))
+    else:
+        out.append(WindowFinding("weekday", False,
+                                 f"no weekday rhythm in the day residuals ({fmt_p(wd.pvalue)})"))
+    sx = d.spread_x_test
+    if sx.significant(WINDOW_ALPHA):
+        names = " and ".join(predictors)
+        out.append(WindowFinding("spread_with_x", True, (
+            f"the scatter changes with {names} ({fmt_p(sx.pvalue)}): intervals are too narrow "
+            "where it is large and too wide where it is small; the spread test compares days "
+            "with the fit window's own days, so this is not taken for a change")))
+    else:
+        out.append(WindowFinding("spread_with_x", False,
+                                 f"the scatter does not change with the predictors "
+                                 f"({fmt_p(sx.pvalue)})"))
+    if d.tail_pvalue < WINDOW_ALPHA:
+        out.append(WindowFinding("tails", True, (
+            f"{percent(d.tail_share, 2)} of {words.rows} lie beyond 4 typical deviations "
+            f"(normal scatter: 0.01 %); without them the within-day scatter is "
+            f"{fmt(d.robust_sd, 3)} instead of {fmt(d.classical_sd, 3)}. Intervals are wider "
+            "than needed for most rows: the monitor reports that without raising the status, "
+            "and its spread test uses day medians")))
+    else:
+        out.append(WindowFinding("tails", False, (
+            f"no excess of outlying {words.rows} (robust within-day scatter "
+            f"{fmt(d.robust_sd, 3)}, classical {fmt(d.classical_sd, 3)})")))
+    return out

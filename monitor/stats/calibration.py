@@ -32,10 +32,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import stats
 
 from monitor.errors import DegenerateDataError
 from monitor.stats.arl import cusum_arl, solve_h, solve_h_many
 from monitor.stats.day_effects import DayEffects
+from monitor.stats.diagnosis import MAX_PERSISTENCE, PERSISTENCE_ALPHA, FitDiagnosis
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit
 
@@ -62,6 +64,8 @@ class ChartDesign:
     n0: float
     n_rows: int
     n_days: int
+    phi: float = 0.0  # lag-1 correlation of the chart's standardized day means (prewhitened)
+    phi_true: float = 0.0  # the persistence the bootstrap takes as the truth
     a_inv: FloatArray = field(init=False, repr=False)
     sandwich: FloatArray = field(init=False, repr=False)
 
@@ -70,7 +74,7 @@ class ChartDesign:
             arr = np.array(getattr(self, name), dtype=np.float64)
             arr.setflags(write=False)
             object.__setattr__(self, name, arr)
-        for name in ("tau2", "sigma_w2", "n0"):
+        for name in ("tau2", "sigma_w2", "n0", "phi", "phi_true"):
             object.__setattr__(self, name, float(getattr(self, name)))
         if not (self.tau2 >= 0 and self.sigma_w2 >= 0 and self.tau2 + self.sigma_w2 > 0
                 and np.isfinite(self.tau2 + self.sigma_w2)):
@@ -90,8 +94,15 @@ class ChartDesign:
         return self.rows.shape[1]
 
     @classmethod
-    def from_fit(cls, fit: OLSFit, days: DayMoments, effects: DayEffects) -> ChartDesign:
-        """The design of ``fit``'s window: ``days`` are that window's day statistics."""
+    def from_fit(cls, fit: OLSFit, days: DayMoments, effects: DayEffects,
+                 persistence: Persistence | None = None) -> ChartDesign:
+        """The design of ``fit``'s window: ``days`` are that window's day statistics.
+
+        With ``persistence`` (the fit window's lag-1 correlation of standardized day means) the
+        day shocks are taken as AR(1) over the days with rows: ``B`` weighs day pairs by the
+        shocks' correlation ``phi_a^|i-j|`` (Moulton's sandwich with serially correlated group
+        effects), and the chart prewhitens with ``persistence.chart``.
+        """
         k = fit.k
         if days.dim != k + 1:
             raise ValueError(f"day statistics over {days.dim} columns for a fit with {k} "
@@ -107,14 +118,70 @@ class ChartDesign:
         a[0, 0] = n_rows
         mxx = np.linalg.inv(fit.slope_inverse)
         a[1:, 1:] = 0.5 * (mxx + mxx.T)
-        b = np.einsum("i,ij,ik->jk", counts**2, rows, rows)
+        phi_a = shock_persistence(persistence.truth if persistence else 0.0, effects.tau2,
+                                  effects.sigma_w2, counts)
+        weighted = counts[:, None] * rows
+        lag = np.abs(np.subtract.outer(np.arange(n_days), np.arange(n_days)))
+        b = weighted.T @ (phi_a**lag) @ weighted
         if effects.tau2 + effects.sigma_w2 <= _TINY * fit.tss / fit.n:
             raise DegenerateDataError(
                 "the fit window's residuals are (almost) all zero, so the bias chart has no "
                 "scale to standardize by; check the data (a copied column as the response?)"
             )
         return cls(counts=counts, rows=rows, a=a, b=b, xmean=fit.xmean, tau2=effects.tau2,
-                   sigma_w2=effects.sigma_w2, n0=effects.n0, n_rows=n_rows, n_days=n_days)
+                   sigma_w2=effects.sigma_w2, n0=effects.n0, n_rows=n_rows, n_days=n_days,
+                   phi=persistence.chart if persistence else 0.0,
+                   phi_true=persistence.truth if persistence else 0.0)
+
+
+@dataclass(frozen=True)
+class Persistence:
+    """Day-to-day persistence as the bias chart sees it.
+
+    ``estimate`` is the fit window's lag-1 autocorrelation ``r1`` of the standardized day means;
+    ``chart`` the correlation the chart prewhitens with (``r1`` when significant, else 0:
+    :meth:`monitor.stats.diagnosis.FitDiagnosis.chart_persistence`); ``truth`` the value the
+    bootstrap takes as the truth: ``r1`` corrected for its small-sample bias ``-(1 + 4 phi)/G``
+    (Kendall 1954, from memory), kept in ``[0, MAX]``, so a persistence too weak to be
+    significant still widens the limit a little rather than being taken as none.
+    """
+
+    estimate: float
+    chart: float
+    days: int
+
+    @classmethod
+    def of(cls, diagnosis: FitDiagnosis | None) -> Persistence | None:
+        """What the chart takes from a fit window's diagnosis (None when there is none)."""
+        if diagnosis is None:
+            return None
+        return cls(diagnosis.persistence, diagnosis.chart_persistence(), diagnosis.days)
+
+    @property
+    def truth(self) -> float:
+        if not np.isfinite(self.estimate) or self.days < 3:
+            return 0.0
+        return float(np.clip(self.estimate + (1 + 4 * self.estimate) / self.days, 0.0,
+                             MAX_PERSISTENCE))
+
+
+def shock_persistence(phi_u: float, tau2: float, sigma_w2: float, counts: FloatArray) -> float:
+    """The day shocks' own lag-1 correlation behind ``phi_u`` on standardized day means:
+    ``phi_u · mean(tau² + sigma_w²/n) / tau²`` (the within-day noise does not persist)."""
+    if phi_u <= 0 or tau2 <= 0 or len(counts) == 0:
+        return 0.0
+    d2 = float(np.mean(tau2 + sigma_w2 / counts))
+    return float(min(phi_u * d2 / tau2, MAX_PERSISTENCE))
+
+
+def prewhiten(u: float, previous: float | None, phi: float) -> float:
+    """The chart's step for a day with standardized mean ``u``: the standardized one-step
+    prediction error ``(u - phi u_prev) / sqrt(1 - phi²)`` of an AR(1) model of the day
+    means (Alwan & Roberts 1988, *J. Bus. Econ. Statist.* 6, 87-95); ``u`` itself on the first
+    day of a run or when ``phi = 0``."""
+    if phi == 0.0 or previous is None or not np.isfinite(previous):
+        return u
+    return (u - phi * previous) / float(np.sqrt(1.0 - phi**2))
 
 
 def coef_covariance(design: ChartDesign, tau2: ArrayLike, sigma_w2: ArrayLike) -> FloatArray:
@@ -223,7 +290,9 @@ def _bootstrap_moments(design: ChartDesign, draws: int,
     root = vectors * np.sqrt(np.maximum(values, 0.0))  # root @ root.T = V, also when singular
     delta = rng.standard_normal((draws, design.p)) @ root.T
     sw2_star = sw2 * rng.chisquare(big_n - g, draws) / (big_n - g)
-    msb_star = (sw2 + n0 * tau2) * rng.chisquare(g - 1, draws) / (g - 1)
+    phi_a = shock_persistence(design.phi_true, tau2, sw2, design.counts)
+    df_b = max((g - 1) * (1 - phi_a**2) / (1 + phi_a**2), 1.0)
+    msb_star = (sw2 + n0 * tau2) * rng.chisquare(df_b, draws) / df_b
     tau2_star = np.maximum(0.0, (msb_star - sw2_star) / n0)
     rows, n = design.rows, design.counts
     lev_sandwich = np.einsum("ij,jk,ik->i", rows, design.sandwich, rows)
@@ -231,9 +300,38 @@ def _bootstrap_moments(design: ChartDesign, draws: int,
     d2 = (tau2_star[:, None] * (1.0 + lev_sandwich) + sw2_star[:, None] * (1.0 / n + lev_plain))
     mu = -(delta @ rows.T) / np.sqrt(d2)
     w2 = (tau2 + sw2 / n) / d2
+    gain, lrv = _prewhitening(design, draws, rng)
+    mu = mu * gain[:, None]
+    w2 = w2 * lrv[:, None]
     mean = mu.mean(axis=1)
     var = (w2 + mu**2).mean(axis=1) - mean**2
     return mean, np.sqrt(var)
+
+
+def _prewhitening(design: ChartDesign, draws: int,
+                  rng: np.random.Generator) -> tuple[FloatArray, FloatArray]:
+    """Per draw: the factor a prewhitened chart applies to a steady bias, and the long-run
+    variance of its steps relative to independent days.
+
+    The redrawn chart estimates ``phi* ~ N(phi, (1 - phi²)/G)`` (the large-sample law of
+    ``r1``; Bartlett 1946, from memory) and prewhitens with it when ``|phi*| sqrt(G)`` exceeds
+    the two-sided normal quantile of the persistence test's level (an approximation of the
+    Ljung–Box decision the fit makes). On standardized day means that are AR(1) with ``phi``
+    its steps ``(u_t - c u_t-1)/sqrt(1 - c²)`` have spectral density at zero
+    ``(1 - c)(1 + phi) / ((1 - phi)(1 + c))`` times that of independent days; the chart's run
+    lengths follow the long-run variance of its steps (for a CUSUM of a stationary sequence,
+    common practice, no source), which is what this factor carries into the bootstrap.
+    """
+    phi = design.phi_true
+    if phi <= 0 and design.phi == 0:
+        return np.ones(draws), np.ones(draws)
+    g = max(design.n_days, 3)
+    star = phi + np.sqrt((1 - phi**2) / g) * rng.standard_normal(draws)
+    cut = float(stats.norm.ppf(1 - PERSISTENCE_ALPHA / 2)) / np.sqrt(g)
+    used = np.where(star > cut, np.minimum(star, MAX_PERSISTENCE), 0.0)
+    gain = (1 - used) / np.sqrt(1 - used**2)
+    lrv = (1 - used) * (1 + phi) / ((1 - phi) * (1 + used))
+    return gain, lrv
 
 
 def _centred_rows(day_mean_x: ArrayLike, design: ChartDesign, count: int) -> FloatArray:

@@ -27,6 +27,7 @@ from monitor.domain.version import (
 )
 from monitor.errors import NotFoundError
 from monitor.stats.day_effects import DayEffects
+from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
 from monitor.store.schema import versions
 
@@ -40,6 +41,7 @@ def _values(draft: VersionDraft) -> dict[str, Any]:
         "day_effects": encode(base.day_effects), "calibration": encode(base.calibration),
         "days": base.fit_days, "tvalues": encode(line.tvalues), "pvalues": encode(line.pvalues),
         "import_notes": list(draft.notes), "imported_from": draft.imported_from,
+        "window": encode(base.diagnosis),
     }
     return {
         "source": draft.source.value, "fit_start": draft.fit_start, "fit_end": draft.fit_end,
@@ -71,7 +73,8 @@ def _version(row: Any) -> Version:
         day_effects=decode(DayEffects | None, diag.get("day_effects")),
         reference=DayMoments.from_dict(m["reference"]) if m["reference"] else None,
         calibration=decode(ChartCalibration | None, diag.get("calibration")),
-        fit_days=diag.get("days"))
+        fit_days=diag.get("days"),
+        diagnosis=decode(FitDiagnosis | None, diag.get("window")))
     draft = VersionDraft(
         source=VersionSource(m["source"]), line=line, baseline=baseline,
         fit_start=m["fit_start"], fit_end=m["fit_end"], note=m["note"],

@@ -71,13 +71,17 @@ def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings
 
     for day in _days(date(2026, 3, 8), date(2026, 4, 11)):
         night(day)
-    entered = min(subjects)
-    assert subjects[entered] == "fitwatch: dock_loading needs a refit"
+    entered = min(d for d, s in subjects.items() if s == "fitwatch: dock_loading needs a refit")
+    # at most a watch message before it (the change may show first as watch)
+    assert all(s == "fitwatch: dock_loading is on watch" for d, s in subjects.items()
+               if d < entered)
+    assert len([d for d in subjects if d < entered]) <= 1
     # one reminder every third night after entering, and nothing in between
-    assert sorted(subjects) == _days(entered, date(2026, 4, 11))[::3]
+    assert sorted(d for d in subjects if d >= entered) == _days(entered, date(2026, 4, 11))[::3]
     assert all(s == "fitwatch: reminder, dock_loading still needs a refit"
-               for d, s in subjects.items() if d != entered)
-    assert "fitwatch refit dock_loading" in _text(mailer.sent[0][1])
+               for d, s in subjects.items() if d > entered)
+    assert "fitwatch refit dock_loading" in _text(mailer.sent[-len([d for d in subjects
+                                                                    if d >= entered])][1])
 
     # a candidate is fitted: the advice becomes the exact promote command
     fit_model(settings, FitRequest(MODEL, start=date(2026, 3, 16), end=date(2026, 4, 11)),

@@ -80,7 +80,7 @@ def test_report_folder_with_candidate(changed: World, tmp_path: Path) -> None:
     assert "http://" not in result.path.read_text() and "https://" not in result.path.read_text()
     assert "candidate" in page.ids
     words = page.words
-    assert "Status: refit since 2026-03-16" in words
+    assert "Status: refit since 2026-03-17" in words
     assert "last checked day 2026-04-12" in words
     # coefficient table: term, active ± SE, candidate ± SE
     assert "pallets 2.092 ± 0.0131 2.625 ± 0.0196" in words

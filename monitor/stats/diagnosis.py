@@ -1,0 +1,239 @@
+"""What the fit window says about departures from the textbook model, tested at fit time.
+
+The monitor's signals assume independent day shocks, normal rows, no calendar rhythm and a
+spread that does not grow with the predictors. Operations data break each of these; a version
+records how its own fit window did, and the charts use what was found (persistence, a robust
+spread reference). Four questions, each a standard test on the fit window's residuals against
+the fitted line ``r = y - X b``:
+
+* **Persistence of day shocks.** ``u_d = rbar_d / sqrt(tau² + sigma_w²/n_d)`` for the days with
+  rows, in day order; the lag-1 autocorrelation ``r1`` (Yule–Walker) and the Ljung–Box statistic
+  ``Q = G (G + 2) Σ_{l<=m} r_l² / (G - l)`` on ``m`` lags, chi-square with ``m`` degrees of
+  freedom (Ljung & Box 1978, *Biometrika* 65, 297-303).
+* **A weekday rhythm.** One-way analysis of variance of the ``u_d`` by weekday, ``F`` on
+  ``(W - 1, G - W)`` degrees of freedom for the ``W`` weekdays with rows (Fisher's F test).
+* **Spread growing with a predictor.** Koenker's studentized Breusch–Pagan test: ``N R²`` of the
+  squared within-day residuals regressed on the predictors, chi-square with ``k`` degrees of
+  freedom (Breusch & Pagan 1979; Koenker 1981, *J. Econometrics* 17, 107-112). Within-day
+  residuals ``w = r - rbar_d`` are free of the day shocks.
+* **Heavy tails and outliers.** A robust scale, ``1.4826 · MAD`` of the within-day residuals
+  (Hampel 1974; the constant makes it consistent for the normal sd), against the classical
+  within-day sd; the share of rows beyond 4 robust sd (``2 Φ(-4) = 6.3e-5`` for normal rows)
+  with its binomial p-value.
+
+Also kept: each fit day's *day spread* (mean absolute deviation of the day's residuals from the
+day's median, see :func:`day_spread`) as the reference of the robust spread test, and the share
+of the fit window's own rows inside their intervals.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import stats
+
+FloatArray = NDArray[np.float64]
+TAIL_SDS = 4.0  # rows beyond this many robust sd count as outliers
+MAD_TO_SD = 1.482602218505602  # 1 / Φ⁻¹(3/4): MAD → sd for normal data
+MAX_PERSISTENCE = 0.9  # beyond this the AR(1) view of the day shocks is not used
+PERSISTENCE_ALPHA = 0.05  # level of the persistence test that makes the chart prewhiten
+
+
+@dataclass(frozen=True)
+class TestFigure:
+    """A test's statistic, degrees of freedom and p-value (NaN when it could not be run)."""
+
+    statistic: float = float("nan")
+    df: tuple[float, ...] = ()
+    pvalue: float = float("nan")
+
+    def significant(self, alpha: float) -> bool:
+        return bool(math.isfinite(self.pvalue) and self.pvalue < alpha)
+
+
+@dataclass(frozen=True)
+class FitDiagnosis:
+    """The fit window's departures from the textbook model (see the module text)."""
+
+    days: int  # days with rows
+    persistence: float  # lag-1 autocorrelation of the standardized day means
+    persistence_test: TestFigure  # Ljung–Box
+    weekday_test: TestFigure
+    weekday_effects: tuple[float | None, ...]  # Mon..Sun mean day residual (response units)
+    spread_x_test: TestFigure  # Koenker–Breusch–Pagan on within-day residuals
+    classical_sd: float  # within-day sd (sqrt of sigma_w²)
+    robust_sd: float  # 1.4826 · MAD of the within-day residuals
+    tail_share: float  # share of rows beyond TAIL_SDS robust sd
+    tail_pvalue: float  # P(at least that many) for normal rows
+    fit_coverage: float  # share of the fit window's rows inside their intervals
+    day_spreads: tuple[float, ...]  # log day spread of each fit day with >= 2 rows
+
+    @property
+    def day_spread_mean(self) -> float:
+        return float(np.mean(self.day_spreads)) if self.day_spreads else float("nan")
+
+    def chart_persistence(self, alpha: float = PERSISTENCE_ALPHA) -> float:
+        """The lag-1 correlation the bias chart uses: ``r1`` when it is significantly positive
+        (two-sided test at ``alpha`` with its large-sample sd ``1/sqrt(G)``, Bartlett 1946),
+        else 0. The Ljung–Box test is reported; it also reacts to longer lags (a weekly
+        rhythm), which an AR(1) view of the shocks would not describe."""
+        if self.days >= 3 and self.persistence > lag_one_cut(self.days, alpha):
+            return float(min(self.persistence, MAX_PERSISTENCE))
+        return 0.0
+
+
+def lag_one_cut(days: int, alpha: float = PERSISTENCE_ALPHA) -> float:
+    """The lag-1 autocorrelation beyond which persistence counts as significant."""
+    return float(stats.norm.ppf(1 - alpha / 2) / math.sqrt(days))
+
+
+def ljung_box(u: ArrayLike, lags: int) -> tuple[FloatArray, TestFigure]:
+    """Autocorrelations ``r_1..r_m`` of ``u`` and the Ljung–Box test on ``m = lags`` of them."""
+    x = np.asarray(u, dtype=np.float64)
+    g = len(x)
+    if lags < 1 or g <= lags + 1:
+        return np.zeros(0), TestFigure()
+    c = x - x.mean()
+    denom = float(c @ c)
+    if denom <= 0:
+        return np.zeros(lags), TestFigure()
+    r = np.array([float(c[:-lag] @ c[lag:]) / denom for lag in range(1, lags + 1)])
+    q = float(g * (g + 2) * np.sum(r**2 / (g - np.arange(1, lags + 1))))
+    return r, TestFigure(q, (float(lags),), float(stats.chi2.sf(q, lags)))
+
+
+def default_lags(days: int) -> int:
+    """``min(10, G // 5)`` lags (common practice, no source; at least 1)."""
+    return max(1, min(10, days // 5))
+
+
+def weekday_anova(u: ArrayLike, weekdays: ArrayLike) -> TestFigure:
+    """One-way ANOVA F of ``u`` grouped by weekday (0 = Monday)."""
+    x = np.asarray(u, dtype=np.float64)
+    wd = np.asarray(weekdays, dtype=np.int64)
+    groups = [x[wd == w] for w in range(7) if (wd == w).any()]
+    n_groups, total = len(groups), len(x)
+    if n_groups < 2 or total <= n_groups:
+        return TestFigure()
+    grand = x.mean()
+    ssb = sum(len(g) * (g.mean() - grand) ** 2 for g in groups)
+    ssw = sum(float(((g - g.mean()) ** 2).sum()) for g in groups)
+    df1, df2 = n_groups - 1, total - n_groups
+    if ssw <= 0:
+        return TestFigure()
+    f = float((ssb / df1) / (ssw / df2))
+    return TestFigure(f, (float(df1), float(df2)), float(stats.f.sf(f, df1, df2)))
+
+
+def koenker_breusch_pagan(resid: ArrayLike, x: ArrayLike) -> TestFigure:
+    """``N R²`` of ``resid²`` on ``(1, x)``: chi-square with ``k`` df (Koenker 1981)."""
+    e2 = np.asarray(resid, dtype=np.float64) ** 2
+    xm = np.asarray(x, dtype=np.float64)
+    xm = xm.reshape(len(e2), -1)
+    n, k = xm.shape
+    if n <= k + 1:
+        return TestFigure()
+    design = np.column_stack([np.ones(n), xm])
+    coef, *_ = np.linalg.lstsq(design, e2, rcond=None)
+    fitted = design @ coef
+    tss = float(((e2 - e2.mean()) ** 2).sum())
+    if tss <= 0:
+        return TestFigure()
+    r2 = 1.0 - float(((e2 - fitted) ** 2).sum()) / tss
+    lm = n * r2
+    return TestFigure(lm, (float(k),), float(stats.chi2.sf(lm, k)))
+
+
+def day_spread(resid: ArrayLike) -> float | None:
+    """A day's spread: ``log`` of the mean absolute deviation of its residuals from their
+    median, times ``sqrt(n / (n - 1))`` to take out most of the small-day bias; None below two
+    rows. Absolute deviations from the median keep a spread comparison's level under heavy tails
+    (Brown & Forsythe 1974, *JASA* 69, 364-367); the logarithm makes day values near-symmetric.
+    """
+    r = np.asarray(resid, dtype=np.float64)
+    n = len(r)
+    if n < 2:
+        return None
+    mad = float(np.mean(np.abs(r - np.median(r)))) * math.sqrt(n / (n - 1))
+    return math.log(mad) if mad > 0 else None
+
+
+def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: ArrayLike,
+             tau2: float, sigma_w2: float, covered_share: float,
+             lags: int | None = None) -> FitDiagnosis:
+    """The fit window's diagnosis from its residuals.
+
+    ``day_index[i]`` numbers the day of row ``i`` (0, 1, ... in day order, days with rows only)
+    and ``weekdays[g]`` is the weekday (0 = Monday) of day ``g``.
+    """
+    r = np.asarray(resid, dtype=np.float64)
+    idx = np.asarray(day_index, dtype=np.int64)
+    g = int(idx.max()) + 1 if len(idx) else 0
+    counts = np.bincount(idx, minlength=g).astype(np.float64)
+    means = np.bincount(idx, weights=r, minlength=g) / np.maximum(counts, 1)
+    u = means / np.sqrt(tau2 + sigma_w2 / np.maximum(counts, 1))
+    rs, lb = ljung_box(u, lags or default_lags(g))
+    wd = np.asarray(weekdays, dtype=np.int64)
+    effects: list[float | None] = []
+    for w in range(7):
+        on = wd == w
+        effects.append(float(means[on].mean() - means.mean()) if on.any() else None)
+    within = r - means[idx]
+    scaled = within * np.sqrt(counts[idx] / np.maximum(counts[idx] - 1, 1))
+    robust = MAD_TO_SD * float(np.median(np.abs(scaled - np.median(scaled))))
+    beyond = int((np.abs(scaled - np.median(scaled)) > TAIL_SDS * robust).sum()) if robust > 0 \
+        else 0
+    p_tail = 2.0 * float(stats.norm.sf(TAIL_SDS))
+    tail_p = float(stats.binom.sf(beyond - 1, len(r), p_tail)) if len(r) else float("nan")
+    order = np.argsort(idx, kind="stable")
+    spreads: list[float] = []
+    for part in np.split(r[order], np.cumsum(counts.astype(np.int64))[:-1]):
+        value = day_spread(part)
+        if value is not None:
+            spreads.append(value)
+    return FitDiagnosis(
+        days=g, persistence=float(rs[0]) if len(rs) else float("nan"), persistence_test=lb,
+        weekday_test=weekday_anova(u, wd), weekday_effects=tuple(effects),
+        spread_x_test=koenker_breusch_pagan(within, x),
+        classical_sd=math.sqrt(sigma_w2), robust_sd=robust,
+        tail_share=beyond / len(r) if len(r) else float("nan"), tail_pvalue=tail_p,
+        fit_coverage=covered_share, day_spreads=tuple(spreads))
+
+
+@dataclass(frozen=True)
+class RobustSpreadTest:
+    """Recent day spreads against the fit window's: a t test on the log day spreads."""
+
+    ratio: float  # exp(mean recent - mean fit): the typical day's spread, relative
+    statistic: float
+    df: float
+    pvalue: float  # H1: spread grew
+    pvalue_narrower: float
+
+
+def robust_spread_test(recent: ArrayLike, reference: ArrayLike) -> RobustSpreadTest | None:
+    """Is the mean of the recent log day spreads above the fit window's?
+
+    ``t = (mean_r - mean_f) / (s_f sqrt(1/n_r + 1/n_f))`` on ``n_f - 1`` degrees of freedom: the
+    recent days are judged as new draws from the fit window's day-spread distribution, whose
+    sd ``s_f`` the fit window estimates (the t statistic for the mean of new observations from
+    a normal sample; any textbook on prediction intervals, common practice, no source). Days
+    are the units, so heavy-tailed rows and within-day dependence do not bias it, and a window
+    of only a few recent days still has an honest variance. None without a recent day or with
+    fewer than 3 fit days.
+    """
+    a = np.asarray(recent, dtype=np.float64)
+    b = np.asarray(reference, dtype=np.float64)
+    if len(a) < 1 or len(b) < 3:
+        return None
+    sd = float(b.std(ddof=1))
+    if sd <= 0:
+        return None
+    diff = float(a.mean() - b.mean())
+    t = diff / (sd * math.sqrt(1 / len(a) + 1 / len(b)))
+    df = float(len(b) - 1)
+    return RobustSpreadTest(float(math.exp(diff)), t, df, float(stats.t.sf(t, df)),
+                            float(stats.t.cdf(t, df)))

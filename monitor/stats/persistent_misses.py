@@ -1,0 +1,106 @@
+"""Interval misses when the day shocks persist from one day to the next.
+
+:mod:`monitor.stats.misses` gives the exact law of a window's misses when day shocks are
+independent. When they follow an AR(1) process (``a_d = phi a_d-1 + innovation``, stationary
+``N(0, tau²)``) the days' miss counts are positively correlated and the window's count spreads
+wider than that law allows, so a coverage test built on it cries wolf.
+
+Here the shock is discretized on the Gauss–Hermite nodes of the exact law and moves between
+them by the Markov transition of Tauchen & Hussey (1991, *Econometrica* 59, 371-396):
+``P_ij ∝ w_j f(z_j | phi z_i) / f(z_j)``, rows normalized. The window's law is the forward
+recursion of a hidden Markov chain: ``alpha_d(j, m) = Bin(n_d, p_j) * Σ_i P_ij alpha_d-1(i, ·)``
+(convolution in the miss count ``m``), with ``p_j`` a row's miss probability given the shock at
+node ``j``. Only counts up to the observed one are kept exactly (the rest are lumped into one
+"more" cell), so a p-value costs O(days · nodes · misses) whatever the rows. With ``phi = 0``
+the recursion is the independent-day law of :class:`monitor.stats.misses.MissLaw`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from functools import lru_cache
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import signal, stats
+
+from monitor.stats.coverage import CoverageTest
+from monitor.stats.misses import GuardedMissLaw, MissLaw, _hermite, _miss_probabilities
+
+FloatArray = NDArray[np.float64]
+
+
+@lru_cache(maxsize=64)
+def _transition(phi: float) -> FloatArray:
+    """The Tauchen–Hussey transition matrix between the standard-normal shock nodes."""
+    x, w = _hermite()
+    z = np.sqrt(2.0) * x
+    pi = w / np.sqrt(np.pi)
+    sd = np.sqrt(1.0 - phi**2)
+    log_cond = -0.5 * ((z[None, :] - phi * z[:, None]) / sd) ** 2 - np.log(sd)
+    log_marg = -0.5 * z[None, :] ** 2
+    p = pi[None, :] * np.exp(log_cond - log_marg)
+    p /= p.sum(axis=1, keepdims=True)
+    p.setflags(write=False)
+    return p
+
+
+def persistent_pvalues(law: MissLaw, day_rows: ArrayLike, misses: int,
+                       phi: float) -> tuple[float, float]:
+    """``P(M >= misses)`` and ``P(M <= misses)`` for a window with AR(1) day shocks."""
+    rows = np.asarray(day_rows, dtype=np.int64)
+    rows = rows[rows > 0]
+    total = int(rows.sum())
+    if not 0 <= misses <= total:
+        raise ValueError(f"misses ({misses}) must lie between 0 and the rows ({total})")
+    if total == 0:
+        return float("nan"), float("nan")
+    p = _miss_probabilities(law.tau2, law.sigma_w2, law.half_width, law.scale)
+    pi = _hermite()[1] / np.sqrt(np.pi)
+    step = _transition(round(float(phi), 6))
+    cells = misses + 2  # counts 0..misses exactly, then "more than misses"
+    alpha: FloatArray | None = None
+    for n in rows:
+        day = _capped_binomial(int(n), p, cells)
+        if alpha is None:
+            alpha = pi[:, None] * day
+            continue
+        moved = step.T @ alpha
+        full = signal.fftconvolve(moved, day, axes=1)
+        alpha = np.concatenate([full[:, :cells - 1], full[:, cells - 1:].sum(axis=1,
+                                                                            keepdims=True)],
+                               axis=1)
+        alpha = np.clip(alpha, 0.0, None)
+    assert alpha is not None
+    pmf = alpha.sum(axis=0)
+    pmf /= pmf.sum()
+    at_most = float(min(pmf[:misses + 1].sum(), 1.0))
+    at_least = float(min(1.0 - pmf[:misses].sum(), 1.0))
+    return max(at_least, 0.0), at_most
+
+
+def _capped_binomial(n: int, p: FloatArray, cells: int) -> FloatArray:
+    """Per node: ``Bin(n, p_j)`` at ``0..cells-2`` and its remaining mass in the last cell."""
+    k = np.arange(cells - 1)
+    head = stats.binom.pmf(k[None, :], n, p[:, None])
+    tail = stats.binom.sf(cells - 2, n, p)[:, None]
+    return np.concatenate([head, tail], axis=1)
+
+
+@dataclass(frozen=True)
+class PersistentMissLaw:
+    """A guarded miss law for AR(1) day shocks (``phi`` > 0); the plain one when ``phi = 0``."""
+
+    base: GuardedMissLaw
+    phi: float
+
+    def test(self, day_rows: ArrayLike, covered: int, target: float, dispersion: float = 1.0,
+             level: float = 0.95) -> CoverageTest:
+        rows = np.asarray(day_rows, dtype=np.int64)
+        plain = self.base.test(rows, covered, target, dispersion, level)
+        if self.phi <= 0 or int(rows.sum()) == 0:
+            return plain
+        misses = int(rows.sum()) - covered
+        low = persistent_pvalues(self.base.wide, rows, misses, self.phi)[0]
+        high = persistent_pvalues(self.base.narrow, rows, misses, self.phi)[1]
+        return replace(plain, pvalue_low=low, pvalue_high=high, method="persistent day effects")

@@ -1,0 +1,44 @@
+"""The law of interval misses under AR(1) day shocks."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from monitor.stats.misses import MissLaw
+from monitor.stats.persistent_misses import persistent_pvalues
+
+LAW = MissLaw(tau2=2.25, sigma_w2=9.0, half_width=6.6)
+ROWS = np.array([96, 104, 99, 91, 110, 101, 97, 88, 103, 100, 95, 107, 99, 102])
+
+
+@pytest.mark.parametrize("misses", [40, 70, 100, 140])
+def test_without_persistence_it_is_the_independent_day_law(misses: int) -> None:
+    # phi = 0: the Markov chain's rows are the node weights, so the recursion is the exact
+    # convolution of independent days (monitor.stats.misses, itself checked against scipy).
+    assert persistent_pvalues(LAW, ROWS, misses, 0.0) == pytest.approx(
+        LAW.pvalues(ROWS, misses), rel=1e-10)
+
+
+def test_matches_a_monte_carlo_of_ar1_shocks() -> None:
+    # Reference: direct simulation of the model (AR(1) shocks, binomial misses given the shock)
+    # with numpy's generators and scipy.stats.norm; 400 000 windows, seed fixed.
+    rng = np.random.default_rng(2)
+    reps, phi = 400_000, 0.5
+    a = np.empty((reps, len(ROWS)))
+    a[:, 0] = rng.standard_normal(reps)
+    for d in range(1, len(ROWS)):
+        a[:, d] = phi * a[:, d - 1] + np.sqrt(1 - phi**2) * rng.standard_normal(reps)
+    shock = np.sqrt(LAW.tau2) * a
+    sw = np.sqrt(LAW.sigma_w2)
+    p = stats.norm.sf((LAW.half_width - shock) / sw) + stats.norm.cdf((-LAW.half_width - shock)
+                                                                       / sw)
+    total = rng.binomial(ROWS[None, :], p).sum(axis=1)
+    for m in (70, 100, 140):
+        simulated = float((total >= m).mean())
+        se = np.sqrt(simulated * (1 - simulated) / reps)
+        assert persistent_pvalues(LAW, ROWS, m, phi)[0] == pytest.approx(simulated,
+                                                                         abs=4 * se + 2e-5)
+    # persistence widens the upper tail well beyond the independent-day law
+    assert persistent_pvalues(LAW, ROWS, 140, phi)[0] > 5 * LAW.pvalues(ROWS, 140)[0]
