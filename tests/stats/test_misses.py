@@ -171,7 +171,7 @@ def _assert_relative(got: float, expected: float, rel: float) -> None:
 def test_tilted_route_equals_the_direct_convolution(tau: float, sigma: float,
                                                     scale: float) -> None:
     law = MissLaw(tau**2, sigma**2, HALF, scale)
-    rows = np.random.default_rng(21).poisson(300, 14)  # ~4 200 rows: past DIRECT_MAX_ROWS
+    rows = np.random.default_rng(21).poisson(500, 14)  # ~7 000 rows: past DIRECT_MAX_ROWS
     assert rows.sum() > DIRECT_MAX_ROWS
     upper, lower = _reference_tails(law, rows)
     for m in np.unique(np.linspace(0, rows.sum(), 60).astype(int)):
@@ -185,10 +185,11 @@ def test_the_switch_between_routes_changes_nothing_reported(monkeypatch: pytest.
     # the production direct route cuts each day's law where its upper tail is below 1e-18, so
     # the two routes are compared where that cut cannot matter (p-values above 1e-12)
     law = MissLaw(TAU**2, SIGMA**2, HALF, 1.05)
-    rows = np.random.default_rng(4).poisson(200, 14)
-    tilted = [law.pvalues(rows, m) for m in range(100, 500, 7)]
+    rows = np.random.default_rng(4).poisson(500, 14)
+    assert rows.sum() > DIRECT_MAX_ROWS
+    tilted = [law.pvalues(rows, m) for m in range(150, 1400, 20)]
     monkeypatch.setattr(misses, "DIRECT_MAX_ROWS", 10**9)
-    direct = [law.pvalues(rows, m) for m in range(100, 500, 7)]
+    direct = [law.pvalues(rows, m) for m in range(150, 1400, 20)]
     for got, expected in zip(tilted, direct, strict=True):
         for g, e in zip(got, expected, strict=True):
             if e > 1e-12:
