@@ -21,12 +21,11 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 from sqlalchemy import Connection, Engine
-from sqlalchemy.exc import OperationalError
 from tqdm import tqdm
 
 from monitor.config import Settings
 from monitor.domain.model import ModelRecord
-from monitor.errors import DatabaseError, FitwatchError, StateError, UsageError
+from monitor.errors import FitwatchError, StateError, UsageError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
 from monitor.ingest.reasons import Rejection
@@ -165,9 +164,6 @@ def ingest_source(engine: Engine, model: ModelRecord, source: Source,
                 raise _Unchanged(summary)
     except _Unchanged as unchanged:
         summary = unchanged.summary
-    except OperationalError as exc:
-        first = str(exc.orig).strip().splitlines()[0] if exc.orig else str(exc)
-        raise DatabaseError(f"could not store {source.label}: {first}") from exc
     log.info("%s", summary.sentence())
     return summary
 

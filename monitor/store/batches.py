@@ -10,6 +10,7 @@ from typing import Any
 from sqlalchemy import Connection, bindparam, literal_column, select
 
 from monitor.errors import NotFoundError
+from monitor.store.engine import driver_cursor
 from monitor.store.schema import batches, rejected_rows
 
 
@@ -91,8 +92,7 @@ def add_rejected_rows(conn: Connection, batch_id: int,
     if not rows:
         return
     clean = [(line, _text(raw), reason, _text(detail)) for line, raw, reason, detail in rows]
-    cursor = conn.connection.driver_connection.cursor()
-    try:
+    with driver_cursor(conn) as cursor:
         if conn.dialect.name == "postgresql":
             with cursor.copy("COPY rejected_rows (batch_id, line, raw, reason, detail) "
                              "FROM STDIN") as copy:
@@ -105,8 +105,6 @@ def add_rejected_rows(conn: Connection, batch_id: int,
                 **{name: bindparam(name) for name in names}).compile(dialect=conn.dialect)
             order = [names.index(name) for name in stmt.positiontup or []]
             cursor.executemany(str(stmt), [tuple(row[i] for i in order) for row in clean])
-    finally:
-        cursor.close()
 
 
 def rejected_rows_of(conn: Connection, batch_id: int) -> list[RejectedRow]:
