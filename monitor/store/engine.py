@@ -367,7 +367,7 @@ def database_error(exc: BaseException, where: str) -> DatabaseError | None:
         return None
     import psycopg  # here, not at the top: SQLite users never load the PostgreSQL driver
 
-    if isinstance(exc, psycopg.OperationalError):
+    if isinstance(exc, psycopg.Error):
         state = exc.sqlstate or ""
         if state == _PG_DISK_FULL:
             return _disk_full(where)
@@ -375,7 +375,8 @@ def database_error(exc: BaseException, where: str) -> DatabaseError | None:
             return DatabaseError(
                 f"the database ({where}) is read-only ({first}); connect to the primary server "
                 "as a user that may write")
-        if not state or state.startswith(_PG_UNREACHABLE):  # no SQLSTATE: no server answered
+        if isinstance(exc, psycopg.OperationalError) and (
+                not state or state.startswith(_PG_UNREACHABLE)):  # no SQLSTATE: no server
             return DatabaseError(
                 f"cannot reach the database ({where}): {first}; check that the server is "
                 "running and that the URL's host, port, user and database name are right")
