@@ -15,6 +15,7 @@ import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
+from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -350,7 +351,7 @@ class _DayTotals:
             self.parts[day] = self.parts[day].merge(part) if day in self.parts else part
 
     def days(self) -> list[date]:
-        return [d.item() for d in sorted(self.parts)]
+        return [cast(date, d.item()) for d in sorted(self.parts)]  # datetime64[D] -> date
 
     def moments(self) -> DayMoments:
         order = sorted(self.parts)

@@ -5,13 +5,12 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
-from typing import Any
 
-from sqlalchemy import Connection, bindparam, literal_column, select
+from sqlalchemy import Connection, RowMapping, bindparam, literal_column, select
 
 from monitor.errors import NotFoundError
 from monitor.store.engine import driver_cursor
-from monitor.store.schema import batches, rejected_rows
+from monitor.store.schema import batches, inserted_id, rejected_rows
 
 
 @dataclass(frozen=True)
@@ -49,7 +48,7 @@ def start_batch(conn: Connection, model_id: int, source: str, file_hash: str | N
         model_id=model_id, source=source, file_hash=file_hash, file_size=file_size,
         strict=strict, status="open", read=0, accepted=0, duplicates=0, rejected=0, reasons={},
         started_at=now))
-    return int(result.inserted_primary_key[0])
+    return inserted_id(result)
 
 
 def finish_batch(conn: Connection, batch_id: int, *, status: str, read: int, accepted: int,
@@ -119,7 +118,7 @@ def _text(value: str) -> str:
     return value.replace("\x00", "\\0")  # PostgreSQL text cannot hold NUL
 
 
-def _record(m: Mapping[str, Any]) -> BatchRecord:
+def _record(m: RowMapping) -> BatchRecord:
     return BatchRecord(
         id=m["id"], model_id=m["model_id"], source=m["source"], file_hash=m["file_hash"],
         file_size=m["file_size"], strict=bool(m["strict"]), status=m["status"], read=m["read"],

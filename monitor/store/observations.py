@@ -17,10 +17,10 @@ import numpy as np
 from numpy.typing import NDArray
 from sqlalchemy import (
     BigInteger,
+    ClauseElement,
     Column,
     Connection,
     Date,
-    Executable,
     Float,
     MetaData,
     String,
@@ -34,6 +34,7 @@ from sqlalchemy import (
     update,
 )
 from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.sql.compiler import SQLCompiler
 
 from monitor.domain.model import ModelRecord
 from monitor.stats.moments import DayMoments, Moments
@@ -343,9 +344,10 @@ def _day_strings(days: NDArray[np.datetime64]) -> list[str]:
     return text[inverse].tolist()
 
 
-def _fetch(conn: Connection, stmt: Executable) -> list[tuple[Any, ...]]:
+def _fetch(conn: Connection, stmt: ClauseElement) -> list[tuple[Any, ...]]:
     """Run a Core statement on the driver's cursor: plain tuples, no per-row processing."""
     compiled = stmt.compile(dialect=conn.dialect)
+    assert isinstance(compiled, SQLCompiler)
     params = dict(compiled.params)
     if conn.dialect.name == "sqlite":
         params = {k: v.isoformat() if isinstance(v, date) else v for k, v in params.items()}
