@@ -342,9 +342,9 @@ def database_error(exc: BaseException, where: str) -> DatabaseError | None:
         code = getattr(exc, "sqlite_errorcode", -1) & 0xFF  # the primary code of an extended one
         if code in _SQLITE_LOCKED:
             return DatabaseError(
-                f"the database ({where}) is locked: another process kept it busy for more "
-                f"than {SQLITE_BUSY_TIMEOUT_MS / 1000:g} s (another fitwatch command, the "
-                "daemon, or a program holding it open); run the command again when it is done")
+                f"the database ({where}) is locked by another process (another fitwatch "
+                "command, the daemon, or a program holding it open; fitwatch waits up to "
+                f"{SQLITE_BUSY_TIMEOUT_MS / 1000:g} s); run the command again when it is done")
         if code == sqlite3.SQLITE_READONLY:
             return DatabaseError(
                 f"the database ({where}) is read-only ({first}); fitwatch needs to write to it: "
