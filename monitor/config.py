@@ -12,10 +12,12 @@ import re
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
-from datetime import timedelta
+from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from apscheduler.triggers.cron import CronTrigger
 
 from monitor.errors import ConfigError
 
@@ -67,8 +69,18 @@ class AlertSettings:
 
 @dataclass(frozen=True)
 class ScheduleSettings:
+    """When the daemon runs: a five-field cron expression read in ``timezone``.
+
+    ``trigger`` is the scheduler's own parse of it, made when the settings are made, so a
+    schedule the scheduler would refuse never gets past loading (:func:`parse_cron`).
+    """
+
     cron: str = "30 2 * * *"
     timezone: ZoneInfo = field(default_factory=lambda: ZoneInfo("UTC"))
+    trigger: CronTrigger = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "trigger", parse_cron(self.cron, self.timezone))
 
 
 @dataclass(frozen=True)
@@ -195,8 +207,11 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
 
     sch = r.table(top.get("schedule", {}), "schedule", {"cron", "timezone"})
     cron = r.string(sch, "schedule.cron", ScheduleSettings.cron, non_empty=True)
-    _check_cron(cron, r, "schedule.cron")
-    schedule = ScheduleSettings(cron=cron, timezone=r.zone(sch, "schedule.timezone", "UTC"))
+    zone = r.zone(sch, "schedule.timezone", "UTC")
+    try:
+        schedule = ScheduleSettings(cron=cron, timezone=zone)
+    except ValueError as exc:
+        raise r.fail("schedule.cron", str(exc)) from exc
 
     check = _check_settings(r, top.get("check", {}), "check", CheckSettings())
     alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
@@ -318,7 +333,6 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
 
 
 _EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
-_CRON_FIELD = re.compile(r"[\d*/,\-a-zA-Z]+")
 
 
 def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:
@@ -332,12 +346,36 @@ def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:
                              url_env=url_env)
 
 
-def _check_cron(cron: str, r: _Reader, key: str) -> None:
+# The five crontab fields, as APScheduler 3.x's CronTrigger names them and as people say them.
+_CRON_FIELDS = (("minute", "minute"), ("hour", "hour"), ("day", "day of month"),
+                ("month", "month"), ("day_of_week", "weekday"))
+_CRON_EPOCH = datetime(2000, 1, 1)  # a fixed start for "does it ever fire" (leap years ahead)
+
+
+def parse_cron(cron: str, zone: ZoneInfo) -> CronTrigger:
+    """The scheduler's trigger for a five-field cron expression; ValueError says what is wrong.
+
+    Weekdays must be names (``mon-fri``): APScheduler 3.x numbers them from Monday = 0 where
+    crontab numbers them from Sunday = 0 (the warning in the documentation of
+    ``CronTrigger.from_crontab``), so ``1-5`` would silently run Tuesday to Saturday.
+    """
     parts = cron.split()
-    if len(parts) != 5 or not all(_CRON_FIELD.fullmatch(p) for p in parts):
-        raise ConfigError(f"{cron!r} is not a five-field cron expression "
-                          "(minute hour day month weekday), e.g. \"30 2 * * *\"",
-                          source=r.source, key=key)
+    if len(parts) != 5:
+        raise ValueError(f"{cron!r} is not a five-field cron expression "
+                         "(minute hour day month weekday), e.g. \"30 2 * * *\"")
+    if any(ch.isdigit() for ch in parts[4]):
+        raise ValueError(f"weekday field {parts[4]!r}: write weekdays as names (mon, tue, wed, "
+                         "thu, fri, sat, sun; e.g. \"30 2 * * mon-fri\"); numbers are ambiguous, "
+                         "crontab counts from Sunday = 0 and the scheduler from Monday = 0")
+    for (name, words), part in zip(_CRON_FIELDS, parts, strict=True):
+        try:
+            CronTrigger(**{name: part}, timezone=zone)
+        except ValueError as exc:
+            raise ValueError(f"{words} field {part!r} in {cron!r}: {exc}") from exc
+    trigger = CronTrigger.from_crontab(cron, timezone=zone)
+    if trigger.get_next_fire_time(None, _CRON_EPOCH.replace(tzinfo=zone)) is None:
+        raise ValueError(f"{cron!r} never fires (no date matches its day and month)")
+    return trigger
 
 
 class _Reader:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import tomllib
 from dataclasses import fields
-from datetime import timedelta
+from datetime import datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -85,6 +85,14 @@ level = 0.8
     ("[check]\nrefit_pvalue = 0.05", "check.refit_pvalue", "must not exceed"),
     ("[schedule]\ntimezone = 'Mars/Olympus'", "schedule.timezone", "unknown time zone"),
     ("[schedule]\ncron = 'nightly'", "schedule.cron", "five-field cron"),
+    # field ranges as in crontab(5): minute 0-59, hour 0-23, day of month 1-31, month 1-12
+    ("[schedule]\ncron = '99 99 * * *'", "schedule.cron", "minute field '99'"),
+    ("[schedule]\ncron = '30 24 * * *'", "schedule.cron", "hour field '24'"),
+    ("[schedule]\ncron = '30 2 * 13 *'", "schedule.cron", "month field '13'"),
+    ("[schedule]\ncron = '30 2 31 2 *'", "schedule.cron", "never fires"),  # no 31 February
+    # crontab(5) counts weekdays from Sunday = 0, APScheduler 3.x from Monday = 0 (the warning
+    # in the documentation of CronTrigger.from_crontab): a number could mean either day
+    ("[schedule]\ncron = '30 2 * * 1-5'", "schedule.cron", "write weekdays as names"),
     ("[alerts]\nto = 'lead@example.com'", "alerts.to", "a list of strings"),
     ("[alerts]\nto = ['not-an-address']", "alerts.to", "not an e-mail address"),
     ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
@@ -108,6 +116,21 @@ def test_bad_settings_name_the_key_and_the_file(tmp_path, text, key, words):
         load_settings(path, environ={})
     message = str(err.value)
     assert str(path) in message and f"'{key}'" in message and words in message
+
+
+def test_cron_weekday_names_mean_the_days_they_name():
+    # crontab(5): "mon-fri" is Monday to Friday; Python's date.weekday() counts Monday = 0
+    settings = parse_settings({"schedule": {"cron": "30 2 * * mon-fri",
+                                            "timezone": "Europe/Berlin"}}, "<test>")
+    trigger = settings.schedule.trigger
+    fire = trigger.get_next_fire_time(None, datetime(2026, 3, 1, tzinfo=settings.timezone))
+    fires = []
+    for _ in range(10):
+        fires.append(fire)
+        fire = trigger.get_next_fire_time(fire, fire + timedelta(seconds=1))
+    assert [f.weekday() for f in fires] == [0, 1, 2, 3, 4] * 2
+    assert all((f.hour, f.minute) == (2, 30) for f in fires)
+    assert fires[0].date().isoformat() == "2026-03-02"  # 1 March 2026 is a Sunday
 
 
 def test_broken_toml_and_missing_file_are_config_errors(tmp_path):

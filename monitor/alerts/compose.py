@@ -13,7 +13,7 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
-from email.message import EmailMessage
+from email.message import EmailMessage, MIMEPart
 from email.utils import format_datetime
 
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
@@ -262,6 +262,7 @@ def build_message(*, key: str, sender: str, recipient: str, subject_line: str, t
         msg.add_alternative(html, subtype="html")
         if chart_png is not None:
             html_part = msg.get_payload()[1]  # type: ignore[index]
+            assert isinstance(html_part, MIMEPart)
             html_part.add_related(chart_png, maintype="image", subtype="png",
                                   cid=f"<{chart_cid(key)}>", disposition="inline",
                                   filename="fitwatch-chart.png")

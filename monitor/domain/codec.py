@@ -18,7 +18,6 @@ import types
 import typing
 from datetime import date, datetime
 from enum import Enum
-from functools import cache
 from typing import Any, TypeVar
 
 import numpy as np
@@ -145,6 +144,11 @@ def _dataclass(kind: type[T], data: Any) -> T:
     return kind(**values)
 
 
-@cache
+_HINTS: dict[type, dict[str, Any]] = {}  # per class, read once
+
+
 def _hints(kind: type) -> dict[str, Any]:
-    return typing.get_type_hints(kind)
+    hints = _HINTS.get(kind)
+    if hints is None:
+        hints = _HINTS[kind] = typing.get_type_hints(kind)
+    return hints

@@ -418,7 +418,7 @@ def _payload(arr: NDArray[np.uint8], lo: int, hi: int, good: NDArray[np.bool_],
              newline_at: NDArray[np.intp]) -> memoryview | bytes:
     """The bytes of the good rows of ``arr[lo:hi]`` without their CRs, ready for the parser."""
     if good.all() and not has_cr.any():
-        return memoryview(arr[lo:hi])
+        return arr[lo:hi].data
     keep = np.repeat(good, lengths)
     keep[newline_at[has_cr] - 1] = False
     return arr[lo:hi][keep].tobytes()

@@ -15,18 +15,18 @@ import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
+from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 from sqlalchemy import Connection, Engine
-from sqlalchemy.exc import OperationalError
 from tqdm import tqdm
 
 from monitor.config import Settings
 from monitor.domain.model import ModelRecord
-from monitor.errors import DatabaseError, FitwatchError, StateError, UsageError
+from monitor.errors import FitwatchError, StateError, UsageError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
 from monitor.ingest.reasons import Rejection
@@ -165,9 +165,6 @@ def ingest_source(engine: Engine, model: ModelRecord, source: Source,
                 raise _Unchanged(summary)
     except _Unchanged as unchanged:
         summary = unchanged.summary
-    except OperationalError as exc:
-        first = str(exc.orig).strip().splitlines()[0] if exc.orig else str(exc)
-        raise DatabaseError(f"could not store {source.label}: {first}") from exc
     log.info("%s", summary.sentence())
     return summary
 
@@ -354,7 +351,7 @@ class _DayTotals:
             self.parts[day] = self.parts[day].merge(part) if day in self.parts else part
 
     def days(self) -> list[date]:
-        return [d.item() for d in sorted(self.parts)]
+        return [cast(date, d.item()) for d in sorted(self.parts)]  # datetime64[D] -> date
 
     def moments(self) -> DayMoments:
         order = sorted(self.parts)

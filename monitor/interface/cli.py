@@ -1,7 +1,8 @@
 """The ``fitwatch`` command line: parse, call one library function, print, map errors to codes.
 
-Exit codes: 0 done; 1 bad input, usage or state (message on stderr, no traceback); 2 internal
-error (traceback in the log); 3 ``check --fail-on`` threshold reached.
+Exit codes (:class:`~monitor.errors.ExitCode`): 0 done; 1 bad input, usage, state or database
+(message on stderr, no traceback); 2 internal error (traceback in the log); 3 ``check --fail-on``
+threshold reached; 130 interrupted. Each error carries its code; :func:`exit_code_for` reads it.
 """
 
 from __future__ import annotations
@@ -16,13 +17,13 @@ from typing import Any
 
 from monitor import __version__
 from monitor.config import Settings, load_settings
-from monitor.errors import FitwatchError, UsageError
+from monitor.errors import ExitCode, FitwatchError, UsageError, exit_code_for
 from monitor.interface.output import dumps
 from monitor.interface.progress import wants_progress
 
 log = logging.getLogger("monitor")
 
-EXIT_OK, EXIT_INPUT, EXIT_INTERNAL, EXIT_THRESHOLD = 0, 1, 2, 3
+EXIT_OK, EXIT_THRESHOLD = ExitCode.OK, ExitCode.THRESHOLD
 
 
 class _Parser(argparse.ArgumentParser):
@@ -288,10 +289,9 @@ def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
     outcome = run_checks(settings, args.names or None, day=args.day, through=args.through,
                          progress=wants_progress() and not args.json)
     print(dumps(check_document(outcome)) if args.json else check_text(outcome))
-    failed = [r for r in outcome.results if r.error]
-    if failed:
-        return EXIT_INTERNAL if any(r.error.startswith("internal") for r in failed) \
-            else EXIT_INPUT
+    failures = [r.failure for r in outcome.results if r.failure]
+    if failures:  # an internal failure of one model outranks a bad input of another
+        return max(f.exit_code for f in failures)
     if args.fail_on:
         rank = {"ok": 0, "watch": 1, "refit": 2}
         worst = outcome.worst_status()
@@ -413,14 +413,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         return int(args.handler(args, settings))
     except FitwatchError as exc:
         print(f"fitwatch: {exc}", file=sys.stderr)
-        return EXIT_INPUT
-    except KeyboardInterrupt:
+        return exit_code_for(exc)
+    except KeyboardInterrupt as exc:
         print("fitwatch: interrupted", file=sys.stderr)
-        return 130
-    except BrokenPipeError:
-        return EXIT_OK
-    except Exception:
+        return exit_code_for(exc)
+    except BrokenPipeError as exc:
+        return exit_code_for(exc)
+    except Exception as exc:
         log.exception("internal error")
         print("fitwatch: internal error (details above); please report it", file=sys.stderr)
-        return EXIT_INTERNAL
+        return exit_code_for(exc)
 

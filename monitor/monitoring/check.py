@@ -23,7 +23,7 @@ from monitor.domain.days import local_day
 from monitor.domain.model import ModelRecord
 from monitor.domain.status import Status, worst
 from monitor.domain.version import Version
-from monitor.errors import FitwatchError, InputError, StateError
+from monitor.errors import Failure, FitwatchError, InputError, StateError
 from monitor.interface.progress import progress_bar
 from monitor.monitoring.walk import HISTORY_DAYS, Subject, Timeline, walk
 from monitor.store import audit
@@ -54,8 +54,12 @@ class ModelCheck:
     last_day: date | None
     recomputed_from: date | None  # set when late rows forced a re-evaluation
     note: str = ""
-    error: str | None = None
+    failure: Failure | None = None  # set when the model could not be checked
     current: DayCheck | None = None  # the model's latest check, new or stored before
+
+    @property
+    def error(self) -> str | None:
+        return self.failure.message if self.failure else None
 
 
 @dataclass(frozen=True)
@@ -101,13 +105,12 @@ def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
         except FitwatchError as exc:
             if names:
                 raise
-            result = ModelCheck(model.name, (), None, None, None, error=str(exc))
+            result = ModelCheck(model.name, (), None, None, None, failure=Failure.of(exc))
         except Exception as exc:  # one model's bug must not stop the night for the others
             log.exception("checking model %s failed", model.name)
             if names and len(names) == 1:
                 raise
-            result = ModelCheck(model.name, (), None, None, None,
-                                error=f"internal error: {exc!r}")
+            result = ModelCheck(model.name, (), None, None, None, failure=Failure.of(exc))
         if day is not None:
             result = _only_day(engine, model, result, day)
         results.append(result)
@@ -118,7 +121,7 @@ def _only_day(engine: Engine, model: ModelRecord, result: ModelCheck, day: date)
     with engine.connect() as conn:
         stored = load_checks(conn, model.id, day, day, model=model.name)
     return ModelCheck(model.name, tuple(stored), day if stored else None,
-                      day if stored else None, result.recomputed_from, result.note, result.error,
+                      day if stored else None, result.recomputed_from, result.note, result.failure,
                       current=result.current)
 
 

@@ -16,7 +16,7 @@ from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import date
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import matplotlib
 import matplotlib.dates as mdates
@@ -25,6 +25,9 @@ import numpy as np
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+
+if TYPE_CHECKING:
+    from matplotlib.typing import RcKeyType
 
 from monitor.domain.check import DayCheck
 from monitor.report.series import (
@@ -52,7 +55,7 @@ REPORT_SIZE = (800, 400)
 SCATTER_SIZE = (800, 520)
 DPI = 100
 
-_STYLE: dict[str, Any] = {
+_STYLE: dict[RcKeyType, Any] = {
     "font.family": "DejaVu Sans",
     "font.size": 8,
     "axes.titlesize": 9,

@@ -22,7 +22,7 @@ from monitor.alerts.mailer import Mailer
 from monitor.alerts.service import AlertRun, queue_night, send_due
 from monitor.config import Settings
 from monitor.domain.days import yesterday
-from monitor.errors import FitwatchError
+from monitor.errors import Failure, describe
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
@@ -53,7 +53,7 @@ class NightRun:
 
     @property
     def failures(self) -> list[ModelCheck]:
-        return [r for r in self.checks.results if r.error]
+        return [r for r in self.checks.results if r.failure]
 
     @property
     def status(self) -> str:
@@ -99,8 +99,8 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
         sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
     except Exception as exc:  # e.g. the database is locked: the files wait for the next run
         log.exception("sweeping the inbox failed")
-        problems.append(f"inbox: {_describe(exc)}")
-        _record_failure(engine, None, _describe(exc), now, actor, stage="inbox")
+        problems.append(f"inbox: {describe(exc)}")
+        _record_failure(engine, None, describe(exc), now, actor, stage="inbox")
         sweep = Sweep()
     results: list[ModelCheck] = []
     stopped = False
@@ -138,8 +138,8 @@ def _alert(settings: Settings, engine: Engine, nights: list[date], now: datetime
         sent = send_due(settings, now=now, engine=engine, mailer=mailer)
     except Exception as exc:
         log.exception("the alerts could not all go out")
-        problems.append(f"alerts: {_describe(exc)}")
-        _record_failure(engine, None, _describe(exc), now, actor, stage="alerts")
+        problems.append(f"alerts: {describe(exc)}")
+        _record_failure(engine, None, describe(exc), now, actor, stage="alerts")
         return None
     return replace(sent, night=nights[-1] if nights else None, queued=queued)
 
@@ -153,8 +153,8 @@ def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, a
         return [ingest_configured_source(settings, name, now=now, engine=engine)]
     except Exception as exc:  # the source database may be down: check what is stored
         log.exception("reading the SQL source of %s failed", name)
-        problems.append(f"{name} source: {_describe(exc)}")
-        _record_failure(engine, name, _describe(exc), now, actor, stage="source")
+        problems.append(f"{name} source: {describe(exc)}")
+        _record_failure(engine, name, describe(exc), now, actor, stage="source")
         return []
 
 
@@ -171,15 +171,12 @@ def _check_one(settings: Settings, engine: Engine, name: str, through: date, now
         outcome = run_checks(settings, [name], through=through, now=now, engine=engine)
     except Exception as exc:  # one model must not stop the night; KeyboardInterrupt passes
         log.exception("the nightly check of %s failed", name)
-        outcome = CheckOutcome((ModelCheck(name, (), None, None, None, error=_describe(exc)),))
+        outcome = CheckOutcome((ModelCheck(name, (), None, None, None,
+                                           failure=Failure.of(exc)),))
     for result in outcome.results:
-        if result.error:
-            _record_failure(engine, name, result.error, now, actor)
+        if result.failure:
+            _record_failure(engine, name, result.failure.message, now, actor)
     return outcome
-
-
-def _describe(exc: Exception) -> str:
-    return str(exc) if isinstance(exc, FitwatchError) else f"internal error: {exc!r}"
 
 
 def _record_failure(engine: Engine, name: str | None, error: str, now: datetime, actor: str,

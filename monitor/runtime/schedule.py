@@ -22,7 +22,8 @@ STALE_HEARTBEATS = 3  # missed heartbeats before a holder counts as gone
 
 
 def cron_trigger(settings: Settings) -> CronTrigger:
-    return CronTrigger.from_crontab(settings.schedule.cron, timezone=settings.timezone)
+    """The nightly schedule, as parsed (and checked) when the settings were loaded."""
+    return settings.schedule.trigger
 
 
 @dataclass(frozen=True)

@@ -156,7 +156,7 @@ class DayMoments:
                    np.zeros((0, dim)))
 
     @classmethod
-    def stack(cls, days: Sequence[Any], parts: Sequence[Moments], dim: int) -> DayMoments:
+    def stack(cls, days: ArrayLike, parts: Sequence[Moments], dim: int) -> DayMoments:
         if not parts:
             return cls.empty(dim)
         return cls(np.asarray(days), np.array([p.n for p in parts], dtype=np.int64),

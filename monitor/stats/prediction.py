@@ -98,7 +98,7 @@ class PredictionModel:
             raise DegenerateDataError(f"the covariance must be a symmetric {k + 1}x{k + 1} matrix")
         slope_inverse = u[1:, 1:]
         try:
-            xmean = -np.linalg.solve(slope_inverse, u[1:, 0])
+            xmean = -np.linalg.solve(slope_inverse, u[1:, 0]).astype(np.float64, copy=False)
         except np.linalg.LinAlgError as exc:
             raise DegenerateDataError("the slopes' covariance block is singular") from exc
         inv_n = u[0, 0] - xmean @ slope_inverse @ xmean

@@ -9,7 +9,7 @@ from typing import Any
 
 from sqlalchemy import Connection, insert, select
 
-from monitor.store.schema import audit_log, jsonable
+from monitor.store.schema import audit_log, inserted_id, jsonable
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure")
 
@@ -35,7 +35,7 @@ def record(conn: Connection, *, action: str, actor: str, at: datetime, model_id:
     result = conn.execute(insert(audit_log).values(
         at=at, model_id=model_id, action=action, actor=actor, reason=reason,
         version_id=version_id, effective_day=effective_day, details=jsonable(details or {})))
-    return int(result.inserted_primary_key[0])
+    return inserted_id(result)
 
 
 def entries(conn: Connection, model_id: int, actions: tuple[str, ...] = ACTIONS,

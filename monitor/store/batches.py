@@ -5,12 +5,12 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
-from typing import Any
 
-from sqlalchemy import Connection, bindparam, literal_column, select
+from sqlalchemy import Connection, RowMapping, bindparam, literal_column, select
 
 from monitor.errors import NotFoundError
-from monitor.store.schema import batches, rejected_rows
+from monitor.store.engine import driver_cursor
+from monitor.store.schema import batches, inserted_id, rejected_rows
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,7 @@ def start_batch(conn: Connection, model_id: int, source: str, file_hash: str | N
         model_id=model_id, source=source, file_hash=file_hash, file_size=file_size,
         strict=strict, status="open", read=0, accepted=0, duplicates=0, rejected=0, reasons={},
         started_at=now))
-    return int(result.inserted_primary_key[0])
+    return inserted_id(result)
 
 
 def finish_batch(conn: Connection, batch_id: int, *, status: str, read: int, accepted: int,
@@ -91,8 +91,7 @@ def add_rejected_rows(conn: Connection, batch_id: int,
     if not rows:
         return
     clean = [(line, _text(raw), reason, _text(detail)) for line, raw, reason, detail in rows]
-    cursor = conn.connection.driver_connection.cursor()
-    try:
+    with driver_cursor(conn) as cursor:
         if conn.dialect.name == "postgresql":
             with cursor.copy("COPY rejected_rows (batch_id, line, raw, reason, detail) "
                              "FROM STDIN") as copy:
@@ -105,8 +104,6 @@ def add_rejected_rows(conn: Connection, batch_id: int,
                 **{name: bindparam(name) for name in names}).compile(dialect=conn.dialect)
             order = [names.index(name) for name in stmt.positiontup or []]
             cursor.executemany(str(stmt), [tuple(row[i] for i in order) for row in clean])
-    finally:
-        cursor.close()
 
 
 def rejected_rows_of(conn: Connection, batch_id: int) -> list[RejectedRow]:
@@ -121,7 +118,7 @@ def _text(value: str) -> str:
     return value.replace("\x00", "\\0")  # PostgreSQL text cannot hold NUL
 
 
-def _record(m: Mapping[str, Any]) -> BatchRecord:
+def _record(m: RowMapping) -> BatchRecord:
     return BatchRecord(
         id=m["id"], model_id=m["model_id"], source=m["source"], file_hash=m["file_hash"],
         file_size=m["file_size"], strict=bool(m["strict"]), status=m["status"], read=m["read"],

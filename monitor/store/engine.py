@@ -4,12 +4,17 @@ SQLite (the default) is opened with WAL journaling, foreign keys on and a busy t
 database file is created with owner-only permissions (0600). PostgreSQL URLs are accepted the way
 people type them (``postgresql://user@host/db`` or ``postgres://...``) and use the psycopg 3
 driver. Schema changes happen only through the Alembic revisions in ``migrations/``.
+
+Failures of the database itself (locked, disk full, read-only, cannot be opened or reached) are
+turned into one :class:`~monitor.errors.DatabaseError` that says what to do, in one place: the
+``handle_error`` hook every engine opened here carries (:func:`database_error`).
 """
 
 from __future__ import annotations
 
 import logging
 import os
+import sqlite3
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -22,7 +27,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from alembic.util import CommandError
 from sqlalchemy import Connection, Engine, create_engine, event
-from sqlalchemy.engine import URL, make_url
+from sqlalchemy.engine import URL, ExceptionContext, make_url
 from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
 
 from monitor.config import Settings
@@ -91,11 +96,23 @@ def open_engine(url: str, *, create: bool = True) -> Engine:
     """An engine for ``url``; with ``create=False`` a missing SQLite file is an error."""
     parsed = normalize_url(url)
     if parsed.get_backend_name() == "sqlite":
-        return _sqlite_engine(parsed, create)
-    try:
-        return create_engine(parsed, pool_pre_ping=True)
-    except (NoSuchModuleError, ImportError) as exc:
-        raise DatabaseError(f"no driver for {describe_url(parsed)}: {exc}") from exc
+        engine = _sqlite_engine(parsed, create)
+    else:
+        try:
+            engine = create_engine(parsed, pool_pre_ping=True)
+        except (NoSuchModuleError, ImportError) as exc:
+            raise DatabaseError(f"no driver for {describe_url(parsed)}: {exc}") from exc
+    where = describe_url(parsed)
+
+    @event.listens_for(engine, "handle_error")
+    def _on_error(context: ExceptionContext) -> None:
+        if context.is_pre_ping:  # the pool reconnects by itself; never stand in its way
+            return
+        error = database_error(context.original_exception, where)
+        if error is not None:
+            raise error from context.original_exception
+
+    return engine
 
 
 def _sqlite_engine(url: URL, create: bool) -> Engine:
@@ -118,7 +135,9 @@ def _sqlite_engine(url: URL, create: bool) -> Engine:
             except OSError as exc:
                 raise DatabaseError(f"cannot create the database {path}: {exc.strerror}") \
                     from exc
-        url = url.set(database=str(path))
+        # a URI (``file:...?mode=ro&uri=true``) must stay one, or its options name a new file
+        uri = str(url.query.get("uri", "")).lower() in ("true", "1")
+        url = url.set(database=f"file:{path}" if uri else str(path))
     engine = create_engine(url)
 
     @event.listens_for(engine, "connect")
@@ -155,13 +174,39 @@ def write_transaction(engine: Engine, *, foreign_keys: bool = True) -> Iterator[
         conn.execution_options(**{_IMMEDIATE: True})
         relax = not foreign_keys and conn.dialect.name == "sqlite"
         if relax:
-            conn.connection.driver_connection.execute("PRAGMA foreign_keys = OFF")
+            driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
         try:
             with conn.begin():
                 yield conn
         finally:
             if relax:
-                conn.connection.driver_connection.execute("PRAGMA foreign_keys = ON")
+                driver_connection(conn).execute("PRAGMA foreign_keys = ON")
+
+
+def driver_connection(conn: Connection) -> Any:
+    """The driver's own connection under ``conn`` (for PRAGMAs outside a transaction)."""
+    driver = conn.connection.driver_connection
+    assert driver is not None, "the connection was closed"
+    return driver
+
+
+@contextmanager
+def driver_cursor(conn: Connection) -> Iterator[Any]:
+    """The driver's own cursor, for bulk paths that bypass SQLAlchemy; closed afterwards.
+
+    A failure of the database itself becomes the same :class:`DatabaseError` as on any other
+    path (the ``handle_error`` hook does not see this cursor).
+    """
+    cursor = driver_connection(conn).cursor()
+    try:
+        yield cursor
+    except Exception as exc:
+        error = database_error(exc, describe_url(conn.engine.url))
+        if error is None:
+            raise
+        raise error from exc
+    finally:
+        cursor.close()
 
 
 # migrations -------------------------------------------------------------------------------------
@@ -197,7 +242,7 @@ def upgrade_database(engine: Engine) -> str:
         with engine.connect() as conn:
             sqlite = conn.dialect.name == "sqlite"
             if sqlite:  # batch migrations copy tables; cascades must not fire meanwhile
-                conn.connection.driver_connection.execute("PRAGMA foreign_keys = OFF")
+                driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
             try:
                 with conn.begin():
                     config.attributes["connection"] = conn
@@ -209,7 +254,7 @@ def upgrade_database(engine: Engine) -> str:
                                                 "dangling references; it was rolled back")
             finally:
                 if sqlite:
-                    conn.connection.driver_connection.execute("PRAGMA foreign_keys = ON")
+                    driver_connection(conn).execute("PRAGMA foreign_keys = ON")
     except SQLAlchemyError as exc:
         raise _db_error(engine, exc) from exc
     except CommandError as exc:  # e.g. a revision this program does not know
@@ -279,7 +324,75 @@ def init_database(settings: Settings) -> InitResult:
         engine.dispose()
 
 
+# database failures ----------------------------------------------------------------------------
+_SQLITE_LOCKED = {sqlite3.SQLITE_BUSY, sqlite3.SQLITE_LOCKED}
+_SQLITE_CANNOT_OPEN = {sqlite3.SQLITE_CANTOPEN, sqlite3.SQLITE_PERM}
+_SQLITE_DAMAGED = {sqlite3.SQLITE_CORRUPT, sqlite3.SQLITE_NOTADB}
+_PG_DISK_FULL = "53100"  # PostgreSQL's SQLSTATE disk_full
+_PG_READ_ONLY = "25006"  # read_only_sql_transaction (a standby, or a read-only default)
+_PG_UNREACHABLE = ("08", "57P", "53300")  # connection exceptions, shutdown, too many connections
+
+
+def database_error(exc: BaseException, where: str) -> DatabaseError | None:
+    """The :class:`DatabaseError` for a driver error that is about the database itself (locked,
+    full, read-only, damaged, unreachable), naming it and saying what to do; None for the rest
+    (a constraint, a bad statement: those are the caller's to handle or a bug)."""
+    first = _first_line(exc)
+    if isinstance(exc, sqlite3.Error) and not isinstance(exc, sqlite3.IntegrityError):
+        code = getattr(exc, "sqlite_errorcode", -1) & 0xFF  # the primary code of an extended one
+        if code in _SQLITE_LOCKED:
+            return DatabaseError(
+                f"the database ({where}) is locked by another process (another fitwatch "
+                "command, the daemon, or a program holding it open; fitwatch waits up to "
+                f"{SQLITE_BUSY_TIMEOUT_MS / 1000:g} s); run the command again when it is done")
+        if code == sqlite3.SQLITE_READONLY:
+            return DatabaseError(
+                f"the database ({where}) is read-only ({first}); fitwatch needs to write to it: "
+                "give the user running fitwatch write access to the file and its folder (SQLite "
+                "keeps -wal and -shm files beside it) and do not open it with mode=ro")
+        if code == sqlite3.SQLITE_FULL:
+            return _disk_full(where)
+        if code in _SQLITE_CANNOT_OPEN:
+            return DatabaseError(
+                f"cannot open the database ({where}): {first}; check that the file and its "
+                "folder exist and that the user running fitwatch may read and write them")
+        if code == sqlite3.SQLITE_IOERR:
+            return DatabaseError(
+                f"the database ({where}) could not be read or written ({first}); check the "
+                "disk and the file system, then run the command again")
+        if code in _SQLITE_DAMAGED:
+            return DatabaseError(
+                f"the database ({where}) is damaged or not an SQLite database ({first}); "
+                "restore it from a backup, or point --db at the right file")
+        return None
+    import psycopg  # here, not at the top: SQLite users never load the PostgreSQL driver
+
+    if isinstance(exc, psycopg.Error):
+        state = exc.sqlstate or ""
+        if state == _PG_DISK_FULL:
+            return _disk_full(where)
+        if state == _PG_READ_ONLY:
+            return DatabaseError(
+                f"the database ({where}) is read-only ({first}); connect to the primary server "
+                "as a user that may write")
+        if isinstance(exc, psycopg.OperationalError) and (
+                not state or state.startswith(_PG_UNREACHABLE)):  # no SQLSTATE: no server
+            return DatabaseError(
+                f"cannot reach the database ({where}): {first}; check that the server is "
+                "running and that the URL's host, port, user and database name are right")
+    return None
+
+
+def _disk_full(where: str) -> DatabaseError:
+    return DatabaseError(f"the disk holding the database ({where}) is full; the interrupted "
+                         "write was rolled back: free some space, then run the command again")
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def _db_error(engine: Engine, exc: SQLAlchemyError) -> DatabaseError:
     cause = getattr(exc, "orig", None) or exc
-    first = str(cause).strip().splitlines()[0] if str(cause).strip() else type(cause).__name__
-    return DatabaseError(f"database error ({describe_url(engine.url)}): {first}")
+    return DatabaseError(f"database error ({describe_url(engine.url)}): {_first_line(cause)}")

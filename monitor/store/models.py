@@ -8,7 +8,7 @@ from sqlalchemy import Connection, select
 
 from monitor.domain.model import ModelRecord, ModelSpec
 from monitor.errors import NotFoundError, StateError
-from monitor.store.schema import models
+from monitor.store.schema import inserted_id, models
 
 
 def _record(row: object) -> ModelRecord:
@@ -49,12 +49,12 @@ def create_model(conn: Connection, spec: ModelSpec, now: datetime) -> ModelRecor
             return existing
         raise StateError(f"model '{spec.name}' already exists with other columns "
                          f"({_describe(existing.spec)}); asked for ({_describe(spec)})")
-    row_id = conn.execute(models.insert().values(
+    row_id = inserted_id(conn.execute(models.insert().values(
         name=spec.name, response=spec.response, predictors=list(spec.predictors),
         time_column=spec.time_column, id_column=spec.id_column, created_at=now,
-    )).inserted_primary_key[0]
+    )))
     return ModelRecord(name=spec.name, response=spec.response, predictors=spec.predictors,
-                       time_column=spec.time_column, id_column=spec.id_column, id=int(row_id),
+                       time_column=spec.time_column, id_column=spec.id_column, id=row_id,
                        created_at=now)
 
 

@@ -17,10 +17,10 @@ import numpy as np
 from numpy.typing import NDArray
 from sqlalchemy import (
     BigInteger,
+    ClauseElement,
     Column,
     Connection,
     Date,
-    Executable,
     Float,
     MetaData,
     String,
@@ -34,9 +34,11 @@ from sqlalchemy import (
     update,
 )
 from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.sql.compiler import SQLCompiler
 
 from monitor.domain.model import ModelRecord
 from monitor.stats.moments import DayMoments, Moments
+from monitor.store.engine import driver_cursor
 from monitor.store.schema import day_stats, observations, predictor_columns
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
@@ -197,13 +199,10 @@ def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
     tuples = rows.tuples
     if order != list(range(len(names))):
         tuples = [tuple(row[i] for i in order) for row in tuples]
-    cursor = conn.connection.driver_connection.cursor()
-    try:
+    with driver_cursor(conn) as cursor:
         before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
         cursor.executemany(str(compiled), tuples)
         stored = cursor.rowcount
-    finally:
-        cursor.close()
     keys = rows.keys
     if stored == len(keys):
         return _result(np.ones(len(keys), bool), keys, [], model.k)
@@ -229,13 +228,10 @@ def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
         _STAGE.create(conn)
     else:
         conn.exec_driver_sql("TRUNCATE fitwatch_stage")
-    cursor = conn.connection.driver_connection.cursor()
-    try:
-        with cursor.copy(f"COPY fitwatch_stage ({', '.join(names)}) FROM STDIN") as copy:
-            for row in rows.tuples:
-                copy.write_row(row)
-    finally:
-        cursor.close()
+    with driver_cursor(conn) as cursor, \
+            cursor.copy(f"COPY fitwatch_stage ({', '.join(names)}) FROM STDIN") as copy:
+        for row in rows.tuples:
+            copy.write_row(row)
     source = select(literal_column(str(int(model.id))), literal_column(str(int(batch_id))),
                     _STAGE.c.obs_key, _STAGE.c.observed_at_us,
                     cast(_STAGE.c.day, Date), _STAGE.c.y,
@@ -348,18 +344,16 @@ def _day_strings(days: NDArray[np.datetime64]) -> list[str]:
     return text[inverse].tolist()
 
 
-def _fetch(conn: Connection, stmt: Executable) -> list[tuple[Any, ...]]:
+def _fetch(conn: Connection, stmt: ClauseElement) -> list[tuple[Any, ...]]:
     """Run a Core statement on the driver's cursor: plain tuples, no per-row processing."""
     compiled = stmt.compile(dialect=conn.dialect)
+    assert isinstance(compiled, SQLCompiler)
     params = dict(compiled.params)
     if conn.dialect.name == "sqlite":
         params = {k: v.isoformat() if isinstance(v, date) else v for k, v in params.items()}
     args: Any = params
     if compiled.positiontup is not None:
         args = tuple(params[name] for name in compiled.positiontup)
-    cursor = conn.connection.driver_connection.cursor()
-    try:
+    with driver_cursor(conn) as cursor:
         cursor.execute(str(compiled), args)
         return cursor.fetchall()
-    finally:
-        cursor.close()

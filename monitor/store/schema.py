@@ -29,6 +29,7 @@ from sqlalchemy import (
     Text,
     UniqueConstraint,
 )
+from sqlalchemy.engine import CursorResult
 from sqlalchemy.types import TypeDecorator
 
 from monitor.config import MAX_PREDICTORS
@@ -279,3 +280,10 @@ def jsonable(value: Any) -> Any:
     if isinstance(value, float) and (value != value or value in (float("inf"), float("-inf"))):
         return None
     return value
+
+
+def inserted_id(result: CursorResult[Any]) -> int:
+    """The primary key of the one row an INSERT just wrote."""
+    key = result.inserted_primary_key
+    assert key is not None, "not the result of a single-row INSERT"
+    return int(key[0])

@@ -29,7 +29,7 @@ from monitor.errors import NotFoundError
 from monitor.stats.day_effects import DayEffects
 from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
-from monitor.store.schema import versions
+from monitor.store.schema import inserted_id, versions
 
 _ARRAYS = ("coefficients", "std_errors", "covariance", "xmean", "slope_inverse", "x_min", "x_max")
 
@@ -90,11 +90,11 @@ def insert_version(conn: Connection, model_id: int, draft: VersionDraft, *,
                    actor: str) -> Version:
     number = (conn.execute(select(func.max(versions.c.number))
                            .where(versions.c.model_id == model_id)).scalar() or 0) + 1
-    new_id = conn.execute(insert(versions).values(
+    new_id = inserted_id(conn.execute(insert(versions).values(
         model_id=model_id, number=number, state=state.value, active_from=active_from,
         active_until=None, created_at=now, created_by=actor, **_values(draft),
-    )).inserted_primary_key[0]
-    return Version(id=int(new_id), model_id=model_id, number=number, state=state, draft=draft,
+    )))
+    return Version(id=new_id, model_id=model_id, number=number, state=state, draft=draft,
                    active_from=active_from, active_until=None, created_at=now,
                    created_by=actor)
 
