@@ -22,7 +22,7 @@ from monitor.alerts.news import (
     model_news,
 )
 from monitor.config import AlertSettings
-from tests.alerts.conftest import day_check
+from tests.support.mail import day_check
 
 START = date(2026, 3, 9)
 LEAD = "planning.lead@example.com"

@@ -29,7 +29,7 @@ from monitor.stats.moments import DayMoments
 from monitor.store.batches import list_batches, rejected_rows_of
 from monitor.store.observations import count_observations, load_day_stats, load_observations
 from monitor.store.schema import batches, rejected_rows
-from tests.ingest.conftest import NOW, Store, csv_text
+from tests.support.ingest import NOW, Store, csv_text
 
 BERLIN = ZoneInfo("Europe/Berlin")
 
