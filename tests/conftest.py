@@ -30,6 +30,7 @@ from sqlalchemy import Engine, text
 from monitor.config import Settings, parse_settings
 from monitor.store.engine import open_engine, upgrade_database
 from monitor.store.schema import metadata
+from tests.support.demo import DemoRun, leave_an_earlier_run, run_demo_command
 from tests.support.snapshots import WorldCache
 
 PG_HOST, PG_PORT = "127.0.0.1", 5432
@@ -135,3 +136,11 @@ def make_settings() -> Callable[..., Settings]:
 @pytest.fixture(scope="session")
 def worlds() -> WorldCache:
     return WorldCache()
+
+
+@pytest.fixture(scope="session")
+def demo(tmp_path_factory: pytest.TempPathFactory) -> DemoRun:
+    """``fitwatch demo`` once per session, in a folder holding an earlier run's leftovers."""
+    folder = tmp_path_factory.mktemp("demo") / "demo"
+    leave_an_earlier_run(folder)
+    return run_demo_command(folder)

@@ -157,11 +157,13 @@ def test_check_json_fail_on_and_status_from_the_command_line(
         assert key in day
     assert set(day["cusum"]) >= {"upper", "lower", "h", "signal"}
     assert set(day["slope"]) >= {"statistic", "pvalue"}
-    # nothing new, but the current status still decides --fail-on
-    code = main(["--config", str(config), "check", "--through", "2026-03-20",
-                 "--fail-on", "watch"])
-    capsys.readouterr()
-    assert code in (0, 3)
+    # nothing new, but the current status still decides --fail-on: 3 at or above the threshold
+    # (README, "Running it every night": exit codes)
+    for threshold, reached in (("watch", ("watch", "refit")), ("refit", ("refit",))):
+        code = main(["--config", str(config), "check", "--through", "2026-03-20",
+                     "--fail-on", threshold])
+        capsys.readouterr()
+        assert code == (3 if day["status"] in reached else 0), (threshold, day["status"])
     code = main(["--config", str(config), "status", "--json"])
     status = json.loads(capsys.readouterr().out)[0]
     assert code == 0 and status["last_checked_day"] == "2026-03-20"

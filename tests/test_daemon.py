@@ -5,6 +5,7 @@ from __future__ import annotations
 import email
 import json
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -26,6 +27,7 @@ from monitor.runtime.nightly import run_night
 from monitor.runtime.schedule import last_scheduled, nightly_state
 from monitor.store import audit, lease
 from monitor.store.checks import last_check
+from monitor.store.engine import open_engine, upgrade_database
 from monitor.store.models import get_model
 from monitor.store.schema import scheduler_lease
 from tests.support.mail import RecordingMailer
@@ -202,6 +204,7 @@ def _wait(predicate, timeout: float = 60.0) -> None:
     raise AssertionError("timed out")
 
 
+@pytest.mark.slow
 def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_over(
         engine: Engine, make_settings, tmp_path: Path) -> None:
     world = _world(engine, make_settings, tmp_path)
@@ -279,17 +282,34 @@ def test_status_says_when_the_nightly_run_is_late(engine: Engine, make_settings,
 
 def test_checks_made_by_hand_and_by_the_night_agree(engine: Engine, make_settings,
                                                    tmp_path: Path) -> None:
-    """The nightly run is only a caller of the same check: same rows, same verdicts."""
+    """The nightly run is only a caller of the same check: the same rows, checked by hand in a
+    second database (SQLite), give the same verdicts day by day."""
     world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
-    _drop(world, date(2026, 3, 9), date(2026, 3, 25), 25, "weeks.csv")
+    dropped = _drop(world, date(2026, 3, 9), date(2026, 3, 25), 25, "weeks.csv")
+    kept = shutil.copyfile(dropped, tmp_path / "the_same_rows.csv")  # the inbox file moves
     run = run_night(world.settings, engine, now=night_after(date(2026, 3, 25)))
-    by_night = {c.day: (c.status, c.cusum_upper) for c in run.checks.checks}
     again = run_checks(world.settings, [MODEL], through=date(2026, 3, 25),
                        now=night_after(date(2026, 3, 25)), engine=engine)
-    assert not again.checks  # nothing left to do
-    with engine.connect() as conn:
-        stored = last_check(conn, get_model(conn, MODEL).id)
-    assert by_night[stored.day] == (stored.status, stored.cusum_upper)
+    assert not again.checks  # the night left nothing to do
+
+    other = tmp_path / "by_hand"
+    other.mkdir()
+    second = open_engine(f"sqlite:///{other / 'fitwatch.db'}")
+    try:
+        upgrade_database(second)
+        hand = _world(second, make_settings, other, scenario=CHANGED)
+        hand.ingest(kept, date(2026, 3, 25))
+        by_hand = hand.check(date(2026, 3, 25)).checks
+    finally:
+        second.dispose()
+
+    def verdicts(checks):
+        return [(c.day, c.n, c.covered, c.status, c.status_since, c.reasons,
+                 round(c.cusum_upper, 9), round(c.cusum_lower, 9)) for c in checks]
+
+    assert len(run.checks.checks) == 18  # 8 March (the day after the fit window) to 25 March
+    assert any(c.status != "ok" for c in run.checks.checks)  # the slope change of 16 March
+    assert verdicts(by_hand) == verdicts(run.checks.checks)
 
 
 # the SQL source --------------------------------------------------------------------------------

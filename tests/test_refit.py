@@ -156,6 +156,7 @@ def test_refused_actions_say_why(world: World) -> None:
         rollback(world.settings, MODEL, engine=world.engine)
 
 
+@pytest.mark.slow
 def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     url = changed.engine.url.render_as_string(hide_password=False)
     config = changed.tmp / "fitwatch.toml"
@@ -172,6 +173,7 @@ def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     assert "advice acknowledged" in capsys.readouterr().out
 
 
+@pytest.mark.slow
 def test_refit_starts_at_the_estimated_change_and_recommends_promotion(changed: World) -> None:
     last = changed.check(date(2026, 4, 12)).results[0].current
     assert last is not None and last.change_day is not None
@@ -191,6 +193,7 @@ def test_refit_starts_at_the_estimated_change_and_recommends_promotion(changed: 
 
 # statsmodels OLS as the reference library: the comparison's candidate figures are those of a
 # fit on the days before the hold-out only (no held-out row leaks into the candidate's fit).
+@pytest.mark.slow
 def test_the_candidate_is_judged_without_its_held_out_rows(changed: World) -> None:
     fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
                                            end=date(2026, 4, 11)),
@@ -220,6 +223,7 @@ def test_an_unchanged_relationship_is_kept(world: World) -> None:
         result.active_score.rmse
 
 
+@pytest.mark.slow
 def test_too_few_days_to_judge_means_wait(refitted_from_30_march: World) -> None:
     changed = refitted_from_30_march
     result = compare(changed.settings, MODEL, holdout_days=10, engine=changed.engine)
@@ -228,6 +232,10 @@ def test_too_few_days_to_judge_means_wait(refitted_from_30_march: World) -> None
         in result.recommendation.sentence  # 5 April had no loads
 
 
+# The refusal is the calibration's verdict on the window's statistics, whatever database holds
+# the rows (the bootstrap that reaches it takes seconds): one backend is enough.
+@pytest.mark.slow
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
 def test_a_window_too_short_to_calibrate_is_refused(changed: World) -> None:
     with pytest.raises(DegenerateDataError, match="fit on a longer window"):
         refit(changed.settings, MODEL, start=date(2026, 4, 6), engine=changed.engine)
@@ -242,6 +250,7 @@ def test_refit_needs_a_start_when_no_change_was_estimated(world: World) -> None:
         compare(world.settings, MODEL, engine=world.engine)
 
 
+@pytest.mark.slow
 def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     url = changed.engine.url.render_as_string(hide_password=False)
     config = changed.tmp / "fitwatch.toml"
@@ -258,6 +267,7 @@ def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixtur
     assert "not a candidate" in capsys.readouterr().err
 
 
+@pytest.mark.slow
 def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World) -> None:
     """After a change, a version fitted on two weeks needs a wide bias chart limit; once twice
     the days exist, status suggests a refit from the same start and compare recommends it."""
@@ -283,6 +293,7 @@ def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World)
     assert "bias chart limit drops" in result.recommendation.sentence
 
 
+@pytest.mark.slow
 def test_asking_to_hold_out_more_days_than_there_are_says_so(
         refitted_from_30_march: World) -> None:
     changed = refitted_from_30_march

@@ -2,8 +2,9 @@
 nightly pipeline, a candidate and its promotion, two models with their own recipients, and the
 ``.eml`` folder used when no SMTP server is configured.
 
-References: SPEC §7; RFC 5322 (message format, CRLF lines) read back with the Python stdlib
-``email`` parser (``policy.default``).
+References: README, "Running it every night" (one digest per recipient and night); RFC 5322
+(message format, CRLF lines) read back with the Python stdlib ``email`` parser
+(``policy.default``).
 """
 
 from __future__ import annotations
@@ -53,6 +54,7 @@ def _text(message: EmailMessage) -> str:
     return str(body.get_content())
 
 
+@pytest.mark.slow
 def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings,
                                                    tmp_path: Path) -> None:
     settings = _settings(make_settings, engine, tmp_path)
