@@ -9,6 +9,10 @@
 - ``database_url``: an empty database of that backend (not even the schema).
 - ``engine``: an engine on an empty database of that backend at the newest schema revision.
 - ``make_settings``: settings for a database URL, in a non-UTC zone, with overrides.
+- ``worlds``: the session's cache of prebuilt worlds (``tests/support/snapshots.py``): a world
+  several tests start from is built once per backend and copied into each test's own database.
+- ``demo``: the demo scenario run end to end once per session (``fitwatch demo``), for the tests
+  that read what it printed, stored and mailed.
 """
 
 from __future__ import annotations
@@ -26,9 +30,11 @@ from sqlalchemy import Engine, text
 from monitor.config import Settings, parse_settings
 from monitor.store.engine import open_engine, upgrade_database
 from monitor.store.schema import metadata
+from tests.support.demo import DemoRun, leave_an_earlier_run, run_demo_command
+from tests.support.snapshots import WorldCache
 
 PG_HOST, PG_PORT = "127.0.0.1", 5432
-TEST_ZONE = "Europe/Berlin"  # non-UTC with DST, on purpose (STYLE.md §10)
+TEST_ZONE = "Europe/Berlin"  # non-UTC with DST, on purpose (see DEVELOPERS.md, tests)
 
 
 def _pg_user() -> str:
@@ -125,3 +131,16 @@ def make_settings() -> Callable[..., Settings]:
         document.update(sections)
         return parse_settings(document, "<test settings>")
     return build
+
+
+@pytest.fixture(scope="session")
+def worlds() -> WorldCache:
+    return WorldCache()
+
+
+@pytest.fixture(scope="session")
+def demo(tmp_path_factory: pytest.TempPathFactory) -> DemoRun:
+    """``fitwatch demo`` once per session, in a folder holding an earlier run's leftovers."""
+    folder = tmp_path_factory.mktemp("demo") / "demo"
+    leave_an_earlier_run(folder)
+    return run_demo_command(folder)

@@ -11,90 +11,35 @@ from __future__ import annotations
 import json
 from collections.abc import Callable
 from dataclasses import replace
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, date, datetime
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 import pytest
-from sqlalchemy import Engine, select
+from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.demo.scenario import Scenario, generate_day
 from monitor.errors import InputError
-from monitor.ingest.service import ingest_file, options_for
 from monitor.interface.cli import main
-from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.monitoring.check import run_checks
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
-from monitor.store.schema import day_checks
-
-MODEL = "dock_loading"
-CALM = Scenario(layout_change=date(2030, 1, 1), spread_change=date(2030, 1, 1))
-HISTORY = (date(2026, 1, 5), date(2026, 3, 8))
-
-
-def _frame(scenario: Scenario, first: date, last: date, seed: int) -> pd.DataFrame:
-    rng = np.random.default_rng(seed)
-    days = [first + timedelta(days=i) for i in range((last - first).days + 1)]
-    return pd.concat([generate_day(rng, d, scenario) for d in days], ignore_index=True)
-
-
-def _write(frame: pd.DataFrame, path: Path) -> Path:
-    frame.to_csv(path, index=False)
-    return path
-
-
-def _now(day: date) -> datetime:
-    return datetime.combine(day + timedelta(days=1), datetime.min.time(), tzinfo=UTC) \
-        + timedelta(hours=3)
-
-
-class World:
-    """A database with the dock-loading model fitted on the scenario's history."""
-
-    def __init__(self, engine: Engine, settings: Settings, tmp: Path,
-                 scenario: Scenario = CALM, seed: int = 7):
-        self.engine, self.settings, self.tmp, self.scenario = engine, settings, tmp, scenario
-        history = _write(_frame(scenario, *HISTORY, seed), tmp / "history.csv")
-        fit_model(settings, FitRequest(MODEL, history, "load_minutes", ("pallets",), "docked_at",
-                                       "load_id"), now=_now(HISTORY[1]), engine=engine,
-                  actor="test")
-        self.seed = seed
-
-    def add_days(self, first: date, last: date, seed: int, name: str) -> Path:
-        path = _write(_frame(self.scenario, first, last, seed), self.tmp / name)
-        self.ingest(path, last)
-        return path
-
-    def ingest(self, path: Path, day: date):
-        with self.engine.connect() as conn:
-            model = get_model(conn, MODEL)
-        return ingest_file(self.engine, model, path,
-                           options_for(self.settings, MODEL, now=_now(day)))
-
-    def check(self, through: date):
-        return run_checks(self.settings, [MODEL], through=through, now=_now(through),
-                          engine=self.engine)
-
-    def stored(self) -> list[dict]:
-        with self.engine.connect() as conn:
-            rows = conn.execute(select(day_checks).order_by(day_checks.c.day)).mappings().all()
-        return [{k: v for k, v in r.items() if k != "checked_at"} for r in rows]
-
-
-WORDS = {MODEL: {"words": {"row": "load", "rows": "loads", "y_unit": "min",
-                          "x_units": {"pallets": "pallet"}}}}
-
-
-def settings_for(make_settings: Callable[..., Settings], engine: Engine) -> Settings:
-    return make_settings(engine.url.render_as_string(hide_password=False), models=WORDS)
+from tests.support.snapshots import WorldCache
+from tests.support.world import (
+    CALM,
+    MODEL,
+    World,
+    loads_between,
+    settings_for,
+    write_csv,
+)
 
 
 @pytest.fixture
-def world(engine: Engine, make_settings: Callable[..., Settings], tmp_path: Path) -> World:
-    return World(engine, settings_for(make_settings, engine), tmp_path)
+def world(worlds: WorldCache, engine: Engine, make_settings: Callable[..., Settings],
+          tmp_path: Path) -> World:
+    """The demo model fitted on the calm history (built once per backend, copied per test)."""
+    return worlds.world(engine, settings_for(make_settings, engine), tmp_path, CALM, 7)
 
 
 def test_rerun_changes_nothing(world: World) -> None:
@@ -120,13 +65,13 @@ def test_empty_days_are_recorded_and_do_not_move_the_chart(world: World) -> None
 
 def test_late_rows_reevaluate_from_their_day_as_if_processed_in_order(
         world: World, engine: Engine, make_settings, tmp_path: Path) -> None:
-    full = _frame(CALM, date(2026, 3, 9), date(2026, 3, 28), 13)
+    full = loads_between(CALM, date(2026, 3, 9), date(2026, 3, 28), 13)
     late_day = full["docked_at"].str.startswith("2026-03-12")
     late = full[late_day].iloc[::2]
     on_time = full.drop(late.index)
-    world.ingest(_write(on_time, tmp_path / "on_time.csv"), date(2026, 3, 28))
+    world.ingest(write_csv(on_time, tmp_path / "on_time.csv"), date(2026, 3, 28))
     world.check(date(2026, 3, 20))
-    summary = world.ingest(_write(late, tmp_path / "late.csv"), date(2026, 3, 28))
+    summary = world.ingest(write_csv(late, tmp_path / "late.csv"), date(2026, 3, 28))
     assert summary.accepted == len(late)
     outcome = world.check(date(2026, 3, 28))
     result = outcome.results[0]
@@ -141,7 +86,7 @@ def test_late_rows_reevaluate_from_their_day_as_if_processed_in_order(
     engine2 = open_engine(url)
     upgrade_database(engine2)
     world2 = World(engine2, settings_for(make_settings, engine2), other)
-    world2.ingest(_write(full, other / "all.csv"), date(2026, 3, 28))
+    world2.ingest(write_csv(full, other / "all.csv"), date(2026, 3, 28))
     world2.check(date(2026, 3, 28))
 
     def comparable(rows):
@@ -161,7 +106,7 @@ def test_local_calendar_day_decides_where_a_row_belongs(world: World, tmp_path: 
         "load_id": ["late-evening", "past-midnight"],
         "docked_at": ["2026-03-10 23:30:00", "2026-03-11 00:30:00"],
         "pallets": [20, 20], "load_minutes": [51.0, 52.0], "door": ["D01", "D02"]})
-    world.ingest(_write(rows, tmp_path / "edge.csv"), date(2026, 3, 11))
+    world.ingest(write_csv(rows, tmp_path / "edge.csv"), date(2026, 3, 11))
     checks = {c.day: c for c in world.check(date(2026, 3, 11)).checks}
     assert checks[date(2026, 3, 10)].n == 1 and checks[date(2026, 3, 11)].n == 1
 
@@ -187,7 +132,8 @@ def test_a_refit_holds_until_released(engine: Engine, make_settings, tmp_path: P
     burst = replace(CALM, minutes_base=30.0)
     w = World(engine, settings_for(make_settings, engine), tmp_path, seed=31)
     w.add_days(date(2026, 3, 9), date(2026, 3, 14), 32, "normal.csv")
-    path = _write(_frame(burst, date(2026, 3, 15), date(2026, 3, 21), 33), tmp_path / "b.csv")
+    path = write_csv(loads_between(burst, date(2026, 3, 15), date(2026, 3, 21), 33),
+                     tmp_path / "b.csv")
     w.ingest(path, date(2026, 3, 21))
     w.add_days(date(2026, 3, 22), date(2026, 4, 4), 34, "after.csv")
     checks = w.check(date(2026, 4, 4)).checks
@@ -211,11 +157,13 @@ def test_check_json_fail_on_and_status_from_the_command_line(
         assert key in day
     assert set(day["cusum"]) >= {"upper", "lower", "h", "signal"}
     assert set(day["slope"]) >= {"statistic", "pvalue"}
-    # nothing new, but the current status still decides --fail-on
-    code = main(["--config", str(config), "check", "--through", "2026-03-20",
-                 "--fail-on", "watch"])
-    capsys.readouterr()
-    assert code in (0, 3)
+    # nothing new, but the current status still decides --fail-on: 3 at or above the threshold
+    # (README, "Running it every night": exit codes)
+    for threshold, reached in (("watch", ("watch", "refit")), ("refit", ("refit",))):
+        code = main(["--config", str(config), "check", "--through", "2026-03-20",
+                     "--fail-on", threshold])
+        capsys.readouterr()
+        assert code == (3 if day["status"] in reached else 0), (threshold, day["status"])
     code = main(["--config", str(config), "status", "--json"])
     status = json.loads(capsys.readouterr().out)[0]
     assert code == 0 and status["last_checked_day"] == "2026-03-20"

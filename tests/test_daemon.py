@@ -5,6 +5,7 @@ from __future__ import annotations
 import email
 import json
 import os
+import shutil
 import signal
 import subprocess
 import sys
@@ -26,11 +27,21 @@ from monitor.runtime.nightly import run_night
 from monitor.runtime.schedule import last_scheduled, nightly_state
 from monitor.store import audit, lease
 from monitor.store.checks import last_check
+from monitor.store.engine import open_engine, upgrade_database
 from monitor.store.models import get_model
 from monitor.store.schema import scheduler_lease
-from tests.alerts.conftest import RecordingMailer
-from tests.test_check import CALM, HISTORY, MODEL, WORDS, World, _frame, _now, _write
-from tests.test_refit import CHANGED
+from tests.support.mail import RecordingMailer
+from tests.support.world import (
+    CALM,
+    CHANGED,
+    HISTORY,
+    MODEL,
+    WORDS,
+    World,
+    loads_between,
+    night_after,
+    write_csv,
+)
 
 TTL = timedelta(minutes=10)
 T0 = datetime(2026, 4, 1, 1, 0, tzinfo=UTC)
@@ -50,7 +61,7 @@ def _world(engine: Engine, make_settings, tmp: Path, scenario=CALM) -> World:
 def _drop(world: World, first: date, last: date, seed: int, name: str) -> Path:
     folder = world.tmp / "inbox" / MODEL
     folder.mkdir(parents=True, exist_ok=True)
-    return _write(_frame(world.scenario, first, last, seed), folder / name)
+    return write_csv(loads_between(world.scenario, first, last, seed), folder / name)
 
 
 # the lease -------------------------------------------------------------------------------------
@@ -77,7 +88,7 @@ def test_a_night_sweeps_the_inbox_checks_and_files_everything_away(
     (tmp_path / "inbox" / "no_such_model").mkdir()
     (tmp_path / "inbox" / "no_such_model" / "x.csv").write_text("a\n1\n")
     (good.parent / "half.csv.part").write_text("load_id\n")  # still being written
-    run = run_night(world.settings, engine, now=_now(date(2026, 3, 15)))
+    run = run_night(world.settings, engine, now=night_after(date(2026, 3, 15)))
     assert run.status == "ok" and not run.stopped
     assert [(f.path.parent.name, f.outcome) for f in run.sweep.files] == [
         ("archive", "archived"), ("rejected", "rejected")]  # oldest first
@@ -88,7 +99,7 @@ def test_a_night_sweeps_the_inbox_checks_and_files_everything_away(
     assert run.sweep.unknown_folders == ("no_such_model",)
     assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 15)
     # a second night with nothing new changes nothing and sends nothing
-    again = run_night(world.settings, engine, now=_now(date(2026, 3, 15)))
+    again = run_night(world.settings, engine, now=night_after(date(2026, 3, 15)))
     assert not again.sweep.files and not again.checks.checks
 
 
@@ -96,7 +107,7 @@ def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
         engine: Engine, make_settings, tmp_path: Path) -> None:
     world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
     _drop(world, date(2026, 3, 9), date(2026, 4, 5), 22, "weeks.csv")
-    run = run_night(world.settings, engine, now=_now(date(2026, 4, 5)))
+    run = run_night(world.settings, engine, now=night_after(date(2026, 4, 5)))
     checked = [c.day for c in run.checks.checks]
     assert checked[0] == date(2026, 3, 8) and checked[-1] == date(2026, 4, 5)
     assert list(run.nights) == sorted(set(checked))  # every night's news was considered
@@ -106,16 +117,16 @@ def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
     subjects = [email.message_from_bytes(p.read_bytes(), policy=policy.default)["Subject"]
                 for p in mails]
     assert sum("needs a refit" in s and "reminder" not in s for s in subjects) == 1
-    assert run_night(world.settings, engine, now=_now(date(2026, 4, 5))).alerts.queued == 0
+    assert run_night(world.settings, engine, now=night_after(date(2026, 4, 5))).alerts.queued == 0
 
 
 def test_one_models_failure_is_recorded_and_the_others_are_checked(
         engine: Engine, make_settings, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     world = _world(engine, make_settings, tmp_path)
-    history = _write(_frame(CALM, *HISTORY, 9), tmp_path / "second.csv")
+    history = write_csv(loads_between(CALM, *HISTORY, 9), tmp_path / "second.csv")
     fit_model(world.settings, FitRequest("yard_moves", history, "load_minutes", ("pallets",),
                                          "docked_at", "load_id"),
-              now=_now(HISTORY[1]), engine=engine)
+              now=night_after(HISTORY[1]), engine=engine)
     import monitor.runtime.nightly as nightly
 
     real = nightly.run_checks
@@ -126,7 +137,7 @@ def test_one_models_failure_is_recorded_and_the_others_are_checked(
         return real(settings, names, **kw)
 
     monkeypatch.setattr(nightly, "run_checks", flaky)
-    run = run_night(world.settings, engine, now=_now(date(2026, 3, 12)))
+    run = run_night(world.settings, engine, now=night_after(date(2026, 3, 12)))
     assert run.status == "partial"
     assert [r.model for r in run.failures] == ["dock_loading"]
     assert "disk on fire" in run.failures[0].error
@@ -139,12 +150,12 @@ def test_one_models_failure_is_recorded_and_the_others_are_checked(
 def test_a_stop_request_ends_the_run_between_models(
         engine: Engine, make_settings, tmp_path: Path) -> None:
     world = _world(engine, make_settings, tmp_path)
-    fit_model(world.settings, FitRequest("yard_moves", _write(_frame(CALM, *HISTORY, 9),
+    fit_model(world.settings, FitRequest("yard_moves", write_csv(loads_between(CALM, *HISTORY, 9),
                                                               tmp_path / "second.csv"),
                                          "load_minutes", ("pallets",), "docked_at", "load_id"),
-              now=_now(HISTORY[1]), engine=engine)
+              now=night_after(HISTORY[1]), engine=engine)
     asked = iter([False, True])
-    run = run_night(world.settings, engine, now=_now(date(2026, 3, 12)),
+    run = run_night(world.settings, engine, now=night_after(date(2026, 3, 12)),
                     should_stop=lambda: next(asked, True))
     assert run.stopped and run.status == "stopped"
     assert [r.model for r in run.checks.results] == ["dock_loading"]
@@ -193,6 +204,7 @@ def _wait(predicate, timeout: float = 60.0) -> None:
     raise AssertionError("timed out")
 
 
+@pytest.mark.slow
 def test_sigterm_stops_the_daemon_cleanly_and_a_waiting_second_instance_takes_over(
         engine: Engine, make_settings, tmp_path: Path) -> None:
     world = _world(engine, make_settings, tmp_path)
@@ -270,17 +282,34 @@ def test_status_says_when_the_nightly_run_is_late(engine: Engine, make_settings,
 
 def test_checks_made_by_hand_and_by_the_night_agree(engine: Engine, make_settings,
                                                    tmp_path: Path) -> None:
-    """The nightly run is only a caller of the same check: same rows, same verdicts."""
+    """The nightly run is only a caller of the same check: the same rows, checked by hand in a
+    second database (SQLite), give the same verdicts day by day."""
     world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
-    _drop(world, date(2026, 3, 9), date(2026, 3, 25), 25, "weeks.csv")
-    run = run_night(world.settings, engine, now=_now(date(2026, 3, 25)))
-    by_night = {c.day: (c.status, c.cusum_upper) for c in run.checks.checks}
+    dropped = _drop(world, date(2026, 3, 9), date(2026, 3, 25), 25, "weeks.csv")
+    kept = shutil.copyfile(dropped, tmp_path / "the_same_rows.csv")  # the inbox file moves
+    run = run_night(world.settings, engine, now=night_after(date(2026, 3, 25)))
     again = run_checks(world.settings, [MODEL], through=date(2026, 3, 25),
-                       now=_now(date(2026, 3, 25)), engine=engine)
-    assert not again.checks  # nothing left to do
-    with engine.connect() as conn:
-        stored = last_check(conn, get_model(conn, MODEL).id)
-    assert by_night[stored.day] == (stored.status, stored.cusum_upper)
+                       now=night_after(date(2026, 3, 25)), engine=engine)
+    assert not again.checks  # the night left nothing to do
+
+    other = tmp_path / "by_hand"
+    other.mkdir()
+    second = open_engine(f"sqlite:///{other / 'fitwatch.db'}")
+    try:
+        upgrade_database(second)
+        hand = _world(second, make_settings, other, scenario=CHANGED)
+        hand.ingest(kept, date(2026, 3, 25))
+        by_hand = hand.check(date(2026, 3, 25)).checks
+    finally:
+        second.dispose()
+
+    def verdicts(checks):
+        return [(c.day, c.n, c.covered, c.status, c.status_since, c.reasons,
+                 round(c.cusum_upper, 9), round(c.cusum_lower, 9)) for c in checks]
+
+    assert len(run.checks.checks) == 18  # 8 March (the day after the fit window) to 25 March
+    assert any(c.status != "ok" for c in run.checks.checks)  # the slope change of 16 March
+    assert verdicts(by_hand) == verdicts(run.checks.checks)
 
 
 # the SQL source --------------------------------------------------------------------------------
@@ -290,7 +319,7 @@ def _erp(tmp: Path, first: date, last: date, seed: int) -> str:
 
     url = f"sqlite:///{tmp / 'erp.db'}"
     erp = create_engine(url)
-    frame = _frame(CALM, first, last, seed)
+    frame = loads_between(CALM, first, last, seed)
     frame["docked_at"] = frame["docked_at"].astype(str)
     frame.to_sql("loads", erp, index=False, if_exists="append")
     erp.dispose()
@@ -308,10 +337,10 @@ def test_the_night_pulls_rows_from_the_models_sql_source(engine: Engine, make_se
                                                          tmp_path: Path) -> None:
     url = _erp(tmp_path, date(2026, 3, 9), date(2026, 3, 14), 41)
     world = World(engine, _with_source(make_settings, engine, tmp_path, url), tmp_path)
-    run = run_night(world.settings, engine, now=_now(date(2026, 3, 14)))
+    run = run_night(world.settings, engine, now=night_after(date(2026, 3, 14)))
     assert run.status == "ok" and run.sources[0].accepted > 300
     assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 14)
-    again = run_night(world.settings, engine, now=_now(date(2026, 3, 14)))
+    again = run_night(world.settings, engine, now=night_after(date(2026, 3, 14)))
     assert again.sources[0].accepted == 0 and not again.checks.checks
 
 
@@ -321,7 +350,7 @@ def test_a_source_that_is_down_is_recorded_and_the_stored_days_are_still_checked
                             f"sqlite:///{tmp_path / 'missing' / 'erp.db'}")
     world = World(engine, settings, tmp_path)
     world.add_days(date(2026, 3, 9), date(2026, 3, 10), 42, "days.csv")
-    run = run_night(settings, engine, now=_now(date(2026, 3, 10)))
+    run = run_night(settings, engine, now=night_after(date(2026, 3, 10)))
     assert run.status == "partial" and "dock_loading source" in run.problems[0]
     assert [c.day for c in run.checks.checks][-1] == date(2026, 3, 10)
     with engine.connect() as conn:
@@ -357,10 +386,10 @@ def test_status_asks_whether_data_still_arrive_after_quiet_days(
     world = _world(engine, make_settings, tmp_path)
     world.add_days(date(2026, 3, 9), date(2026, 3, 10), 44, "days.csv")
     world.check(date(2026, 3, 12))
-    (two,) = model_statuses(world.settings, now=_now(date(2026, 3, 12)), engine=engine)
+    (two,) = model_statuses(world.settings, now=night_after(date(2026, 3, 12)), engine=engine)
     assert two.last_rows_day == date(2026, 3, 10) and "no rows since" not in two.sentence()
     world.check(date(2026, 3, 13))
-    (three,) = model_statuses(world.settings, now=_now(date(2026, 3, 13)), engine=engine)
+    (three,) = model_statuses(world.settings, now=night_after(date(2026, 3, 13)), engine=engine)
     assert three.quiet_days() == 3
     assert "no rows since 2026-03-10 (3 days): is the data still arriving?" in three.sentence()
 
@@ -374,7 +403,7 @@ def test_alerts_that_cannot_go_out_are_recorded_and_kept_for_later(
                                                         "smtp": smtp})
     world = World(engine, settings, tmp_path, scenario=CHANGED, seed=5)
     world.add_days(date(2026, 3, 9), date(2026, 3, 31), 45, "weeks.csv")
-    run = run_night(settings, engine, now=_now(date(2026, 3, 31)))
+    run = run_night(settings, engine, now=night_after(date(2026, 3, 31)))
     assert run.status == "partial" and run.problems[0].startswith("alerts:")
     assert "FITWATCH_TEST_UNSET_PASSWORD" in run.problems[0]  # names where, never a value
     assert run.checks.checks[-1].day == date(2026, 3, 31)  # the checks are kept
@@ -385,9 +414,9 @@ def test_alerts_that_cannot_go_out_are_recorded_and_kept_for_later(
     assert not pending and queued  # the refit news waits in the outbox for a later run
     # the password is fixed (here: a mailer that records): a later run sends each message once
     mailer = RecordingMailer()
-    later = run_night(settings, engine, now=_now(date(2026, 3, 31)) + timedelta(hours=1),
+    later = run_night(settings, engine, now=night_after(date(2026, 3, 31)) + timedelta(hours=1),
                       mailer=mailer)
     assert later.status == "ok" and later.alerts.sent == len(queued) == len(mailer.sent)
-    again = run_night(settings, engine, now=_now(date(2026, 3, 31)) + timedelta(hours=2),
+    again = run_night(settings, engine, now=night_after(date(2026, 3, 31)) + timedelta(hours=2),
                       mailer=mailer)
     assert again.alerts.sent == 0 and len(mailer.sent) == len(queued)

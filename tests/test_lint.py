@@ -1,4 +1,4 @@
-"""The code base stays ruff clean (STYLE.md §12): a lint failure fails the suite."""
+"""The code base stays ruff clean (DEVELOPERS.md, tests): a lint failure fails the suite."""
 
 from __future__ import annotations
 

@@ -22,25 +22,57 @@ from monitor.store import audit
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
 from monitor.store.versions import list_versions
-from tests.test_check import CALM, MODEL, World, _frame, _now, _write, settings_for
+from tests.support.snapshots import Step, WorldCache
+from tests.support.world import (
+    CALM,
+    CHANGED,
+    FIT_CANDIDATE,
+    MODEL,
+    REACH_REFIT,
+    World,
+    loads_between,
+    night_after,
+    settings_for,
+    write_csv,
+)
 
-CHANGED = replace(CALM, layout_change=date(2026, 3, 16), minutes_per_pallet_after=2.6)
+
+def _refit_from_30_march(world: World) -> None:
+    refit(world.settings, MODEL, start=date(2026, 3, 30), engine=world.engine)
+
+
+REFIT_FROM_30_MARCH = ("refit from 30 March", _refit_from_30_march)
+
+
+def _changed(worlds: WorldCache, engine: Engine, make_settings, tmp_path: Path,
+             *steps: Step) -> World:
+    """The slope change of 16 March (seed 71) after ``steps``, built once per backend."""
+    return worlds.world(engine, settings_for(make_settings, engine), tmp_path, CHANGED, 71,
+                        (REACH_REFIT, *steps))
 
 
 @pytest.fixture
-def changed(engine: Engine, make_settings, tmp_path: Path) -> World:
+def changed(worlds: WorldCache, engine: Engine, make_settings, tmp_path: Path) -> World:
     """A model that reached 'refit' after a slope change on 16 March."""
-    world = World(engine, settings_for(make_settings, engine), tmp_path, scenario=CHANGED,
-                  seed=71)
-    world.add_days(date(2026, 3, 9), date(2026, 4, 12), 72, "spring.csv")
-    checks = world.check(date(2026, 4, 12)).checks
-    assert checks[-1].status == "refit"
-    return world
+    return _changed(worlds, engine, make_settings, tmp_path)
 
 
 @pytest.fixture
-def world(engine: Engine, make_settings, tmp_path: Path) -> World:
-    return World(engine, settings_for(make_settings, engine), tmp_path)
+def with_candidate(worlds: WorldCache, engine: Engine, make_settings, tmp_path: Path) -> World:
+    """``changed`` with a candidate version 2 fitted on 16 March to 12 April."""
+    return _changed(worlds, engine, make_settings, tmp_path, FIT_CANDIDATE)
+
+
+@pytest.fixture
+def refitted_from_30_march(worlds: WorldCache, engine: Engine, make_settings,
+                           tmp_path: Path) -> World:
+    """``changed`` after ``refit --start 2026-03-30`` (a candidate on 12 days with rows)."""
+    return _changed(worlds, engine, make_settings, tmp_path, REFIT_FROM_30_MARCH)
+
+
+@pytest.fixture
+def world(worlds: WorldCache, engine: Engine, make_settings, tmp_path: Path) -> World:
+    return worlds.world(engine, settings_for(make_settings, engine), tmp_path, CALM, 7)
 
 
 def _versions(world: World):
@@ -48,12 +80,10 @@ def _versions(world: World):
         return list_versions(conn, get_model(conn, MODEL).id)
 
 
-def test_promoting_a_refit_ends_the_advice(changed: World) -> None:
-    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
-                                           end=date(2026, 4, 12)),
-              now=_now(date(2026, 4, 12)), engine=changed.engine, actor="test")
+def test_promoting_a_refit_ends_the_advice(with_candidate: World) -> None:
+    changed = with_candidate
     result = promote(changed.settings, MODEL, 2, reason="layout change",
-                     now=_now(date(2026, 4, 12)), actor="lead", engine=changed.engine)
+                     now=night_after(date(2026, 4, 12)), actor="lead", engine=changed.engine)
     assert (result.active, result.previous, result.effective_day) == (2, 1, date(2026, 4, 13))
     v1, v2 = _versions(changed)
     assert (v1.state, v1.active_until) == ("retired", date(2026, 4, 12))
@@ -68,18 +98,16 @@ def test_promoting_a_refit_ends_the_advice(changed: World) -> None:
     assert logged[0].actor == "lead" and logged[0].reason == "layout change"
 
 
-def test_late_rows_across_a_promotion_replay_the_same_history(changed: World,
+def test_late_rows_across_a_promotion_replay_the_same_history(with_candidate: World,
                                                               tmp_path: Path) -> None:
-    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
-                                           end=date(2026, 4, 12)),
-              now=_now(date(2026, 4, 12)), engine=changed.engine, actor="test")
-    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    changed = with_candidate
+    promote(changed.settings, MODEL, 2, now=night_after(date(2026, 4, 12)), engine=changed.engine)
     changed.add_days(date(2026, 4, 13), date(2026, 4, 19), 74, "week.csv")
     changed.check(date(2026, 4, 19))
     before = changed.stored()
-    late = _frame(CHANGED, date(2026, 4, 10), date(2026, 4, 10), 75)
+    late = loads_between(CHANGED, date(2026, 4, 10), date(2026, 4, 10), 75)
     late["load_id"] = "late-" + late["load_id"]
-    changed.ingest(_write(late, tmp_path / "late.csv"), date(2026, 4, 19))
+    changed.ingest(write_csv(late, tmp_path / "late.csv"), date(2026, 4, 19))
     result = changed.check(date(2026, 4, 19)).results[0]
     assert result.recomputed_from == date(2026, 4, 10)
     after = changed.stored()
@@ -93,11 +121,11 @@ def test_acknowledging_restarts_the_chart_and_releases_the_refit(
     burst = replace(CALM, minutes_base=30.0)
     world = World(engine, settings_for(make_settings, engine), tmp_path, seed=31)
     world.add_days(date(2026, 3, 9), date(2026, 3, 14), 32, "normal.csv")
-    world.ingest(_write(_frame(burst, date(2026, 3, 15), date(2026, 3, 21), 33),
-                        tmp_path / "burst.csv"), date(2026, 3, 21))
+    world.ingest(write_csv(loads_between(burst, date(2026, 3, 15), date(2026, 3, 21), 33),
+                           tmp_path / "burst.csv"), date(2026, 3, 21))
     assert world.check(date(2026, 3, 21)).checks[-1].status == "refit"
     ack = acknowledge(world.settings, MODEL, reason="staff training week",
-                      now=_now(date(2026, 3, 21)), engine=engine)
+                      now=night_after(date(2026, 3, 21)), engine=engine)
     assert ack.effective_day == date(2026, 3, 22)
     world.add_days(date(2026, 3, 22), date(2026, 4, 18), 34, "after.csv")
     after = world.check(date(2026, 4, 18)).checks
@@ -105,15 +133,13 @@ def test_acknowledging_restarts_the_chart_and_releases_the_refit(
     assert after[-1].status != "refit"  # the burst's window has passed: the advice is gone
 
 
-def test_rollback_brings_back_a_copy_of_the_earlier_version(changed: World) -> None:
-    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
-                                           end=date(2026, 4, 12)),
-              now=_now(date(2026, 4, 12)), engine=changed.engine)
-    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+def test_rollback_brings_back_a_copy_of_the_earlier_version(with_candidate: World) -> None:
+    changed = with_candidate
+    promote(changed.settings, MODEL, 2, now=night_after(date(2026, 4, 12)), engine=changed.engine)
     changed.add_days(date(2026, 4, 13), date(2026, 4, 15), 76, "days.csv")
     changed.check(date(2026, 4, 15))
     result = rollback(changed.settings, MODEL, reason="wrong window",
-                      now=_now(date(2026, 4, 15)), engine=changed.engine)
+                      now=night_after(date(2026, 4, 15)), engine=changed.engine)
     assert (result.active, result.previous, result.effective_day) == (3, 2, date(2026, 4, 16))
     v1, v2, v3 = _versions(changed)
     assert v3.state == "active" and v3.note == "copy of version 1"
@@ -130,6 +156,7 @@ def test_refused_actions_say_why(world: World) -> None:
         rollback(world.settings, MODEL, engine=world.engine)
 
 
+@pytest.mark.slow
 def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     url = changed.engine.url.render_as_string(hide_password=False)
     config = changed.tmp / "fitwatch.toml"
@@ -146,10 +173,12 @@ def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     assert "advice acknowledged" in capsys.readouterr().out
 
 
+@pytest.mark.slow
 def test_refit_starts_at_the_estimated_change_and_recommends_promotion(changed: World) -> None:
     last = changed.check(date(2026, 4, 12)).results[0].current
     assert last is not None and last.change_day is not None
-    result = refit(changed.settings, MODEL, now=_now(date(2026, 4, 12)), engine=changed.engine)
+    result = refit(changed.settings, MODEL, now=night_after(date(2026, 4, 12)),
+                   engine=changed.engine)
     v2 = _versions(changed)[1]
     assert (v2.state, v2.fit_start, v2.fit_end) == ("candidate", last.change_day, date(2026, 4, 11))
     # the scenario's slope went from 2.1 to 2.6 minutes per pallet on 16 March
@@ -164,10 +193,11 @@ def test_refit_starts_at_the_estimated_change_and_recommends_promotion(changed: 
 
 # statsmodels OLS as the reference library: the comparison's candidate figures are those of a
 # fit on the days before the hold-out only (no held-out row leaks into the candidate's fit).
+@pytest.mark.slow
 def test_the_candidate_is_judged_without_its_held_out_rows(changed: World) -> None:
     fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
                                            end=date(2026, 4, 11)),
-              now=_now(date(2026, 4, 12)), engine=changed.engine)
+              now=night_after(date(2026, 4, 12)), engine=changed.engine)
     result = compare(changed.settings, MODEL, holdout_days=5, engine=changed.engine)
     assert result.holdout == (date(2026, 4, 7), date(2026, 4, 11))
     with changed.engine.connect() as conn:
@@ -186,21 +216,26 @@ def test_an_unchanged_relationship_is_kept(world: World) -> None:
     world.add_days(date(2026, 3, 9), date(2026, 4, 5), 81, "calm.csv")
     world.check(date(2026, 4, 5))
     fit_model(world.settings, FitRequest(MODEL, start=date(2026, 3, 9), end=date(2026, 4, 5)),
-              now=_now(date(2026, 4, 5)), engine=world.engine)
+              now=night_after(date(2026, 4, 5)), engine=world.engine)
     result = compare(world.settings, MODEL, engine=world.engine)
     assert result.recommendation.action == "keep"
     assert abs(result.candidate_score.rmse - result.active_score.rmse) < 0.1 * \
         result.active_score.rmse
 
 
-def test_too_few_days_to_judge_means_wait(changed: World) -> None:
-    refit(changed.settings, MODEL, start=date(2026, 3, 30), engine=changed.engine)
+@pytest.mark.slow
+def test_too_few_days_to_judge_means_wait(refitted_from_30_march: World) -> None:
+    changed = refitted_from_30_march
     result = compare(changed.settings, MODEL, holdout_days=10, engine=changed.engine)
     assert result.recommendation.action == "wait" and result.active_score is None
     assert "Holding out 10 of the 12 days leaves 2 to refit the candidate on; at least 5" \
         in result.recommendation.sentence  # 5 April had no loads
 
 
+# The refusal is the calibration's verdict on the window's statistics, whatever database holds
+# the rows (the bootstrap that reaches it takes seconds): one backend is enough.
+@pytest.mark.slow
+@pytest.mark.parametrize("backend", ["sqlite"], indirect=True)
 def test_a_window_too_short_to_calibrate_is_refused(changed: World) -> None:
     with pytest.raises(DegenerateDataError, match="fit on a longer window"):
         refit(changed.settings, MODEL, start=date(2026, 4, 6), engine=changed.engine)
@@ -215,6 +250,7 @@ def test_refit_needs_a_start_when_no_change_was_estimated(world: World) -> None:
         compare(world.settings, MODEL, engine=world.engine)
 
 
+@pytest.mark.slow
 def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     url = changed.engine.url.render_as_string(hide_password=False)
     config = changed.tmp / "fitwatch.toml"
@@ -231,16 +267,17 @@ def test_refit_and_compare_commands(changed: World, capsys: pytest.CaptureFixtur
     assert "not a candidate" in capsys.readouterr().err
 
 
+@pytest.mark.slow
 def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World) -> None:
     """After a change, a version fitted on two weeks needs a wide bias chart limit; once twice
     the days exist, status suggests a refit from the same start and compare recommends it."""
     fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
                                            end=date(2026, 3, 31)),
-              now=_now(date(2026, 4, 12)), engine=changed.engine)
-    promote(changed.settings, MODEL, 2, now=_now(date(2026, 4, 12)), engine=changed.engine)
+              now=night_after(date(2026, 4, 12)), engine=changed.engine)
+    promote(changed.settings, MODEL, 2, now=night_after(date(2026, 4, 12)), engine=changed.engine)
     changed.add_days(date(2026, 4, 13), date(2026, 4, 26), 77, "more.csv")
     changed.check(date(2026, 4, 26))
-    (status,) = model_statuses(changed.settings, now=_now(date(2026, 4, 26)),
+    (status,) = model_statuses(changed.settings, now=night_after(date(2026, 4, 26)),
                                engine=changed.engine)
     v2 = _versions(changed)[1]
     calibration = v2.baseline.calibration
@@ -249,15 +286,17 @@ def test_a_short_window_version_is_sharpened_once_days_have_come(changed: World)
     assert status.sharpen is not None
     assert f"'fitwatch refit {MODEL} --start 2026-03-16' would sharpen it" in status.sentence()
     result = refit(changed.settings, MODEL, start=date(2026, 3, 16),
-                   now=_now(date(2026, 4, 26)), engine=changed.engine)
+                   now=night_after(date(2026, 4, 26)), engine=changed.engine)
     v3 = _versions(changed)[2]
     assert v3.cusum_h < 2 / 3 * v2.cusum_h
     assert result.recommendation.action == "promote"
     assert "bias chart limit drops" in result.recommendation.sentence
 
 
-def test_asking_to_hold_out_more_days_than_there_are_says_so(changed: World) -> None:
-    refit(changed.settings, MODEL, start=date(2026, 3, 30), engine=changed.engine)
+@pytest.mark.slow
+def test_asking_to_hold_out_more_days_than_there_are_says_so(
+        refitted_from_30_march: World) -> None:
+    changed = refitted_from_30_march
     result = compare(changed.settings, MODEL, holdout_days=12, engine=changed.engine)
     assert result.recommendation.action == "wait"
     assert result.recommendation.sentence.startswith(

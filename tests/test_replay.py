@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import io
 import json
 from datetime import date
 from pathlib import Path
@@ -11,10 +10,10 @@ import pandas as pd
 import pytest
 
 from monitor.config import load_settings
-from monitor.demo.run import run_demo
 from monitor.domain.model import ModelSpec
 from monitor.interface.cli import main
 from monitor.monitoring.replay import replay
+from tests.support.demo import DemoRun
 
 ROOT = Path(__file__).resolve().parents[1]
 COLUMNS = ModelSpec("dock_loading", "load_minutes", ("pallets",), "docked_at", "load_id")
@@ -31,8 +30,9 @@ def all_loads(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return path
 
 
-def test_replay_equals_the_nights_of_the_demo(tmp_path: Path, all_loads: Path) -> None:
-    nightly = run_demo(tmp_path / "demo", out=io.StringIO())
+@pytest.mark.slow
+def test_replay_equals_the_nights_of_the_demo(demo: DemoRun, all_loads: Path) -> None:
+    nightly = demo.result  # the session's one demo run (tests/support/demo.py)
     settings = load_settings(nightly.config)
     report = replay(settings, "dock_loading", all_loads, fit_end=date(2026, 3, 8))
     assert [c.day for c in report.checks] == [c.day for c in nightly.checks]

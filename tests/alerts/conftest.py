@@ -1,135 +1,32 @@
-"""Fixtures for the alert tests: day checks made by hand, a recording mailer, and a real SMTP
-server on loopback (aiosmtpd), optionally with AUTH, STARTTLS or implicit TLS."""
+"""Fixtures for the alert tests: a recording mailer, a real SMTP server on loopback (aiosmtpd),
+optionally with AUTH, STARTTLS or implicit TLS, and a quiet mail log. The doubles themselves live
+in ``tests/support/mail.py``."""
 
 from __future__ import annotations
 
 import logging
-import socket
 import ssl
-from collections.abc import Callable, Iterator
-from dataclasses import dataclass, field
-from datetime import UTC, date, datetime, timedelta
-from email.message import EmailMessage
+from collections.abc import Iterator
 from typing import Any
 
 import pytest
 from aiosmtpd.controller import Controller
-from aiosmtpd.smtp import AuthResult, LoginPassword
 
-from monitor.alerts.mailer import DeliveryError
-from monitor.domain.check import CheckDetails, CheckState, DayCheck
-from monitor.domain.status import Status
-
-SMTP_USER = "fitwatch-night"
-SMTP_PASSWORD = "s3cret-Pa55-word-for-tests"
-PASSWORD_ENV = "FITWATCH_TEST_SMTP_PASSWORD"
-
-
-def day_check(day: date, status: str = "ok", since: date | None = None, *, model_id: int = 1,
-              version_id: int = 1, reasons: list[str] | None = None, model: str = "dock_loading",
-              **figures: Any) -> DayCheck:
-    """A stored-looking day check with plausible figures (for cadence tests)."""
-    values: dict[str, Any] = {
-        "model_id": model_id, "day": day, "version_id": version_id, "stats_revision": 1,
-        "n": 78, "covered": 74, "extrapolated": 0, "coverage": 74 / 78, "mean_residual": 0.4,
-        "window_n": 1000, "window_covered": 948, "window_coverage": 0.948,
-        "wilson_low": 0.933, "wilson_high": 0.960, "coverage_p_low": 0.41,
-        "coverage_p_high": 0.62, "cusum_u": 0.2, "cusum_upper": 0.7, "cusum_lower": 0.0,
-        "cusum_upper_run": 2, "cusum_lower_run": 0, "cusum_h": 10.9, "cusum_signal": False,
-        "cusum_onset": None, "cusum_shift": None, "slope_statistic": 0.8, "slope_pvalue": 0.37,
-        "slope_method": "clustered", "chow_statistic": 0.9, "chow_pvalue": 0.4,
-        "change_day": None, "supf_statistic": 3.0, "supf_pvalue": 0.5, "spread_ratio": 1.02,
-        "spread_pvalue": 0.4, "status": Status(status), "status_since": since or day,
-        "reasons": tuple(reasons) if reasons is not None else (f"{status} on {day}",),
-        "details": CheckDetails(), "state": CheckState(),
-        "checked_at": datetime.combine(day + timedelta(days=1), datetime.min.time(), UTC),
-    }
-    values.update(figures)
-    return DayCheck(**values, model=model)
-
-
-@dataclass
-class RecordingMailer:
-    """The test double of the Mailer seam: keeps what it is given; can be told to fail."""
-
-    sent: list[tuple[str, EmailMessage]] = field(default_factory=list)
-    fail_with: BaseException | None = None
-    closed: int = 0
-
-    def where(self) -> str:
-        return "recording mailer"
-
-    def send(self, message: EmailMessage, *, key: str) -> None:
-        if self.fail_with is not None:
-            raise self.fail_with
-        self.sent.append((key, message))
-
-    def close(self) -> None:
-        self.closed += 1
+from tests.support.mail import (
+    SMTP_PASSWORD,
+    SMTP_USER,
+    Authenticator,
+    Handler,
+    RecordingMailer,
+    SmtpServer,
+    StartServer,
+    free_port,
+)
 
 
 @pytest.fixture
 def recording() -> RecordingMailer:
     return RecordingMailer()
-
-
-def down() -> DeliveryError:
-    return DeliveryError("connection refused (test)")
-
-
-# a real SMTP server --------------------------------------------------------------------------
-@dataclass
-class Received:
-    mail_from: str
-    rcpt_tos: list[str]
-    data: bytes
-
-
-class _Handler:
-    def __init__(self) -> None:
-        self.received: list[Received] = []
-
-    async def handle_DATA(self, server: Any, session: Any, envelope: Any) -> str:
-        self.received.append(Received(envelope.mail_from, list(envelope.rcpt_tos),
-                                      envelope.original_content or envelope.content))
-        return "250 Message accepted for delivery"
-
-
-class _Authenticator:
-    def __init__(self, user: str, password: str):
-        self.user, self.password = user.encode(), password.encode()
-        self.attempts: list[bool] = []
-
-    def __call__(self, server: Any, session: Any, envelope: Any, mechanism: str,
-                 auth_data: Any) -> AuthResult:
-        ok = (isinstance(auth_data, LoginPassword) and auth_data.login == self.user
-              and auth_data.password == self.password)
-        self.attempts.append(ok)
-        return AuthResult(success=ok, handled=False)
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-@dataclass
-class SmtpServer:
-    controller: Controller
-    handler: _Handler
-    authenticator: _Authenticator | None
-
-    @property
-    def port(self) -> int:
-        return int(self.controller.port)
-
-    @property
-    def received(self) -> list[Received]:
-        return self.handler.received
-
-
-StartServer = Callable[..., SmtpServer]
 
 
 @pytest.fixture
@@ -140,8 +37,8 @@ def smtp_server() -> Iterator[StartServer]:
 
     def start(*, auth: bool = False, starttls: ssl.SSLContext | None = None,
               implicit: ssl.SSLContext | None = None, port: int | None = None) -> SmtpServer:
-        handler = _Handler()
-        authenticator = _Authenticator(SMTP_USER, SMTP_PASSWORD) if auth else None
+        handler = Handler()
+        authenticator = Authenticator(SMTP_USER, SMTP_PASSWORD) if auth else None
         kwargs: dict[str, Any] = {}
         if authenticator is not None:
             kwargs.update(authenticator=authenticator, auth_require_tls=starttls is not None)

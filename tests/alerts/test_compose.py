@@ -27,13 +27,13 @@ from monitor.alerts.news import Digest, model_news
 from monitor.config import AlertSettings, Wording
 from monitor.domain.check import CheckDetails
 from monitor.report.charts import alert_chart_png
-from tests.alerts.conftest import day_check
+from tests.support.mail import day_check
+from tests.support.png import PNG_SIGNATURE
 
 NIGHT = date(2026, 4, 12)
 LEAD = "planning.lead@example.com"
 SENDER = "fitwatch@dc-north.example"
 WORDS = Wording(row="load", rows="loads", y_unit="min", x_units={"pallets": "pallet"})
-PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 
 def _context(model: str = "dock_loading", candidate: int | None = None) -> ModelContext:

@@ -38,7 +38,7 @@ from monitor.store import outbox
 from monitor.store.checks import insert_checks
 from monitor.store.models import get_model
 from monitor.store.versions import active_version
-from tests.alerts.conftest import (
+from tests.support.mail import (
     PASSWORD_ENV,
     SMTP_PASSWORD,
     SMTP_USER,
@@ -48,7 +48,7 @@ from tests.alerts.conftest import (
     down,
     free_port,
 )
-from tests.test_check import MODEL, WORDS, World, _now
+from tests.support.world import MODEL, WORDS, World, night_after
 
 NIGHT = date(2026, 3, 20)
 LEAD = "planning.lead@example.com"
@@ -89,7 +89,7 @@ def _rows(engine: Engine) -> list[outbox.OutboxRow]:
 # exactly once ---------------------------------------------------------------------------------
 def test_running_the_night_twice_sends_one_message(world: World,
                                                    recording: RecordingMailer) -> None:
-    now = _now(NIGHT)
+    now = night_after(NIGHT)
     first = send_night_alerts(world.settings, NIGHT, now=now, engine=world.engine,
                               mailer=recording)
     again = send_night_alerts(world.settings, NIGHT, now=now + timedelta(hours=1),
@@ -107,7 +107,7 @@ def test_running_the_night_twice_sends_one_message(world: World,
 def test_server_down_then_back_sends_once(world: World, smtp_server: StartServer) -> None:
     port = free_port()  # nothing listens there yet
     settings = _with_smtp(world, port, username="")
-    now = _now(NIGHT)
+    now = night_after(NIGHT)
     run = send_night_alerts(settings, NIGHT, now=now, engine=world.engine)
     assert (run.queued, run.sent, run.retried, run.pending) == (1, 0, 1, 1)
     (row,) = _rows(world.engine)
@@ -134,19 +134,19 @@ def test_crash_between_queueing_and_sending_is_made_good_by_the_next_run(
 
     monkeypatch.setattr(service, "send_due", crash)
     with pytest.raises(RuntimeError, match="power cut"):
-        send_night_alerts(world.settings, NIGHT, now=_now(NIGHT), engine=world.engine,
+        send_night_alerts(world.settings, NIGHT, now=night_after(NIGHT), engine=world.engine,
                           mailer=recording)
     (row,) = _rows(world.engine)
     assert (row.status, row.attempts) == ("pending", 0)
     monkeypatch.undo()
-    run = send_night_alerts(world.settings, NIGHT, now=_now(NIGHT) + timedelta(minutes=1),
+    run = send_night_alerts(world.settings, NIGHT, now=night_after(NIGHT) + timedelta(minutes=1),
                             engine=world.engine, mailer=recording)
     assert (run.queued, run.sent) == (0, 1) and len(recording.sent) == 1
 
 
 def test_crash_inside_a_send_leaves_the_row_claimed_until_the_claim_expires(
         world: World, recording: RecordingMailer) -> None:
-    now = _now(NIGHT)
+    now = night_after(NIGHT)
     recording.fail_with = RuntimeError("killed mid-send")
     with pytest.raises(RuntimeError):
         send_night_alerts(world.settings, NIGHT, now=now, engine=world.engine,
@@ -167,7 +167,7 @@ def test_backoff_doubles_to_a_cap_and_gives_up_after_max_attempts(
     assert [backoff(n) for n in (1, 2, 3, 4, 7, 8, 20)] == [
         timedelta(minutes=m) for m in (5, 10, 20, 40, 320, 360, 360)]
     recording.fail_with = down()
-    now = _now(NIGHT)
+    now = night_after(NIGHT)
     send_night_alerts(world.settings, NIGHT, now=now, engine=world.engine, mailer=recording)
     for _ in range(MAX_ATTEMPTS - 1):
         (row,) = _rows(world.engine)
@@ -186,7 +186,7 @@ def test_backoff_doubles_to_a_cap_and_gives_up_after_max_attempts(
 def test_messages_arrive_and_parse_back(world: World, smtp_server: StartServer) -> None:
     server = smtp_server()
     settings = _with_smtp(world, server.port, username="")
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine)
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine)
     assert run.sent == 1 and run.transport == f"SMTP 127.0.0.1:{server.port} (none)"
     (got,) = server.received
     assert got.mail_from == SENDER and got.rcpt_tos == [LEAD]  # RFC 5321 envelope
@@ -224,7 +224,7 @@ def test_auth_with_a_password_from_the_environment_never_logs_it(
     monkeypatch.setenv(PASSWORD_ENV, SMTP_PASSWORD)
     settings = _with_smtp(world, server.port)
     with caplog.at_level(logging.DEBUG):
-        run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine)
+        run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine)
     assert run.sent == 1 and len(server.received) == 1
     assert server.authenticator is not None and server.authenticator.attempts == [True]
     _no_secret(caplog.text, SMTP_PASSWORD)
@@ -239,7 +239,7 @@ def test_a_refused_login_keeps_the_password_out_of_the_error_and_the_log(
     wrong = "Wrong-Secret-4711"
     monkeypatch.setenv(PASSWORD_ENV, wrong)
     with caplog.at_level(logging.DEBUG):
-        run = send_night_alerts(_with_smtp(world, server.port), NIGHT, now=_now(NIGHT),
+        run = send_night_alerts(_with_smtp(world, server.port), NIGHT, now=night_after(NIGHT),
                                 engine=world.engine)
     assert (run.sent, run.retried) == (0, 1)  # a login failure is retried: config can be fixed
     (row,) = _rows(world.engine)
@@ -260,7 +260,7 @@ def test_password_file(world: World, smtp_server: StartServer, tmp_path: Path) -
     secret.write_text(SMTP_PASSWORD + "\n")
     settings = _with_smtp(world, server.port, password_file=str(secret))
     mailer = SmtpMailer(settings.alerts.smtp, environ={})  # type: ignore[arg-type]
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine,
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine,
                             mailer=mailer)
     assert run.sent == 1 and server.authenticator.attempts == [True]  # type: ignore[union-attr]
 
@@ -285,7 +285,7 @@ def test_starttls_with_auth(world: World, smtp_server: StartServer, test_ca: tru
     monkeypatch.setenv(PASSWORD_ENV, SMTP_PASSWORD)
     settings = _with_smtp(world, server.port, security="starttls")
     mailer = SmtpMailer(settings.alerts.smtp, ssl_context=client_ctx)  # type: ignore[arg-type]
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine,
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine,
                             mailer=mailer)
     assert run.sent == 1 and len(server.received) == 1
     assert server.authenticator.attempts == [True]  # type: ignore[union-attr]
@@ -297,7 +297,7 @@ def test_starttls_refuses_an_untrusted_certificate(world: World, smtp_server: St
     server_ctx, _ = _tls_contexts(test_ca)
     server = smtp_server(starttls=server_ctx)
     settings = _with_smtp(world, server.port, security="starttls", username="")
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine)
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine)
     assert (run.sent, run.retried, server.received) == (0, 1, [])
     (row,) = _rows(world.engine)
     assert "CERTIFICATE_VERIFY_FAILED" in (row.last_error or "")
@@ -309,7 +309,7 @@ def test_implicit_tls(world: World, smtp_server: StartServer, test_ca: trustme.C
     server = smtp_server(implicit=server_ctx)
     settings = _with_smtp(world, server.port, security="tls", username="")
     mailer = SmtpMailer(settings.alerts.smtp, ssl_context=client_ctx)  # type: ignore[arg-type]
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine,
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine,
                             mailer=mailer)
     assert run.sent == 1 and len(server.received) == 1
 
@@ -323,14 +323,14 @@ def test_a_permanent_refusal_is_not_retried(world: World, smtp_server: StartServ
 
     server.handler.handle_RCPT = refuse  # type: ignore[attr-defined]
     run = send_night_alerts(_with_smtp(world, server.port, username=""), NIGHT,
-                            now=_now(NIGHT), engine=world.engine)
+                            now=night_after(NIGHT), engine=world.engine)
     assert (run.sent, run.failed, run.retried) == (0, 1, 0)  # RFC 5321 §4.2.1: 5yz permanent
     (row,) = _rows(world.engine)
     assert row.status == "failed" and "550" in (row.last_error or "")
 
 
 def test_a_claimed_row_is_left_to_its_sender(world: World, recording: RecordingMailer) -> None:
-    now = _now(NIGHT)
+    now = night_after(NIGHT)
     service.queue_night(world.settings, NIGHT, now=now, engine=world.engine)
     with world.engine.begin() as conn:
         (row_id,) = outbox.due_ids(conn, now)
@@ -358,6 +358,6 @@ def test_an_unreachable_server_is_tried_once_per_run_not_once_per_message(
         "to": [LEAD, "night.office@example.com"], "sender": SENDER,
         "smtp": {"host": "127.0.0.1", "port": port, "security": "none",
                  "timeout_seconds": 5.0}})
-    run = send_night_alerts(settings, NIGHT, now=_now(NIGHT), engine=world.engine)
+    run = send_night_alerts(settings, NIGHT, now=night_after(NIGHT), engine=world.engine)
     assert (run.queued, run.sent, run.retried, run.pending) == (2, 0, 1, 2)
     assert sorted(row.attempts for row in _rows(world.engine)) == [0, 1]  # second not tried

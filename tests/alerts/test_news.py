@@ -1,8 +1,8 @@
 """What a night has to say, decided from day checks and audit entries (no database).
 
-Reference: SPEC §7 (mail on entering watch (configurable) and refit, a reminder every N days
-while unresolved, a recovery note after promotion, one digest per recipient per night) and the
-brief's counting rule (reminders count from the status_since day).
+The rules under test (README, "Running it every night"): mail on entering watch (configurable)
+and refit, a reminder every N days while unresolved, a note when a promotion or acknowledgement
+takes effect, one digest per recipient per night; reminders count from the status_since day.
 """
 
 from __future__ import annotations
@@ -22,7 +22,7 @@ from monitor.alerts.news import (
     model_news,
 )
 from monitor.config import AlertSettings
-from tests.alerts.conftest import day_check
+from tests.support.mail import day_check
 
 START = date(2026, 3, 9)
 LEAD = "planning.lead@example.com"

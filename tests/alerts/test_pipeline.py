@@ -2,8 +2,9 @@
 nightly pipeline, a candidate and its promotion, two models with their own recipients, and the
 ``.eml`` folder used when no SMTP server is configured.
 
-References: SPEC §7; RFC 5322 (message format, CRLF lines) read back with the Python stdlib
-``email`` parser (``policy.default``).
+References: README, "Running it every night" (one digest per recipient and night); RFC 5322
+(message format, CRLF lines) read back with the Python stdlib ``email`` parser
+(``policy.default``).
 """
 
 from __future__ import annotations
@@ -28,9 +29,8 @@ from monitor.store import outbox
 from monitor.store.checks import insert_checks, last_check
 from monitor.store.models import get_model
 from monitor.store.versions import active_version
-from tests.alerts.conftest import RecordingMailer, day_check
-from tests.test_check import MODEL, WORDS, World, _now
-from tests.test_refit import CHANGED
+from tests.support.mail import RecordingMailer, day_check
+from tests.support.world import CHANGED, MODEL, WORDS, World, night_after
 
 LEAD = "planning.lead@example.com"
 OFFICE = "dock.office@example.com"
@@ -54,6 +54,7 @@ def _text(message: EmailMessage) -> str:
     return str(body.get_content())
 
 
+@pytest.mark.slow
 def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings,
                                                    tmp_path: Path) -> None:
     settings = _settings(make_settings, engine, tmp_path)
@@ -65,7 +66,7 @@ def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings
     def night(day: date) -> None:
         world.check(day)
         before = len(mailer.sent)
-        send_night_alerts(settings, day, now=_now(day), engine=engine, mailer=mailer)
+        send_night_alerts(settings, day, now=night_after(day), engine=engine, mailer=mailer)
         if len(mailer.sent) > before:
             subjects[day] = str(mailer.sent[-1][1]["Subject"])
 
@@ -85,9 +86,9 @@ def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings
 
     # a candidate is fitted: the advice becomes the exact promote command
     fit_model(settings, FitRequest(MODEL, start=date(2026, 3, 16), end=date(2026, 4, 11)),
-              now=_now(date(2026, 4, 11)), engine=engine, actor="test")
+              now=night_after(date(2026, 4, 11)), engine=engine, actor="test")
     night(date(2026, 4, 12))
-    promote(settings, MODEL, 2, reason="new dock layout", now=_now(date(2026, 4, 12)),
+    promote(settings, MODEL, 2, reason="new dock layout", now=night_after(date(2026, 4, 12)),
             actor="lead", engine=engine)
     night(date(2026, 4, 13))
     restart = mailer.sent[-1][1]
@@ -106,7 +107,7 @@ def test_the_promote_command_when_a_candidate_waits(engine: Engine, make_setting
     world.add_days(date(2026, 3, 9), date(2026, 4, 12), 72, "spring.csv")
     world.check(date(2026, 4, 11))
     fit_model(settings, FitRequest(MODEL, start=date(2026, 3, 16), end=date(2026, 4, 11)),
-              now=_now(date(2026, 4, 11)), engine=engine, actor="test")
+              now=night_after(date(2026, 4, 11)), engine=engine, actor="test")
     world.check(date(2026, 4, 12))
     with engine.connect() as conn:
         last = last_check(conn, get_model(conn, MODEL).id)
@@ -115,7 +116,7 @@ def test_the_promote_command_when_a_candidate_waits(engine: Engine, make_setting
     daily = _settings(make_settings, engine, tmp_path,
                       {MODEL: {**WORDS[MODEL], "alerts": {"remind_every_days": 1}}})
     mailer = RecordingMailer()
-    send_night_alerts(daily, date(2026, 4, 12), now=_now(date(2026, 4, 12)), engine=engine,
+    send_night_alerts(daily, date(2026, 4, 12), now=night_after(date(2026, 4, 12)), engine=engine,
                       mailer=mailer)
     text = _text(mailer.sent[0][1])
     assert "fitwatch promote dock_loading 2" in text and "fitwatch refit" not in text
@@ -128,7 +129,7 @@ def test_two_models_per_model_recipients_and_eml_files(engine: Engine, make_sett
     World(engine, settings, tmp_path)  # dock_loading, and the history file yard_moves uses
     fit_model(settings, FitRequest("yard_moves", tmp_path / "history.csv", "load_minutes",
                                    ("pallets",), "docked_at", "load_id"),
-              now=_now(date(2026, 3, 8)), engine=engine, actor="test")
+              now=night_after(date(2026, 3, 8)), engine=engine, actor="test")
     night = date(2026, 3, 20)
     with engine.begin() as conn:
         rows = []
@@ -139,7 +140,7 @@ def test_two_models_per_model_recipients_and_eml_files(engine: Engine, make_sett
             rows.append(day_check(night, status, night, model_id=model.id,
                                   version_id=version.id, model=name))
         insert_checks(conn, rows)
-    run = send_night_alerts(settings, night, now=_now(night), engine=engine)
+    run = send_night_alerts(settings, night, now=night_after(night), engine=engine)
     assert (run.queued, run.sent) == (2, 2) and run.transport.startswith("folder ")
     folder = tmp_path / "mail"
     files = sorted(folder.iterdir())
@@ -165,7 +166,7 @@ def test_two_models_per_model_recipients_and_eml_files(engine: Engine, make_sett
     # PNG IHDR width and height (PNG specification, RFC 2083 §4.1.1): 640 × 360 per model
     assert int.from_bytes(png[16:20], "big") == 640
     assert int.from_bytes(png[20:24], "big") == 720
-    again = send_night_alerts(settings, night, now=_now(night) + timedelta(hours=1),
+    again = send_night_alerts(settings, night, now=night_after(night) + timedelta(hours=1),
                               engine=engine)
     assert (again.queued, again.sent) == (0, 0) and sorted(folder.iterdir()) == files
     with engine.connect() as conn:

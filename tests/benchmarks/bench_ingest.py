@@ -6,7 +6,7 @@ The file: ``load_id, docked_at, pallets, load_minutes, door`` rows (generated, l
 Baseline: the ``csv`` module's reader plus sqlite3 ``executemany`` into one table with a unique
 index on the id, in one transaction, default pragmas; it converts the two numbers with
 ``float()`` and checks nothing else. fitwatch: ``ingest_file`` on a fresh database (created
-beforehand, not timed) with every check of SPEC §5 on every row. Each run is a fresh process, so
+beforehand, not timed) with every validation check on every row. Each run is a fresh process, so
 its peak resident memory (VmHWM) is its own. Goal (issue 3): ratio <= 1.0, peak < 500 MB.
 ``--postgres`` adds fitwatch on a PostgreSQL server (for information; the baseline stays
 SQLite).

@@ -1,4 +1,4 @@
-"""The policy's promise (SPEC §3.11), measured by simulation with day effects.
+"""The decision policy's promise, measured by simulation with day effects.
 
     python tests/benchmarks/sim_promise.py [--seeds 60] [--days 1000] [--delay-seeds 100]
 

@@ -25,7 +25,7 @@ from monitor.ingest.service import ingest_paths
 from monitor.interface.cli import main
 from monitor.store.batches import rejected_rows_of
 from monitor.store.observations import count_observations, load_observations
-from tests.ingest.conftest import HEADER, NOW, Store, csv_text
+from tests.support.ingest import HEADER, NOW, Store, csv_text
 
 GOOD = ["L1,2026-03-02 08:00,10,31.5,D1", "L2,2026-03-02 09:00,12,35,D2"]
 

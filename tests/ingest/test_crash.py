@@ -21,7 +21,7 @@ from monitor.ingest.service import ingest_paths
 from monitor.stats.moments import DayMoments
 from monitor.store.observations import load_day_stats, load_observations
 from monitor.store.schema import batches, observations
-from tests.ingest.conftest import NOW, Store
+from tests.support.ingest import NOW, Store
 
 ROOT = Path(__file__).resolve().parents[2]
 ROWS = 3000

@@ -18,7 +18,7 @@ from monitor.ingest.service import ingest_file, options_for
 from monitor.store.models import create_model
 from monitor.store.observations import count_observations
 from monitor.store.schema import rejected_rows
-from tests.ingest.conftest import HEADER, NOW
+from tests.support.ingest import HEADER, NOW
 
 _names = itertools.count()
 

@@ -1,7 +1,7 @@
 """Shared worlds for the report tests, built through the real pipeline once per session.
 
 The data come from the project's own scenario generator (``monitor.demo.scenario``) via the
-``World`` helper of ``tests/test_check.py``: fit the demo model, ingest days, run the checks.
+``World`` helper of ``tests/support/world.py``: fit the demo model, ingest days, run the checks.
 Building a world takes a few seconds, so each is built once, on its own SQLite file; the
 report tests only read them.
 """
@@ -13,35 +13,35 @@ from datetime import date
 from pathlib import Path
 
 import pytest
+from sqlalchemy import Engine
 
-from monitor.config import parse_settings
-from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.config import Settings, parse_settings
 from monitor.store.engine import open_engine, upgrade_database
-from tests.test_check import CALM, MODEL, WORDS, World, _now
-from tests.test_refit import CHANGED
-
-LAST_DAY = date(2026, 4, 12)
+from tests.support.snapshots import WorldCache
+from tests.support.world import CALM, CHANGED, FIT_CANDIDATE, LAST_DAY, REACH_REFIT, WORDS, World
 
 
-def _world(folder: Path, scenario, seed: int) -> World:
+def _database(folder: Path) -> tuple[Engine, Settings]:
     url = f"sqlite:///{folder / 'fitwatch.db'}"
     engine = open_engine(url)
     upgrade_database(engine)
     settings = parse_settings({"database": {"url": url},
                                "schedule": {"timezone": "Europe/Berlin"},
                                "models": WORDS}, "<report test settings>")
-    return World(engine, settings, folder, scenario=scenario, seed=seed)
+    return engine, settings
+
+
+def _world(folder: Path, scenario, seed: int) -> World:
+    return World(*_database(folder), folder, scenario=scenario, seed=seed)
 
 
 @pytest.fixture(scope="session")
-def changed(tmp_path_factory: pytest.TempPathFactory) -> Iterator[World]:
+def changed(tmp_path_factory: pytest.TempPathFactory, worlds: WorldCache) -> Iterator[World]:
     """A slope change on 16 March reaching 'refit', then a candidate version 2 fitted after it
-    (the ``changed`` pattern of tests/test_refit.py)."""
-    world = _world(tmp_path_factory.mktemp("changed"), CHANGED, 71)
-    world.add_days(date(2026, 3, 9), LAST_DAY, 72, "spring.csv")
-    assert world.check(LAST_DAY).checks[-1].status == "refit"
-    fit_model(world.settings, FitRequest(MODEL, start=date(2026, 3, 16), end=LAST_DAY),
-              now=_now(LAST_DAY), engine=world.engine, actor="test")
+    (the ``with_candidate`` world of tests/test_refit.py, from the session's world cache)."""
+    folder = tmp_path_factory.mktemp("changed")
+    engine, settings = _database(folder)
+    world = worlds.world(engine, settings, folder, CHANGED, 71, (REACH_REFIT, FIT_CANDIDATE))
     yield world
     world.engine.dispose()
 

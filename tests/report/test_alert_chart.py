@@ -8,7 +8,6 @@ Pixels are read back with Pillow as an independent decoder.
 from __future__ import annotations
 
 import io
-import struct
 from dataclasses import replace
 
 import numpy as np
@@ -18,18 +17,8 @@ from monitor.domain.check import DayCheck
 from monitor.report.charts import ALERT_SIZE, ChartPanel, alert_chart_png, digest_chart_png
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
-from tests.test_check import MODEL, World
-
-PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG spec §5.2
-
-
-def png_size(data: bytes) -> tuple[int, int]:
-    """Width and height from the IHDR chunk (PNG spec §11.2.2), read by hand."""
-    assert data[:8] == PNG_SIGNATURE
-    length, kind = struct.unpack(">I4s", data[8:16])
-    assert kind == b"IHDR" and length == 13
-    width, height = struct.unpack(">II", data[16:24])
-    return width, height
+from tests.support.png import png_size
+from tests.support.world import MODEL, World
 
 
 def stored_checks(world: World) -> list[DayCheck]:

@@ -21,9 +21,8 @@ from monitor.report.charts import REPORT_SIZE, SCATTER_SIZE
 from monitor.report.page import load_report_data, render_page, write_report
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
-from tests.report.conftest import LAST_DAY
-from tests.report.test_alert_chart import png_size
-from tests.test_check import MODEL, World, _now
+from tests.support.png import png_size
+from tests.support.world import LAST_DAY, MODEL, World, night_after
 
 
 class Page(HTMLParser):
@@ -56,7 +55,7 @@ class Page(HTMLParser):
 
 def _report(world: World, folder: Path, **kwargs):
     return write_report(world.settings, MODEL, folder, engine=world.engine,
-                        now=_now(LAST_DAY), **kwargs)
+                        now=night_after(LAST_DAY), **kwargs)
 
 
 def test_report_folder_with_candidate(changed: World, tmp_path: Path) -> None:
@@ -105,10 +104,10 @@ def test_no_candidate_section_without_a_candidate(calm: World, tmp_path: Path) -
 
 def test_reasons_are_escaped(calm: World) -> None:
     with calm.engine.connect() as conn:
-        data = load_report_data(conn, calm.settings, MODEL, _now(LAST_DAY), 30)
+        data = load_report_data(conn, calm.settings, MODEL, night_after(LAST_DAY), 30)
     hostile = "door 4 <script>alert('x')</script> & <b>more</b>"
     data = replace(data, last=replace(data.last, reasons=[hostile]))
-    html = render_page(data, _now(LAST_DAY))
+    html = render_page(data, night_after(LAST_DAY))
     assert "<script>" not in html and "<b>more" not in html
     assert "&lt;script&gt;" in html
     page = Page(html)

@@ -27,8 +27,7 @@ from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
 from monitor.store.versions import list_versions
-from tests.report.conftest import LAST_DAY
-from tests.test_check import MODEL, World, _now
+from tests.support.world import LAST_DAY, MODEL, World, night_after
 
 
 def _versions(world: World) -> list[Version]:
@@ -60,7 +59,7 @@ def test_band_equals_statsmodels_prediction_interval(changed: World, number: int
 
 def test_scatter_series_of_the_report(changed: World) -> None:
     with changed.engine.connect() as conn:
-        data = load_report_data(conn, changed.settings, MODEL, _now(LAST_DAY), 90)
+        data = load_report_data(conn, changed.settings, MODEL, night_after(LAST_DAY), 90)
         rows = load_observations(conn, data.model, data.first_day, data.last_day)
     scatter = data.scatter
     assert [(line.number, line.state) for line in scatter.lines] == [(1, "active"),

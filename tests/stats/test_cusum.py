@@ -11,8 +11,9 @@ from hypothesis.extra import numpy as hnp
 from monitor.stats.cusum import CusumState, tabular_cusum
 
 # Montgomery, Introduction to Statistical Quality Control, Example 9.1 / Tables 9.1-9.2
-# (6th/7th ed.; edition and page from memory): mu0 = 10, sigma = 1, K = 0.5, H = 5.
-# Values as quoted and re-verified in /work/shared/REFERENCES.md §2a.
+# (6th/7th ed.; edition and page from memory): mu0 = 10, sigma = 1, K = 0.5, H = 5. The data and
+# the C+ column were read as quoted in public test suites that cite the book; see
+# docs/references.md, "Montgomery's tabular CUSUM example".
 MONTGOMERY_9_1 = [9.45, 7.99, 9.29, 11.66, 12.16, 10.18, 8.04, 11.46, 9.20, 10.34,
                   9.03, 11.47, 10.51, 9.40, 10.08, 9.37, 10.62, 10.31, 8.52, 10.84,
                   10.90, 9.33, 12.29, 11.50, 10.60, 11.08, 10.38, 11.62, 11.31, 10.52]
@@ -21,7 +22,8 @@ C_PLUS = [0.0, 0.0, 0.0, 1.16, 2.82, 2.50, 0.04, 1.00, 0.0, 0.0,
           0.74, 0.0, 1.79, 2.79, 2.89, 3.47, 3.35, 4.47, 5.28, 5.30]
 N_PLUS = [0, 0, 0, 1, 2, 3, 4, 5, 0, 0, 0, 1, 2, 0, 0, 0, 1, 0, 0, 1,
           2, 0, 1, 2, 3, 4, 5, 6, 7, 8]
-# C- and N- columns: recomputed in REFERENCES §2a ("V-comp"; the book's column from memory).
+# C- and N- columns: recomputed by hand from the data with the recursion of Page (1954); the
+# book's own columns were not read (from memory that they agree).
 C_MINUS = [0.05, 1.56, 1.77, 0.0, 0.0, 0.0, 1.46, 0.0, 0.30, 0.0,
            0.47, 0.0, 0.0, 0.10, 0.0, 0.13, 0.0, 0.0, 0.98, 0.0,
            0.0, 0.17, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0]

@@ -1,4 +1,4 @@
-"""The default decision policy of SPEC §3.11, rule by rule."""
+"""The default decision policy, rule by rule (README, "What the figures mean": Status)."""
 
 from __future__ import annotations
 

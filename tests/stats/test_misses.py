@@ -57,6 +57,7 @@ def _windows(rng: np.random.Generator, reps: int, days: int = 14) -> np.ndarray:
 # Calibration by simulation of the random-effects model (common practice, no source): with the
 # true parameters the law's test keeps its level at 5 %, 1 % and 0.1 %, while the quasi-binomial
 # test (the Pearson dispersion of McCullagh & Nelder) rejects several times too often at 0.1 %.
+@pytest.mark.slow
 def test_the_law_keeps_its_level_where_the_quasi_binomial_tail_does_not() -> None:
     rng = np.random.default_rng(5)
     law = MissLaw(TAU**2, SIGMA**2, HALF)

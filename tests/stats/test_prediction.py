@@ -31,7 +31,8 @@ def test_interval_matches_statsmodels_obs_ci_on_norris(level):
     assert np.allclose(model.predict(x0), ref["mean"], rtol=1e-12, atol=1e-12)
 
 
-# REFERENCES.md §7 (computed with statsmodels, not published): Norris, x0 = 500, alpha = 0.05.
+# statsmodels get_prediction().summary_frame(alpha=0.05) obs_ci on NIST Norris at x0 = 500
+# (computed with statsmodels 0.15, not a published figure; docs/references.md).
 def test_norris_interval_at_500():
     model = PredictionModel.from_fit(fit_ols(NORRIS_X, NORRIS_Y))
     lower, upper = model.interval([500.0], 0.95)
@@ -66,7 +67,8 @@ def test_standardized_residual_is_the_studentized_prediction_error():
 
 
 # Under a correct model (y0 - yhat0) / (s sqrt(1 + h0)) ~ t(n - p) exactly, so the interval
-# covers with probability L (any regression text; REFERENCES.md §7). Monte Carlo with a fresh
+# covers with probability L (any regression text, e.g. Montgomery, Peck & Vining, Introduction
+# to Linear Regression Analysis, §2.5, section from memory). Monte Carlo with a fresh
 # fit per replicate; tolerance 4 binomial standard errors.
 def test_monte_carlo_coverage_is_nominal():
     rng = np.random.default_rng(2024)

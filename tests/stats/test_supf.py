@@ -1,9 +1,10 @@
 """sup-F for an unknown change date, and the shipped table of its null distribution.
 
-References: strucchange's Nile example (REFERENCES §5: sup.F = 75.93, break at observation 28 =
-1898, from = 15, to = 85); Andrews (1993) critical values via Stock & Watson (REFERENCES §4a);
-Hansen's (1997) approximation at 15 % trimming (REFERENCES §4a, cross-check only); the
-chi-square law (exact for a single candidate); statsmodels nested F tests (one Chow F per split).
+References (docs/references.md, "sup-F"): strucchange's Nile example (``sctest(Fstats(Nile ~ 1))``
+prints sup.F = 75.93; break at observation 28 = 1898; candidates from = 15 to = 85); Andrews
+(1993) critical values via Stock & Watson (2003) as tabulated in gretl; Hansen's (1997)
+approximation at 15 % trimming (cross-check only); the chi-square law (exact for a single
+candidate); statsmodels nested F tests (one Chow F per split).
 """
 
 from __future__ import annotations
@@ -34,7 +35,7 @@ from monitor.stats.supf_null import (
 ROOT = Path(__file__).resolve().parents[2]
 SYMMETRIC_15 = (0.15, 0.85)
 
-# statsmodels.datasets.nile 'volume', 1871..1970 (REFERENCES §5, V-file: statsmodels nile.csv)
+# statsmodels.datasets.nile 'volume', 1871..1970 (read: equal to the installed dataset)
 NILE = [1120, 1160, 963, 1210, 1160, 1160, 813, 1230, 1370, 1140,
         995, 935, 1110, 994, 1020, 960, 1180, 799, 958, 1140,
         1100, 1210, 1150, 1250, 1260, 1220, 1030, 1100, 774, 840,
@@ -47,10 +48,12 @@ NILE = [1120, 1160, 963, 1210, 1160, 1160, 813, 1230, 1370, 1140,
         1020, 906, 901, 1170, 912, 746, 919, 718, 714, 740]
 YEARS = np.arange(1871, 1971)
 
-# Andrews (1993) via Stock & Watson (2003), 15 % trimming, F form (REFERENCES §4a, V-file)
+# Andrews (1993) via Stock & Watson (2003), 15 % trimming, F form (read: gretl, lib/src/compare.c,
+# QLR_critvals)
 ANDREWS_SW = {1: (7.12, 8.68, 12.16), 2: (5.00, 5.86, 7.78), 3: (4.09, 4.71, 6.02),
               4: (3.59, 4.09, 5.12), 5: (3.26, 3.66, 4.53)}
-# Hansen's (1997) approximation at tau = 0.15 inverted (REFERENCES §4a, V-comp; cross-check only)
+# Hansen's (1997) approximation at tau = 0.15, inverted (computed elsewhere, not re-checked
+# here: treat as from memory; cross-check only)
 HANSEN = {1: (7.07, 8.61, 12.07), 2: (4.93, 5.78, 7.64), 3: (4.03, 4.63, 5.91)}
 ALPHAS = (0.10, 0.05, 0.01)
 
@@ -59,7 +62,8 @@ ALPHAS = (0.10, 0.05, 0.01)
 def test_nile_sup_f_location_and_pvalue_match_strucchange() -> None:
     days = DayMoments.from_rows(YEARS, np.array(NILE, dtype=float)[:, None])
     result = sup_f_test(days)
-    # strucchange sctest(Fstats(Nile ~ 1)): sup.F = 75.93 (printed); 75.92976942748545 (V-comp)
+    # strucchange sctest(Fstats(Nile ~ 1)): sup.F = 75.93 (printed); 75.92976942748545 (the same
+    # statistic recomputed with statsmodels OLS, docs/references.md)
     assert round(result.statistic, 2) == 75.93
     assert result.statistic == pytest.approx(75.92976942748545, rel=1e-10)
     # candidates from = 15 .. to = 85 on observations (strucchange), indices 14..84

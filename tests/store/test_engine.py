@@ -1,4 +1,4 @@
-"""Engine, migrations and `fitwatch init` (SPEC §4)."""
+"""Engine, migrations and `fitwatch init` (DEVELOPERS.md, "Adding a migration")."""
 
 from __future__ import annotations
 

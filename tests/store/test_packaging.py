@@ -20,9 +20,15 @@ ROOT = Path(__file__).resolve().parents[2]
 def test_alembic_finds_the_migrations_as_a_package_resource() -> None:
     assert SCRIPT_LOCATION == "monitor:migrations"
     scripts = ScriptDirectory.from_config(alembic_config())
-    assert scripts.get_revision("0001") is not None
     folder = resources.files("monitor") / "migrations"
     assert (folder / "env.py").is_file() and (folder / "script.py.mako").is_file()
+    # every revision file in the package, found through the resource, as one chain from base
+    files = sorted(p.name.split("_")[0] for p in (folder / "versions").iterdir()
+                   if p.name.endswith(".py") and p.name[0].isdigit())
+    chain = [script.revision for script in scripts.walk_revisions()][::-1]
+    assert files and chain == files
+    assert scripts.get_revision(chain[0]).down_revision is None
+    assert scripts.get_heads() == [chain[-1]]
 
 
 def test_every_non_python_file_of_the_package_is_declared_as_package_data() -> None:
