@@ -2,6 +2,7 @@
 
     python3 tests/benchmarks/sim_departures.py [--quick] [--models N] [--days N]
         [--cases a,b] [--changes a,b] [--label NAME | --out PATH] [--processes 2]
+    python3 tests/benchmarks/sim_departures.py --combine PART.json ... --label NAME
 
 For every case of ``departures.py`` and every simulated model: generate 60 fit days and the
 monitored days, fit the version and walk the days with
@@ -70,6 +71,7 @@ from tests.benchmarks.departures import (  # noqa: E402
 NOW = datetime(2030, 1, 1, tzinfo=UTC)
 RESULTS = Path(__file__).resolve().parent / "results"
 CAUGHT_WITHIN = 100  # days after the change
+PERIOD = 100  # false refits are also counted per 100 monitored days (days 1-100, 101-200, ...)
 BLOCK_DAYS = 7  # changed days are walked a week at a time, to stop soon after the first refit
 QUICK_CASES = ("textbook", "ar1_0.5", "t3", "outliers_2", "weekly", "combined")
 QUICK_CHANGES = ("step_10",)
@@ -104,7 +106,7 @@ class Walked:
     changes: dict[str, Caught]
     false_before_change: bool  # a refit in the in-control days before the change
     h: float
-    seconds: float
+    cpu_seconds: float
 
 
 def spec_for(case: Case) -> ModelSpec:
@@ -113,7 +115,7 @@ def spec_for(case: Case) -> ModelSpec:
 
 def run_job(job: Job) -> Walked:
     """Fit and walk one model in control; then each change variant from the change day on."""
-    began = time.perf_counter()
+    began = time.process_time()
     case = CASES[job.case]
     after = max((c.after for c in job.changes), default=0)
     world = simulate(case, job.model, max(job.days, after + job.change_days))
@@ -132,7 +134,7 @@ def run_job(job: Job) -> Walked:
     letters = "".join(_letter(c) for c in checks)
     return Walked(job, letters, tuple(_starts(checks, Status.REFIT)),
                   tuple(_starts(checks, Status.WATCH)), caught, false_before,
-                  float(fitted.calibration.h), time.perf_counter() - began)
+                  float(fitted.calibration.h), time.process_time() - began)
 
 
 def _walk_changed(spec: ModelSpec, settings: ModelSettings, version: Version, sample: Sample,
@@ -207,6 +209,8 @@ def in_control_summary(walks: list[Walked]) -> dict[str, object]:
     low, high = garwood(episodes, model_days / 1000.0)
     started = Counter(s for w in walks for _, signals in w.refit_starts for s in signals)
     watch_by = Counter(s for w in walks for _, signals in w.watch_starts for s in signals)
+    by_period = Counter(i // PERIOD for w in walks for i, _ in w.refit_starts)
+    periods = max(len(w.statuses) for w in walks) // PERIOD
     return {
         "models": len(walks), "model_days": model_days,
         "false_refit_episodes": episodes,
@@ -217,6 +221,7 @@ def in_control_summary(walks: list[Walked]) -> dict[str, object]:
         "watch_entries": entries,
         "watch_entries_per_1000": 1000.0 * entries / model_days,
         "refits_started_by": dict(started.most_common()),
+        "false_refits_by_period": [by_period.get(p, 0) for p in range(periods)],
         "watch_entered_by": dict(watch_by.most_common()),
         "h_median": float(np.median([w.h for w in walks])),
     }
@@ -264,6 +269,11 @@ def table(results: dict[str, dict[str, object]], meta: dict[str, object]) -> str
             f"{name:15s} {c['model_days']:>10,d}  {rate:27s} "
             f"{c['models_with_false_refit']:>3d}/{c['models']:<3d} "
             f"{100 * c['watch_share']:5.1f}% {c['watch_entries_per_1000']:>12.1f}  {started}")
+    lines += ["", f"False refit episodes by monitored days (1-{PERIOD}, {PERIOD + 1}-{2 * PERIOD}, "
+              "...), all models of the case"]
+    for name, r in results.items():
+        counts = " ".join(f"{n:4d}" for n in r["in_control"]["false_refits_by_period"])
+        lines.append(f"{name:15s} {counts}")
     lines += ["", "Watch entered by (in control; a day can name several signals)"]
     for name, r in results.items():
         by = ", ".join(f"{k} {v}" for k, v in r["in_control"]["watch_entered_by"].items())
@@ -289,8 +299,9 @@ def table(results: dict[str, dict[str, object]], meta: dict[str, object]) -> str
             first = r[changes[0]]
             lines.append(f"{name:15s} " + " ".join(f"{c:>19s}" for c in cells)
                          + f" {first['models_false_refit_before_change']:>6d}/{first['models']}")
-    lines += ["", f"run time {meta['seconds']:.0f} s with {meta['processes']} processes "
-              f"({meta['machine']})"]
+    cpu = sum(meta["cpu_seconds_by_case"].values())
+    lines += ["", f"run time {meta['seconds']:.0f} s with {meta['processes']} processes, "
+              f"{cpu:.0f} CPU s in the walks ({meta['machine']})"]
     return "\n".join(lines) + "\n"
 
 
@@ -328,6 +339,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, help="results path without suffix (overrides "
                         "--label)")
     parser.add_argument("--processes", type=int, default=2)
+    parser.add_argument("--combine", nargs="+", type=Path, metavar="JSON",
+                        help="combine the results of runs of different cases into one "
+                        "(written as --label / --out)")
     args = parser.parse_args(argv)
 
     models = args.models or (8 if args.quick else 40)
@@ -344,6 +358,9 @@ def main(argv: list[str] | None = None) -> int:
         per_case[name] = int(count)
     label = args.label or ("quick" if args.quick else "full")
     out = args.out or RESULTS / f"departures_{label}"
+    if args.combine:
+        results, meta = combine(args.combine, label)
+        return _write(results, meta, out)
 
     if changes and days < max(CHANGES[c].after for c in changes):
         parser.error("--days must cover the in-control days before a change")
@@ -363,16 +380,20 @@ def main(argv: list[str] | None = None) -> int:
     timing: dict[str, float] = {}
     for case in cases:
         mine = sorted((w for w in walks if w.job.case == case), key=lambda w: w.job.model)
-        timing[case] = round(sum(w.seconds for w in mine), 1)
+        timing[case] = round(sum(w.cpu_seconds for w in mine), 1)
         results[case] = {"in_control": in_control_summary(mine)}
         for change in changes:
             results[case][change] = change_summary(mine, change, change_days)
     meta = {"label": label, "commit": _commit(), "date": datetime.now(UTC).date().isoformat(),
-            "models": models, "models_for": per_case, "days": days,
-            "change_days": change_days, "fit_days": FIT_DAYS,
+            "models": models, "models_for": {c: n for c, n in per_case.items() if c in cases},
+            "days": days, "change_days": change_days, "fit_days": FIT_DAYS,
             "cases": {c: CASES[c].description for c in cases}, "changes": list(changes),
             "seconds": seconds, "cpu_seconds_by_case": timing, "processes": args.processes,
             "machine": f"{platform.machine()}, Python {platform.python_version()}"}
+    return _write(results, meta, out)
+
+
+def _write(results: dict[str, dict[str, object]], meta: dict[str, object], out: Path) -> int:
     text = table(results, meta)
     out.parent.mkdir(parents=True, exist_ok=True)
     out.with_suffix(".json").write_text(json.dumps({"meta": meta, "results": results},
@@ -381,6 +402,56 @@ def main(argv: list[str] | None = None) -> int:
     print(text)
     print(f"written: {out.with_suffix('.json')}, {out.with_suffix('.txt')}")
     return 0
+
+
+def combine(paths: list[Path], label: str) -> tuple[dict[str, dict[str, object]],
+                                                      dict[str, object]]:
+    """One result from runs of different cases on the same code and with the same design.
+
+    A machine shared with others rarely has an hour in one piece; the cases are independent,
+    so running them in parts and combining changes nothing. The parts must agree on the
+    design and have run on the same ``monitor/`` tree (without uncommitted changes).
+    """
+    parts = [json.loads(Path(p).read_text()) for p in paths]
+    design = ("models", "days", "change_days", "fit_days", "changes")
+    first = parts[0]["meta"]
+    for path, part in zip(paths, parts, strict=True):
+        meta = part["meta"]
+        differ = [k for k in design if meta[k] != first[k]]
+        if differ:
+            raise SystemExit(f"{path}: {', '.join(differ)} differ from {paths[0]}")
+    trees = {_monitor_tree(p["meta"]["commit"]) for p in parts}
+    if len(trees) != 1 or None in trees:
+        raise SystemExit("the parts ran on different (or uncommitted) monitor/ code: "
+                         + ", ".join(p["meta"]["commit"] for p in parts))
+    results: dict[str, dict[str, object]] = {}
+    meta = {k: first[k] for k in design}
+    meta |= {"label": label, "commit": ", ".join(dict.fromkeys(p["meta"]["commit"]
+                                                                for p in parts)),
+             "date": max(p["meta"]["date"] for p in parts), "models_for": {}, "cases": {},
+             "seconds": 0.0, "cpu_seconds_by_case": {}, "processes": first["processes"],
+             "machine": first["machine"], "parts": [str(p) for p in paths]}
+    for part in parts:
+        for case, result in part["results"].items():
+            if case in results:
+                raise SystemExit(f"case {case} is in more than one part")
+            results[case] = result
+        for key in ("models_for", "cases", "cpu_seconds_by_case"):
+            meta[key] |= part["meta"][key]
+        meta["seconds"] += part["meta"]["seconds"]
+    order = [c for c in CASES if c in results]
+    return {c: results[c] for c in order}, meta
+
+
+def _monitor_tree(commit: str) -> str | None:
+    """The git tree of ``monitor/`` at a recorded commit (None: uncommitted changes)."""
+    if "+" in commit:
+        return None
+    try:
+        return subprocess.run(["git", "rev-parse", f"{commit}:monitor"], cwd=ROOT,
+                              capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return None
 
 
 def _pick(given: str | None, default: tuple[str, ...], known: dict[str, object],
