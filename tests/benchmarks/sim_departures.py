@@ -129,8 +129,8 @@ def run_job(job: Job) -> Walked:
         moved = world.with_change(change).through(change.after + job.change_days)
         before = [c for c in checks if c.day < change.day]
         false_before = false_before or any(c.status == Status.REFIT for c in before)
-        caught[change.name] = _walk_changed(spec, settings, version, moved, before, change,
-                                     job.change_days)
+        caught[change.name] = _walk_changed(spec, settings, version, moved, before,
+                                            change, job.change_days)
     letters = "".join(_letter(c) for c in checks)
     return Walked(job, letters, tuple(_starts(checks, Status.REFIT)),
                   tuple(_starts(checks, Status.WATCH)), caught, false_before,
@@ -272,7 +272,8 @@ def table(results: dict[str, dict[str, object]], meta: dict[str, object]) -> str
     lines += ["", f"False refit episodes by monitored days (1-{PERIOD}, {PERIOD + 1}-{2 * PERIOD}, "
               "...), all models of the case"]
     for name, r in results.items():
-        counts = " ".join(f"{n:4d}" for n in r["in_control"]["false_refits_by_period"])
+        periods = r["in_control"].get("false_refits_by_period")
+        counts = " ".join(f"{n:4d}" for n in periods) if periods is not None else "(not counted)"
         lines.append(f"{name:15s} {counts}")
     lines += ["", "Watch entered by (in control; a day can name several signals)"]
     for name, r in results.items():
@@ -299,9 +300,13 @@ def table(results: dict[str, dict[str, object]], meta: dict[str, object]) -> str
             first = r[changes[0]]
             lines.append(f"{name:15s} " + " ".join(f"{c:>19s}" for c in cells)
                          + f" {first['models_false_refit_before_change']:>6d}/{first['models']}")
-    cpu = sum(meta["cpu_seconds_by_case"].values())
+    timed = meta["cpu_seconds_by_case"]
+    cpu = f"{sum(timed.values()):.0f} CPU s in the walks"
+    if len(timed) < len(results):
+        cpu += f" of {', '.join(timed)}"
     lines += ["", f"run time {meta['seconds']:.0f} s with {meta['processes']} processes, "
-              f"{cpu:.0f} CPU s in the walks ({meta['machine']})"]
+              f"{cpu} ({meta['machine']})"]
+    lines += [f"note: {n}" for n in meta.get("notes", ())]
     return "\n".join(lines) + "\n"
 
 
@@ -430,7 +435,9 @@ def combine(paths: list[Path], label: str) -> tuple[dict[str, dict[str, object]]
                                                                 for p in parts)),
              "date": max(p["meta"]["date"] for p in parts), "models_for": {}, "cases": {},
              "seconds": 0.0, "cpu_seconds_by_case": {}, "processes": first["processes"],
-             "machine": first["machine"], "parts": [str(p) for p in paths]}
+             "machine": first["machine"], "parts": [str(p) for p in paths],
+             "notes": [f"{path.name}: {p['meta']['note']}"
+                       for path, p in zip(paths, parts, strict=True) if "note" in p["meta"]]}
     for part in parts:
         for case, result in part["results"].items():
             if case in results:
