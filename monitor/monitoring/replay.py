@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 from sqlalchemy.exc import SQLAlchemyError
 
-from monitor.config import Settings
+from monitor.config import ModelSettings, Settings
 from monitor.domain.check import Carry, DayCheck
 from monitor.domain.days import as_date
 from monitor.domain.model import ModelSpec
@@ -87,16 +87,31 @@ def replay(settings: Settings, name: str, path: Path, *, columns: ModelSpec | No
     if not in_fit.any() or in_fit.all():
         raise InputError(f"{path}: the rows run from {first} to {as_date(rows.days.max())}; "
                          f"a fit window ending {end} leaves nothing to fit or nothing to check")
-    level = ms.check.level
-    fitted = fit_window(rows.x[in_fit], rows.y[in_fit], rows.days[in_fit], model.predictors,
-                        level, ms.check)
+    fitted, version, checks = replay_arrays(model, ms, rows.days, rows.x, rows.y, end,
+                                            acknowledge_refits=acknowledge_refits, now=now)
+    return ReplayReport(model, rows, fitted, version, checks, acknowledge_refits)
+
+
+def replay_arrays(model: ModelSpec, settings: ModelSettings, days: np.ndarray, x: np.ndarray,
+                  y: np.ndarray, fit_end: date, *, acknowledge_refits: bool = False,
+                  now: datetime) -> tuple[FittedVersion, Version, tuple[DayCheck, ...]]:
+    """Fit on the rows through ``fit_end`` and check every later day, as the nights would.
+
+    ``days`` stamps each row ``(x[i], y[i])`` with its local day; rows need not be sorted.
+    The in-memory core of :func:`replay`, also driven by the simulations in the benchmarks.
+    """
+    row_days = np.asarray(days, dtype="datetime64[D]")
+    in_fit = row_days <= np.datetime64(fit_end, "D")
+    level = settings.check.level
+    fitted = fit_window(x[in_fit], y[in_fit], row_days[in_fit], model.predictors, level,
+                        settings.check)
     version = in_memory_version(fitted.draft(level), now)
-    timeline = Timeline.from_rows(rows.days, rows.x, rows.y)
+    timeline = Timeline.from_rows(row_days, x, y)
     assert version.active_from is not None
-    checks, _ = walk(Subject(NOT_STORED, name, model.response, ms), [version], timeline,
-                     version.active_from, as_date(rows.days.max()), Carry.initial(), now=now,
-                     acknowledge_refits=acknowledge_refits)
-    return ReplayReport(model, rows, fitted, version, tuple(checks), acknowledge_refits)
+    checks, _ = walk(Subject(NOT_STORED, model.name, model.response, settings), [version],
+                     timeline, version.active_from, as_date(row_days.max()), Carry.initial(),
+                     now=now, acknowledge_refits=acknowledge_refits)
+    return fitted, version, tuple(checks)
 
 
 def in_memory_version(draft: VersionDraft, now: datetime) -> Version:
