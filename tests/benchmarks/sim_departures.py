@@ -401,11 +401,12 @@ def main(argv: list[str] | None = None) -> int:
 def _write(results: dict[str, dict[str, object]], meta: dict[str, object], out: Path) -> int:
     text = table(results, meta)
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.with_suffix(".json").write_text(json.dumps({"meta": meta, "results": results},
-                                                   indent=1) + "\n")
-    out.with_suffix(".txt").write_text(text)
+    # suffixes appended, not swapped: a label such as "ar1_0.5" has a dot of its own
+    as_json, as_text = (out.parent / f"{out.name}{suffix}" for suffix in (".json", ".txt"))
+    as_json.write_text(json.dumps({"meta": meta, "results": results}, indent=1) + "\n")
+    as_text.write_text(text)
     print(text)
-    print(f"written: {out.with_suffix('.json')}, {out.with_suffix('.txt')}")
+    print(f"written: {as_json}, {as_text}")
     return 0
 
 
