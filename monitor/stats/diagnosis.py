@@ -43,7 +43,7 @@ PERSISTENCE_ALPHA = 0.05  # level of the persistence test that makes the chart p
 
 
 @dataclass(frozen=True)
-class TestFigure:
+class StatTest:
     """A test's statistic, degrees of freedom and p-value (NaN when it could not be run)."""
 
     statistic: float = float("nan")
@@ -60,10 +60,10 @@ class FitDiagnosis:
 
     days: int  # days with rows
     persistence: float  # lag-1 autocorrelation of the standardized day means
-    persistence_test: TestFigure  # Ljung–Box
-    weekday_test: TestFigure
+    persistence_test: StatTest  # Ljung–Box
+    weekday_test: StatTest
     weekday_effects: tuple[float | None, ...]  # Mon..Sun mean day residual (response units)
-    spread_x_test: TestFigure  # Koenker–Breusch–Pagan on within-day residuals
+    spread_x_test: StatTest  # Koenker–Breusch–Pagan on within-day residuals
     classical_sd: float  # within-day sd (sqrt of sigma_w²)
     robust_sd: float  # 1.4826 · MAD of the within-day residuals
     tail_share: float  # share of rows beyond TAIL_SDS robust sd
@@ -90,19 +90,19 @@ def lag_one_cut(days: int, alpha: float = PERSISTENCE_ALPHA) -> float:
     return float(stats.norm.ppf(1 - alpha / 2) / math.sqrt(days))
 
 
-def ljung_box(u: ArrayLike, lags: int) -> tuple[FloatArray, TestFigure]:
+def ljung_box(u: ArrayLike, lags: int) -> tuple[FloatArray, StatTest]:
     """Autocorrelations ``r_1..r_m`` of ``u`` and the Ljung–Box test on ``m = lags`` of them."""
     x = np.asarray(u, dtype=np.float64)
     g = len(x)
     if lags < 1 or g <= lags + 1:
-        return np.zeros(0), TestFigure()
+        return np.zeros(0), StatTest()
     c = x - x.mean()
     denom = float(c @ c)
     if denom <= 0:
-        return np.zeros(lags), TestFigure()
+        return np.zeros(lags), StatTest()
     r = np.array([float(c[:-lag] @ c[lag:]) / denom for lag in range(1, lags + 1)])
     q = float(g * (g + 2) * np.sum(r**2 / (g - np.arange(1, lags + 1))))
-    return r, TestFigure(q, (float(lags),), float(stats.chi2.sf(q, lags)))
+    return r, StatTest(q, (float(lags),), float(stats.chi2.sf(q, lags)))
 
 
 def default_lags(days: int) -> int:
@@ -110,41 +110,41 @@ def default_lags(days: int) -> int:
     return max(1, min(10, days // 5))
 
 
-def weekday_anova(u: ArrayLike, weekdays: ArrayLike) -> TestFigure:
+def weekday_anova(u: ArrayLike, weekdays: ArrayLike) -> StatTest:
     """One-way ANOVA F of ``u`` grouped by weekday (0 = Monday)."""
     x = np.asarray(u, dtype=np.float64)
     wd = np.asarray(weekdays, dtype=np.int64)
     groups = [x[wd == w] for w in range(7) if (wd == w).any()]
     n_groups, total = len(groups), len(x)
     if n_groups < 2 or total <= n_groups:
-        return TestFigure()
+        return StatTest()
     grand = x.mean()
     ssb = sum(len(g) * (g.mean() - grand) ** 2 for g in groups)
     ssw = sum(float(((g - g.mean()) ** 2).sum()) for g in groups)
     df1, df2 = n_groups - 1, total - n_groups
     if ssw <= 0:
-        return TestFigure()
+        return StatTest()
     f = float((ssb / df1) / (ssw / df2))
-    return TestFigure(f, (float(df1), float(df2)), float(stats.f.sf(f, df1, df2)))
+    return StatTest(f, (float(df1), float(df2)), float(stats.f.sf(f, df1, df2)))
 
 
-def koenker_breusch_pagan(resid: ArrayLike, x: ArrayLike) -> TestFigure:
+def koenker_breusch_pagan(resid: ArrayLike, x: ArrayLike) -> StatTest:
     """``N R²`` of ``resid²`` on ``(1, x)``: chi-square with ``k`` df (Koenker 1981)."""
     e2 = np.asarray(resid, dtype=np.float64) ** 2
     xm = np.asarray(x, dtype=np.float64)
     xm = xm.reshape(len(e2), -1)
     n, k = xm.shape
     if n <= k + 1:
-        return TestFigure()
+        return StatTest()
     design = np.column_stack([np.ones(n), xm])
     coef, *_ = np.linalg.lstsq(design, e2, rcond=None)
     fitted = design @ coef
     tss = float(((e2 - e2.mean()) ** 2).sum())
     if tss <= 0:
-        return TestFigure()
+        return StatTest()
     r2 = 1.0 - float(((e2 - fitted) ** 2).sum()) / tss
     lm = n * r2
-    return TestFigure(lm, (float(k),), float(stats.chi2.sf(lm, k)))
+    return StatTest(lm, (float(k),), float(stats.chi2.sf(lm, k)))
 
 
 def day_spread(resid: ArrayLike) -> float | None:

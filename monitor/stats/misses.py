@@ -77,19 +77,18 @@ class MissLaw:
         return float(_miss_probabilities(self.tau2, self.sigma_w2, self.half_width, self.scale)
                      @ _shock_weights())
 
+    def node_probabilities(self) -> FloatArray:
+        """A row's miss probability given the day's shock at each quadrature node."""
+        return _miss_probabilities(self.tau2, self.sigma_w2, self.half_width, self.scale)
+
     def pvalues(self, day_rows: ArrayLike, misses: int) -> tuple[float, float]:
         """``P(M >= misses)`` and ``P(M <= misses)`` for a window with these rows per day."""
-        rows = np.asarray(day_rows, dtype=np.int64)
-        rows = rows[rows > 0]
+        rows = window_rows(day_rows, misses)
         total = int(rows.sum())
-        if not 0 <= misses <= total:
-            raise ValueError(f"misses ({misses}) must lie between 0 and the rows ({total})")
         if total == 0:
             return float("nan"), float("nan")
         if total > DIRECT_MAX_ROWS:
-            tilted = _tilted_pvalues(
-                _miss_probabilities(self.tau2, self.sigma_w2, self.half_width, self.scale),
-                rows, misses)
+            tilted = _tilted_pvalues(self.node_probabilities(), rows, misses)
             if tilted is not None:
                 return tilted
         pmf = np.ones(1)
@@ -286,6 +285,16 @@ def _tilted_pvalues(p: FloatArray, day_rows: NDArray[np.int64],
     return min(upper, 1.0), min(lower, 1.0)
 
 
+def window_rows(day_rows: ArrayLike, misses: int) -> NDArray[np.int64]:
+    """The window's days with rows; refuses a miss count the rows cannot hold."""
+    rows = np.asarray(day_rows, dtype=np.int64)
+    rows = rows[rows > 0]
+    total = int(rows.sum())
+    if not 0 <= misses <= total:
+        raise ValueError(f"misses ({misses}) must lie between 0 and the rows ({total})")
+    return rows
+
+
 def _miss_probabilities(tau2: float, sigma_w2: float, half_width: float,
                         scale: float) -> FloatArray:
     """The miss probability of a row, given the day's shock at each quadrature node."""
@@ -302,6 +311,16 @@ def _miss_probabilities(tau2: float, sigma_w2: float, half_width: float,
 @lru_cache(maxsize=1)
 def _hermite() -> tuple[FloatArray, FloatArray]:
     return special.roots_hermite(SHOCK_NODES)
+
+
+def shock_weights() -> FloatArray:
+    """The quadrature weights of the shock nodes (they sum to one)."""
+    return _shock_weights()
+
+
+def shock_nodes() -> FloatArray:
+    """The shock nodes in standard-normal units (``sqrt(2)`` times the Hermite roots)."""
+    return np.sqrt(2.0) * _hermite()[0]
 
 
 def _shock_weights() -> FloatArray:

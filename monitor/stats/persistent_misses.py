@@ -24,8 +24,14 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import signal, stats
 
-from monitor.stats.coverage import CoverageTest
-from monitor.stats.misses import GuardedMissLaw, MissLaw, _hermite, _miss_probabilities
+from monitor.stats.coverage import CoverageTest, coverage_test
+from monitor.stats.misses import (
+    GuardedMissLaw,
+    MissLaw,
+    shock_nodes,
+    shock_weights,
+    window_rows,
+)
 
 FloatArray = NDArray[np.float64]
 
@@ -33,9 +39,7 @@ FloatArray = NDArray[np.float64]
 @lru_cache(maxsize=64)
 def _transition(phi: float) -> FloatArray:
     """The Tauchen–Hussey transition matrix between the standard-normal shock nodes."""
-    x, w = _hermite()
-    z = np.sqrt(2.0) * x
-    pi = w / np.sqrt(np.pi)
+    z, pi = shock_nodes(), shock_weights()
     sd = np.sqrt(1.0 - phi**2)
     log_cond = -0.5 * ((z[None, :] - phi * z[:, None]) / sd) ** 2 - np.log(sd)
     log_marg = -0.5 * z[None, :] ** 2
@@ -48,15 +52,11 @@ def _transition(phi: float) -> FloatArray:
 def persistent_pvalues(law: MissLaw, day_rows: ArrayLike, misses: int,
                        phi: float) -> tuple[float, float]:
     """``P(M >= misses)`` and ``P(M <= misses)`` for a window with AR(1) day shocks."""
-    rows = np.asarray(day_rows, dtype=np.int64)
-    rows = rows[rows > 0]
-    total = int(rows.sum())
-    if not 0 <= misses <= total:
-        raise ValueError(f"misses ({misses}) must lie between 0 and the rows ({total})")
-    if total == 0:
+    rows = window_rows(day_rows, misses)
+    if int(rows.sum()) == 0:
         return float("nan"), float("nan")
-    p = _miss_probabilities(law.tau2, law.sigma_w2, law.half_width, law.scale)
-    pi = _hermite()[1] / np.sqrt(np.pi)
+    p = law.node_probabilities()
+    pi = shock_weights()
     step = _transition(round(float(phi), 6))
     cells = misses + 2  # counts 0..misses exactly, then "more than misses"
     alpha: FloatArray | None = None
@@ -97,10 +97,11 @@ class PersistentMissLaw:
     def test(self, day_rows: ArrayLike, covered: int, target: float, dispersion: float = 1.0,
              level: float = 0.95) -> CoverageTest:
         rows = np.asarray(day_rows, dtype=np.int64)
-        plain = self.base.test(rows, covered, target, dispersion, level)
-        if self.phi <= 0 or int(rows.sum()) == 0:
-            return plain
-        misses = int(rows.sum()) - covered
+        total = int(rows.sum())
+        if self.phi <= 0 or total == 0:
+            return self.base.test(rows, covered, target, dispersion, level)
+        quasi = coverage_test(covered, total, target, dispersion, level)
+        misses = total - covered
         low = persistent_pvalues(self.base.wide, rows, misses, self.phi)[0]
         high = persistent_pvalues(self.base.narrow, rows, misses, self.phi)[1]
-        return replace(plain, pvalue_low=low, pvalue_high=high, method="persistent day effects")
+        return replace(quasi, pvalue_low=low, pvalue_high=high, method="persistent day effects")

@@ -24,7 +24,7 @@ MIN_WITHIN_DF = 10
 
 @dataclass(frozen=True)
 class SpreadTest:
-    ratio: float  # recent RMS residual / s
+    ratio: float  # recent RMS residual / s; for "day spreads": typical day spread vs the fit's
     statistic: float  # variance ratio F
     df_num: float
     df_den: float
