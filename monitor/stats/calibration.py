@@ -29,6 +29,7 @@ with probability about ``guarantee`` over the randomness of its own fit window.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -36,7 +37,7 @@ from scipy import stats
 
 from monitor.errors import DegenerateDataError
 from monitor.stats.arl import cusum_arl, solve_h, solve_h_many
-from monitor.stats.day_effects import DayEffects
+from monitor.stats.day_effects import DayEffects, net_of_rhythm
 from monitor.stats.diagnosis import MAX_PERSISTENCE, PERSISTENCE_ALPHA, FitDiagnosis
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit
@@ -132,6 +133,16 @@ class ChartDesign:
                    sigma_w2=effects.sigma_w2, n0=effects.n0, n_rows=n_rows, n_days=n_days,
                    phi=persistence.chart if persistence else 0.0,
                    phi_true=persistence.truth if persistence else 0.0)
+
+
+def chart_design(fit: OLSFit, days: DayMoments, effects: DayEffects,
+                 diagnosis: FitDiagnosis | None) -> ChartDesign:
+    """The bias chart's design of a version: its fit window's persistence, and the day shocks
+    net of a weekly rhythm when the fit window showed one (the chart then subtracts it)."""
+    rhythm = diagnosis.rhythm() if diagnosis is not None else None
+    if rhythm is not None and diagnosis is not None:
+        effects = net_of_rhythm(effects, rhythm, diagnosis.weekday_days)
+    return ChartDesign.from_fit(fit, days, effects, Persistence.of(diagnosis))
 
 
 @dataclass(frozen=True)
@@ -234,6 +245,51 @@ class Calibration:
     calibrated: bool
     h_draws: FloatArray = field(repr=False)
     reason: str = ""
+    learn_until: int = 0  # self-starting: the chart learns the level until this many days
+
+
+def calibrate_chart(design: ChartDesign, k: float, target_arl: float, guarantee: float,
+                    learn_until: int) -> Calibration:
+    """The bias chart's limit: bootstrap-calibrated (:func:`calibrate_h`) for a version fitted
+    on at least ``learn_until`` days; for a shorter fit window, the limit of a self-starting
+    chart (:func:`self_starting`)."""
+    if design.n_days < learn_until:
+        return self_starting(k, target_arl, guarantee, learn_until)
+    return calibrate_h(design, k=k, target_arl=target_arl, guarantee=guarantee)
+
+
+@lru_cache(maxsize=512)
+def frozen_limit(k: float, target_arl: float, guarantee: float, days: int, draws: int = 400,
+                 seed: int = 20240611) -> float:
+    """The limit of a chart whose level and day sd were estimated from ``days`` day means and
+    then frozen: the ``guarantee`` quantile of the limits that keep the target ARL over
+    redrawn estimates (Gandy & Kvaløy 2013, as :func:`calibrate_h`), the level off by
+    ``N(0, 1/days)`` and the sd by ``chi²(days - 1)/(days - 1)`` (normal day means); inf when
+    the estimates are too loose for any limit."""
+    if days < 3:
+        return float("inf")
+    rng = np.random.default_rng(seed)
+    level = rng.standard_normal(draws) / np.sqrt(days)
+    scale = np.sqrt((days - 1) / rng.chisquare(days - 1, draws))  # true sd / estimated sd
+    h = solve_h_many(k, target_arl, level * scale, scale)
+    with np.errstate(invalid="ignore"):
+        return float(np.quantile(h, guarantee))
+
+
+def self_starting(k: float, target_arl: float, guarantee: float,
+                  learn_until: int) -> Calibration:
+    """The limit of a self-starting chart (Hawkins 1987, "Self-starting CUSUM charts for
+    location and scale", *The Statistician* 36, 299-316; Quesenberry 1991, "SPC Q charts for
+    start-up processes and short or long runs", *J. Quality Technology* 23, 213-224): each
+    day's mean residual is standardized by the mean and sd of every earlier in-control day
+    (the fit window's and the monitored ones learned so far) and turned into an exactly
+    standard normal value through its t law, so the chart's run lengths are those of known
+    parameters: ``h`` is the known-parameter limit, with nothing to guarantee."""
+    h = solve_h(k, target_arl)
+    return Calibration(h=h, h_known=h, arl_known=float(cusum_arl(k, h)), k=float(k),
+                       target_arl=float(target_arl), guarantee=guarantee, draws=0, seed=0,
+                       calibrated=True, h_draws=np.zeros(0),
+                       reason=f"self-starting until {learn_until} days", learn_until=learn_until)
 
 
 def calibrate_h(design: ChartDesign, k: float = 0.5, target_arl: float = 1000.0,

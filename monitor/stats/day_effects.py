@@ -13,7 +13,7 @@ is estimated by the analysis-of-variance (method of moments) estimators for unba
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -120,3 +120,28 @@ def day_effects_of_fit(days: DayMoments, coef: ArrayLike) -> DayEffects:
     r = day_residuals(days, coef)
     present = r.counts > 0
     return day_effects(r.counts[present], r.means[present], r.within_ss[present])
+
+
+def net_of_rhythm(effects: DayEffects, offsets: ArrayLike, days_per_weekday: ArrayLike
+                  ) -> DayEffects:
+    """The day effects a chart that subtracts a weekly rhythm sees.
+
+    The rhythm's share of the day-shock variance, ``Σ_w (G_w/G) o_w²`` for weekday offsets
+    ``o_w`` seen on ``G_w`` of the ``G`` fit days, less what noise alone puts into estimated
+    offsets (``(W - 1)/G`` times a day's variance ``tau² + sigma_w²/n0``, the expected between-
+    group sum of squares of a one-way layout under no effect), leaves the day shocks; each
+    offset is itself an average of about ``G/W`` days, and its error stays in every adjusted
+    day: ``tau²_chart = tau²_net + (W/G)(tau²_net + sigma_w²/n0)`` (one-way analysis of
+    variance, any textbook; common practice, no source).
+    """
+    counts = np.asarray(days_per_weekday, dtype=np.float64)
+    off = np.asarray(offsets, dtype=np.float64)
+    g = float(counts.sum())
+    w = float((counts > 0).sum())
+    if g <= w or w < 2:
+        return effects
+    day_var = effects.tau2 + effects.sigma_w2 / effects.n0
+    explained = float(np.sum(counts * off**2) / g) - (w - 1) / g * day_var
+    net = max(0.0, effects.tau2 - max(explained, 0.0))
+    chart = net + (w / g) * (net + effects.sigma_w2 / effects.n0)
+    return replace(effects, tau2=chart)

@@ -40,6 +40,9 @@ TAIL_SDS = 4.0  # rows beyond this many robust sd count as outliers
 MAD_TO_SD = 1.482602218505602  # 1 / Φ⁻¹(3/4): MAD → sd for normal data
 MAX_PERSISTENCE = 0.9  # beyond this the AR(1) view of the day shocks is not used
 PERSISTENCE_ALPHA = 0.05  # level of the persistence test that makes the chart prewhiten
+TAIL_ALPHA = 0.01  # level of the tail test above which rows count as heavy-tailed
+RHYTHM_ALPHA = 0.01  # level of the weekday test below which the charts measure against it
+RHYTHM_MIN_DAYS = 4  # fit days each working weekday needs before its offset is subtracted
 
 
 @dataclass(frozen=True)
@@ -70,10 +73,28 @@ class FitDiagnosis:
     tail_pvalue: float  # P(at least that many) for normal rows
     fit_coverage: float  # share of the fit window's rows inside their intervals
     day_spreads: tuple[float, ...]  # log day spread of each fit day with >= 2 rows
+    slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows clipped) over the classical
+    weekday_days: tuple[int, ...] = ()  # Mon..Sun: fit days with rows on that weekday
+
+    def rhythm(self, alpha: float = RHYTHM_ALPHA) -> tuple[float, ...] | None:
+        """Mon..Sun offsets of the day mean residual (0 for a weekday without fit days) when the
+        weekday test is significant at ``alpha`` and every weekday with rows has at least
+        :data:`RHYTHM_MIN_DAYS` fit days; None otherwise (or for an older diagnosis that did
+        not count the days per weekday)."""
+        if not self.weekday_test.significant(alpha) or len(self.weekday_days) != 7:
+            return None
+        if min(d for d in self.weekday_days if d > 0) < RHYTHM_MIN_DAYS:
+            return None  # offsets from fewer days would mostly fit the window's own noise
+        return tuple(0.0 if v is None else float(v) for v in self.weekday_effects)
 
     @property
     def day_spread_mean(self) -> float:
         return float(np.mean(self.day_spreads)) if self.day_spreads else float("nan")
+
+    @property
+    def heavy_tails(self) -> bool:
+        """More rows beyond 4 robust sd than normal rows give, at level :data:`TAIL_ALPHA`."""
+        return bool(math.isfinite(self.tail_pvalue) and self.tail_pvalue < TAIL_ALPHA)
 
     def chart_persistence(self, alpha: float = PERSISTENCE_ALPHA) -> float:
         """The lag-1 correlation the bias chart uses: ``r1`` when it is significantly positive
@@ -171,6 +192,7 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
     """
     r = np.asarray(resid, dtype=np.float64)
     idx = np.asarray(day_index, dtype=np.int64)
+    xm = np.asarray(x, dtype=np.float64).reshape(len(r), -1)
     g = int(idx.max()) + 1 if len(idx) else 0
     counts = np.bincount(idx, minlength=g).astype(np.float64)
     means = np.bincount(idx, weights=r, minlength=g) / np.maximum(counts, 1)
@@ -194,13 +216,35 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
         value = day_spread(part)
         if value is not None:
             spreads.append(value)
+    centred_x = xm - (np.stack([np.bincount(idx, weights=xm[:, j], minlength=g)
+                                for j in range(xm.shape[1])], axis=1)
+                      / np.maximum(counts, 1)[:, None])[idx]
     return FitDiagnosis(
         days=g, persistence=float(rs[0]) if len(rs) else float("nan"), persistence_test=lb,
         weekday_test=weekday_anova(u, wd), weekday_effects=tuple(effects),
         spread_x_test=koenker_breusch_pagan(within, x),
         classical_sd=math.sqrt(sigma_w2), robust_sd=robust,
         tail_share=beyond / len(r) if len(r) else float("nan"), tail_pvalue=tail_p,
-        fit_coverage=covered_share, day_spreads=tuple(spreads))
+        fit_coverage=covered_share, day_spreads=tuple(spreads),
+        weekday_days=tuple(int((wd == w).sum()) for w in range(7)),
+        slope_noise_ratio=slope_noise_ratio(centred_x, within, sigma_w2,
+                                            TAIL_SDS * robust if robust > 0 else np.inf))
+
+
+def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,
+                      clip: float) -> tuple[float, ...]:
+    """Per predictor, ``Σ x~² w_c² / (sigma_w² Σ x~²)`` over rows with predictors ``x~`` and
+    residuals ``w`` centred within their day, ``w_c`` the residuals clipped to ``±clip``: the
+    ratio of White's (1980) heteroscedasticity-consistent variance of a within-day slope, for
+    residuals winsorized as the within-day slope chart winsorizes them, to the classical one.
+    About 1 for normal rows whose scatter does not change with the predictors; above 1 when the
+    scatter grows away from the day's mean predictor; below 1 for heavy-tailed rows."""
+    xc = np.asarray(centred_x, dtype=np.float64)
+    w2 = np.clip(np.asarray(within, dtype=np.float64), -clip, clip) ** 2
+    sxx = (xc**2).sum(axis=0)
+    if not sigma_w2 > 0 or np.any(sxx <= 0):
+        return ()
+    return tuple(float(v) for v in ((xc**2 * w2[:, None]).sum(axis=0) / (sigma_w2 * sxx)))
 
 
 @dataclass(frozen=True)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import replace
 
 import numpy as np
@@ -237,3 +238,18 @@ def test_zero_residual_variance_is_degenerate():
     fit = fit_moments(days.total())
     with pytest.raises(DegenerateDataError, match="residual"):
         ChartDesign.from_fit(fit, days, day_effects_of_fit(days, fit.coef))
+
+
+def test_a_frozen_limit_approaches_the_known_parameter_limit_as_its_days_grow():
+    # Common practice, no source: with many days the estimates are nearly exact, so the
+    # guaranteed limit tends to the known-parameter one (solve_h, checked against published
+    # ARL tables in test_arl.py); with fewer days it must be wider, never narrower.
+    from monitor.stats.calibration import frozen_limit, self_starting
+
+    known = solve_h(0.5, 1000.0)
+    limits = [frozen_limit(0.5, 1000.0, 0.95, n) for n in (20, 60, 200, 5000)]
+    assert all(a > b for a, b in itertools.pairwise(limits))
+    assert limits[-1] == pytest.approx(known, rel=0.05)
+    assert limits[0] > known
+    # a self-starting chart's limit is the known-parameter one (its Q values are exact)
+    assert self_starting(0.5, 1000.0, 0.95, 60).h == pytest.approx(known, rel=1e-12)

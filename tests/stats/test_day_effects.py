@@ -108,3 +108,34 @@ def test_day_residuals_from_statistics_equal_raw_residuals():
     assert np.array_equal(ours.counts, counts)
     assert np.allclose(ours.means, means, atol=1e-10)
     assert np.allclose(ours.within_ss, ssw, rtol=1e-9)
+
+
+def test_net_of_rhythm_takes_out_the_between_weekday_sum_of_squares_of_statsmodels():
+    # Reference: statsmodels anova_lm of the Nile flows (shipped with statsmodels) grouped by
+    # position modulo 7 as "weekdays": the rhythm's share Σ (G_w/G) o_w² is the between-group
+    # sum of squares over G. With the day variance of the layout (tau² + sigma_w²/n0) the net
+    # day-shock variance loses exactly SS_between/G - (W-1)/G · day variance (the noise part of
+    # SS_between's expectation, one-way ANOVA), and the chart keeps the offsets' own error,
+    # (W/G)(tau²_net + sigma_w²/n0).
+    from monitor.stats.day_effects import DayEffects, net_of_rhythm
+
+    weekday = np.arange(100) % 7
+    # a rhythm laid on the flows: "Mondays" +150, "Saturdays" -100
+    nile = sm.datasets.nile.load_pandas().data["volume"].to_numpy() + \
+        150.0 * (weekday == 0) - 100.0 * (weekday == 5)
+    frame = pd.DataFrame({"v": nile, "w": weekday})
+    ss_between = anova_lm(smf.ols("v ~ C(w)", data=frame).fit())["sum_sq"]["C(w)"]
+    offsets = [nile[weekday == w].mean() - nile.mean() for w in range(7)]
+    counts = [int((weekday == w).sum()) for w in range(7)]
+    g, w = len(nile), 7
+    effects = DayEffects(tau2=float(nile.var(ddof=1)), sigma_w2=400.0, n_days=g, n_rows=g * 4,
+                         n0=4.0, ms_between=0.0, ms_within=0.0, statistic=0.0, pvalue=0.0)
+    day_var = effects.tau2 + effects.sigma_w2 / effects.n0
+    explained = ss_between / g - (w - 1) / g * day_var
+    assert explained > 0
+    net = effects.tau2 - explained
+    expected = net + (w / g) * (net + effects.sigma_w2 / effects.n0)
+    assert net_of_rhythm(effects, offsets, counts).tau2 == pytest.approx(expected, rel=1e-10)
+    # offsets of zero take nothing out; the chart still carries their estimation error
+    flat = net_of_rhythm(effects, [0.0] * 7, counts).tau2
+    assert flat == pytest.approx(effects.tau2 + (w / g) * day_var, rel=1e-12)

@@ -1,0 +1,60 @@
+"""The self-starting level of a version fitted on a short window (Hawkins 1987; Quesenberry 1991).
+
+A version fitted on few days knows its level (the mean of a day's mean residual) only loosely, and
+a chart that pays for that error up front needs a very wide limit. Instead, each new day's mean
+residual ``r_t`` is compared with the mean ``m`` and sd ``s`` of the ``N`` day means known so far
+(the fit window's days, then the monitored in-control days learned one by one):
+
+    T_t = (r_t - m) / (s sqrt(1 + 1/N)),      Q_t = Φ⁻¹(F_{t, N-1}(T_t)).
+
+Under the version, with independent normal day means, ``T_t`` follows Student's t on ``N - 1``
+degrees of freedom and the ``Q_t`` are independent standard normal values (Quesenberry 1991,
+*J. Quality Technology* 23, 213-224, Theorem 1; Hawkins 1987, *The Statistician* 36, 299-316),
+so a CUSUM of ``Q`` has the run lengths of exactly known parameters from its first day. Learning
+stops for good at the first finding (so a change is never learned into the level) and once ``N``
+reaches the configured window.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import ArrayLike
+from scipy import stats
+
+from monitor.stats.moments import Moments
+
+
+def level_of(values: ArrayLike) -> Moments:
+    """The count, mean and centred sum of squares of day mean residuals (NaN ignored)."""
+    v = np.asarray(values, dtype=np.float64).ravel()
+    return Moments.of(v[np.isfinite(v)][:, None])
+
+
+def learned(level: Moments, value: float) -> Moments:
+    """``level`` with one more day mean residual (the pairwise update of Moments.merge)."""
+    return level.merge(Moments.of([[value]]))
+
+
+def q_value(level: Moments, value: float) -> float | None:
+    """``Q`` of a new day mean residual against ``level``; None with fewer than 3 values or no
+    spread."""
+    n, m2 = level.n, float(level.comoment[0, 0]) if level.n else 0.0
+    if n < 3 or not m2 > 0:
+        return None
+    s = math.sqrt(m2 / (n - 1))
+    t = (value - float(level.mean[0])) / (s * math.sqrt(1.0 + 1.0 / n))
+    # through the tail on the value's own side, so a far-out value keeps its digits
+    if t > 0:
+        return float(stats.norm.isf(stats.t.sf(t, n - 1)))
+    return float(stats.norm.ppf(stats.t.cdf(t, n - 1)))
+
+
+@dataclass(frozen=True, eq=False)
+class Learning:
+    """What a self-starting version learned from its monitored days (stored with each check)."""
+
+    level: Moments = field(default_factory=lambda: Moments.empty(1))
+    stopped: bool = False  # a refit stopped the learning (until a restart)

@@ -1,0 +1,372 @@
+"""The within-day slope chart: slope evidence that no day shock, rhythm or level shift can hide.
+
+Each day's centred co-moments give the day's own least-squares slopes
+
+    b_d = Sxx_d⁻¹ Sxy_d,      Sxx_d, Sxy_d: the day's centred cross-products,
+
+the slopes of the rows of that day around that day's own means. A day shock, a weekday offset or
+a level shift moves every row of the day alike and leaves ``b_d`` untouched, so the chart below
+measures a change of slope against the within-day noise only, however large the day-to-day
+variation is. Under the version, ``b_d - beta`` has variance
+
+    v_dj = c_j · sigma_w² · (Sxx_d⁻¹)_jj + tau_j²
+
+for predictor ``j``: ``sigma_w²`` the within-day residual variance of the fit window,
+``c_j`` the ratio of White's (1980, *Econometrica* 48, 817-838) heteroscedasticity-consistent
+"meat" (of rows winsorized as below) to the classical one in the fit window (1 for normal rows
+whose scatter does not change with the predictors), and ``tau_j²`` the between-day variance
+of the day slopes, estimated from the fit window by the moment estimator of DerSimonian & Laird
+(1986, *Controlled Clinical Trials* 7, 177-188), for days whose slope wanders around the line.
+
+The chart is the log-likelihood-ratio CUSUM of Page (1954) for a step ``delta_j`` (a share of
+the slope, 10 % by default) in each direction, on the day's standardized deviation
+``z = (b_dj - beta_j) / sqrt(v_dj)`` with the day's standardized step ``lambda = delta_j /
+sqrt(v_dj)``:
+
+    S+ = max(0, S+ + lambda (z - lambda/2)),   S- = max(0, S- + lambda (-z - lambda/2)).
+
+A day with many rows spread over a wide range of ``x`` has a large ``lambda`` and counts much; a
+day with little spread in ``x`` has a small one and counts little, and a day whose ``lambda`` is
+below :data:`MIN_STEP` does not step the chart at all. ``z`` is clipped to
+``±max(Z_CLIP, lambda + 3)`` so one wild row on a thin day cannot carry the chart alone (a
+winsorized CUSUM in the spirit of Lucas & Crosier 1982, *Technometrics* 24; clipping shortens
+the in-control excursions, so the run lengths below are lower bounds).
+
+The decision interval ``H`` is found from the exact in-control run length of this chart
+(Page's integral equation with the mixture of the fit days' step laws as the kernel, solved by
+Nyström's method as in :mod:`monitor.stats.arl`), with the estimation error of the reference
+counted as the bias chart counts it (Gandy & Kvaløy 2013): the chart must keep its in-control
+ARL when the reference slope is off by the ``(1 + guarantee)/2`` quantile of its sampling law and
+the variances are underestimated by their ``guarantee`` quantile. With ``k`` predictors each of
+the ``k`` two-sided charts gets ``k`` times the target ARL, so their false alarms add up to the
+target's.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+from scipy import optimize, special, stats
+
+from monitor.stats.diagnosis import TAIL_SDS
+from monitor.stats.moments import DayMoments, Moments
+
+FloatArray = NDArray[np.float64]
+MIN_STEP = 0.25 # days whose standardized step is below this do not move the chart
+ROW_CLIP = TAIL_SDS  # rows' residuals are clipped to this many robust sd before a day's slope
+MIN_INFLATION = 0.25  # the smallest ratio of the slope's variance to the classical one used
+Z_CLIP = 4.0  # a day's standardized deviation is clipped to ±max(Z_CLIP, lambda + 3)
+MIXTURE_DAYS = 16  # fit days kept (as quantiles of the step) in the run-length kernel
+MAX_H = 40.0  # a chart that needs a larger interval is not run (its steps are too small)
+_ROOT_2PI = np.sqrt(2.0 * np.pi)
+_CONDITION = 1e10  # a day whose cross-product matrix is worse conditioned gives no slope
+
+
+@dataclass(frozen=True, eq=False)
+class DaySlopes:
+    """Each day's within-day slopes against a reference: deviations and their unit variances.
+
+    ``deviation[d, j] = b_dj - beta_j`` and ``unit[d, j] = (Sxx_d⁻¹)_jj`` (times the within-day
+    variance it is the deviation's variance); ``usable[d]`` is False for days whose rows do not
+    pin down a slope (fewer than ``k + 1`` rows, or no spread in some predictor).
+    """
+
+    deviation: FloatArray
+    unit: FloatArray
+    usable: NDArray[np.bool_]
+
+
+def day_slopes(comoment: ArrayLike, n: ArrayLike, slopes: ArrayLike) -> DaySlopes:
+    """Within-day slope deviations of days with centred co-moments ``comoment`` (``(G, k+1,
+    k+1)``, the response last) and ``n`` rows from the reference ``slopes``."""
+    c = np.asarray(comoment, dtype=np.float64)
+    counts = np.asarray(n, dtype=np.float64).ravel()
+    beta = np.asarray(slopes, dtype=np.float64).ravel()
+    k = len(beta)
+    g = c.shape[0]
+    sxx, sxy = c[:, :k, :k], c[:, :k, k]
+    diag = np.einsum("djj->dj", sxx)
+    usable = counts >= k + 1
+    usable &= np.all(diag > 0, axis=1)
+    if usable.any():
+        cond = np.full(g, np.inf)
+        cond[usable] = np.linalg.cond(sxx[usable])
+        usable &= cond < _CONDITION
+    deviation = np.full((g, k), np.nan)
+    unit = np.full((g, k), np.nan)
+    if usable.any():
+        inv = np.linalg.inv(sxx[usable])
+        deviation[usable] = np.einsum("djk,dk->dj", inv, sxy[usable]) - beta
+        unit[usable] = np.einsum("djj->dj", inv)
+    return DaySlopes(deviation, unit, usable)
+
+
+def within_fit(days: DayMoments) -> tuple[FloatArray, float, int]:
+    """The pooled within-day slopes of ``days``, their residual variance and its df.
+
+    ``beta_w = (Σ Sxx_d)⁻¹ Σ Sxy_d`` (the fixed-effects, or "within", estimator: the line fitted
+    with one intercept per day) and ``sigma_w² = Σ_d (Syy_d - 2 beta'Sxy_d + beta'Sxx_d beta) /
+    (N - G - k)`` (Baltagi, *Econometric Analysis of Panel Data*, ch. 2, from memory).
+    """
+    keep = np.asarray(days.n) > 0
+    c = np.asarray(days.comoment)[keep]
+    k = days.dim - 1
+    sxx, sxy, syy = c[:, :k, :k].sum(axis=0), c[:, :k, k].sum(axis=0), c[:, k, k].sum()
+    beta = np.linalg.solve(sxx, sxy)
+    dof = int(np.asarray(days.n)[keep].sum()) - int(keep.sum()) - k
+    rss = float(syy - 2 * beta @ sxy + beta @ sxx @ beta)
+    return beta, max(rss, 0.0) / max(dof, 1), dof
+
+
+def between_day_variance(deviation: FloatArray, variance: FloatArray) -> float:
+    """DerSimonian–Laird moment estimate of the between-day variance of one slope.
+
+    With weights ``w_d = 1/variance_d`` and the weighted mean ``m`` of the deviations,
+    ``Q = Σ w_d (dev_d - m)²`` and ``tau² = max(0, (Q - (G - 1)) / (Σw - Σw²/Σw))``.
+    """
+    w = 1.0 / np.asarray(variance, dtype=np.float64)
+    d = np.asarray(deviation, dtype=np.float64)
+    if len(d) < 3:
+        return 0.0
+    m = float(np.sum(w * d) / np.sum(w))
+    q = float(np.sum(w * (d - m) ** 2))
+    denom = float(np.sum(w) - np.sum(w**2) / np.sum(w))
+    return max(0.0, (q - (len(d) - 1)) / denom) if denom > 0 else 0.0
+
+
+@dataclass(frozen=True, eq=False)
+class SlopeChartDesign:
+    """What the within-day slope chart needs from its fit window, and its decision interval."""
+
+    slopes: FloatArray  # the reference: the fit window's within-day slopes
+    sigma_w2: float  # within-day residual variance
+    row_scale: float  # a robust sd of the rows around their day's line (the clipping unit)
+    inflation: FloatArray  # c_j, White's meat over the classical one (>= 1)
+    tau2: FloatArray  # between-day variance of each day slope
+    target: FloatArray  # delta_j: the step the chart is tuned to (response units per unit x)
+    reference_se: FloatArray  # sd of the reference slopes' estimation error
+    h: FloatArray  # each predictor's decision interval (log-likelihood-ratio units; inf: none)
+    target_arl: float
+    guarantee: float
+    fit_days: int
+    fit_steps: FloatArray = field(repr=False)  # lambda of the fit days (days, k), NaN if unused
+
+    @property
+    def k(self) -> int:
+        return len(self.slopes)
+
+    def variance(self, unit: FloatArray) -> FloatArray:
+        """``v_dj`` for days with unit variances ``unit`` (``(G, k)``)."""
+        return self.inflation * self.sigma_w2 * unit + self.tau2
+
+
+@dataclass(frozen=True)
+class SlopeStep:
+    """One day's step of the within-day slope chart, per predictor (NaN where it did not step)."""
+
+    z: tuple[float, ...]  # standardized deviation of the day's slope
+    step: tuple[float, ...]  # lambda, the day's standardized target step
+    deviation: tuple[float, ...]  # b_dj - beta_j, response units per unit x
+
+
+def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: float,
+                       target_arl: float, guarantee: float, *,
+                       row_scale: float | None = None) -> SlopeChartDesign | None:
+    """The chart of a version fitted on ``days``; None when too few days pin down a slope.
+
+    ``inflation`` holds each predictor's ``c_j`` (:func:`monitor.stats.diagnosis.
+    slope_noise_ratio`, computed on the fit window's rows with the same clipping as
+    :func:`slope_step`), 1 when not known; ``row_scale`` is the robust within-day sd of the
+    rows (the clipping unit of :func:`slope_step`; the classical one when not given).
+    """
+    keep = np.asarray(days.n) > 0
+    k = days.dim - 1
+    fit_days = days.select(keep)
+    found = day_slopes(fit_days.comoment, fit_days.n, np.zeros(k))
+    if int(found.usable.sum()) < 3 or int(np.asarray(fit_days.n).sum()) <= len(fit_days) + k:
+        return None
+    beta, sigma_w2, dof = within_fit(fit_days)
+    if not sigma_w2 > 0:
+        return None
+    c = np.ones(k) if inflation is None or len(np.ravel(inflation)) != k \
+        else np.maximum(np.asarray(inflation, dtype=np.float64).ravel(), MIN_INFLATION)
+    dev = found.deviation[found.usable] - beta
+    unit = found.unit[found.usable]
+    within_var = c * sigma_w2 * unit
+    tau2 = np.array([between_day_variance(dev[:, j], within_var[:, j]) for j in range(k)])
+    v = within_var + tau2
+    # the pooled within estimator's variance under the same model: Σ Sxx_d² v_d / (Σ Sxx_d)²
+    # per predictor, with Sxx_d,jj = 1 / unit (exact for one predictor, the usual
+    # approximation for several)
+    sxx = 1.0 / unit
+    ref_se = np.sqrt(np.sum(sxx**2 * v, axis=0)) / np.sum(sxx, axis=0)
+    target = np.maximum(shift * np.abs(beta), 3.0 * ref_se)
+    steps = target / np.sqrt(v)
+    full_steps = np.full((len(fit_days), k), np.nan)
+    full_steps[found.usable] = steps
+    h = _decision_interval(steps, target, ref_se, tau2, within_var, len(dev), dof, target_arl,
+                           guarantee)
+    scale = row_scale if row_scale is not None and row_scale > 0 else float(np.sqrt(sigma_w2))
+    return SlopeChartDesign(slopes=beta, sigma_w2=sigma_w2, row_scale=scale,
+                            inflation=c, tau2=tau2,
+                            target=target, reference_se=ref_se, h=h,
+                            target_arl=float(target_arl), guarantee=float(guarantee),
+                            fit_days=len(dev), fit_steps=full_steps)
+
+
+def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike) -> SlopeStep | None:
+    """Today's standardized slope deviations and steps from the day's rows ``x`` (``(n, k)``)
+    and ``y``; None when the day gives no slope.
+
+    Each row's residual around the day's own line with the reference slopes (through the day's
+    median level, which one wild row cannot move) is first clipped to
+    ``±ROW_CLIP`` robust sd (winsorized, as in Huber's 1964 M-estimation): one wild row at the
+    edge of the day's range cannot then swing the day's slope on its own. Normal rows are almost
+    never clipped (``2 Φ(-4) = 6e-5``).
+    """
+    xm = np.asarray(x, dtype=np.float64)
+    ym = np.asarray(y, dtype=np.float64).ravel()
+    if len(ym) == 0:
+        return None
+    xm = xm.reshape(len(ym), -1)
+    k = design.k
+    xc = xm - xm.mean(axis=0)
+    fitted = xc @ design.slopes
+    bound = ROW_CLIP * design.row_scale
+    raw = ym - fitted
+    resid = np.clip(raw - np.median(raw), -bound, bound)  # around the day's median level
+    day = Moments.of(np.column_stack([xm, fitted + resid]))
+    found = day_slopes(day.comoment[None, :, :], [day.n], design.slopes)
+    if not found.usable[0]:
+        return None
+    v = design.variance(found.unit)[0]
+    dev = found.deviation[0]
+    lam = design.target / np.sqrt(v)
+    z = dev / np.sqrt(v)
+    live = lam >= MIN_STEP
+    z = np.where(live, z, np.nan)
+    return SlopeStep(tuple(map(float, z)), tuple(float(s) if live[j] else float("nan")
+                                              for j, s in enumerate(lam)),
+                     tuple(float(d) for d in dev[:k]))
+
+
+def advance(upper: tuple[float, ...], lower: tuple[float, ...], step: SlopeStep | None
+            ) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """The chart's sides after a day's step (unchanged on a day without one)."""
+    if step is None:
+        return upper, lower
+    new_up, new_lo = [], []
+    for j, (z, lam) in enumerate(zip(step.z, step.step, strict=True)):
+        up = upper[j] if j < len(upper) else 0.0
+        lo = lower[j] if j < len(lower) else 0.0
+        if np.isfinite(z) and np.isfinite(lam):
+            cap = max(Z_CLIP, lam + 3.0)
+            zc = min(max(z, -cap), cap)
+            up = max(0.0, up + lam * (zc - lam / 2))
+            lo = max(0.0, lo + lam * (-zc - lam / 2))
+        new_up.append(up)
+        new_lo.append(lo)
+    return tuple(new_up), tuple(new_lo)
+
+
+# decision interval -------------------------------------------------------------------------
+def _decision_interval(steps: FloatArray, target: FloatArray, ref_se: FloatArray,
+                       tau2: FloatArray, within_var: FloatArray, days: int, dof: int,
+                       target_arl: float, guarantee: float) -> FloatArray:
+    """Each predictor's ``H`` that keeps its two-sided chart's ARL at ``k`` times
+    ``target_arl`` under the guaranteed estimation errors (see the module text); inf where no
+    ``H`` up to :data:`MAX_H` does (the fit window pins that slope down too loosely)."""
+    k = steps.shape[1]
+    q_ref = float(stats.norm.ppf((1 + guarantee) / 2))
+    hs = []
+    for j in range(k):
+        lam = steps[:, j]
+        # underestimated variances: the within part on dof, tau² on days - 1 df, each at the
+        # guarantee quantile
+        within_hi = float(dof / stats.chi2.ppf(1 - guarantee, dof)) if dof > 0 else 1.0
+        tau_hi = float((days - 1) / stats.chi2.ppf(1 - guarantee, days - 1)) if days > 1 else 1.0
+        v = within_var[:, j] + tau2[j]
+        sd = np.sqrt((within_var[:, j] * within_hi + tau2[j] * tau_hi) / v)
+        shift = q_ref * ref_se[j] / np.sqrt(v)  # the reference's error, in day sd units
+        lam_q, sd_q, shift_q = _representative(lam, sd, shift)
+        hs.append(_solve_h(lam_q, sd_q, shift_q, k * target_arl))
+    return np.array(hs)
+
+
+def _representative(lam: FloatArray, sd: FloatArray, shift: FloatArray
+                    ) -> tuple[FloatArray, FloatArray, FloatArray]:
+    """At most :data:`MIXTURE_DAYS` fit days, equally spaced in the order of their step."""
+    live = lam >= MIN_STEP
+    lam, sd, shift = lam[live], sd[live], shift[live]
+    if len(lam) <= MIXTURE_DAYS:
+        return lam, sd, shift
+    order = np.argsort(lam)
+    pick = order[np.round(np.linspace(0, len(lam) - 1, MIXTURE_DAYS)).astype(int)]
+    return lam[pick], sd[pick], shift[pick]
+
+
+def _solve_h(lam: FloatArray, sd: FloatArray, shift: FloatArray, target_arl: float) -> float:
+    if len(lam) == 0:
+        return float("inf")
+
+    def gap(h: float) -> float:
+        return float(np.log(min(two_sided_arl(lam, sd, shift, h), 1e300)) - np.log(target_arl))
+
+    # without estimation error ARL >= exp(h) for a likelihood-ratio CUSUM (Wald's bound), so
+    # log(target) brackets the answer unless the errors are large
+    lo, hi = 1e-3, float(np.log(target_arl)) + 1.0
+    if gap(lo) >= 0:
+        return lo
+    while gap(hi) < 0:
+        if hi >= MAX_H:
+            return float("inf")
+        lo, hi = hi, min(hi * 2, MAX_H)
+    return float(optimize.brentq(gap, lo, hi, xtol=1e-6))
+
+
+def two_sided_arl(lam: ArrayLike, sd: ArrayLike, shift: ArrayLike, h: float) -> float:
+    """In-control ARL (in chart steps) of the two-sided chart at decision interval ``h``.
+
+    Each step draws a day from the given ones with equal probability; on that day ``z ~ N(shift,
+    sd²)`` (the reference's error and the variance misestimate as given), so the upper side
+    steps by ``N(lam (shift - lam/2), (lam sd)²)`` and the lower side by ``N(lam (-shift -
+    lam/2), (lam sd)²)``. The sides combine as ``1/ARL = 1/ARL+ + 1/ARL-`` (Lucas & Crosier
+    1982).
+    """
+    lam_ = np.asarray(lam, dtype=np.float64)
+    s = np.asarray(sd, dtype=np.float64) * lam_
+    m = np.asarray(shift, dtype=np.float64)
+    up = mixture_arl(lam_ * (m - lam_ / 2), s, h)
+    lo = mixture_arl(lam_ * (-m - lam_ / 2), s, h)
+    with np.errstate(divide="ignore"):
+        return float(1.0 / (1.0 / up + 1.0 / lo)) if min(up, lo) < np.inf else float("inf")
+
+
+def mixture_arl(means: ArrayLike, sds: ArrayLike, h: float, nodes: int | None = None) -> float:
+    """Zero-start ARL of ``S = max(0, S + X)``, signal at ``S > h``, for ``X`` an equal-weight
+    mixture of ``N(means_i, sds_i²)``: Page's integral equation
+    ``L(s) = 1 + L(0) F(-s) + ∫_0^h L(y) f(y - s) dy`` by Nyström's method on Gauss–Legendre
+    nodes (as :func:`monitor.stats.arl.cusum_arl` for one normal)."""
+    mu = np.asarray(means, dtype=np.float64).ravel()
+    sd = np.asarray(sds, dtype=np.float64).ravel()
+    if nodes is None:
+        nodes = int(np.clip(np.ceil((2.0 * h / sd.min() + 8.0) / 8.0) * 8.0, 16, 240))
+    x, w = np.polynomial.legendre.leggauss(nodes)
+    half = 0.5 * h
+    y = half * (x + 1.0)
+    s_points = np.concatenate([[0.0], y])
+    gap = y[None, :] - s_points[:, None]  # y_j - s_i
+    z = (gap[:, :, None] - mu) / sd
+    density = (np.exp(-0.5 * z * z) / (sd * _ROOT_2PI)).mean(axis=2)
+    fall = special.ndtr((-s_points[:, None] - mu) / sd).mean(axis=1)
+    system = np.empty((nodes + 1, nodes + 1))
+    system[:, 0] = -fall
+    system[:, 1:] = -density * (half * w)
+    system[np.arange(nodes + 1), np.arange(nodes + 1)] += 1.0
+    try:
+        arl = float(np.linalg.solve(system, np.ones(nodes + 1))[0])
+    except np.linalg.LinAlgError:
+        return float("inf")
+    return arl if 1.0 <= arl < 1e12 else float("inf")

@@ -1,0 +1,217 @@
+"""The within-day slope chart's pieces against outside references (statsmodels, published ARLs)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+import statsmodels.formula.api as smf
+from statsmodels.stats.meta_analysis import combine_effects
+
+from monitor.stats.arl import cusum_arl
+from monitor.stats.diagnosis import slope_noise_ratio
+from monitor.stats.moments import DayMoments, Moments
+from monitor.stats.within_slope import (
+    SlopeStep,
+    advance,
+    between_day_variance,
+    day_slopes,
+    design_slope_chart,
+    mixture_arl,
+    slope_step,
+    two_sided_arl,
+    within_fit,
+)
+
+
+def _grunfeld() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    # Grunfeld's investment data (Grunfeld 1958; 11 firms x 20 years, shipped with statsmodels):
+    # each firm plays the part of a day, its years the part of the day's rows.
+    d = sm.datasets.grunfeld.load_pandas().data
+    return d["firm"].to_numpy(), d[["value", "capital"]].to_numpy(float), d["invest"].to_numpy()
+
+
+def test_within_fit_is_the_ols_fit_with_one_intercept_per_group() -> None:
+    # Reference: statsmodels OLS of invest on value + capital + C(firm) (the fixed-effects fit);
+    # its slopes and its residual variance (scale, on N - G - k df).
+    firm, x, y = _grunfeld()
+    days = DayMoments.from_rows(firm, np.column_stack([x, y]))
+    beta, sigma_w2, dof = within_fit(days)
+    frame = sm.datasets.grunfeld.load_pandas().data
+    ref = smf.ols("invest ~ value + capital + C(firm)", data=frame).fit()
+    np.testing.assert_allclose(beta, ref.params[["value", "capital"]], rtol=1e-9)
+    assert dof == ref.df_resid
+    np.testing.assert_allclose(sigma_w2, ref.scale, rtol=1e-9)
+
+
+def test_day_slopes_are_each_groups_own_ols_slopes() -> None:
+    # Reference: statsmodels OLS of invest on value + capital fitted to each firm alone; the
+    # deviation is that firm's slope minus the reference, and (Sxx⁻¹)_jj times the firm's own
+    # residual variance is the square of statsmodels' standard error.
+    firm, x, y = _grunfeld()
+    days = DayMoments.from_rows(firm, np.column_stack([x, y]))
+    reference = np.array([0.1, 0.3])
+    found = day_slopes(days.comoment, days.n, reference)
+    assert found.usable.all()
+    for i, name in enumerate(days.days):
+        on = firm == name
+        ref = sm.OLS(y[on], sm.add_constant(x[on])).fit()
+        np.testing.assert_allclose(found.deviation[i], ref.params[1:] - reference, rtol=1e-8,
+                                   atol=1e-12)
+        np.testing.assert_allclose(found.unit[i] * ref.scale, ref.bse[1:] ** 2, rtol=1e-8)
+
+
+def test_slope_noise_ratio_is_the_hc0_over_the_classical_variance_of_statsmodels() -> None:
+    # Reference: statsmodels OLS of invest on value + C(firm) (Grunfeld data), the slope's
+    # variance with cov_type="HC0" (White 1980) over the classical one; without clipping the
+    # ratio is exactly Σ x~² e² / (s² Σ x~²) for x~ centred within firms (Frisch–Waugh–Lovell).
+    frame = sm.datasets.grunfeld.load_pandas().data
+    classical = smf.ols("invest ~ value + C(firm)", data=frame).fit()
+    white = smf.ols("invest ~ value + C(firm)", data=frame).fit(cov_type="HC0")
+    centred = frame["value"] - frame.groupby("firm")["value"].transform("mean")
+    ratio = slope_noise_ratio(centred.to_numpy()[:, None], classical.resid.to_numpy(),
+                              float(classical.scale), np.inf)
+    np.testing.assert_allclose(ratio[0], white.bse["value"] ** 2 / classical.bse["value"] ** 2,
+                               rtol=1e-9)
+
+
+def test_a_day_that_cannot_pin_down_a_slope_is_not_used() -> None:
+    # one row, and two rows with the same x: no slope (common practice, no source)
+    one = Moments.of([[3.0, 7.0]])
+    flat = Moments.of([[3.0, 7.0], [3.0, 9.0]])
+    found = day_slopes(np.stack([one.comoment, flat.comoment]), [1, 2], [1.0])
+    assert not found.usable.any()
+    assert np.isnan(found.deviation).all()
+
+
+def test_between_day_variance_is_dersimonian_laird_of_statsmodels() -> None:
+    # Reference: statsmodels.stats.meta_analysis.combine_effects(method_re="dl"), the
+    # DerSimonian & Laird (1986) estimator, on the firms' own slopes of value with their
+    # classical variances (Grunfeld data).
+    firm, x, y = _grunfeld()
+    days = DayMoments.from_rows(firm, np.column_stack([x[:, :1], y]))
+    found = day_slopes(days.comoment, days.n, [0.0])
+    dev = found.deviation[:, 0]
+    var = []
+    for name in days.days:
+        on = firm == name
+        var.append(sm.OLS(y[on], sm.add_constant(x[on, :1])).fit().bse[1] ** 2)
+    ref = combine_effects(dev, np.array(var), method_re="dl")
+    assert ref.tau2 > 0
+    np.testing.assert_allclose(between_day_variance(dev, np.array(var)), ref.tau2, rtol=1e-9)
+
+
+def test_between_day_variance_is_zero_when_days_agree_more_than_chance() -> None:
+    # Q below its degrees of freedom gives tau² = 0 (DerSimonian & Laird 1986 truncate at 0);
+    # statsmodels reports the untruncated moment value, which is then negative
+    dev = np.array([0.01, -0.01, 0.0, 0.005])
+    var = np.full(4, 1.0)
+    assert between_day_variance(dev, var) == 0.0
+    assert combine_effects(dev, var, method_re="dl").tau2 < 0
+
+
+@pytest.mark.parametrize(("shift", "published"), [(0.0, 124.66), (0.25, 36.71), (0.5, 20.37)])
+def test_mixture_arl_of_one_normal_is_vances_table(shift: float, published: float) -> None:
+    # Vance (1986), Table 1 (with Goel & Wu 1971), one-sided CUSUM, k = 0, h = 10, as quoted in
+    # the R package spc, man/xcusum.arl.Rd (also tests/stats/test_arl.py).
+    arl = mixture_arl([shift], [1.0], 10.0)
+    assert abs(arl - published) <= 0.005 + 1e-9
+
+
+def test_mixture_arl_of_equal_parts_is_the_normal_arl_and_a_mixture_matches_simulation() -> None:
+    # two equal components are one normal: the module's own cusum_arl (checked against published
+    # tables in test_arl.py)
+    assert mixture_arl([-0.5, -0.5], [1.0, 1.0], 4.0) == pytest.approx(
+        cusum_arl(0.5, 4.0, sides=1), rel=1e-9)
+    # a real mixture against a plain simulation of the chart (common practice, no source):
+    # 4000 runs, seed fixed; the ARL's standard error is about ARL/sqrt(4000)
+    means, sds, h = np.array([-1.0, -0.1]), np.array([1.5, 0.5]), 3.0
+    expected = mixture_arl(means, sds, h)
+    rng = np.random.default_rng(7)
+    runs = np.empty(4000)
+    for r in range(len(runs)):
+        s, t = 0.0, 0
+        while True:
+            t += 1
+            part = rng.integers(2)
+            s = max(0.0, s + means[part] + sds[part] * rng.standard_normal())
+            if s > h:
+                break
+        runs[r] = t
+    se = runs.std(ddof=1) / np.sqrt(len(runs))
+    assert abs(runs.mean() - expected) < 3.5 * se
+
+
+def _days(rng: np.random.Generator, count: int, slope: float = 2.0, rows: int = 80,
+          tau: float = 3.0, sigma: float = 5.0) -> list[tuple[np.ndarray, np.ndarray]]:
+    out = []
+    for _ in range(count):
+        x = rng.uniform(4, 30, rows)
+        y = 9 + slope * x + tau * rng.standard_normal() + sigma * rng.standard_normal(rows)
+        out.append((x[:, None], y))
+    return out
+
+
+def _moments(days: list[tuple[np.ndarray, np.ndarray]]) -> DayMoments:
+    labels = np.concatenate([np.full(len(y), np.datetime64("2025-01-01") + d)
+                             for d, (_, y) in enumerate(days)])
+    rows = np.vstack([np.column_stack([x, y]) for x, y in days])
+    return DayMoments.from_rows(labels, rows)
+
+
+def test_the_chart_keeps_its_in_control_run_length_under_the_guarantee() -> None:
+    # In-control ARL >= target for the guaranteed reference error: the Nyström ARL of the
+    # designed chart at its own h equals the target (brentq solution), and at the nominal
+    # (error-free) reference it is longer (common practice, no source: a guarantee is a margin).
+    design = design_slope_chart(_moments(_days(np.random.default_rng(3), 40)), None, 0.10,
+                                2000.0, 0.95)
+    assert design is not None
+    steps = design.fit_steps[:, 0]
+    steps = steps[np.isfinite(steps)]
+    nominal = two_sided_arl(steps, np.ones_like(steps), np.zeros_like(steps), design.h[0])
+    assert nominal > 2000.0
+
+
+def test_a_ten_percent_step_within_days_signals_in_a_few_days_whatever_the_day_shocks() -> None:
+    # Behaviour (common practice, no source): day shocks of any size leave the within-day slope
+    # alone; with 80 rows a day a +10 % slope is caught within 6 days, and 200 in-control days
+    # with huge day shocks never raise the chart.
+    rng = np.random.default_rng(11)
+    design = design_slope_chart(_moments(_days(rng, 60)), None, 0.10, 5000.0, 0.95)
+    assert design is not None
+    up, lo = (0.0,), (0.0,)
+    for x, y in _days(rng, 200, tau=40.0):
+        up, lo = advance(up, lo, slope_step(design, x, y))
+        assert max(up[0], lo[0]) <= design.h[0]
+    up, lo = (0.0,), (0.0,)
+    hit = []
+    for x, y in _days(rng, 6, slope=2.2, tau=40.0):
+        up, lo = advance(up, lo, slope_step(design, x, y))
+        hit.append(up[0] > design.h[0])
+    assert any(hit)
+
+
+def test_one_wild_row_cannot_swing_a_days_slope() -> None:
+    # winsorizing (Huber 1964): a row far off at the edge of the range moves the day's slope no
+    # more than a row 4 robust sd off would, however far it is (common practice, no source)
+    rng = np.random.default_rng(5)
+    design = design_slope_chart(_moments(_days(rng, 30)), None, 0.10, 5000.0, 0.95,
+                                row_scale=5.0)
+    assert design is not None
+    x, y = _days(rng, 1)[0]
+    edge = int(np.argmax(x[:, 0]))
+    wild, wilder = y.copy(), y.copy()
+    wild[edge] += 300.0
+    wilder[edge] += 3000.0
+    base = slope_step(design, x, y)
+    hit = slope_step(design, x, wild)
+    hit_harder = slope_step(design, x, wilder)
+    assert base is not None and hit is not None and hit_harder is not None
+    assert abs(hit.z[0] - base.z[0]) < 2.0
+    assert hit_harder.z[0] == pytest.approx(hit.z[0], abs=0.05)
+
+
+def test_advance_clips_a_wild_day() -> None:
+    # one day at z = 50 moves the chart as far as z = max(4, lambda + 3) would (winsorizing)
+    up, _ = advance((0.0,), (0.0,), SlopeStep(z=(50.0,), step=(0.5,), deviation=(1.0,)))
+    assert up[0] == pytest.approx(0.5 * (4.0 - 0.25))
