@@ -44,6 +44,9 @@ class CheckSettings:
     watch_clear_days: int = 3  # days in a row without a finding before watch returns to ok
     day_effects_alpha: float = 0.05
     min_fit_days: int = 5
+    slope_chart_step: float = 0.10  # the within-day slope chart is tuned to this share of a slope
+    slope_chart_arl_days: float = 5000.0  # its in-control run length (false refits add up)
+    learn_until_days: int = 60  # a version fitted on fewer days learns its level until then
 
 
 @dataclass(frozen=True)
@@ -273,9 +276,14 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
         if not 0.0 < value < 1.0:
             raise ConfigError(f"must lie strictly between 0 and 1; got {value}", source=r.source,
                               key=f"{key}.{name}")
-    if out.cusum_arl_days < 10:
-        raise ConfigError(f"must be at least 10 days; got {out.cusum_arl_days}", source=r.source,
-                          key=f"{key}.cusum_arl_days")
+    for name in ("cusum_arl_days", "slope_chart_arl_days"):
+        if getattr(out, name) < 10:
+            raise ConfigError(f"must be at least 10 days; got {getattr(out, name)}",
+                              source=r.source, key=f"{key}.{name}")
+    if not 0.0 < out.slope_chart_step <= 10.0:
+        raise ConfigError(f"must lie in (0, 10] (a share of the slope); got "
+                          f"{out.slope_chart_step}", source=r.source,
+                          key=f"{key}.slope_chart_step")
     if out.refit_pvalue > out.watch_pvalue:
         raise ConfigError("refit_pvalue must not exceed watch_pvalue (refit is the stronger "
                           "verdict)", source=r.source, key=f"{key}.refit_pvalue")

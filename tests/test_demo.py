@@ -44,17 +44,24 @@ def test_demo_runs_end_to_end_and_finds_the_layout_change(demo: DemoRun) -> None
     assert 0 <= (first_refit.day - scenario.layout_change).days <= 3
     assert "each pallet now adds" in text.lower()
     assert "1 duplicate skipped, 1 rejected" in text  # the faulty export night
-    # the lead refits, compares and promotes; the new version holds until the spread changes
+    # the lead refits after a week: too few held-out days to judge, and the advice says why it
+    # disagrees with the standing refit; a week later the candidate is promoted
+    first, second = result.comparisons[:2]
+    assert first.recommendation.action == "keep"
+    assert first.recommendation.sentence.startswith("The monitor advises a refit (since ")
+    assert second.recommendation.action == "promote"
     promoted = result.promotions[0]
-    assert promoted.active == 2 and result.comparisons[0].recommendation.action == "promote"
+    assert promoted.active == second.candidate.number
+    # fitted on about two weeks, the new version is self-starting: its limit is that of exact
+    # parameters, and it learns its level from its own days; no refit until the spread changes
+    calibration = second.candidate.baseline.calibration
+    assert calibration is not None and calibration.learn_until == 60
+    assert calibration.h == pytest.approx(calibration.h_known)
     between = [c for c in result.checks
                if promoted.effective_day <= c.day < scenario.spread_change]
-    assert len(between) > 14 and all(c.status == "ok" for c in between)
-    # once twice the days exist, status suggests pinning the new line down on all of them
-    sharpened = [c for c in result.comparisons
-                 if "bias chart limit drops" in c.recommendation.sentence]
-    assert sharpened and sharpened[0].candidate.cusum_h < sharpened[0].active.cusum_h / 2
-    assert "would sharpen it" in text
+    assert len(between) > 14 and all(c.status != "refit" for c in between)
+    learned = [c.state.learning.level.n for c in between]
+    assert learned == sorted(learned) and learned[-1] >= 10
     after = [c for c in result.checks if c.day > scenario.spread_change]
     assert after[0].status in ("watch", "refit")  # either level reports the spread change
     # the planning lead was told by e-mail (written as .eml files: no SMTP in the demo)

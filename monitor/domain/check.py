@@ -16,6 +16,7 @@ from monitor.domain.status import Status
 from monitor.stats.change import FTest
 from monitor.stats.cusum import CusumState
 from monitor.stats.decision import Finding
+from monitor.stats.self_start import Learning
 from monitor.stats.spread import SpreadTest
 
 
@@ -43,6 +44,11 @@ class CheckState:
     last_u: float | None = None  # the latest standardized day mean (the chart prewhitens by it)
     day_spread: float | None = None  # this day's log day spread (the robust spread test's unit)
     clean_days: int = 0  # days in a row without a finding, up to this one
+    slope_upper: tuple[float, ...] = ()  # within-day slope chart, one value per predictor
+    slope_lower: tuple[float, ...] = ()
+    slope_onset: date | None = None  # the day the leading slope side last left zero
+    advised_change: date | None = None  # the change day estimated when the standing refit began
+    learning: Learning = field(default_factory=Learning)  # a self-starting version's own days
 
 
 @dataclass(frozen=True)
@@ -86,10 +92,14 @@ class Carry:
         "since" is the restart day at the earliest), and the coverage and test windows count
         only days from ``day``: evidence that was acted upon is not counted twice. Under the
         same version (an acknowledgement) the chart's prewhitening still knows yesterday's day
-        mean; a new version starts without it.
+        mean, and a self-starting version keeps what it learned and learns on; a new version
+        starts without either.
         """
-        last_u = self.state.last_u if same_version else None
-        return Carry(CheckState(fresh_from=day, last_u=last_u), Status.OK, None, ())
+        if not same_version:
+            return Carry(CheckState(fresh_from=day), Status.OK, None, ())
+        learned = Learning(self.state.learning.level)
+        return Carry(CheckState(fresh_from=day, last_u=self.state.last_u, learning=learned),
+                     Status.OK, None, ())
 
 
 @dataclass(frozen=True)
@@ -102,6 +112,18 @@ class SupFSummary:
     q: int
     lambda_bounds: tuple[float, float]
     first_new_day: date | None
+
+
+@dataclass(frozen=True)
+class SlopeChartDay:
+    """The within-day slope chart on one day, per predictor (NaN where the day gave no step)."""
+
+    z: tuple[float, ...]  # the day's standardized slope deviation
+    deviation: tuple[float, ...]  # the day's own slope minus the version's within-day slope
+    value: float  # the leading side's value
+    h: float  # its decision interval
+    predictor: int  # which predictor leads (0-based)
+    upward: bool  # the leading side is the upper one
 
 
 @dataclass(frozen=True)
@@ -118,6 +140,7 @@ class CheckDetails:
     recent_slopes: tuple[float, ...] | None = None
     shift_std: float = float("nan")  # Montgomery's shift estimate, standardized units
     notes: tuple[str, ...] = ()
+    slope_chart: SlopeChartDay | None = None
 
 
 @dataclass(frozen=True)

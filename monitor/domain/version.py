@@ -93,16 +93,20 @@ class ChartCalibration:
     seed: int
     calibrated: bool
     reason: str = ""
+    learn_until: int = 0  # self-starting until this many days (0: a fixed reference)
 
     @classmethod
     def of(cls, c: Calibration) -> ChartCalibration:
         return cls(k=c.k, target_arl=c.target_arl, guarantee=c.guarantee, h=c.h,
                    h_known=c.h_known, arl_known=c.arl_known, draws=c.draws, seed=c.seed,
-                   calibrated=c.calibrated, reason=c.reason)
+                   calibrated=c.calibrated, reason=c.reason, learn_until=c.learn_until)
 
-    def matches(self, k: float, target_arl: float, guarantee: float) -> bool:
-        """Whether this calibration was made for these settings."""
-        return (self.k, self.target_arl, self.guarantee) == (k, target_arl, guarantee)
+    def matches(self, k: float, target_arl: float, guarantee: float,
+                learn_until: int = 0) -> bool:
+        """Whether this calibration was made for these settings (``learn_until``: the
+        self-starting length the chart should have, 0 for a fixed reference)."""
+        return ((self.k, self.target_arl, self.guarantee, self.learn_until)
+                == (k, target_arl, guarantee, learn_until))
 
 
 @dataclass(frozen=True, eq=False)

@@ -60,7 +60,8 @@ class VersionView:
                       "guarantee": cal.guarantee if cal else None,
                       "h_known": cal.h_known if cal else None,
                       "arl_known": cal.arl_known if cal else None,
-                      "calibrated": cal.calibrated if cal else None},
+                      "calibrated": cal.calibrated if cal else None,
+                      "learn_until_days": cal.learn_until if cal else None},
             "fit_window_findings": [
                 {"topic": f.topic, "found": f.found, "text": f.text}
                 for f in self.findings()],
@@ -95,8 +96,15 @@ class VersionView:
                          f"{fmt(base.sigma_w2 ** 0.5, 3)}")
         cal = base.calibration
         if cal is not None:
-            promise = (f"held with probability {fmt(cal.guarantee, 2)}" if cal.calibrated
-                       else f"with the fitted values taken as exact: {cal.reason}")
+            if cal.learn_until:
+                promise = (f"self-starting: fitted on fewer than {cal.learn_until} days, the "
+                           "version learns its level from its own in-control days until it "
+                           f"counts {cal.learn_until}, so this limit holds exactly meanwhile; "
+                           "the first refit stops the learning")
+            elif cal.calibrated:
+                promise = f"held with probability {fmt(cal.guarantee, 2)}"
+            else:
+                promise = f"with the fitted values taken as exact: {cal.reason}"
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
                          f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
         found = [f for f in self.findings() if f.found]

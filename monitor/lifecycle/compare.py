@@ -32,6 +32,7 @@ from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, l
 from monitor.stats.ols import fit_ols
 from monitor.stats.prediction import PredictionModel
 from monitor.store.access import database
+from monitor.store.checks import last_check
 from monitor.store.models import get_model
 from monitor.store.observations import Observations, days_with_rows, load_observations
 from monitor.store.versions import active_version, get_version, list_versions
@@ -124,8 +125,32 @@ def _compare(conn: Connection, model: ModelRecord, active: Version,
     loss = loss_difference_test(rows.days, rows.y - active_model.predict(rows.x),
                                 rows.y - candidate_model.predict(rows.x))
     advice = _recommend(model, active, candidate, a, c, loss, ms, unit)
+    if advice.action == KEEP:
+        advice = _against_standing_refit(conn, model, candidate, holdout, advice)
     return Comparison(model, active, candidate, holdout, "refitted" if refit_needed else "stored",
                       window, a, c, loss, advice, unit)
+
+
+def _against_standing_refit(conn: Connection, model: ModelRecord, candidate: Version,
+                            holdout: tuple[date, date], advice: Recommendation) -> Recommendation:
+    """A ``keep`` while the monitor still advises a refit says, in the same sentence, why the
+    two disagree and what to do."""
+    last = last_check(conn, model.id, model=model.name)
+    if last is None or last.status != "refit":
+        return advice
+    since = last.status_since.isoformat() if last.status_since else "—"
+    change = last.change_day
+    if change is not None and candidate.fit_start is not None and candidate.fit_start < change:
+        why = (f"the candidate's window starts on {candidate.fit_start.isoformat()}, before the "
+               f"estimated change of {change.isoformat()}, so it mixes both regimes; refit "
+               f"with --start {change.isoformat()} and compare again")
+    else:
+        why = (f"the held-out days ({holdout[0].isoformat()} to {holdout[1].isoformat()}) are "
+               "too few to show a change that the daily charts have seen; wait a few days and "
+               "compare again, or acknowledge the advice if the active version serves well")
+    return Recommendation(
+        KEEP, f"The monitor advises a refit (since {since}), yet: {advice.sentence[:-1]}; "
+        f"the two disagree because {why}.", advice.command)
 
 
 def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSettings) -> str:
@@ -151,6 +176,9 @@ def sharper(active: Version, candidate: Version) -> bool:
     """The candidate's bias chart limit is clearly tighter (it was fitted on more days)."""
     if active.cusum_h is None or candidate.cusum_h is None:
         return False
+    if any(c is not None and c.learn_until for c in
+           (active.baseline.calibration, candidate.baseline.calibration)):
+        return False  # a self-starting chart's limit is not tightened by a longer window
     return candidate.cusum_h < SHARPER_RATIO * active.cusum_h
 
 

@@ -29,7 +29,7 @@ from monitor.domain.version import (
 )
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
-from monitor.stats.calibration import Calibration, ChartDesign, Persistence, calibrate_h
+from monitor.stats.calibration import Calibration, calibrate_chart, chart_design
 from monitor.stats.coverage import miss_dispersion
 from monitor.stats.day_effects import DayEffects, day_effects_of_fit
 from monitor.stats.diagnosis import FitDiagnosis, diagnose
@@ -91,9 +91,9 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
     misses = DayMoments.from_rows(days, (~scores.inside).astype(np.float64)[:, None])
     dispersion = miss_dispersion(misses.n, misses.mean[:, 0] * misses.n)
     diagnosis = diagnose_window(fit, table, days, x, y, effects, float(scores.inside.mean()))
-    design = ChartDesign.from_fit(fit, table, effects, Persistence.of(diagnosis))
-    calibration = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
-                              guarantee=settings.guarantee)
+    design = chart_design(fit, table, effects, diagnosis)
+    calibration = calibrate_chart(design, settings.cusum_k, settings.cusum_arl_days,
+                                  settings.guarantee, settings.learn_until_days)
     first = as_date(table.days[0])
     last = as_date(table.days[-1])
     return FittedVersion(fit, effects, dispersion, calibration, table, first, last, diagnosis)

@@ -14,19 +14,24 @@ import numpy as np
 from scipy import stats
 
 from monitor.config import CheckSettings
+from monitor.domain.check import CheckState
 from monitor.domain.version import Version, VersionDraft
 from monitor.stats.calibration import (
     ChartDesign,
-    Persistence,
-    calibrate_h,
+    calibrate_chart,
+    chart_design,
+    frozen_limit,
     shock_persistence,
 )
+from monitor.stats.day_effects import day_residuals
 from monitor.stats.diagnosis import MAX_PERSISTENCE
 from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.persistent_misses import PersistentMissLaw
 from monitor.stats.prediction import PredictionModel
+from monitor.stats.self_start import level_of
+from monitor.stats.within_slope import SlopeChartDesign, design_slope_chart
 
 
 @dataclass(frozen=True, eq=False)
@@ -44,10 +49,29 @@ class VersionContext:
     dispersion: float
     misses: PersistentMissLaw  # the in-control law of interval misses under day effects
     first_recent_day: date  # the recent window never reaches into the fit window
+    slope_chart: SlopeChartDesign | None = None  # within-day slopes (None: fit window unknown)
+    rhythm: tuple[float, ...] | None = None  # Mon..Sun offsets the bias chart subtracts
+    learn_base: Moments | None = None  # self-starting: the fit window's day mean residuals
+    learn_until: int = 0  # self-starting: learn until the level counts this many days
+    k: float = 0.5
+    target_arl: float = 1000.0
+    guarantee: float = 0.95
 
     @property
     def reference(self) -> Moments:
         return self.reference_days.total()
+
+    def limit(self, state: CheckState) -> float:
+        """The bias chart's limit on a day that starts from ``state``: ``h``, except for a
+        self-starting version that has learned its whole window, whose level is from then on
+        an estimate from a fixed number of days (:func:`monitor.stats.calibration.
+        frozen_limit`)."""
+        if self.learn_base is None:
+            return self.h
+        days = self.learn_base.n + state.learning.level.n
+        if days < self.learn_until:  # learning, or paused by a refit that stands
+            return self.h
+        return frozen_limit(self.k, self.target_arl, self.guarantee, days)
 
     @classmethod
     def build(cls, version: Version, settings: CheckSettings) -> VersionContext:
@@ -57,18 +81,27 @@ class VersionContext:
         if base.reference is not None and effects is not None:
             reference = base.reference
             fit = fit_moments(reference.total(), version.terms[1:])
-            design = ChartDesign.from_fit(fit, reference, effects,
-                                          Persistence.of(base.diagnosis))
+            design = chart_design(fit, reference, effects, base.diagnosis)
         else:
             reference = DayMoments.empty(version.k + 1)
             design = imported_design(version)
+        learns = (base.reference is not None and settings.cusum_unit == "day"
+                  and design.n_days < settings.learn_until_days)
+        learn_until = settings.learn_until_days if learns else 0
         stored = base.calibration
         if stored is not None and stored.matches(settings.cusum_k, settings.cusum_arl_days,
-                                                 settings.guarantee):
+                                                 settings.guarantee, learn_until):
             h = stored.h
         else:
-            h = calibrate_h(design, k=settings.cusum_k, target_arl=settings.cusum_arl_days,
-                            guarantee=settings.guarantee).h
+            h = calibrate_chart(design, settings.cusum_k, settings.cusum_arl_days,
+                                settings.guarantee, learn_until).h
+        # a self-starting version learns the level with any rhythm in it: offsets estimated
+        # on its short window would take most of the day-to-day spread away with them
+        rhythm = base.diagnosis.rhythm() if base.diagnosis is not None and not learns else None
+        learn_base = None
+        if learns:
+            days = day_residuals(reference, version.coefficients)
+            learn_base = level_of(days.means[days.counts > 0])
         first_recent = (version.fit_end + timedelta(days=1) if version.fit_end
                         else version.active_from)
         assert first_recent is not None
@@ -88,6 +121,13 @@ class VersionContext:
             misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
                                            1.0 / np.sqrt(2.0 * version.line.dof),
                                            settings.guarantee)
+        slope_chart = None
+        if base.reference is not None:
+            d = base.diagnosis
+            slope_chart = design_slope_chart(
+                reference, (d.slope_noise_ratio or None) if d else None,
+                settings.slope_chart_step, settings.slope_chart_arl_days, settings.guarantee,
+                row_scale=d.robust_sd if d else None)
         return cls(version=version, model=model, reference_days=reference,
                    design=design, h=float(h),
                    day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
@@ -95,7 +135,9 @@ class VersionContext:
                    within_df=effects.df_within if effects else None,
                    dispersion=base.dispersion or 1.0,
                    misses=PersistentMissLaw(misses, phi_a),
-                   first_recent_day=first_recent)
+                   first_recent_day=first_recent, slope_chart=slope_chart, rhythm=rhythm,
+                   learn_base=learn_base, learn_until=learn_until, k=settings.cusum_k,
+                   target_arl=settings.cusum_arl_days, guarantee=settings.guarantee)
 
 
 def _guarded_persistence(design: ChartDesign, guarantee: float) -> float:

@@ -23,6 +23,7 @@ from monitor.domain.check import (
     CoverageDay,
     DayCheck,
     SideRun,
+    SlopeChartDay,
     SupFSummary,
 )
 from monitor.domain.days import as_date
@@ -48,7 +49,9 @@ from monitor.stats.decision import Evidence, Policy, Verdict, decide
 from monitor.stats.diagnosis import day_spread, robust_spread_test
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
+from monitor.stats.self_start import learned, q_value
 from monitor.stats.spread import SpreadTest, spread_test
+from monitor.stats.within_slope import advance, slope_step
 
 FloatArray = NDArray[np.float64]
 MIN_SPREAD_DAYS = 5  # fit days with a day spread below which the classical spread test is kept
@@ -97,7 +100,9 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
            if w_rows else None)
     carry = replace(carry, coverage_days=carried,
                     state=replace(carry.state, day_spread=today.spread))
+    h = ctx.limit(carry.state)
     cusum_u, carry = _step_cusum(ctx, carry, data, residuals, settings)
+    slope_chart, carry = _step_slope_chart(ctx, carry, data)
     state = carry.state.cusum
     lead = _Leading.of(carry.state, settings.cusum_k)
 
@@ -111,9 +116,10 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     evidence = Evidence(
         coverage_pvalue_low=cov.pvalue_low if cov else float("nan"),
         coverage_pvalue_high=cov.pvalue_high if cov else float("nan"),
-        cusum_upper=state.upper, cusum_lower=state.lower, cusum_h=ctx.h,
+        cusum_upper=state.upper, cusum_lower=state.lower, cusum_h=h,
         slope_pvalue=slope.pvalue if slope else float("nan"),
         spread_pvalue=spread.pvalue if spread else float("nan"),
+        slope_chart_ratio=slope_chart.value / slope_chart.h if slope_chart else float("nan"),
     )
     policy = Policy(settings.refit_pvalue, settings.watch_pvalue, settings.watch_cusum_fraction)
     verdict = decide(evidence, policy, refit_held=carry.status == Status.REFIT)
@@ -123,14 +129,27 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     if watch_held:
         verdict = replace(verdict, status=Status.WATCH)
     carry = replace(carry, state=replace(carry.state, clean_days=clean))
+    if settings.cusum_unit == "day":
+        carry = _learn(ctx, carry, data, residuals, verdict, settings.watch_cusum_fraction)
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
     bias_units, bias_from = lead.shift_units, lead.onset
-    if verdict.findings:
+    advised = carry.state.advised_change if verdict.held else None
+    onset = carry.state.slope_onset if any(f.kind == "within" for f in verdict.findings) \
+        else None
+    if onset is not None and (advised is None or onset >= advised):
+        # the within-day slope chart leads: its run's start is the change day (Page's
+        # estimate: the last day the chart stood at zero, Page 1954), and day shocks do not
+        # blur it as they blur a location found from day-level fits
+        change_day, since_change = onset, _days_from(data.history_days, onset)
+    elif verdict.findings or verdict.held:
         with _quiet() as more_notes:
-            change_day, since_change = _since_change(ctx, data.history_days)
+            change_day, since_change = _since_change(ctx, data.history_days, advised)
         notes.extend(more_notes)
+    if verdict.status == Status.REFIT:
+        advised = advised or change_day or carry.state.slope_onset or lead.onset
+    carry = replace(carry, state=replace(carry.state, advised_change=advised))
     if since_change is not None:
         bias_units = float(day_residuals(since_change, ctx.version.coefficients).means[0])
         bias_from = change_day
@@ -142,11 +161,12 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         else data.day
     figures = Figures(
         day=data.day, level=level, n=n, covered=covered, window_days=window,
-        window=cov, cusum_shift=bias_units, cusum_onset=bias_from, h=ctx.h,
+        window=cov, cusum_shift=bias_units, cusum_onset=bias_from, h=h,
         cusum_value=lead.value, change_day=change_day,
         old_slopes=ctx.version.coefficients[1:], new_slopes=recent_fit,
         predictors=ctx.version.terms[1:], slope=slope, spread=spread, since=since,
-        held_since=carry.status_since if verdict.held else None,
+        held_since=carry.status_since if verdict.held else None, slope_chart=slope_chart,
+        slope_onset=carry.state.slope_onset,
     )
     reasons = reasons_for(verdict, figures, words, response)
     if watch_held:
@@ -164,8 +184,8 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         coverage_p_low=cov.pvalue_low if cov else None,
         coverage_p_high=cov.pvalue_high if cov else None,
         cusum_u=cusum_u, cusum_upper=state.upper, cusum_lower=state.lower,
-        cusum_upper_run=state.upper_run, cusum_lower_run=state.lower_run, cusum_h=ctx.h,
-        cusum_signal=state.upper > ctx.h or state.lower > ctx.h,
+        cusum_upper_run=state.upper_run, cusum_lower_run=state.lower_run, cusum_h=h,
+        cusum_signal=state.upper > h or state.lower > h,
         cusum_onset=lead.onset if lead.run else None,
         cusum_shift=lead.shift_units if lead.run else None,
         slope_statistic=slope.statistic if slope else None,
@@ -180,7 +200,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         spread_pvalue=spread.pvalue if spread else None,
         status=verdict.status, status_since=since, reasons=tuple(reasons),
         details=_details(verdict, slope, classic, predictive, supf, spread, lead.shift_std,
-                         recent_fit, notes),
+                         recent_fit, notes, slope_chart),
         state=carry.state, checked_at=now, model=model_name,
     )
     return check, carry
@@ -218,11 +238,16 @@ def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: Fl
     if settings.cusum_unit == "observation":
         u = standardize_days(residuals, np.ones(n), data.x, ctx.design)
     else:
-        day_u = standardize_days([residuals.mean()], [n], data.x.mean(axis=0)[None, :],
-                                 ctx.design)
-        last_u = float(day_u[0])
+        offset = ctx.rhythm[data.day.weekday()] if ctx.rhythm else 0.0
+        level = _self_starting_level(ctx, before)
+        q = q_value(level, float(residuals.mean()) - offset) if level is not None else None
+        if q is not None:  # a self-starting version: the day against all it knows so far
+            last_u = q
+        else:
+            last_u = float(standardize_days([residuals.mean() - offset], [n],
+                                            data.x.mean(axis=0)[None, :], ctx.design)[0])
         u = np.array([prewhiten(last_u, before.last_u, ctx.design.phi)])
-    path = tabular_cusum(u, settings.cusum_k, ctx.h, before.cusum)
+    path = tabular_cusum(u, settings.cusum_k, ctx.limit(before), before.cusum)
     after = path.state
     total, steps = float(residuals.sum()), len(u)
     upper = _run_update(before.upper, before.cusum.upper_run, after.upper_run, steps, data.day,
@@ -231,6 +256,65 @@ def _step_cusum(ctx: VersionContext, carry: Carry, data: DayInput, residuals: Fl
                         total, n)
     state = replace(before, cusum=after, upper=upper, lower=lower, last_u=last_u)
     return float(u[-1]) if len(u) == 1 else float(np.mean(u)), replace(carry, state=state)
+
+
+def _self_starting_level(ctx: VersionContext, state: CheckState) -> Moments | None:
+    """The level a self-starting version knows: its fit window's days and those it learned."""
+    if ctx.learn_base is None:
+        return None
+    return ctx.learn_base.merge(state.learning.level)
+
+
+def _learn(ctx: VersionContext, carry: Carry, data: DayInput, residuals: FloatArray,
+           verdict: Verdict, watch_fraction: float) -> Carry:
+    """A self-starting version learns today's level when the day had rows and its bias chart
+    stands below the watch line (a sign of change pauses the learning, so a change is not
+    learned); a ``refit`` stops it for good (until a restart), and so does reaching
+    ``learn_until`` days."""
+    learning = carry.state.learning
+    if ctx.learn_base is None or learning.stopped or len(residuals) == 0:
+        return carry
+    chart = carry.state.cusum
+    if verdict.status == Status.REFIT:
+        learning = replace(learning, stopped=True)
+    elif max(chart.upper, chart.lower) > watch_fraction * ctx.h:
+        return carry
+    elif ctx.learn_base.n + learning.level.n < ctx.learn_until:
+        offset = ctx.rhythm[data.day.weekday()] if ctx.rhythm else 0.0
+        learning = replace(learning, level=learned(learning.level,
+                                                   float(residuals.mean()) - offset))
+    else:
+        return carry
+    return replace(carry, state=replace(carry.state, learning=learning))
+
+
+def _step_slope_chart(ctx: VersionContext, carry: Carry, data: DayInput
+                      ) -> tuple[SlopeChartDay | None, Carry]:
+    """Move the within-day slope chart by this day's own slopes (a day without a usable slope
+    leaves it where it stands); the leading side over its limit, and its onset day."""
+    design = ctx.slope_chart
+    if design is None:
+        return None, carry
+    k = design.k
+    before = carry.state
+    up0 = before.slope_upper if len(before.slope_upper) == k else (0.0,) * k
+    lo0 = before.slope_lower if len(before.slope_lower) == k else (0.0,) * k
+    step = slope_step(design, data.x, data.y)
+    up, lo = advance(up0, lo0, step)
+    h = np.asarray(design.h)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratios = np.where(np.isfinite(h), np.column_stack([up, lo]) / h[:, None], 0.0)
+    j, side = np.unravel_index(int(np.argmax(ratios)), ratios.shape)
+    value = (up, lo)[side][j]
+    was = (up0, lo0)[side][j]
+    onset = (None if value <= 0 else before.slope_onset if was > 0 and before.slope_onset
+             else data.day)
+    state = replace(before, slope_upper=up, slope_lower=lo, slope_onset=onset)
+    nan = (float("nan"),) * k
+    day = SlopeChartDay(z=step.z if step else nan, deviation=step.deviation if step else nan,
+                        value=float(value), h=float(h[j]), predictor=int(j),
+                        upward=bool(side == 0))
+    return day, replace(carry, state=state)
 
 
 def _run_update(run: SideRun, before: int, after: int, steps: int, day: date, total: float,
@@ -273,26 +357,42 @@ def _change_tests(ctx: VersionContext, recent: DayMoments
     return decision, chow, classic, predictive, supf, _slopes(total)
 
 
-def _since_change(ctx: VersionContext, history: DayMoments
+def _since_change(ctx: VersionContext, history: DayMoments, not_before: date | None = None
                   ) -> tuple[date | None, DayMoments | None]:
     """The most likely single change day since monitoring began, and the days since it.
 
     The location of the largest Chow F over every day boundary from the end of the fit window
     to the last day (the sup-F location without trimming; Quandt 1960), computed from day
-    statistics. Only a location: whether there is a change is for the signals to say.
+    statistics. Only a location: whether there is a change is for the signals to say. Once a
+    refit stands, the day estimated when it was advised (``not_before``) is only refined
+    forward by later days, never moved back into the old regime: a sup-F location from a longer
+    sample tends to wander early when the old regime's days are many.
     """
     present = history.select(np.asarray(history.n) > 0)
     if len(present) < 2:
         return None, None
     sample = ctx.reference_days.then(present)
     first = max(len(ctx.reference_days) - 1, 0)
+    if not_before is not None:
+        boundary = int(np.searchsorted(np.asarray(sample.days), np.datetime64(not_before, "D")))
+        first = max(first, boundary - 1)  # the first new day is not_before at the earliest
+        if first >= len(sample) - 1:
+            return not_before, None
     candidates = np.arange(first, len(sample) - 1)
     result = sup_f_test(sample, candidates)
     if result.location is None:
         return None, None
-    after = present.select(np.asarray(present.days) > np.asarray(result.last_day))
-    merged = DayMoments.stack([after.days[0]], [after.total()], after.dim)
-    return as_date(result.first_new_day), merged
+    first_new = as_date(result.first_new_day)
+    return first_new, _days_from(present, first_new)
+
+
+def _days_from(history: DayMoments, first: date) -> DayMoments | None:
+    """The days with rows from ``first`` on, merged into one (None when there are none)."""
+    after = history.select((np.asarray(history.n) > 0)
+                           & (np.asarray(history.days) >= np.datetime64(first, "D")))
+    if len(after) == 0:
+        return None
+    return DayMoments.stack([after.days[0]], [after.total()], after.dim)
 
 
 def _slopes(window: Moments) -> FloatArray | None:
@@ -334,7 +434,8 @@ def _wider_than_needed(ctx: VersionContext, coverage: float, window: int) -> str
 
 def _details(verdict: Verdict, slope: FTest | None, classic: FTest | None,
              predictive: FTest | None, supf: SupF | None, spread: SpreadTest | None,
-             shift_std: float, recent_fit: FloatArray | None, notes: list[str]) -> CheckDetails:
+             shift_std: float, recent_fit: FloatArray | None, notes: list[str],
+             slope_chart: SlopeChartDay | None) -> CheckDetails:
     summary = None if supf is None else SupFSummary(
         statistic=supf.statistic, pvalue=supf.pvalue, bound=supf.pvalue_bound, q=supf.q,
         lambda_bounds=(float(supf.lambda_bounds[0]), float(supf.lambda_bounds[1])),
@@ -343,7 +444,7 @@ def _details(verdict: Verdict, slope: FTest | None, classic: FTest | None,
         findings=verdict.findings, held=verdict.held, slope_decision=slope,
         slope_classic=classic, predictive_failure=predictive, supf=summary, spread=spread,
         recent_slopes=None if recent_fit is None else tuple(map(float, recent_fit)),
-        shift_std=shift_std, notes=tuple(notes))
+        shift_std=shift_std, notes=tuple(notes), slope_chart=slope_chart)
 
 
 __all__ = ["DayInput", "VersionContext", "evaluate_day"]

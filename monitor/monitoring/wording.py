@@ -10,6 +10,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from monitor.config import Wording
+from monitor.domain.check import SlopeChartDay
 from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
@@ -40,6 +41,8 @@ class Figures:
     spread: SpreadTest | None
     since: date
     held_since: date | None
+    slope_chart: SlopeChartDay | None = None
+    slope_onset: date | None = None  # the within-day slope chart's run began on this day
 
 
 def _amount(value: float, words: Wording, response: str) -> str:
@@ -83,24 +86,31 @@ def _bias(finding: Finding, f: Figures, words: Wording, response: str) -> str:
             f"{fmt(f.h, 2)}")
 
 
-def _slopes(f: Figures, words: Wording, response: str) -> str:
+def _slopes(finding: Finding, f: Figures, words: Wording, response: str) -> str:
     test = f"slope test {fmt_p(f.slope.pvalue if f.slope else None)}"
+    change_day = f.change_day
+    if finding.kind == "within" and f.slope_chart is not None:
+        c = f.slope_chart
+        where = "over" if finding.level == "refit" else "nearing"
+        test = (f"the rows of each day, compared within the day, show it: the within-day slope "
+                f"chart stands at {fmt(c.value, 2)}, {where} its limit of {fmt(c.h, 2)}")
+        change_day = change_day or f.slope_onset
     if f.new_slopes is None:
-        return f"the slope has changed{_about(f.change_day)} ({test})"
+        return f"the slope has changed{_about(change_day)} ({test})"
     parts = []
     for name, old, new in zip(f.predictors, f.old_slopes, f.new_slopes, strict=True):
         change = (new - old) / abs(old) if old else math.nan
         pct = f" ({change * 100:+.0f} %)" if math.isfinite(change) else ""
         adds = f"{fmt(new, 3)} {words.y_unit}" if words.y_unit else f"{fmt(new, 3)} to {response}"
         parts.append(f"each {words.x_unit(name)} now adds {adds} instead of {fmt(old, 3)}{pct}")
-    return "; ".join(parts) + f"{_about(f.change_day)} ({test})"
+    return "; ".join(parts) + f"{_about(change_day)} ({test})"
 
 
 def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str:
     if finding.signal == "bias":
         return _bias(finding, f, words, response)
     if finding.signal == "slope":
-        return _slopes(f, words, response)
+        return _slopes(finding, f, words, response)
     if finding.signal == "coverage" and f.window is not None:
         if finding.kind == "low":
             return (f"intervals cover too rarely: {_window(f, words)}, "
@@ -170,9 +180,13 @@ def window_findings(d: FitDiagnosis, words: Wording, response: str,
                  f"{'above' if v > 0 else 'below'} plan"
                  for _, i, v in sorted(effects, reverse=True)[:2]]
         out.append(WindowFinding("weekday", True, (
-            "; ".join(parts) + f" (weekday test {fmt_p(wd.pvalue)}): the monitor counts this "
-            "rhythm as day-to-day variation, which widens its limits and slows detection; "
-            "consider a weekday predictor")))
+            "; ".join(parts) + f" (weekday test {fmt_p(wd.pvalue)}): " + (
+                "the bias chart measures each day against its weekday's usual level, so this "
+                "rhythm is not taken for a change; planned times still miss it, so consider a "
+                "weekday predictor" if d.rhythm(WINDOW_ALPHA) is not None else
+                "the monitor counts this rhythm as day-to-day variation, which widens its "
+                "limits and slows detection (refit to have it measured against); consider a "
+                "weekday predictor"))))
     else:
         out.append(WindowFinding("weekday", False,
                                  f"no weekday rhythm in the day residuals ({fmt_p(wd.pvalue)})"))
@@ -187,7 +201,7 @@ def window_findings(d: FitDiagnosis, words: Wording, response: str,
         out.append(WindowFinding("spread_with_x", False,
                                  f"the scatter does not change with the predictors "
                                  f"({fmt_p(sx.pvalue)})"))
-    if d.tail_pvalue < WINDOW_ALPHA:
+    if d.heavy_tails:
         out.append(WindowFinding("tails", True, (
             f"{percent(d.tail_share, 2)} of {words.rows} lie beyond 4 typical deviations "
             f"(normal scatter: 0.01 %); without them the within-day scatter is "

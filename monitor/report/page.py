@@ -24,6 +24,7 @@ from monitor.domain.phrasing import fmt
 from monitor.domain.version import Version, VersionState
 from monitor.errors import InputError
 from monitor.interface.output import to_jsonable
+from monitor.monitoring.wording import WindowFinding, window_findings
 from monitor.report import charts
 from monitor.report.series import (
     CoverageSeries,
@@ -182,6 +183,16 @@ def _version_view(version: Version | None) -> dict[str, Any] | None:
     }
 
 
+def _window_findings(data: ReportData) -> list[WindowFinding]:
+    """The active version's fit-window findings, those found first (as ``model show``)."""
+    active = data.active
+    if active is None or active.baseline.diagnosis is None:
+        return []
+    found = window_findings(active.baseline.diagnosis, data.settings.words,
+                            data.model.response, data.model.predictors)
+    return sorted(found, key=lambda f: not f.found)
+
+
 def _comparison(active: Version | None,
                 candidate: Version | None) -> list[dict[str, str]]:
     if active is None or candidate is None:
@@ -215,6 +226,7 @@ def render_page(data: ReportData, written_at: datetime) -> str:
         "checked_days": len(data.checks),
         "window": window, "recent_from": data.scatter.recent_from,
         "active": _version_view(data.active),
+        "window_findings": _window_findings(data),
         "candidate": _version_view(data.candidate),
         "comparison": _comparison(data.active, data.candidate),
         "scatter_note": data.scatter.note,

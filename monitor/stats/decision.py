@@ -1,8 +1,9 @@
 """The decision: one day's evidence in, ``ok`` / ``watch`` / ``refit`` with its findings out.
 
-Default policy (SPEC §3.11): ``refit`` when the bias CUSUM signals, or the slope test has
-p < 0.001, or coverage is low at p < 0.001; ``watch`` when any signal has p < 0.01 or the
-CUSUM stands above h/2; otherwise ``ok``. Intervals that cover more often than the fit window's
+Default policy (SPEC §3.11): ``refit`` when the bias CUSUM or the within-day slope chart
+signals, or the slope test has p < 0.001, or coverage is low at p < 0.001; ``watch`` when any
+signal has p below the watch level or a chart stands above its watch fraction of the limit;
+otherwise ``ok``. Intervals that cover more often than the fit window's
 law expects are reported by the caller, not raised to ``watch``: on heavy-tailed or outlying
 rows the classical intervals are wide for the other rows, which is no change of the process.
 A ``refit`` holds until a promotion or an acknowledgement (the caller says whether one is
@@ -42,6 +43,7 @@ class Evidence:
     cusum_h: float
     slope_pvalue: float
     spread_pvalue: float
+    slope_chart_ratio: float = float("nan")  # within-day slope chart over its limit (leading)
 
 
 @dataclass(frozen=True)
@@ -80,6 +82,15 @@ def decide(evidence: Evidence, policy: Policy = Policy(), *, refit_held: bool = 
         side = "upper" if e.cusum_upper >= e.cusum_lower else "lower"
         found.append(Finding("bias", Status.WATCH, side))
     by_p("slope", "changed", e.slope_pvalue, refit_allowed=True)
+    chart = e.slope_chart_ratio
+    level = (Status.REFIT if chart > 1 else Status.WATCH if chart > policy.watch_cusum_fraction
+             else None)
+    if level is not None:  # the within-day chart speaks when it is the stronger slope evidence
+        test = next((f for f in found if f.signal == "slope"), None)
+        if test is None or level.rank > test.level.rank:
+            if test is not None:
+                found.remove(test)
+            found.append(Finding("slope", level, "within"))
     by_p("coverage", "low", e.coverage_pvalue_low, refit_allowed=True)
     by_p("spread", "wider", e.spread_pvalue, refit_allowed=False)
 

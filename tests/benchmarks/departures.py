@@ -54,6 +54,7 @@ class Case:
     x_shift_per_100_days: float = 0.0  # how far the day's pallet range moves up
     two_predictors: bool = False  # a second predictor: mixed pallets
     slope_sd: float = 0.0  # sd of the day's own pallet slope around B1 (minutes per pallet)
+    fit_days: int = FIT_DAYS  # the version is fitted on the last this many days before day 60
 
     @property
     def predictors(self) -> tuple[str, ...]:
@@ -82,6 +83,8 @@ CASES: dict[str, Case] = {c.name: c for c in (
     Case("two_predictors", "pallets and mixed pallets", two_predictors=True),
     Case("random_slope", "each day its own pallet slope, sd 0.1 min/pallet", slope_sd=0.1),
     Case("combined", "AR(1) 0.5 + t4 rows + weekly rhythm", phi=0.5, t_df=4.0, weekly=True),
+    Case("short_fit", "fitted on 14 days only, as a candidate promoted soon after a change",
+         fit_days=14),
 )}
 
 
@@ -130,6 +133,11 @@ class Sample:
     def day_index(self) -> np.ndarray:
         """Each row's day, counted from the first day of the fit window (0)."""
         return (self.days - np.datetime64(START, "D")).astype(np.int64)
+
+    def from_day(self, index: int) -> Sample:
+        """The rows from absolute day ``index`` on (0 = the first day of the 60 days)."""
+        keep = self.day_index >= index
+        return Sample(self.days[keep], self.x[keep], self.y[keep])
 
     def through(self, monitored_days: int) -> Sample:
         """The rows of the fit window and the first ``monitored_days`` monitored days."""

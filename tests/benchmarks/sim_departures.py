@@ -119,6 +119,7 @@ def run_job(job: Job) -> Walked:
     case = CASES[job.case]
     after = max((c.after for c in job.changes), default=0)
     world = simulate(case, job.model, max(job.days, after + job.change_days))
+    world = world.from_day(FIT_DAYS - case.fit_days)  # the fit window's first day on
     calm = world.through(job.days)
     settings = Settings().for_model("dock")
     spec = spec_for(case)

@@ -79,7 +79,8 @@ def test_report_folder_with_candidate(changed: World, tmp_path: Path) -> None:
     assert "http://" not in result.path.read_text() and "https://" not in result.path.read_text()
     assert "candidate" in page.ids
     words = page.words
-    assert "Status: refit since 2026-03-17" in words
+    # the slope changed on 16 March; the within-day slope chart flags it on that very day
+    assert "Status: refit since 2026-03-16" in words
     assert "last checked day 2026-04-12" in words
     # coefficient table: term, active ± SE, candidate ± SE
     assert "pallets 2.092 ± 0.0131 2.625 ± 0.0196" in words
@@ -100,6 +101,10 @@ def test_no_candidate_section_without_a_candidate(calm: World, tmp_path: Path) -
     assert "candidate" not in page.ids and "status" in page.ids
     assert "Candidate version" not in page.words
     assert all((result.path.parent / src).is_file() for src in page.images)
+    # the fit window's findings, as `model show` words them (issue 8: the report says them too)
+    assert "fit-window-findings" in page.ids
+    assert "What its fit window shows" in page.words
+    assert "day shocks" in page.words and "weekday rhythm" in page.words
 
 
 def test_reasons_are_escaped(calm: World) -> None:
