@@ -30,6 +30,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from monitor.config import Settings, parse_settings
 from monitor.lifecycle.fit import fit_window
 from monitor.monitoring.evaluate import Carry, VersionContext
+from monitor.monitoring.replay import in_memory_version
 from monitor.monitoring.walk import Subject, Timeline, walk
 from monitor.stats.arl import solve_h
 from monitor.stats.calibration import ChartDesign
@@ -62,7 +63,8 @@ def naive_context(ctx: VersionContext) -> VersionContext:
     design = ChartDesign(counts=d.counts, rows=d.rows, a=d.a, b=d.b, xmean=d.xmean, tau2=0.0,
                          sigma_w2=s2, n0=d.n0, n_rows=d.n_rows, n_days=d.n_days)
     return replace(ctx, design=design, h=solve_h(CHECK.cusum_k, CHECK.cusum_arl_days),
-                   day_effects=False, dispersion=1.0)
+                   day_effects=False, dispersion=1.0, slope_chart=None, rhythm=None,
+                   learn_base=None)
 
 
 def run_one(args: tuple[int, int, int | None, float]) -> dict[str, list[str]]:
@@ -72,11 +74,7 @@ def run_one(args: tuple[int, int, int | None, float]) -> dict[str, list[str]]:
                             None if change_at is None else FIT_DAYS + change_at, change)
     fit = labels < np.datetime64(START, "D") + FIT_DAYS
     fitted = fit_window(x[fit], y[fit], labels[fit], ("x",), CHECK.level, CHECK)
-    from monitor.store.versions import draft_record
-
-    version = draft_record(fitted.to_new_version(CHECK.level, CHECK),
-                           active_from=fitted.last_day + timedelta(days=1), now=NOW,
-                           actor="sim")
+    version = in_memory_version(fitted.draft(CHECK.level), NOW)
     timeline = Timeline.from_rows(labels, x, y)
     ctx = VersionContext.build(version, CHECK)
     out = {}
