@@ -152,3 +152,61 @@ def _settings(config: Path):
 def test_import_errors_name_the_problem(cli, tmp_path: Path, override, words: str) -> None:
     code, _, err = cli("model", "import", "dock_loading", str(_import_file(tmp_path, **override)))
     assert code == 1 and words in err, err
+
+
+def test_a_failed_fit_leaves_no_model_behind(cli, engine: Engine) -> None:
+    # Issue 13: a fit naming a column the file lacks used to create the model anyway, and every
+    # retry then refused the corrected columns. Now the fit is all or nothing.
+    bad = [*FIT[:-1], "nosuchcol"]
+    code, _, err = cli(*bad, "--data", str(HISTORY))
+    assert code != 0 and "nosuchcol" in err
+    code, out, _ = cli("model", "list", "--json")
+    assert code == 0 and json.loads(out) == []
+    code, _, err = cli(*FIT, "--data", str(HISTORY))
+    assert code == 0, err
+
+
+def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine) -> None:
+    from monitor.store import audit
+    from monitor.store.schema import audit_log
+
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, out, _ = cli("model", "rename", "dock_loading", "dock_east")
+    assert code == 0 and "'dock_loading' is now 'dock_east'" in out
+    code, _, err = cli("model", "rename", "dock_east", "bad name!")
+    assert code != 0 and "not allowed" in err
+    code, _, err = cli("model", "delete", "dock_east")
+    assert code != 0 and "--yes" in err
+    code, out, _ = cli("model", "delete", "dock_east", "--yes")
+    assert code == 0 and "deleted with its" in out
+    with database(_settings(cli), engine) as db, db.connect() as conn:
+        rows = conn.execute(audit_log.select().order_by(audit_log.c.id)).all()
+    actions = [r.action for r in rows]
+    assert actions[-2:] == ["rename", "delete"] and "fit" in actions
+    assert all(r.model_id is None for r in rows)  # kept, detached from the deleted model
+    assert rows[-1].details["model"] == "dock_east" and rows[-1].details["observations"] > 0
+    assert audit.ACTIONS[-2:] == ("rename", "delete")
+    code, out, _ = cli("model", "list", "--json")
+    assert json.loads(out) == []
+
+
+def test_a_model_without_a_version_does_not_fail_the_others_night(cli, engine: Engine) -> None:
+    from datetime import UTC, datetime
+
+    from monitor.domain.model import ModelSpec
+    from monitor.store.engine import write_transaction
+    from monitor.store.models import create_model
+
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    with database(_settings(cli), engine) as db, write_transaction(db) as conn:
+        create_model(conn, ModelSpec("waiting", "minutes", ("pallets",), "at"),
+                     datetime(2026, 3, 8, tzinfo=UTC))
+    code, out, err = cli("check", "--through", "2026-03-10")
+    assert code == 0, err
+    assert "waiting: nothing new to check (no active version yet" in out
+
+
+def _settings(cli):
+    from monitor.config import load_settings
+
+    return load_settings(cli.config)

@@ -70,7 +70,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     command("init", "create or upgrade the database", _cmd_init)
 
-    model = sub.add_parser("model", help="fit, import, list or show models")
+    model = sub.add_parser("model", help="fit, import, list, show, rename or delete models")
     msub = model.add_subparsers(dest="model_command", metavar="ACTION", parser_class=_Parser)
     msub.required = True
     fit = command("fit", "fit a version of a model on stored or given observations",
@@ -92,6 +92,13 @@ def build_parser() -> argparse.ArgumentParser:
     imp.add_argument("file", metavar="FILE")
     json_flag(imp)
     json_flag(command("list", "list models", _cmd_model_list, msub))
+    rename = command("rename", "give a model a new name (audited)", _cmd_model_rename, msub)
+    rename.add_argument("name", metavar="NAME")
+    rename.add_argument("new_name", metavar="NEW")
+    delete = command("delete", "delete a model with its observations, versions and checks",
+                     _cmd_model_delete, msub)
+    delete.add_argument("name", metavar="NAME")
+    delete.add_argument("--yes", action="store_true", help="confirm: this cannot be undone")
     show = command("show", "show a model's active (or given) version", _cmd_model_show, msub)
     show.add_argument("name", metavar="NAME")
     show.add_argument("--version", metavar="N", type=int)
@@ -271,6 +278,22 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
             state = (f"{line.status} (checked through {line.last_checked_day})"
                      if line.status else "not checked yet")
             print(f"{line.name}: {line.formula}; {active} of {line.versions}; {state}")
+    return EXIT_OK
+
+
+def _cmd_model_rename(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.lifecycle.fit import actor_name
+    from monitor.lifecycle.housekeeping import rename
+
+    print(rename(settings, args.name, args.new_name, actor=actor_name()))
+    return EXIT_OK
+
+
+def _cmd_model_delete(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.lifecycle.fit import actor_name
+    from monitor.lifecycle.housekeeping import delete
+
+    print(delete(settings, args.name, confirmed=args.yes, actor=actor_name()).sentence())
     return EXIT_OK
 
 

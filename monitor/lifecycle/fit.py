@@ -39,7 +39,7 @@ from monitor.stats.prediction import PredictionModel
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction
-from monitor.store.models import create_model, find_model
+from monitor.store.models import create_model, delete_model, find_model
 from monitor.store.observations import days_with_rows, load_observations
 from monitor.store.versions import active_version, insert_version
 
@@ -141,14 +141,26 @@ def fit_model(settings: Settings, request: FitRequest, *, now: datetime | None =
 
 def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: datetime,
                actor: str, progress: bool) -> FitReport:
-    model_settings = settings.for_model(request.name)
     with write_transaction(engine) as conn:
         model = find_model(conn, request.name)
+        created = model is None
         if model is None:
             model = create_model(conn, _spec(request), now)
         else:
             same_columns(model, request.response, request.predictors, request.time_column,
                          request.id_column)
+    try:
+        return _fit_created(engine, settings, request, model, now, actor, progress)
+    except BaseException:
+        if created:  # all or nothing: a model this fit created goes again with its rows
+            with write_transaction(engine) as conn:
+                delete_model(conn, model)
+        raise
+
+
+def _fit_created(engine: Engine, settings: Settings, request: FitRequest, model: ModelRecord,
+                 now: datetime, actor: str, progress: bool) -> FitReport:
+    model_settings = settings.for_model(request.name)
     summary = None
     if request.data is not None:
         options = options_for(settings, request.name, strict=False, progress=progress, now=now)

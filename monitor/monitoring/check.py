@@ -23,7 +23,7 @@ from monitor.domain.days import local_day
 from monitor.domain.model import ModelRecord
 from monitor.domain.status import Status, worst
 from monitor.domain.version import Version
-from monitor.errors import Failure, FitwatchError, InputError, StateError
+from monitor.errors import Failure, FitwatchError, InputError
 from monitor.interface.progress import progress_bar
 from monitor.monitoring.walk import HISTORY_DAYS, Subject, Timeline, walk
 from monitor.store import audit
@@ -129,9 +129,10 @@ def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end
                 now: datetime, *, progress: bool = False) -> ModelCheck:
     with engine.connect() as conn:
         versions = scoring_versions(conn, model.id)
-        if not versions:
-            raise StateError(f"model '{model.name}' has no active version yet; "
-                             f"run 'fitwatch model fit {model.name} ...' first")
+        if not versions:  # not a failure: one model waiting for its fit must not fail a night
+            return ModelCheck(model.name, (), None, None, None,
+                              note=f"no active version yet (fit one with 'fitwatch model fit "
+                                   f"{model.name} ...'); not checked")
         last = last_check(conn, model.id)
         stale = earliest_stale_day(conn, model.id)
     start = versions[0].active_from if last is None else last.day + timedelta(days=1)

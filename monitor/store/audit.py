@@ -11,7 +11,7 @@ from sqlalchemy import Connection, insert, select
 
 from monitor.store.schema import audit_log, inserted_id, jsonable
 
-ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure")
+ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete")
 
 
 @dataclass(frozen=True)

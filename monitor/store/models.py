@@ -1,14 +1,24 @@
-"""Stored models: finding, listing and creating them."""
+"""Stored models: finding, listing, creating, renaming and deleting them."""
 
 from __future__ import annotations
 
 from datetime import datetime
 
-from sqlalchemy import Connection, select
+from sqlalchemy import Connection, delete, func, select, update
 
 from monitor.domain.model import ModelRecord, ModelSpec
 from monitor.errors import NotFoundError, StateError
-from monitor.store.schema import inserted_id, models
+from monitor.store.schema import (
+    audit_log,
+    batches,
+    day_checks,
+    day_stats,
+    inserted_id,
+    models,
+    observations,
+    rejected_rows,
+    versions,
+)
 
 
 def _record(row: object) -> ModelRecord:
@@ -61,3 +71,38 @@ def create_model(conn: Connection, spec: ModelSpec, now: datetime) -> ModelRecor
 def _describe(spec: ModelSpec) -> str:
     text = f"y={spec.response}, x={','.join(spec.predictors)}, time={spec.time_column}"
     return text + (f", id={spec.id_column}" if spec.id_column else "")
+
+
+def rename_model(conn: Connection, model: ModelRecord, new_name: str) -> None:
+    """Give ``model`` the name ``new_name`` (which must be free)."""
+    if find_model(conn, new_name) is not None:
+        raise StateError(f"a model named '{new_name}' exists already; pick another name")
+    conn.execute(update(models).where(models.c.id == model.id).values(name=new_name))
+
+
+def delete_model(conn: Connection, model: ModelRecord) -> dict[str, int]:
+    """Remove ``model`` with its rows, batches, day statistics, checks and versions.
+
+    Its audit entries stay (detached from the model, which no longer exists), so the history of
+    what was done to it survives its deletion. Returns what was removed, per kind.
+    """
+    mid = model.id
+    counted = {
+        "observations": conn.execute(select(func.count()).select_from(observations)
+                                     .where(observations.c.model_id == mid)).scalar_one(),
+        "versions": conn.execute(select(func.count()).select_from(versions)
+                                 .where(versions.c.model_id == mid)).scalar_one(),
+        "day_checks": conn.execute(select(func.count()).select_from(day_checks)
+                                   .where(day_checks.c.model_id == mid)).scalar_one(),
+    }
+    own_batches = select(batches.c.id).where(batches.c.model_id == mid)
+    conn.execute(delete(day_checks).where(day_checks.c.model_id == mid))
+    conn.execute(delete(observations).where(observations.c.model_id == mid))
+    conn.execute(delete(rejected_rows).where(rejected_rows.c.batch_id.in_(own_batches)))
+    conn.execute(delete(batches).where(batches.c.model_id == mid))
+    conn.execute(delete(day_stats).where(day_stats.c.model_id == mid))
+    conn.execute(update(audit_log).where(audit_log.c.model_id == mid)
+                 .values(model_id=None, version_id=None))
+    conn.execute(delete(versions).where(versions.c.model_id == mid))
+    conn.execute(delete(models).where(models.c.id == mid))
+    return {k: int(v) for k, v in counted.items()}
