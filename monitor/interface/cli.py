@@ -99,6 +99,11 @@ def build_parser() -> argparse.ArgumentParser:
                      _cmd_model_delete, msub)
     delete.add_argument("name", metavar="NAME")
     delete.add_argument("--yes", action="store_true", help="confirm: this cannot be undone")
+    export = command("export", "write the active (or given) version in the 'model import' "
+                     "format", _cmd_model_export, msub)
+    export.add_argument("name", metavar="NAME")
+    export.add_argument("--version", metavar="N", type=int)
+    export.add_argument("--out", metavar="FILE", type=Path, help="write here (JSON)")
     show = command("show", "show a model's active (or given) version", _cmd_model_show, msub)
     show.add_argument("name", metavar="NAME")
     show.add_argument("--version", metavar="N", type=int)
@@ -162,6 +167,18 @@ def build_parser() -> argparse.ArgumentParser:
     ack.add_argument("--reason", metavar="TEXT", help="why (kept in the audit log)")
     json_flag(ack)
 
+    pred = command("predict", "planned values and prediction intervals from the version in "
+                   "force: one job (--at) or a file of planned jobs", _cmd_predict)
+    pred.add_argument("name", metavar="NAME")
+    pred.add_argument("file", metavar="FILE", nargs="?",
+                      help="CSV or Parquet file of planned jobs (one per row)")
+    pred.add_argument("--at", metavar="COL=VALUE", action="append", default=[],
+                      help="a predictor's value for one job; repeat for each predictor")
+    pred.add_argument("--version", metavar="N", type=int, help="plan with this version")
+    pred.add_argument("--level", metavar="L", type=_level, help="interval level")
+    pred.add_argument("--out", metavar="FILE", type=Path,
+                      help="write the planned rows here (.csv or .parquet)")
+    json_flag(pred)
     page = command("report", "write an HTML page with charts for one model", _cmd_report)
     page.add_argument("name", metavar="NAME")
     page.add_argument("--out", metavar="DIR", type=Path, required=True,
@@ -350,6 +367,43 @@ def _cmd_compare(args: argparse.Namespace, settings: Settings) -> int:
         result = compare(settings, args.name, candidate=args.candidate,
                          holdout_days=args.holdout_days)
     print(dumps(comparison_document(result)) if args.json else comparison_text(result))
+    return EXIT_OK
+
+
+def _cmd_predict(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface.plan_view import plan_text
+    from monitor.lifecycle.planning import plan, read_jobs, write_plan
+
+    if bool(args.file) == bool(args.at):
+        raise UsageError("give either a FILE of planned jobs or the job's values with --at")
+    jobs = None
+    if args.file:
+        from monitor.store.access import database
+        from monitor.store.models import get_model
+
+        with database(settings) as db, db.connect() as conn:
+            predictors = get_model(conn, args.name).predictors
+        jobs = read_jobs(Path(args.file), predictors)
+    result = plan(settings, args.name, jobs, at=args.at, version=args.version, level=args.level)
+    if args.out:
+        write_plan(result, args.out)
+    if args.json:
+        print(dumps({"model": result.model.name, "version": result.version.number,
+                     "level": result.level, "planned": result.planned,
+                     "not_planned": result.reasons(),
+                     "rows": result.frame.astype(object).where(result.frame.notna(), None)
+                     .to_dict(orient="records")}))
+    else:
+        print(plan_text(result, settings.for_model(args.name).words, args.out))
+    return EXIT_OK
+
+
+def _cmd_model_export(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.lifecycle.planning import export_description, write_description
+
+    text = write_description(export_description(settings, args.name, version=args.version),
+                             args.out)
+    print(f"wrote {args.out}" if args.out else text, end="\n" if args.out else "")
     return EXIT_OK
 
 

@@ -86,6 +86,10 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
             f"the fit window holds observations on {present} day(s); at least "
             f"{settings.min_fit_days} are needed (setting check.min_fit_days), so that day-to-day "
             "variation can be measured")
+    if int(np.asarray(table.n).sum()) <= present:
+        raise DegenerateDataError(
+            f"the fit window holds one observation per day ({present} days); some days need "
+            "two or more, so that day-to-day and within-day variation can be told apart")
     effects = day_effects_of_fit(table, fit.coef)
     scores = PredictionModel.from_fit(fit).score(x, y, level)
     misses = DayMoments.from_rows(days, (~scores.inside).astype(np.float64)[:, None])

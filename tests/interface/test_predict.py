@@ -1,0 +1,116 @@
+"""``predict`` and ``model export`` against statsmodels on the Longley data (two predictors)."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from sqlalchemy import Engine
+
+from monitor.interface.cli import main
+
+
+@pytest.fixture
+def cli(engine: Engine, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+        ) -> Callable[..., tuple[int, str, str]]:
+    url = engine.url.render_as_string(hide_password=False)
+    config = tmp_path / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{url}"\n')
+
+    def run(*argv: str) -> tuple[int, str, str]:
+        code = main(["--config", str(config), *argv])
+        captured = capsys.readouterr()
+        return code, captured.out, captured.err
+
+    return run
+
+
+def _longley(tmp_path: Path) -> tuple[pd.DataFrame, Path]:
+    # Longley (1967), shipped with statsmodels: TOTEMP on GNP and POP, two years a "day" (the
+    # monitor needs day stamps; the fit does not depend on them)
+    data = sm.datasets.longley.load_pandas().data
+    frame = data[["GNP", "POP", "TOTEMP"]].copy()
+    frame.insert(0, "at", [f"2020-01-{i // 2 + 1:02d} 1{i % 2}:00" for i in range(len(frame))])
+    path = tmp_path / "longley.csv"
+    frame.to_csv(path, index=False, float_format="%.17g")
+    return frame, path
+
+
+def test_planned_rows_match_statsmodels_prediction_intervals(cli, tmp_path: Path) -> None:
+    frame, path = _longley(tmp_path)
+    code, _, err = cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP",
+                       "--x", "GNP", "--x", "POP", "--time", "at")
+    assert code == 0, err
+    # planned jobs: rows inside and outside the fitted range, and two that cannot be planned
+    jobs = pd.DataFrame({"job": ["a", "b", "c", "d", "e"],
+                         "GNP": ["300000", "520500.5", "", "700000", "abc"],
+                         "POP": ["110000", "125000", "118000", "140000", "120000"]})
+    jobs_path = tmp_path / "jobs.csv"
+    jobs.to_csv(jobs_path, index=False)
+    out = tmp_path / "plan.csv"
+    code, text, err = cli("predict", "longley", str(jobs_path), "--out", str(out),
+                          "--level", "0.9")
+    assert code == 0, err
+    assert "3 of 5 rows planned" in text and "GNP is missing" in text
+    assert "GNP is 'abc', not a number" in text
+    plan = pd.read_csv(out)
+    # Reference: statsmodels OLS get_prediction(...).summary_frame(alpha=0.10), obs_ci_*
+    ref = sm.OLS(frame["TOTEMP"], sm.add_constant(frame[["GNP", "POP"]])).fit()
+    good = plan["reason"].isna().to_numpy()
+    exog = sm.add_constant(plan.loc[good, ["GNP", "POP"]].astype(float), has_constant="add")
+    want = ref.get_prediction(exog).summary_frame(alpha=0.10)
+    np.testing.assert_allclose(plan.loc[good, "planned"], want["mean"], rtol=1e-10)
+    np.testing.assert_allclose(plan.loc[good, "lower"], want["obs_ci_lower"], rtol=1e-10)
+    np.testing.assert_allclose(plan.loc[good, "upper"], want["obs_ci_upper"], rtol=1e-10)
+    # GNP 700000 lies above the fitted maximum (554894)
+    assert plan.loc[good, "extrapolated"].tolist() == [False, False, True]
+    assert (plan["version"] == 1).all() and plan.loc[~good, "planned"].isna().all()
+
+
+def test_export_import_round_trip_plans_the_same(cli, tmp_path: Path) -> None:
+    _, path = _longley(tmp_path)
+    assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
+               "--x", "POP", "--time", "at")[0] == 0
+    described = tmp_path / "longley.json"
+    code, _, err = cli("model", "export", "longley", "--out", str(described))
+    assert code == 0, err
+    assert cli("model", "import", "copy", str(described))[0] == 0, "import of the export"
+    plans = []
+    for name in ("longley", "copy"):
+        code, out, err = cli("predict", name, "--at", "GNP=444500.5", "--at", "POP=117200",
+                             "--json")
+        assert code == 0, err
+        plans.append(json.loads(out)["rows"][0])
+    for key in ("planned", "lower", "upper"):
+        assert plans[1][key] == pytest.approx(plans[0][key], rel=1e-10)
+
+
+def test_predict_says_what_is_wrong(cli, tmp_path: Path) -> None:
+    _, path = _longley(tmp_path)
+    assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
+               "--x", "POP", "--time", "at")[0] == 0
+    code, _, err = cli("predict", "longley", "--at", "GDP=1")
+    assert code != 0 and "GDP" in err and "GNP, POP" in err
+    code, _, err = cli("predict", "longley")
+    assert code != 0 and "--at" in err
+    wrong = tmp_path / "wrong.csv"
+    wrong.write_text("GNP,population\n300,110\n")
+    code, _, err = cli("predict", "longley", str(wrong))
+    assert code != 0 and "no column 'POP'" in err and "population" in err
+    code, out, _ = cli("predict", "longley", "--at", "GNP=300000")
+    assert code == 0 and "not planned: POP is missing" in out
+
+
+def test_one_row_a_day_is_a_clear_refusal(cli, tmp_path: Path) -> None:
+    frame, _ = _longley(tmp_path)
+    frame["at"] = [f"2020-01-{i + 1:02d} 10:00" for i in range(len(frame))]
+    path = tmp_path / "daily.csv"
+    frame.to_csv(path, index=False)
+    code, _, err = cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP",
+                       "--x", "GNP", "--x", "POP", "--time", "at")
+    assert code == 1 and "one observation per day" in err and "Traceback" not in err
