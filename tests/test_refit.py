@@ -15,6 +15,7 @@ from sqlalchemy import Engine
 from monitor.errors import StateError, UsageError
 from monitor.interface.cli import main
 from monitor.interface.status import model_statuses
+from monitor.interface.versions import show_version
 from monitor.lifecycle.compare import compare
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import acknowledge, promote, refit, rollback
@@ -296,6 +297,12 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
     with_rows = [c for c in checks if c.n > 0]
     assert learned == sorted(learned) and learned[-1] == len(with_rows)
     assert all(c.cusum_h == pytest.approx(calibration.h_known) for c in checks)
+    # model show and its JSON say how far the learning has come
+    view = show_version(changed.settings, MODEL, engine=changed.engine)
+    fit_days = v2.baseline.fit_days
+    assert (f"learned so far: {fit_days + learned[-1]} of 60 days ({fit_days} fit days and "
+            f"{learned[-1]} checked days); learning") in view.text()
+    assert view.as_dict()["cusum"]["learned_days"] == learned[-1]
 
 
 @pytest.mark.slow

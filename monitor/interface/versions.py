@@ -16,6 +16,7 @@ from monitor.domain.phrasing import fmt, percent
 from monitor.domain.version import Version, VersionSource, VersionState
 from monitor.errors import StateError
 from monitor.monitoring.wording import WindowFinding, window_findings
+from monitor.stats.self_start import Learning
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
@@ -32,6 +33,7 @@ class VersionView:
     model: ModelSpec
     version: Version
     words: Wording = field(default_factory=Wording)
+    learned: Learning | None = None  # a self-starting version's learning, at its last check
 
     def as_dict(self) -> dict[str, Any]:
         v, m = self.version, self.model
@@ -61,7 +63,9 @@ class VersionView:
                       "h_known": cal.h_known if cal else None,
                       "arl_known": cal.arl_known if cal else None,
                       "calibrated": cal.calibrated if cal else None,
-                      "learn_until_days": cal.learn_until if cal else None},
+                      "learn_until_days": cal.learn_until if cal else None,
+                      "learned_days": (self.learned.level.n
+                                       if self.learned is not None else None)},
             "fit_window_findings": [
                 {"topic": f.topic, "found": f.found, "text": f.text}
                 for f in self.findings()],
@@ -107,6 +111,8 @@ class VersionView:
                 promise = f"with the fitted values taken as exact: {cal.reason}"
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
                          f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
+            if cal.learn_until and base.fit_days:
+                lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
         found = [f for f in self.findings() if f.found]
         if found:
             lines.append("  the fit window shows:")
@@ -116,6 +122,19 @@ class VersionView:
                          "with the predictors or excess outliers")
         lines.extend(f"  note: {note}" for note in v.draft.notes)
         return "\n".join(lines)
+
+    def learning_text(self, fit_days: int, learn_until: int) -> str:
+        """How far a self-starting version has learned its level."""
+        if self.learned is None:
+            return (f"learned so far: its {fit_days} fit days of {learn_until} (no day of its "
+                    "own checked yet)")
+        days = fit_days + self.learned.level.n
+        state = ("stopped by a refit until it is acknowledged or replaced"
+                 if self.learned.stopped else
+                 "done; the limit now allows for the level's estimation error"
+                 if days >= learn_until else "learning")
+        return (f"learned so far: {days} of {learn_until} days ({fit_days} fit days and "
+                f"{self.learned.level.n} checked days); {state}")
 
     def findings(self) -> list[WindowFinding]:
         d = self.version.baseline.diagnosis
@@ -137,7 +156,13 @@ def show_version(settings: Settings, name: str, number: int | None = None, *,
                 version = versions[-1]
         else:
             version = get_version(conn, model.id, number, model_name=name)
-    return VersionView(model, version, settings.for_model(name).words)
+        last = last_check(conn, model.id)
+    learned = None
+    cal = version.baseline.calibration
+    if cal is not None and cal.learn_until and last is not None \
+            and last.version_id == version.id:
+        learned = last.state.learning
+    return VersionView(model, version, settings.for_model(name).words, learned)
 
 
 @dataclass(frozen=True)

@@ -24,6 +24,7 @@ from monitor.domain.phrasing import fmt
 from monitor.domain.version import Version, VersionState
 from monitor.errors import InputError
 from monitor.interface.output import to_jsonable
+from monitor.interface.versions import VersionView
 from monitor.monitoring.wording import WindowFinding, window_findings
 from monitor.report import charts
 from monitor.report.series import (
@@ -183,6 +184,19 @@ def _version_view(version: Version | None) -> dict[str, Any] | None:
     }
 
 
+def _learning(data: ReportData) -> str | None:
+    """How far a self-starting active version has learned its level (as ``model show``)."""
+    active, last = data.active, data.last
+    cal = active.baseline.calibration if active is not None else None
+    if active is None or cal is None or not cal.learn_until or not active.baseline.fit_days:
+        return None
+    learned = last.state.learning if last is not None and last.version_id == active.id \
+        else None
+    view = VersionView(data.model.spec, active, data.settings.words, learned)
+    return ("Self-starting: it keeps learning its level from its own in-control days; "
+            + view.learning_text(active.baseline.fit_days, cal.learn_until) + ".")
+
+
 def _window_findings(data: ReportData) -> list[WindowFinding]:
     """The active version's fit-window findings, those found first (as ``model show``)."""
     active = data.active
@@ -227,6 +241,7 @@ def render_page(data: ReportData, written_at: datetime) -> str:
         "window": window, "recent_from": data.scatter.recent_from,
         "active": _version_view(data.active),
         "window_findings": _window_findings(data),
+        "learning": _learning(data),
         "candidate": _version_view(data.candidate),
         "comparison": _comparison(data.active, data.candidate),
         "scatter_note": data.scatter.note,
