@@ -15,7 +15,7 @@ from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
-from monitor.stats.diagnosis import FitDiagnosis
+from monitor.stats.diagnosis import RHYTHM_MIN_DAYS, FitDiagnosis
 from monitor.stats.spread import SpreadTest
 
 
@@ -185,8 +185,9 @@ def window_findings(d: FitDiagnosis, words: Wording, response: str,
                 "rhythm is not taken for a change; planned times still miss it, so consider a "
                 "weekday predictor" if d.rhythm(WINDOW_ALPHA) is not None else
                 "the monitor counts this rhythm as day-to-day variation, which widens its "
-                "limits and slows detection (refit to have it measured against); consider a "
-                "weekday predictor"))))
+                f"limits and slows detection (it measures days against their weekday only "
+                f"when each working weekday has at least {RHYTHM_MIN_DAYS} fit days); "
+                "consider a weekday predictor"))))
     else:
         out.append(WindowFinding("weekday", False,
                                  f"no weekday rhythm in the day residuals ({fmt_p(wd.pvalue)})"))
