@@ -11,10 +11,12 @@ from dataclasses import dataclass
 from datetime import date, timedelta
 
 import numpy as np
+from numpy.typing import NDArray
 from scipy import stats
 
 from monitor.config import CheckSettings
 from monitor.domain.check import CheckState
+from monitor.domain.days import as_date
 from monitor.domain.version import Version, VersionDraft
 from monitor.stats.calibration import (
     ChartDesign,
@@ -32,6 +34,8 @@ from monitor.stats.persistent_misses import PersistentMissLaw
 from monitor.stats.prediction import PredictionModel
 from monitor.stats.self_start import level_of
 from monitor.stats.within_slope import SlopeChartDesign, design_slope_chart
+
+FloatArray = NDArray[np.float64]
 
 
 @dataclass(frozen=True, eq=False)
@@ -95,13 +99,10 @@ class VersionContext:
         else:
             h = calibrate_chart(design, settings.cusum_k, settings.cusum_arl_days,
                                 settings.guarantee, learn_until).h
-        # a self-starting version learns the level with any rhythm in it: offsets estimated
-        # on its short window would take most of the day-to-day spread away with them
-        rhythm = base.diagnosis.rhythm() if base.diagnosis is not None and not learns else None
+        rhythm = base.diagnosis.rhythm() if base.diagnosis is not None else None
         learn_base = None
         if learns:
-            days = day_residuals(reference, version.coefficients)
-            learn_base = level_of(days.means[days.counts > 0])
+            learn_base = _fit_level(reference, version.coefficients, rhythm)
         first_recent = (version.fit_end + timedelta(days=1) if version.fit_end
                         else version.active_from)
         assert first_recent is not None
@@ -138,6 +139,26 @@ class VersionContext:
                    first_recent_day=first_recent, slope_chart=slope_chart, rhythm=rhythm,
                    learn_base=learn_base, learn_until=learn_until, k=settings.cusum_k,
                    target_arl=settings.cusum_arl_days, guarantee=settings.guarantee)
+
+
+def _fit_level(reference: DayMoments, coefficients: FloatArray,
+               rhythm: tuple[float, ...] | None) -> Moments:
+    """A self-starting version's level from its fit days: their mean residuals, net of the
+    weekly rhythm when there is one. The offsets were estimated on these same days, which
+    takes ``W - 1`` degrees of freedom from the sum of squares; it is scaled by
+    ``(G - 1)/(G - W)`` so the sd stays unbiased (one-way ANOVA; common practice, no source)."""
+    days = day_residuals(reference, coefficients)
+    present = days.counts > 0
+    means = days.means[present]
+    if rhythm is None:
+        return level_of(means)
+    weekdays = np.array([as_date(d).weekday() for d in np.asarray(reference.days)[present]])
+    level = level_of(means - np.asarray(rhythm)[weekdays])
+    g, w = level.n, len(set(weekdays.tolist()))
+    if g <= w:
+        return level
+    return Moments(level.n, level.mean, level.comoment * (g - 1) / (g - w), level.minimum,
+                   level.maximum)
 
 
 def _guarded_persistence(design: ChartDesign, guarantee: float) -> float:
