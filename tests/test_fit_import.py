@@ -210,3 +210,30 @@ def _settings(cli):
     from monitor.config import load_settings
 
     return load_settings(cli.config)
+
+
+def _config_with(cli, extra: str) -> None:
+    cli.config.write_text(cli.config.read_text() + extra)
+
+
+def test_a_misspelt_model_section_or_column_is_named(cli, tmp_path: Path) -> None:
+    # Issue 13: [models.repiar.ranges] and a range under a column the model lacks were accepted
+    # and ignored (so rows the range should refuse were stored). Both now stop with the
+    # section, the file and what does exist.
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    _config_with(cli, '\n[models.dock_loadng.ranges]\npallets = [1, 40]\n')
+    code, _, err = cli("check", "--through", "2026-03-10")
+    assert code == 1
+    assert "[models.dock_loadng] names no model in the database (models: dock_loading)" in err
+    assert str(cli.config) in err
+    cli.config.write_text(cli.config.read_text().replace("dock_loadng", "dock_loading")
+                          .replace("pallets = [1, 40]", "palets = [1, 40]"))
+    night = tmp_path / "night.csv"
+    night.write_text("load_id,docked_at,pallets,load_minutes,door\n"
+                     "N1,2026-03-09 06:00:00,-4,20.0,D01\n")
+    code, _, err = cli("ingest", "dock_loading", str(night))
+    assert code == 1
+    assert "[models.dock_loading.ranges] names 'palets'" in err
+    assert "its columns are pallets, load_minutes" in err
+    code, _, err = cli("check", "--through", "2026-03-10")
+    assert code == 1 and "'palets'" in err

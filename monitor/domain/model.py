@@ -6,8 +6,8 @@ import re
 from dataclasses import dataclass
 from datetime import datetime
 
-from monitor.config import MAX_PREDICTORS
-from monitor.errors import InputError
+from monitor.config import MAX_PREDICTORS, Settings
+from monitor.errors import ConfigError, InputError
 
 NAME_PATTERN = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,99}")
 _COLUMN_LIMIT = 200
@@ -64,3 +64,39 @@ class ModelRecord(ModelSpec):
     def spec(self) -> ModelSpec:
         return ModelSpec(self.name, self.response, self.predictors, self.time_column,
                          self.id_column)
+
+
+def check_model_section(settings: Settings, model: ModelSpec) -> None:
+    """Refuse a ``[models.NAME]`` section that names columns the model does not have.
+
+    A range or unit under a misspelt column is otherwise silently ignored (and rows the range
+    should have refused are stored), so the error names the section, the file and the columns
+    that exist.
+    """
+    own = settings.models.get(model.name)
+    if own is None:
+        return
+    columns = (*model.predictors, model.response)
+    for key, given, allowed in (("ranges", own.ranges, columns),
+                                ("words.x_units", own.words.x_units, model.predictors)):
+        unknown = [c for c in given if c not in allowed]
+        if unknown:
+            raise ConfigError(
+                f"[models.{model.name}.{key}] names {', '.join(repr(c) for c in unknown)}, "
+                f"which model '{model.name}' does not have; its columns are "
+                f"{', '.join(allowed)}", source=settings.source)
+
+
+def check_model_sections(settings: Settings, models: list[ModelRecord]) -> None:
+    """Refuse ``[models.NAME]`` sections for models the database does not hold (a misspelt
+    name would otherwise leave the real model without its settings), and check the others."""
+    names = {m.name for m in models}
+    unknown = sorted(set(settings.models) - names)
+    if unknown:
+        known = ", ".join(sorted(names)) or "none yet"
+        raise ConfigError(
+            f"{', '.join(f'[models.{u}]' for u in unknown)} names no model in the database "
+            f"(models: {known}); fix the name, or add the section once 'fitwatch model fit' "
+            "has created the model", source=settings.source)
+    for model in models:
+        check_model_section(settings, model)

@@ -23,7 +23,8 @@ from typing import Any
 from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.errors import InputError
+from monitor.domain.model import check_model_section
+from monitor.errors import ConfigError, InputError
 from monitor.ingest.service import ingest_file, options_for
 from monitor.ingest.summary import IngestSummary
 from monitor.store.models import find_model
@@ -38,7 +39,7 @@ ARCHIVE, REJECTED = "archive", "rejected"
 class SweptFile:
     model: str
     path: Path  # where the file is now
-    outcome: str  # archived | rejected
+    outcome: str  # archived | rejected | left (the settings must be fixed first)
     summary: IngestSummary | None
     reason: str | None = None
 
@@ -99,6 +100,11 @@ def sweep_inbox(engine: Engine, settings: Settings, now: datetime, *,
 
 def _take(engine: Engine, settings: Settings, model: Any, path: Path,
           now: datetime) -> SweptFile:
+    try:
+        check_model_section(settings, model)
+    except ConfigError as exc:  # the settings are wrong, not the file: it waits where it is
+        log.error("inbox file %s left in place: %s", path, exc)
+        return SweptFile(model.name, path, "left", None, str(exc))
     try:
         summary = ingest_file(engine, model, path, options_for(settings, model.name, now=now))
     except InputError as exc:  # the file itself is bad; anything else leaves it in place

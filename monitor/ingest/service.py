@@ -25,7 +25,7 @@ from sqlalchemy import Connection, Engine
 from tqdm import tqdm
 
 from monitor.config import Settings
-from monitor.domain.model import ModelRecord
+from monitor.domain.model import ModelRecord, check_model_section
 from monitor.errors import FitwatchError, StateError, UsageError
 from monitor.ingest.pipeline import prefetch
 from monitor.ingest.readers import RawChunk, Source, open_file
@@ -98,6 +98,7 @@ def ingest_paths(settings: Settings, name: str, paths: Sequence[str | os.PathLik
     with database(settings) as engine:
         with engine.connect() as conn:
             model = get_model(conn, name)
+        check_model_section(settings, model)
         options = options_for(settings, name, strict=strict, progress=progress, now=now)
         sources = [_open(model, path, options) for path in paths]
         summaries: list[IngestSummary] = []
@@ -128,6 +129,7 @@ def ingest_configured_source(settings: Settings, name: str, *, now: datetime | N
     with database(settings, engine) as db:
         with db.connect() as conn:
             model = get_model(conn, name)
+        check_model_section(settings, model)
         return ingest_query(db, model, source.resolved_url(), source.query,
                             options_for(settings, name, now=now))
 

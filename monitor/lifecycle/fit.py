@@ -17,7 +17,7 @@ from sqlalchemy import Engine
 
 from monitor.config import CheckSettings, Settings
 from monitor.domain.days import as_date
-from monitor.domain.model import ModelRecord, ModelSpec
+from monitor.domain.model import ModelRecord, ModelSpec, check_model_section
 from monitor.domain.version import (
     Baseline,
     ChartCalibration,
@@ -164,6 +164,7 @@ def _fit_model(engine: Engine, settings: Settings, request: FitRequest, now: dat
 
 def _fit_created(engine: Engine, settings: Settings, request: FitRequest, model: ModelRecord,
                  now: datetime, actor: str, progress: bool) -> FitReport:
+    check_model_section(settings, model)
     model_settings = settings.for_model(request.name)
     summary = None
     if request.data is not None:

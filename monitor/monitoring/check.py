@@ -20,7 +20,7 @@ from sqlalchemy import Connection, Engine
 from monitor.config import CheckSettings, ModelSettings, Settings
 from monitor.domain.check import Carry, DayCheck
 from monitor.domain.days import local_day
-from monitor.domain.model import ModelRecord
+from monitor.domain.model import ModelRecord, check_model_section, check_model_sections
 from monitor.domain.status import Status, worst
 from monitor.domain.version import Version
 from monitor.errors import Failure, FitwatchError, InputError
@@ -97,9 +97,12 @@ def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
                day: date | None, end: date, now: datetime, progress: bool) -> list[ModelCheck]:
     with engine.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
+    if not names:
+        check_model_sections(settings, models)
     results = []
     for model in models:
         try:
+            check_model_section(settings, model)
             result = check_model(engine, model, settings.for_model(model.name), end, now,
                                  progress=progress)
         except FitwatchError as exc:

@@ -25,11 +25,13 @@ from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
 from monitor.config import Settings
+from monitor.domain.model import check_model_sections
 from monitor.errors import StateError
 from monitor.runtime.nightly import NightRun, run_night
 from monitor.runtime.schedule import LATE_GRACE, LEASE_TTL, cron_trigger
 from monitor.store import lease
 from monitor.store.access import database
+from monitor.store.models import list_models
 
 log = logging.getLogger(__name__)
 
@@ -95,6 +97,8 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
     """Run until stopped (or one catch-up run with ``once``); returns the runs made."""
     holder = holder or holder_name()
     with database(settings, engine) as db:
+        with db.connect() as conn:  # a misspelt [models.NAME] stops the daemon before it starts
+            check_model_sections(settings, list_models(conn))
         worker = NightlyWorker(settings, db, holder, ttl=ttl, mailer=mailer)
         if install_signals:
             _stop_on_signals(worker.stop)
