@@ -177,10 +177,11 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--id", metavar="COL", help="observation id column")
     json_flag(rep)
 
-    send = command("alerts", "queue and send a night's alert e-mails (the daemon does this "
-                   "itself; for cron after 'check')", _cmd_alerts)
+    send = command("alerts", "queue the alert e-mails of every checked night not yet queued "
+                   "and send what is due (the daemon does this itself; for cron after 'check')",
+                   _cmd_alerts)
     send.add_argument("--night", metavar="DATE", type=_day,
-                      help="the checked day to report (default: yesterday)")
+                      help="only this checked day's news (default: every night not yet queued)")
     json_flag(send)
     dmn = command("daemon", "run the scheduled nightly work until stopped (SIGTERM: finish the "
                   "current model, then exit)", _cmd_daemon)
@@ -352,12 +353,13 @@ def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.alerts.service import send_night_alerts
-    from monitor.domain.days import yesterday
+    from monitor.alerts.service import send_night_alerts, send_pending_alerts
 
     now = datetime.now(UTC)
-    night = args.night or yesterday(now, settings.timezone)
-    result = send_night_alerts(settings, night, now=now)
+    if args.night:
+        result = send_night_alerts(settings, args.night, now=now)
+    else:
+        result = send_pending_alerts(settings, now=now)
     print(dumps(result.as_dict()) if args.json else result.sentence())
     return EXIT_OK
 

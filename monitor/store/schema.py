@@ -233,6 +233,15 @@ outbox = Table(
     Column("sent_at", UtcDateTime),
 )
 
+# which (model, night) checks the alerts have considered: a check without a row here is news
+# not yet queued, whatever process made it (rows are kept when late rows recheck the day)
+queued_nights = Table(
+    "queued_nights", metadata,
+    Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), primary_key=True),
+    Column("day", Date, primary_key=True),
+    Column("queued_at", UtcDateTime, nullable=False),
+)
+
 audit_log = Table(
     "audit_log", metadata,
     Column("id", Integer, primary_key=True),
