@@ -64,7 +64,9 @@ from monitor.store.versions import list_versions
 
 log = logging.getLogger(__name__)
 
-MAX_ATTEMPTS = 10  # then the row is 'failed'; backoff below spreads these over about a day
+# RFC 5321 §4.5.4.1: "the give-up time generally needs to be at least 4-5 days"; a row keeps
+# being retried for this long after it was queued (or sent back by 'alerts --retry-failed')
+RETRY_FOR = timedelta(days=5)
 FIRST_BACKOFF = timedelta(minutes=5)
 MAX_BACKOFF = timedelta(hours=6)
 CLAIM_SECONDS = 600  # a claimed row another sender may not touch (covers one SMTP exchange)
@@ -203,6 +205,8 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
                 wanted[_late_key(digest.recipient, night,
                                  [i.model for i in digest.items])] = digest
             known = box.existing_keys(conn, list(wanted))
+            trouble = box.undelivered(conn)
+            notice = trouble.sentence() if trouble else None
             charts: dict[tuple[str, ...], bytes] = {}
             panels: dict[str, ChartPanel] = {}
             messages = []
@@ -215,7 +219,8 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
                         if item.model not in panels:
                             panels[item.model] = _panel(conn, item, contexts[item.model].level)
                     charts[shown] = digest_chart_png([panels[m] for m in shown])
-                composed = compose(digest, contexts, key=key, chart_models=shown)
+                composed = compose(digest, contexts, key=key, chart_models=shown,
+                                   notice=notice)
                 messages.append(box.NewMessage(key, digest.recipient, composed.subject,
                                                composed.text, composed.html, charts[shown]))
         with write_transaction(db) as conn:
@@ -269,7 +274,7 @@ def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Deliver
             mailer.send(_message(row, sender), key=row.dedupe_key)
         except DeliveryError as exc:
             attempts = row.attempts + 1
-            give_up = exc.permanent or attempts >= MAX_ATTEMPTS
+            give_up = exc.permanent or now - row.horizon_start >= RETRY_FOR
             with write_transaction(db) as conn:
                 box.mark_attempt_failed(conn, row.id, error=str(exc),
                                         next_attempt_at=now + backoff(attempts),
@@ -280,9 +285,10 @@ def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Deliver
                           row.dedupe_key, row.recipient, attempts, exc)
             else:
                 retried += 1
-                log.warning("alert %s to %s not delivered (attempt %d of %d), next try after "
-                            "%s: %s", row.dedupe_key, row.recipient, attempts, MAX_ATTEMPTS,
-                            (now + backoff(attempts)).isoformat(), exc)
+                log.warning("alert %s to %s not delivered (attempt %d), next try after %s, "
+                            "given up after %s: %s", row.dedupe_key, row.recipient, attempts,
+                            (now + backoff(attempts)).isoformat(),
+                            (row.horizon_start + RETRY_FOR).isoformat(), exc)
             if exc.unreachable:  # the others would wait out the same timeout: next run
                 log.warning("the mail server cannot be reached; the other due alerts wait "
                             "for the next run")
@@ -323,6 +329,20 @@ def send_night_alerts(settings: Settings, night: date, *, now: datetime,
                     delivery.pending, delivery.transport)
 
 
+def retry_failed(settings: Settings, *, now: datetime, engine: Engine | None = None) -> int:
+    """Send every given-up outbox row back to the queue, due now, with a fresh retry horizon."""
+    with database(settings, engine) as db, write_transaction(db) as conn:
+        count = box.retry_failed(conn, now)
+    log.info("%d failed alert message(s) sent back to the queue", count)
+    return count
+
+
+def undelivered(settings: Settings, *, engine: Engine | None = None) -> box.Undelivered:
+    """Messages given up on or waiting for another attempt."""
+    with database(settings, engine) as db, db.connect() as conn:
+        return box.undelivered(conn)
+
+
 def send_pending_alerts(settings: Settings, *, now: datetime, engine: Engine | None = None,
                         mailer: Mailer | None = None) -> AlertRun:
     """Queue every checked night not yet queued (oldest first), then send everything due."""
@@ -333,6 +353,18 @@ def send_pending_alerts(settings: Settings, *, now: datetime, engine: Engine | N
                     delivery.retried, delivery.failed, delivery.pending, delivery.transport)
 
 
-__all__ = ["CLAIM_SECONDS", "MAX_ATTEMPTS", "AlertRun", "QueueRun", "backoff", "night_news",
-           "queue_night", "queue_pending", "send_due", "send_night_alerts",
-           "send_pending_alerts"]
+__all__ = [
+    "CLAIM_SECONDS",
+    "RETRY_FOR",
+    "AlertRun",
+    "QueueRun",
+    "backoff",
+    "night_news",
+    "queue_night",
+    "queue_pending",
+    "retry_failed",
+    "send_due",
+    "send_night_alerts",
+    "send_pending_alerts",
+    "undelivered",
+]

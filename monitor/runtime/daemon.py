@@ -24,6 +24,7 @@ from apscheduler.schedulers.background import BackgroundScheduler
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
+from monitor.alerts.service import send_due
 from monitor.config import Settings
 from monitor.errors import StateError
 from monitor.runtime.nightly import NightRun, run_night
@@ -34,6 +35,7 @@ from monitor.store.access import database
 log = logging.getLogger(__name__)
 
 WAIT_POLL_SECONDS = 30.0
+MAIL_RETRY_POLL = timedelta(minutes=5)  # the first backoff step; later ones are longer
 
 
 def holder_name() -> str:
@@ -76,6 +78,18 @@ class NightlyWorker:
             finally:
                 lease.run_finished(self.engine, self.holder, self.clock(), status)
 
+    def retry_mail(self) -> None:
+        """Between nights: send the outbox rows whose retry is due (backoff of minutes to
+        hours), so a mail server that was away gets the night's news the same day."""
+        if self.stop.is_set() or not self._one_at_a_time.acquire(blocking=False):
+            return  # a night is running; it sends what is due itself
+        try:
+            send_due(self.settings, now=self.clock(), engine=self.engine, mailer=self.mailer)
+        except Exception:  # logged; the rows wait for the next try
+            log.exception("retrying the alert messages failed")
+        finally:
+            self._one_at_a_time.release()
+
     def heartbeat(self) -> None:
         try:
             alive = lease.renew(self.engine, self.holder, self.clock(), self.ttl)
@@ -107,6 +121,8 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
             scheduler.add_job(worker.heartbeat, "interval",
                               seconds=max(ttl.total_seconds() / 4, 0.05), id="heartbeat")
             if not once:
+                scheduler.add_job(worker.retry_mail, "interval",
+                                  seconds=MAIL_RETRY_POLL.total_seconds(), id="mail")
                 scheduler.add_job(worker.run_once, cron_trigger(settings), id="night",
                                   max_instances=1, coalesce=True,
                                   misfire_grace_time=int(LATE_GRACE.total_seconds()))

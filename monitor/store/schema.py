@@ -231,6 +231,8 @@ outbox = Table(
     Column("created_at", UtcDateTime, nullable=False),
     Column("next_attempt_at", UtcDateTime, nullable=False),
     Column("sent_at", UtcDateTime),
+    # the retry horizon counts from here: queueing, or the last 'alerts --retry-failed'
+    Column("retry_since", UtcDateTime),
 )
 
 # which (model, night) checks the alerts have considered: a check without a row here is news
