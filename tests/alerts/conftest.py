@@ -33,10 +33,10 @@ def recording() -> RecordingMailer:
 @pytest.fixture
 def smtp_server() -> Iterator[StartServer]:
     """``smtp_server(auth=False, starttls=None, implicit=None, port=None, script=None,
-    password=SMTP_PASSWORD, without=())`` starts a server on 127.0.0.1 (``script``: the scripted faults of
-    ``FaultyHandler``; ``password``: the one AUTH accepts for SMTP_USER; ``without``: AUTH
-    mechanisms not offered);
-    ``starttls``/``implicit`` take a server-side SSLContext. Stopped after the test."""
+    password=SMTP_PASSWORD, without=())`` starts a server on 127.0.0.1. ``script``: the
+    scripted faults of ``FaultyHandler``; ``password``: the one AUTH accepts for SMTP_USER;
+    ``without``: AUTH mechanisms not offered; ``starttls``/``implicit`` take a server-side
+    SSLContext. Stopped after the test."""
     started: list[Controller] = []
 
     def start(*, auth: bool = False, starttls: ssl.SSLContext | None = None,
