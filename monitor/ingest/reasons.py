@@ -15,6 +15,7 @@ REASONS: dict[str, str] = {
     "empty_field": "empty field",
     "not_a_number": "not a number",
     "not_finite": "NaN or infinite",
+    "too_large": "too large to compute with",
     "bad_time": "unreadable time",
     "dst_gap": "local time skipped by a clock change",
     "dst_ambiguous": "ambiguous local time at a clock change",

@@ -27,6 +27,14 @@ from monitor.ingest.readers import RawChunk
 from monitor.ingest.reasons import Rejection, quote_value
 
 KEY_LIMIT = 200  # characters of an id (the width of observations.obs_key)
+# The largest magnitude a number may have, whatever the configured ranges. The day statistics
+# and every window built from them hold sums of squares and cross products: over N rows whose
+# values are at most B in size, each is at most N * B**2 (centred or not), and the tests and
+# fits multiply two of them (e.g. Sxx * Syy), up to (N * B**2)**2. With N up to 1e12 rows in
+# a window and B = 1e60 that is 1e264, below the largest double (about 1.8e308, IEEE 754
+# binary64), so nothing a stored row can do overflows the statistics.
+MAGNITUDE_LIMIT = 1e60
+MAGNITUDE_ROWS = 1e12  # the row count the limit above is derived for
 _NUMBER = r"^[+-]?(([0-9]+[.]?[0-9]*|[.][0-9]+)([eE][+-]?[0-9]+)?|inf|infinity|nan)$"
 _ISO_START = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}"
 _ZONED = r"[0-9]{2}:[0-9]{2}(:[0-9]{2}([.,][0-9]*)?)?\s*([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)$"
@@ -34,7 +42,7 @@ _US = pa.timestamp("us")
 _US_UTC = pa.timestamp("us", tz="UTC")
 
 # reason codes in the order the checks run; a row gets the first that applies
-_CODES = ("", "empty_field", "not_a_number", "not_finite", "bad_time", "dst_gap",
+_CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
           "dst_ambiguous", "bad_id", "out_of_range", "future_time")
 _C = {code: i for i, code in enumerate(_CODES)}
 
@@ -108,6 +116,9 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
     if spec.id_column:
         ids, bad = _ids(chunk.columns[spec.id_column])
         mark(bad, "bad_id", spec.id_column)
+    with np.errstate(invalid="ignore"):
+        for j, column in enumerate(numeric):
+            mark(np.abs(values[:, j]) > MAGNITUDE_LIMIT, "too_large", column)
     for j, column in enumerate(numeric):
         if column in rules.ranges:
             low, high = rules.ranges[column]
@@ -316,6 +327,9 @@ _DETAILS: dict[str, Callable[[str, Any, Rules], str]] = {
     "empty_field": lambda c, v, r: f"{c} is empty",
     "not_a_number": lambda c, v, r: f"{c} is {quote_value(v)}, not a number",
     "not_finite": lambda c, v, r: f"{c} is {quote_value(v)}; only finite numbers are allowed",
+    "too_large": lambda c, v, r: (f"{c} is {quote_value(v)}; numbers beyond ±{MAGNITUDE_LIMIT:g} "
+                                  "are refused, so that sums of squares over up to "
+                                  f"{MAGNITUDE_ROWS:g} rows stay finite"),
     "bad_time": lambda c, v, r: (f"{c} is {quote_value(v)}, not an ISO 8601 time such as "
                                  "2026-03-14 08:30 or 2026-03-14T08:30:00+01:00"),
     "dst_gap": lambda c, v, r: (f"{c} {_when(v)} does not exist in {r.zone.key} (the clocks "
