@@ -150,7 +150,10 @@ def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end
         first = True
         while block_start <= end:
             block_end = min(end, block_start + timedelta(days=BLOCK_DAYS - 1))
-            with write_transaction(engine) as conn:
+            # one snapshot for the block: the rows and the day statistics (with the revision
+            # the check records) must describe the same state, or a day could be stored as
+            # checked at a revision whose rows it did not score
+            with write_transaction(engine, snapshot=True) as conn:
                 if first:
                     delete_checks_from(conn, model.id, start)
                     first = False

@@ -162,16 +162,22 @@ def _sqlite_engine(url: URL, create: bool) -> Engine:
 
 
 @contextmanager
-def write_transaction(engine: Engine, *, foreign_keys: bool = True) -> Iterator[Connection]:
+def write_transaction(engine: Engine, *, foreign_keys: bool = True,
+                      snapshot: bool = False) -> Iterator[Connection]:
     """A connection in a transaction meant to write; committed on success, rolled back on error.
 
     On SQLite the transaction takes the write lock at once (``BEGIN IMMEDIATE``), so two
-    writers queue on the busy timeout instead of failing when one upgrades a read lock.
+    writers queue on the busy timeout instead of failing when one upgrades a read lock; every
+    read in it sees one state of the database. ``snapshot=True`` gives PostgreSQL the same:
+    REPEATABLE READ, so all statements read the snapshot of the first one (under the default
+    READ COMMITTED, each statement sees what committed before it began).
     ``foreign_keys=False`` skips SQLite's per-row reference checks for bulk writes whose
     parents the caller has verified inside the transaction (the write lock keeps them there).
     """
     with engine.connect() as conn:
         conn.execution_options(**{_IMMEDIATE: True})
+        if snapshot and conn.dialect.name == "postgresql":
+            conn.execution_options(isolation_level="REPEATABLE READ")
         relax = not foreign_keys and conn.dialect.name == "sqlite"
         if relax:
             driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
