@@ -36,6 +36,7 @@ from monitor.store.checks import (
     load_checks,
 )
 from monitor.store.engine import write_transaction
+from monitor.store.model_lock import model_lock
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
 from monitor.store.versions import scoring_versions
@@ -100,8 +101,9 @@ def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
     results = []
     for model in models:
         try:
-            result = check_model(engine, model, settings.for_model(model.name), end, now,
-                                 progress=progress)
+            with model_lock(engine, model.id, model.name):  # one checker per model
+                result = check_model(engine, model, settings.for_model(model.name), end, now,
+                                     progress=progress)
         except FitwatchError as exc:
             if names:
                 raise
