@@ -389,7 +389,12 @@ def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
     else:
         for run in runs:
             print(run.sentence())
-    return EXIT_OK
+    if not args.once:
+        return EXIT_OK
+    if not runs:  # the run itself failed (logged above)
+        print("fitwatch: the nightly run failed (see the log above)", file=sys.stderr)
+        return int(ExitCode.INTERNAL)
+    return runs[-1].exit_code()
 
 
 def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:

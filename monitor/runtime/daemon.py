@@ -11,11 +11,8 @@ exits cleanly.
 from __future__ import annotations
 
 import logging
-import os
 import signal
-import socket
 import threading
-import uuid
 from collections.abc import Callable
 from datetime import UTC, datetime, timedelta
 from types import FrameType
@@ -27,6 +24,7 @@ from monitor.alerts.mailer import Mailer
 from monitor.alerts.service import send_due
 from monitor.config import Settings
 from monitor.errors import StateError
+from monitor.runtime.holder import gone_from_this_host, holder_name
 from monitor.runtime.nightly import NightRun, run_night
 from monitor.runtime.schedule import LATE_GRACE, LEASE_TTL, cron_trigger
 from monitor.store import lease
@@ -36,10 +34,6 @@ log = logging.getLogger(__name__)
 
 WAIT_POLL_SECONDS = 30.0
 MAIL_RETRY_POLL = timedelta(minutes=5)  # the first backoff step; later ones are longer
-
-
-def holder_name() -> str:
-    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
 
 
 class NightlyWorker:
@@ -147,13 +141,23 @@ def _wait_for_lease(worker: NightlyWorker, once: bool, poll_seconds: float) -> b
         with worker.engine.connect() as conn:
             state = lease.read(conn)
         other = state.holder if state else "another instance"
+        if state and state.holder and gone_from_this_host(state.holder):
+            log.warning("the lease holder %s is no longer running on this host (killed or "
+                        "crashed); taking the lease over", state.holder)
+            if lease.take_over(worker.engine, state.holder, worker.holder, worker.clock(),
+                               worker.ttl):
+                return True
+            continue  # someone else was quicker; look again
+        expires = (f"{state.expires_at:%Y-%m-%d %H:%M:%S} UTC" if state and state.expires_at
+                   else "when it is released")
         if once:
             raise StateError(f"another fitwatch daemon ({other}) holds this database's lease "
-                             "and runs the nights; nothing done (stop that daemon, or let it "
-                             "do the run)")
+                             f"until {expires} and runs the nights; nothing done (stop that "
+                             "daemon or let it do the run; a daemon that died on another "
+                             "host frees the lease when it expires, one on this host at once)")
         if other != said:
-            log.warning("waiting for the lease held by %s (expires %s)", other,
-                        state.expires_at if state else "?")
+            log.warning("waiting for the lease held by %s (it expires %s unless renewed)",
+                        other, expires)
             said = other
         if worker.stop.wait(poll_seconds):
             return False

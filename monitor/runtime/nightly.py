@@ -23,7 +23,7 @@ from monitor.alerts.mailer import Mailer
 from monitor.alerts.service import AlertRun, queue_pending, send_due
 from monitor.config import Settings
 from monitor.domain.days import yesterday
-from monitor.errors import Failure, describe
+from monitor.errors import ExitCode, Failure, describe
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
@@ -57,7 +57,19 @@ class NightRun:
 
     @property
     def status(self) -> str:
-        return STOPPED if self.stopped else PARTIAL if self.failures or self.problems else OK
+        gave_up = self.alerts is not None and self.alerts.failed > 0
+        return (STOPPED if self.stopped
+                else PARTIAL if self.failures or self.problems or gave_up else OK)
+
+    def exit_code(self) -> int:
+        """For ``daemon --once`` (cron): 0 when all went through (or a stop request ended the
+        run); else the worst failure's code, 2 for a bug in a model's check, else 1."""
+        if self.status != PARTIAL:
+            return int(ExitCode.OK)
+        codes = [int(r.failure.exit_code) for r in self.failures if r.failure]
+        if self.problems or (self.alerts is not None and self.alerts.failed):
+            codes.append(int(ExitCode.INPUT))
+        return max(codes)
 
     def as_dict(self) -> dict[str, Any]:
         return {"started_at": self.started_at, "through": self.through, "status": self.status,
@@ -83,7 +95,9 @@ class NightRun:
         parts.extend(self.problems)
         if self.alerts is not None:
             parts.append(f"{self.alerts.queued} alert message(s) queued, "
-                         f"{self.alerts.sent} sent")
+                         f"{self.alerts.sent} sent"
+                         + (f", {self.alerts.failed} given up (see 'fitwatch status')"
+                            if self.alerts.failed else ""))
         if self.stopped:
             parts.append("stopped early on request")
         return "; ".join(parts)
