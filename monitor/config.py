@@ -117,6 +117,7 @@ class SqlSourceSettings:
     query: str
     url: str = ""
     url_env: str = ""
+    timeout_seconds: float = 300.0  # the query is cancelled after this long
 
     def resolved_url(self, environ: Mapping[str, str] | None = None) -> str:
         if self.url:
@@ -336,14 +337,17 @@ _EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
 
 
 def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:
-    sec = r.table(raw, key, {"url", "url_env", "query"})
+    sec = r.table(raw, key, {"url", "url_env", "query", "timeout_seconds"})
     url = r.string(sec, f"{key}.url", "")
     url_env = r.string(sec, f"{key}.url_env", "")
     if bool(url) == bool(url_env):
         raise ConfigError("give exactly one of url and url_env (an environment variable holding "
                           "the URL, for one with a password)", source=r.source, key=key)
     return SqlSourceSettings(query=r.string(sec, f"{key}.query", "", non_empty=True), url=url,
-                             url_env=url_env)
+                             url_env=url_env,
+                             timeout_seconds=r.number(sec, f"{key}.timeout_seconds",
+                                                      SqlSourceSettings.timeout_seconds,
+                                                      low=1.0))
 
 
 # The five crontab fields, as APScheduler 3.x's CronTrigger names them and as people say them.

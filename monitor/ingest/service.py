@@ -129,23 +129,26 @@ def ingest_configured_source(settings: Settings, name: str, *, now: datetime | N
         with db.connect() as conn:
             model = get_model(conn, name)
         return ingest_query(db, model, source.resolved_url(), source.query,
-                            options_for(settings, name, now=now))
+                            options_for(settings, name, now=now),
+                            timeout_seconds=source.timeout_seconds)
 
 
 def ingest_query(engine: Engine, model: ModelRecord, source_url: str, query: str,
-                 options: IngestOptions) -> IngestSummary:
+                 options: IngestOptions, *, timeout_seconds: float = 300.0) -> IngestSummary:
     """Ingest the rows of an SQL query against another database.
 
     The query may use ``:since``: the latest stored observation time of the model (an aware
     UTC datetime; 1970-01-01 when nothing is stored). Rows already stored are duplicates, so
-    an overlapping window (``>=``) is harmless.
+    an overlapping window (``>=``) is harmless. The query is cancelled after
+    ``timeout_seconds``.
     """
     from monitor.ingest.query import QuerySource
 
     with engine.connect() as conn:
         since = last_observed_at(conn, model) or datetime(1970, 1, 1, tzinfo=UTC)
     source = QuerySource(source_url, query, {"since": since}, model.columns,
-                         options.chunk_rows, id_column=model.id_column)
+                         options.chunk_rows, id_column=model.id_column,
+                         timeout_seconds=timeout_seconds)
     return ingest_source(engine, model, source, options)
 
 
