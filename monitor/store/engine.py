@@ -22,16 +22,18 @@ from pathlib import Path
 from typing import Any
 
 from alembic import command
+from alembic.autogenerate import compare_metadata
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from alembic.util import CommandError
-from sqlalchemy import Connection, Engine, create_engine, event
+from sqlalchemy import Connection, Engine, create_engine, event, inspect
 from sqlalchemy.engine import URL, ExceptionContext, make_url
 from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
 
 from monitor.config import Settings
 from monitor.errors import DatabaseError
+from monitor.store.schema import metadata
 
 log = logging.getLogger(__name__)
 
@@ -287,6 +289,11 @@ def require_current(engine: Engine) -> None:
     if current == head:
         return
     if current is None:
+        if _has_our_tables(engine):
+            raise DatabaseError(f"the database ({where}) has fitwatch's tables but no record of "
+                                "their schema revision (the alembic_version table is missing); "
+                                "run 'fitwatch init': it compares the tables with this "
+                                "version's schema and records the revision when they match")
         raise DatabaseError(f"the database ({where}) is not set up; run 'fitwatch init'")
     known = {script.revision for script in
              ScriptDirectory.from_config(alembic_config()).walk_revisions()}
@@ -305,12 +312,16 @@ class InitResult:
     revision: str
     previous: str | None
     location: str
+    recorded: bool = False  # the tables were there; only the lost revision record was written
 
     @property
     def changed(self) -> bool:
         return self.previous != self.revision
 
     def sentence(self) -> str:
+        if self.recorded:
+            return (f"database tables match revision {self.revision}; recorded it (the "
+                    f"revision record was missing) ({self.location})")
         if self.previous is None:
             return f"database created at revision {self.revision} ({self.location})"
         if self.changed:
@@ -320,14 +331,54 @@ class InitResult:
 
 
 def init_database(settings: Settings) -> InitResult:
-    """Create the database or upgrade it to the newest revision; safe to run any number of times."""
+    """Create the database or upgrade it to the newest revision; safe to run any number of times.
+
+    A database whose tables exist without their revision record (the ``alembic_version``
+    table lost, e.g. dropped by hand or left out of a partial restore) is compared with this
+    version's schema: when nothing differs the revision is recorded, else the differences are
+    named, instead of failing on "table already exists".
+    """
     engine = open_engine(settings.database_url)
     try:
         previous = current_revision(engine)
+        if previous is None and _has_our_tables(engine):
+            return _record_lost_revision(engine)
         revision = upgrade_database(engine)
         return InitResult(revision, previous, describe_url(engine.url))
     finally:
         engine.dispose()
+
+
+def _has_our_tables(engine: Engine) -> bool:
+    try:
+        names = set(inspect(engine).get_table_names())
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+    return bool(names & {t.name for t in metadata.sorted_tables})
+
+
+def _record_lost_revision(engine: Engine) -> InitResult:
+    where = describe_url(engine.url)
+    try:
+        with engine.connect() as conn:
+            context = MigrationContext.configure(conn, opts={"compare_type": True})
+            differences = compare_metadata(context, metadata)
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+    if differences:
+        shown = "; ".join(str(d) for d in differences[:5])
+        raise DatabaseError(f"the database ({where}) has fitwatch tables but no record of their "
+                            f"schema revision, and they differ from this version's schema "
+                            f"({len(differences)} difference(s): {shown}); restore it from a "
+                            "backup, or point --db at another database")
+    head = head_revision()
+    config = alembic_config()
+    with engine.connect() as conn, conn.begin():
+        config.attributes["connection"] = conn
+        command.stamp(config, head)
+    log.warning("recorded schema revision %s for %s (its revision record was missing and the "
+                "tables match)", head, where)
+    return InitResult(head, None, where, recorded=True)
 
 
 # database failures ----------------------------------------------------------------------------

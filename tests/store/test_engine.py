@@ -164,3 +164,28 @@ def test_relaxed_foreign_keys_are_restored(engine) -> None:
     with engine.connect() as conn:
         if conn.dialect.name == "sqlite":
             assert conn.exec_driver_sql("PRAGMA foreign_keys").scalar() == 1
+
+
+def test_a_lost_revision_record_is_found_and_recorded_by_init(database_url: str,
+                                                              make_settings) -> None:
+    """Before: status said "not set up; run 'fitwatch init'" and init failed on "table models
+    already exists"; a circle with no way out."""
+    engine = open_engine(database_url)
+    try:
+        upgrade_database(engine)
+        with engine.begin() as conn:
+            conn.execute(text("DROP TABLE alembic_version"))
+        with pytest.raises(DatabaseError, match="no record of their schema revision"):
+            require_current(engine)
+        result = init_database(make_settings(database_url))
+        assert result.recorded and result.revision == head_revision()
+        assert "recorded it" in result.sentence()
+        require_current(engine)  # set up again, nothing else touched
+        # tables that differ from the schema are not stamped over
+        with engine.begin() as conn:
+            conn.execute(text("DROP TABLE alembic_version"))
+            conn.execute(text("DROP TABLE queued_nights"))
+        with pytest.raises(DatabaseError, match="differ from this version's schema"):
+            init_database(make_settings(database_url))
+    finally:
+        engine.dispose()
