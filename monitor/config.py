@@ -297,6 +297,13 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
     sec = r.table(raw, key, allowed)
     smtp = base.smtp
     if "smtp" in sec:
+        if isinstance(sec["smtp"], Mapping) and "password" in sec["smtp"]:
+            raise ConfigError("a password is not read from the settings file (the file is "
+                              "readable by whoever can read the configuration and ends up in "
+                              "backups and version control); remove it and put the password "
+                              "in an environment variable named by password_env (default "
+                              "FITWATCH_SMTP_PASSWORD) or in a file named by password_file",
+                              source=r.source, key=f"{key}.smtp.password")
         s = r.table(sec["smtp"], f"{key}.smtp", {f.name for f in fields(SmtpSettings)})
         d = SmtpSettings()
         host = r.string(s, f"{key}.smtp.host", d.host, non_empty=True)
@@ -333,7 +340,11 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
         eml_dir=r.string(sec, f"{key}.eml_dir", base.eml_dir, non_empty=True), smtp=smtp)
 
 
-_EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
+# RFC 5322 §3.4.1 addr-spec with a dot-atom local part (§3.2.3: atext runs joined by single
+# dots, none leading or trailing) and a domain of letter/digit/hyphen labels (RFC 1035 §2.3.1)
+_ATEXT = r"[A-Za-z0-9!#$%&'*+/=?^_`{|}~-]+"
+_LABEL = r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
+_EMAIL = re.compile(rf"{_ATEXT}(?:\.{_ATEXT})*@{_LABEL}(?:\.{_LABEL})*")
 
 
 def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:

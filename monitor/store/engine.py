@@ -217,6 +217,25 @@ def driver_cursor(conn: Connection) -> Iterator[Any]:
         cursor.close()
 
 
+def warn_if_shared(engine: Engine) -> None:
+    """Log a warning when the SQLite database file can be read or written by other users.
+
+    fitwatch creates the file owner-only (0600); a file that existed before, or was copied,
+    keeps its mode, and the database holds the observations and the audit log. Not changed
+    behind the user's back: a group may share it on purpose.
+    """
+    path = sqlite_path(engine.url) if engine.dialect.name == "sqlite" else None
+    if path is None:
+        return
+    try:
+        mode = path.stat().st_mode & 0o777
+    except OSError:
+        return
+    if mode & 0o077:
+        log.warning("the database file %s can be read by other users (mode %04o); unless that "
+                    "is intended, make it owner-only: chmod 600 %s", path, mode, path)
+
+
 # migrations -------------------------------------------------------------------------------------
 SCRIPT_LOCATION = "monitor:migrations"  # a package resource: found wherever monitor is installed
 
@@ -340,6 +359,7 @@ def init_database(settings: Settings) -> InitResult:
     """
     engine = open_engine(settings.database_url)
     try:
+        warn_if_shared(engine)
         previous = current_revision(engine)
         if previous is None and _has_our_tables(engine):
             return _record_lost_revision(engine)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import stat
 from pathlib import Path
 
@@ -189,3 +190,22 @@ def test_a_lost_revision_record_is_found_and_recorded_by_init(database_url: str,
             init_database(make_settings(database_url))
     finally:
         engine.dispose()
+
+
+def test_a_database_file_others_can_read_is_reported(tmp_path: Path, make_settings,
+                                                     caplog: pytest.LogCaptureFixture) -> None:
+    """fitwatch creates its file owner-only; one that existed with 0644 (copied, or made by
+    another tool) is named with a chmod hint on every command that opens it."""
+    path = tmp_path / "shared.db"
+    settings = make_settings(f"sqlite:///{path}")
+    init_database(settings)
+    path.chmod(0o644)
+    with caplog.at_level(logging.WARNING):
+        init_database(settings)
+    assert f"the database file {path} can be read by other users (mode 0644)" in caplog.text
+    assert f"chmod 600 {path}" in caplog.text
+    caplog.clear()
+    path.chmod(0o600)
+    with caplog.at_level(logging.WARNING):
+        init_database(settings)
+    assert "can be read by other users" not in caplog.text
