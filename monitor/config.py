@@ -12,7 +12,7 @@ import re
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
-from datetime import datetime, timedelta
+from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -90,6 +90,9 @@ class IngestSettings:
     future_tolerance: timedelta = timedelta(minutes=5)
     chunk_rows: int = 200_000
     inbox: str = ""
+    # observation times before this local day are refused as implausible (a year 0001 or 1900
+    # is a placeholder or a parsing slip, not an operation); set it earlier for older data
+    earliest_day: date = date(1990, 1, 1)
 
 
 @dataclass(frozen=True)
@@ -218,12 +221,13 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
 
     ing = r.table(top.get("ingest", {}), "ingest",
-                  {"future_tolerance_minutes", "chunk_rows", "inbox"})
+                  {"future_tolerance_minutes", "chunk_rows", "inbox", "earliest_day"})
     tolerance = r.number(ing, "ingest.future_tolerance_minutes", 5.0, low=0.0)
     ingest = IngestSettings(
         future_tolerance=timedelta(minutes=tolerance),
         chunk_rows=r.integer(ing, "ingest.chunk_rows", 200_000, low=1000),
         inbox=r.string(ing, "ingest.inbox", ""),
+        earliest_day=_day(r, ing, "ingest.earliest_day", IngestSettings.earliest_day),
     )
 
     models: dict[str, ModelSettings] = {}
@@ -345,6 +349,19 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
 _ATEXT = r"[A-Za-z0-9!#$%&'*+/=?^_`{|}~-]+"
 _LABEL = r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
 _EMAIL = re.compile(rf"{_ATEXT}(?:\.{_ATEXT})*@{_LABEL}(?:\.{_LABEL})*")
+
+
+def _day(r: _Reader, t: Mapping[str, Any], key: str, default: date) -> date:
+    """A calendar day given as a TOML date or an ISO 8601 string."""
+    value = t.get(key.rsplit(".", 1)[-1], default)
+    if isinstance(value, date) and not isinstance(value, datetime):
+        return value
+    if isinstance(value, str):
+        try:
+            return date.fromisoformat(value)
+        except ValueError:
+            pass
+    raise r.fail(key, f"expected a day such as 1990-01-01; got {value!r}")
 
 
 def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:

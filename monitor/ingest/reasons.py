@@ -20,6 +20,7 @@ REASONS: dict[str, str] = {
     "dst_gap": "local time skipped by a clock change",
     "dst_ambiguous": "ambiguous local time at a clock change",
     "future_time": "time in the future",
+    "too_early": "time before the plausible window",
     "bad_id": "unusable id",
     "out_of_range": "outside the plausible range",
     "conflict": "conflicts with a stored row",

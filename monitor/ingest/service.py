@@ -69,6 +69,7 @@ class IngestOptions:
     future_tolerance: timedelta
     chunk_rows: int
     progress: bool
+    earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
 
     def __post_init__(self) -> None:
         if self.now.tzinfo is None:
@@ -83,7 +84,8 @@ def options_for(settings: Settings, name: str, *, strict: bool = False, progress
     return IngestOptions(
         timezone=settings.timezone, ranges=settings.for_model(name).ranges, strict=strict,
         now=now or datetime.now(UTC), future_tolerance=settings.ingest.future_tolerance,
-        chunk_rows=settings.ingest.chunk_rows, progress=progress)
+        chunk_rows=settings.ingest.chunk_rows, progress=progress,
+        earliest_day=settings.ingest.earliest_day)
 
 
 # entry points -----------------------------------------------------------------------------------
@@ -186,7 +188,8 @@ def _open(model: ModelRecord, path: str | os.PathLike[str], options: IngestOptio
 # the work ---------------------------------------------------------------------------------------
 def _ingest(conn: Connection, model: ModelRecord, source: Source,
             options: IngestOptions) -> IngestSummary:
-    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance)
+    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance,
+                  options.earliest_day)
     batch_id = start_batch(conn, model.id, source.location, source.content_hash(), source.size,
                            options.strict, options.now)
     tally = Tally()

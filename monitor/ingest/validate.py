@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, time, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -43,7 +43,7 @@ _US_UTC = pa.timestamp("us", tz="UTC")
 
 # reason codes in the order the checks run; a row gets the first that applies
 _CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
-          "dst_ambiguous", "bad_id", "out_of_range", "future_time")
+          "dst_ambiguous", "bad_id", "out_of_range", "future_time", "too_early")
 _C = {code: i for i, code in enumerate(_CODES)}
 
 
@@ -55,11 +55,17 @@ class Rules:
     ranges: Mapping[str, tuple[float, float]]
     now: datetime
     future_tolerance: timedelta
+    earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
 
     @property
     def latest_us(self) -> int:
         latest = (self.now + self.future_tolerance).astimezone(UTC)
         return (latest - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
+
+    @property
+    def earliest_us(self) -> int:
+        earliest = datetime.combine(self.earliest_day, time(), self.zone).astimezone(UTC)
+        return (earliest - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
 
 
 @dataclass(frozen=True, eq=False)
@@ -125,6 +131,7 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
             with np.errstate(invalid="ignore"):
                 mark((values[:, j] < low) | (values[:, j] > high), "out_of_range", column)
     mark(observed_us > rules.latest_us, "future_time", spec.time_column)
+    mark(observed_us < rules.earliest_us, "too_early", spec.time_column)
 
     good = code == 0
     rejected = _describe(chunk, np.flatnonzero(~good), code, culprit, columns, values, numeric,
@@ -340,6 +347,9 @@ _DETAILS: dict[str, Callable[[str, Any, Rules], str]] = {
                                f"{c} contains a NUL character" if "\x00" in str(v) else
                                f"{c} has {len(str(v).strip())} characters; at most "
                                f"{KEY_LIMIT} are allowed"),
+    "too_early": lambda c, v, r: (f"{c} {_when(v)} is before {r.earliest_day.isoformat()}, "
+                                  "the earliest plausible day (set ingest.earliest_day earlier "
+                                  "if the data really are that old)"),
     "future_time": lambda c, v, r: (f"{c} {_when(v)} is later than now "
                                     f"({r.now.astimezone(r.zone):%Y-%m-%d %H:%M %Z}) plus "
                                     f"{r.future_tolerance / timedelta(minutes=1):g} min"),

@@ -335,3 +335,22 @@ def test_a_slow_postgresql_source_is_cancelled_after_its_timeout(
         ingest_query(store.engine, store.loads, postgres_url, sleepy, _options(store),
                      timeout_seconds=1.0)
     assert time.monotonic() - started < 10  # PostgreSQL's statement_timeout cancelled it
+
+
+def test_implausibly_old_times_are_rejected_with_the_window(store: Store) -> None:
+    """Years 0001 and 1900 were stored as observation times; now the plausible window starts
+    at ingest.earliest_day (default 1990-01-01, in the configured zone, Europe/Berlin here)."""
+    path = store.write("old.csv", csv_text("L1,0001-01-01 08:00,10,31.5,D1",
+                                           "L2,1900-03-02 09:00,12,35,D2",
+                                           "L3,1989-12-31 23:59,12,35,D2",
+                                           "L4,1990-01-01 00:00,12,35,D2",
+                                           "L5,2026-03-02 09:00,12,35,D2"))
+    summary = ingest_file(store.engine, store.loads, path, _options(store))
+    assert (summary.accepted, summary.rejected) == (2, 3)
+    assert summary.reasons == {"too_early": 3}
+    with store.engine.connect() as conn:
+        (first, *_) = rejected_rows_of(conn, summary.batch_id)
+    assert first.line == 2 and "before 1990-01-01, the earliest plausible day" in first.detail
+    older = _options(store, earliest_day=date(1900, 1, 1))
+    again = ingest_file(store.engine, store.loads, path, older)
+    assert (again.accepted, again.rejected) == (2, 1)  # 1900 and 1989 now; 0001 still not
