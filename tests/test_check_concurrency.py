@@ -26,6 +26,7 @@ from sqlalchemy import Engine, func, select
 import monitor.monitoring.check as check
 from monitor.config import Settings
 from monitor.errors import StateError
+from monitor.store.engine import head_revision
 from monitor.store.model_lock import NAMESPACE, model_lock
 from monitor.store.schema import day_checks, day_stats
 from tests.support.world import CALM, World, loads_between, settings_for, write_csv
@@ -110,3 +111,28 @@ def test_a_check_that_cannot_get_the_model_says_why(engine: Engine) -> None:
             holder.commit()
     with model_lock(engine, 7, "dock_loading", wait=timedelta(seconds=0.2)):
         pass  # free again
+
+
+@pytest.mark.postgres
+def test_two_inits_at_once_on_a_fresh_postgresql_database(postgres_url: str) -> None:
+    """Before: one of them printed a pg_type unique violation (both created the tables)."""
+    import psycopg
+
+    admin_url = postgres_url.rsplit("/", 1)[0] + "/test"
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "PYTHONWARNINGS": "error"}
+    for attempt in range(3):
+        name = f"fitwatch_init_race_{os.getpid()}_{attempt}"
+        with psycopg.connect(admin_url, autocommit=True) as admin:
+            admin.execute(f'CREATE DATABASE "{name}"')
+        try:
+            url = f"{admin_url.rsplit('/', 1)[0]}/{name}"
+            procs = [subprocess.Popen([sys.executable, "-m", "monitor", "--db", url, "init"],
+                                      cwd=ROOT, env=env, stdout=subprocess.PIPE,
+                                      stderr=subprocess.PIPE, text=True) for _ in range(2)]
+            outs = [p.communicate(timeout=300) for p in procs]
+            assert [p.returncode for p in procs] == [0, 0], [err for _, err in outs]
+            assert not any("violat" in err or "Traceback" in err for _, err in outs)
+            assert all(f"at revision {head_revision()}" in out for out, _ in outs)
+        finally:
+            with psycopg.connect(admin_url, autocommit=True) as admin:
+                admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')

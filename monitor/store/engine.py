@@ -27,7 +27,7 @@ from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from alembic.util import CommandError
-from sqlalchemy import Connection, Engine, create_engine, event, inspect
+from sqlalchemy import Connection, Engine, create_engine, event, func, inspect, select
 from sqlalchemy.engine import URL, ExceptionContext, make_url
 from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
 
@@ -238,6 +238,7 @@ def warn_if_shared(engine: Engine) -> None:
 
 # migrations -------------------------------------------------------------------------------------
 SCRIPT_LOCATION = "monitor:migrations"  # a package resource: found wherever monitor is installed
+MIGRATION_LOCK = 0x66776D67  # pg_advisory_xact_lock key serialising upgrades ("fwmg")
 
 
 def alembic_config() -> Config:
@@ -272,6 +273,8 @@ def upgrade_database(engine: Engine) -> str:
                 driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
             try:
                 with conn.begin():
+                    if not sqlite:  # two inits at once: the second waits, then finds head
+                        conn.execute(select(func.pg_advisory_xact_lock(MIGRATION_LOCK)))
                     config.attributes["connection"] = conn
                     command.upgrade(config, "head")
                     if sqlite:
