@@ -12,7 +12,7 @@ import re
 import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
-from datetime import datetime, timedelta
+from datetime import date, datetime, timedelta
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
@@ -93,6 +93,9 @@ class IngestSettings:
     future_tolerance: timedelta = timedelta(minutes=5)
     chunk_rows: int = 200_000
     inbox: str = ""
+    # observation times before this local day are refused as implausible (a year 0001 or 1900
+    # is a placeholder or a parsing slip, not an operation); set it earlier for older data
+    earliest_day: date = date(1990, 1, 1)
 
 
 @dataclass(frozen=True)
@@ -120,6 +123,7 @@ class SqlSourceSettings:
     query: str
     url: str = ""
     url_env: str = ""
+    timeout_seconds: float = 300.0  # the query is cancelled after this long
 
     def resolved_url(self, environ: Mapping[str, str] | None = None) -> str:
         if self.url:
@@ -220,12 +224,13 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
 
     ing = r.table(top.get("ingest", {}), "ingest",
-                  {"future_tolerance_minutes", "chunk_rows", "inbox"})
+                  {"future_tolerance_minutes", "chunk_rows", "inbox", "earliest_day"})
     tolerance = r.number(ing, "ingest.future_tolerance_minutes", 5.0, low=0.0)
     ingest = IngestSettings(
         future_tolerance=timedelta(minutes=tolerance),
         chunk_rows=r.integer(ing, "ingest.chunk_rows", 200_000, low=1000),
         inbox=r.string(ing, "ingest.inbox", ""),
+        earliest_day=_day(r, ing, "ingest.earliest_day", IngestSettings.earliest_day),
     )
 
     models: dict[str, ModelSettings] = {}
@@ -304,6 +309,13 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
     sec = r.table(raw, key, allowed)
     smtp = base.smtp
     if "smtp" in sec:
+        if isinstance(sec["smtp"], Mapping) and "password" in sec["smtp"]:
+            raise ConfigError("a password is not read from the settings file (the file is "
+                              "readable by whoever can read the configuration and ends up in "
+                              "backups and version control); remove it and put the password "
+                              "in an environment variable named by password_env (default "
+                              "FITWATCH_SMTP_PASSWORD) or in a file named by password_file",
+                              source=r.source, key=f"{key}.smtp.password")
         s = r.table(sec["smtp"], f"{key}.smtp", {f.name for f in fields(SmtpSettings)})
         d = SmtpSettings()
         host = r.string(s, f"{key}.smtp.host", d.host, non_empty=True)
@@ -340,18 +352,38 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
         eml_dir=r.string(sec, f"{key}.eml_dir", base.eml_dir, non_empty=True), smtp=smtp)
 
 
-_EMAIL = re.compile(r"[^@\s]+@[^@\s]+")
+# RFC 5322 §3.4.1 addr-spec with a dot-atom local part (§3.2.3: atext runs joined by single
+# dots, none leading or trailing) and a domain of letter/digit/hyphen labels (RFC 1035 §2.3.1)
+_ATEXT = r"[A-Za-z0-9!#$%&'*+/=?^_`{|}~-]+"
+_LABEL = r"[A-Za-z0-9](?:[A-Za-z0-9-]{0,61}[A-Za-z0-9])?"
+_EMAIL = re.compile(rf"{_ATEXT}(?:\.{_ATEXT})*@{_LABEL}(?:\.{_LABEL})*")
+
+
+def _day(r: _Reader, t: Mapping[str, Any], key: str, default: date) -> date:
+    """A calendar day given as a TOML date or an ISO 8601 string."""
+    value = t.get(key.rsplit(".", 1)[-1], default)
+    if isinstance(value, date) and not isinstance(value, datetime):
+        return value
+    if isinstance(value, str):
+        try:
+            return date.fromisoformat(value)
+        except ValueError:
+            pass
+    raise r.fail(key, f"expected a day such as 1990-01-01; got {value!r}")
 
 
 def _source_settings(r: _Reader, raw: Any, key: str) -> SqlSourceSettings:
-    sec = r.table(raw, key, {"url", "url_env", "query"})
+    sec = r.table(raw, key, {"url", "url_env", "query", "timeout_seconds"})
     url = r.string(sec, f"{key}.url", "")
     url_env = r.string(sec, f"{key}.url_env", "")
     if bool(url) == bool(url_env):
         raise ConfigError("give exactly one of url and url_env (an environment variable holding "
                           "the URL, for one with a password)", source=r.source, key=key)
     return SqlSourceSettings(query=r.string(sec, f"{key}.query", "", non_empty=True), url=url,
-                             url_env=url_env)
+                             url_env=url_env,
+                             timeout_seconds=r.number(sec, f"{key}.timeout_seconds",
+                                                      SqlSourceSettings.timeout_seconds,
+                                                      low=1.0))
 
 
 # The five crontab fields, as APScheduler 3.x's CronTrigger names them and as people say them.

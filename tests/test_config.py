@@ -96,7 +96,14 @@ level = 0.8
     ("[alerts]\nto = 'lead@example.com'", "alerts.to", "a list of strings"),
     ("[alerts]\nto = ['not-an-address']", "alerts.to", "not an e-mail address"),
     ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
-    ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "unknown key"),
+    # a password in the file: refused with the reason and where to put it instead
+    ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "not read from the settings "
+     "file (the file is readable by whoever can read the configuration"),
+    ("[alerts.smtp]\npassword = 'x'", "alerts.smtp.password", "password_env"),
+    # RFC 5322 §3.2.3 dot-atom: no leading, trailing or doubled dots in the local part
+    ("[alerts]\nto = ['../../x@example.com']", "alerts.to", "not an e-mail address"),
+    ("[alerts]\nto = ['lead.@example.com']", "alerts.to", "not an e-mail address"),
+    ("[alerts]\nto = ['lead@exa mple.com']", "alerts.to", "not an e-mail address"),
     ("[models.a.alerts]\nsender = 'x@example.com'", "models.a.alerts.sender", "unknown key"),
     ("[models.a.source]\nurl = 'sqlite://'\nurl_env = 'X'\nquery = 'SELECT 1'",
      "models.a.source", "exactly one of url and url_env"),

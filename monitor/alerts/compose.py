@@ -227,14 +227,15 @@ _ENV = Environment(
 
 
 def compose(digest: Digest, contexts: Mapping[str, ModelContext], *, key: str,
-            chart_models: Sequence[str] = ()) -> Composed:
-    """Subject, plain text and HTML for one digest; the chart (if any) shows ``chart_models``."""
+            chart_models: Sequence[str] = (), notice: str | None = None) -> Composed:
+    """Subject, plain text and HTML for one digest; the chart (if any) shows ``chart_models``;
+    ``notice``: a sentence on earlier messages that were not delivered."""
     views = [item_view(item, contexts[item.model]) for item in digest.items]
     cid = chart_cid(key) if chart_models else None
     shown = ", ".join(f"{m} (level {percent(contexts[m].level)})" for m in chart_models)
     left_out = [item.model for item in digest.items if item.model not in chart_models]
     values = {"night": digest.night.isoformat(), "items": views, "chart_cid": cid,
-              "chart_models": shown, "left_out": ", ".join(left_out)}
+              "chart_models": shown, "left_out": ", ".join(left_out), "notice": notice}
     text = _ENV.get_template("digest.txt").render(**values)
     html = _ENV.get_template("digest.html").render(**values)
     return Composed(subject(digest), text, html, cid)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import base64
 import contextlib
+import json
 import logging
 import os
 import re
@@ -83,12 +84,24 @@ def read_password(smtp: SmtpSettings, environ: Mapping[str, str] | None = None) 
                       "or alerts.smtp.password_file", key="alerts.smtp.username")
 
 
+def secret_forms(secret: str) -> set[str]:
+    """The ways ``secret`` can appear in text: as typed, escaped as ``repr``/``ascii``/JSON
+    write it (an exception's text, a JSON column), and base64 of its UTF-8 and Latin-1 bytes."""
+    forms = {secret, repr(secret)[1:-1], ascii(secret)[1:-1], json.dumps(secret)[1:-1],
+             json.dumps(secret, ensure_ascii=False)[1:-1],
+             secret.encode("unicode_escape").decode("ascii")}
+    for encoding in ("utf-8", "latin-1"):
+        with contextlib.suppress(UnicodeEncodeError):
+            forms.add(base64.b64encode(secret.encode(encoding)).decode())
+    return {form for form in forms if form}
+
+
 def scrub(text: str, secret: str | None) -> str:
-    """``text`` with ``secret`` (as typed, and as SMTP AUTH encodes it) replaced by ***."""
+    """``text`` with ``secret`` (as typed, escaped, and as SMTP AUTH encodes it) replaced by
+    ***."""
     if not secret:
         return text
-    forms = {secret, base64.b64encode(secret.encode()).decode()}
-    for form in sorted(forms, key=len, reverse=True):
+    for form in sorted(secret_forms(secret), key=len, reverse=True):
         text = text.replace(form, "***")
     # AUTH PLAIN sends base64("\0user\0password"); any base64 run that decodes to something
     # holding the password goes too
@@ -97,9 +110,26 @@ def scrub(text: str, secret: str | None) -> str:
             decoded = base64.b64decode(token, validate=True)
         except ValueError:
             continue
-        if secret.encode() in decoded:
+        if secret.encode() in decoded or secret.encode("utf-8", "replace") in decoded:
             text = text.replace(token, "***")
     return text
+
+
+def _login(conn: smtplib.SMTP, user: str, password: str) -> None:
+    """Log in; credentials outside ASCII go as AUTH PLAIN in UTF-8 (RFC 4616 §2), which
+    smtplib's own ``login`` cannot send (it encodes the AUTH string as ASCII and raises
+    ``UnicodeEncodeError`` with the password in the exception's text)."""
+    if (user + password).isascii():
+        conn.login(user, password)
+        return
+    if not conn.has_extn("auth") or "PLAIN" not in conn.esmtp_features["auth"].upper().split():
+        raise smtplib.SMTPNotSupportedError(
+            "the SMTP password or user name has characters outside ASCII, which can only be "
+            "sent with AUTH PLAIN, and this server does not offer it")
+    token = base64.b64encode(f"\0{user}\0{password}".encode()).decode("ascii")
+    code, reply = conn.docmd("AUTH", f"PLAIN {token}")
+    if code not in (235, 503):  # RFC 4954 §6: 235 accepted; 503 already authenticated
+        raise smtplib.SMTPAuthenticationError(code, reply)
 
 
 class SmtpMailer:
@@ -143,7 +173,7 @@ class SmtpMailer:
                 conn.ehlo()
             if s.username:
                 assert self._password is not None
-                conn.login(s.username, self._password)
+                _login(conn, s.username, self._password)
         except BaseException:
             _quietly_close(conn)
             raise
@@ -174,6 +204,12 @@ class SmtpMailer:
             self._drop()
             raise DeliveryError(self._say(f"cannot deliver through {self.where()}: "
                                           f"{type(exc).__name__}: {exc}"),
+                                unreachable=connecting) from None
+        except Exception as exc:  # e.g. UnicodeError: its text may quote what was encoded
+            self._drop()
+            log.debug("delivery through %s failed with %s", self.where(), type(exc).__name__)
+            raise DeliveryError(f"cannot deliver through {self.where()}: {type(exc).__name__} "
+                                "(details withheld: they could contain the credentials)",
                                 unreachable=connecting) from None
         if refused:  # only possible with several recipients; ours have one
             raise DeliveryError(self._say(f"{self.where()} refused {sorted(refused)}"),

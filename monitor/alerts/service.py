@@ -24,6 +24,7 @@ several nights should call :func:`send_night_alerts` once per night, oldest firs
 
 from __future__ import annotations
 
+import hashlib
 import logging
 from collections.abc import Sequence
 from dataclasses import dataclass, fields
@@ -53,7 +54,7 @@ from monitor.domain.check import DayCheck
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
 from monitor.report.charts import ChartPanel, digest_chart_png
-from monitor.store import audit
+from monitor.store import audit, queued_nights
 from monitor.store import outbox as box
 from monitor.store.access import database
 from monitor.store.checks import last_check, load_checks
@@ -63,7 +64,9 @@ from monitor.store.versions import list_versions
 
 log = logging.getLogger(__name__)
 
-MAX_ATTEMPTS = 10  # then the row is 'failed'; backoff below spreads these over about a day
+# RFC 5321 §4.5.4.1: "the give-up time generally needs to be at least 4-5 days"; a row keeps
+# being retried for this long after it was queued (or sent back by 'alerts --retry-failed')
+RETRY_FOR = timedelta(days=5)
 FIRST_BACKOFF = timedelta(minutes=5)
 MAX_BACKOFF = timedelta(hours=6)
 CLAIM_SECONDS = 600  # a claimed row another sender may not touch (covers one SMTP exchange)
@@ -139,11 +142,14 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         coverage_window_days=ms.check.coverage_window_days)
 
 
-def night_news(settings: Settings, conn: Connection,
-               night: date) -> tuple[list[ModelNews], dict[str, ModelContext]]:
-    """Every model's news for ``night`` and what composing it needs."""
+def night_news(settings: Settings, conn: Connection, night: date,
+               only: set[int] | None = None) -> tuple[list[ModelNews], dict[str, ModelContext]]:
+    """Every model's news for ``night`` (or only that of the models ``only``) and what
+    composing it needs."""
     news, contexts = [], {}
     for model in list_models(conn):
+        if only is not None and model.id not in only:
+            continue
         checks = load_checks(conn, model.id, night, night, model=model.name)
         if not checks:
             continue
@@ -169,14 +175,38 @@ def _panel(conn: Connection, news: ModelNews, level: float) -> ChartPanel:
     return ChartPanel(news.model, checks, level)
 
 
+def _late_key(recipient: str, night: date, models: Sequence[str]) -> str:
+    """The key of a second digest for a night whose first went out before these models'
+    checks of it were stored (e.g. a model that failed that night and was checked later)."""
+    tag = hashlib.sha256("\n".join(sorted(models)).encode()).hexdigest()[:12]
+    return dedupe_key(recipient, night, f"{KIND_NIGHT}+{tag}")
+
+
 def queue_night(settings: Settings, night: date, *, now: datetime,
                 engine: Engine | None = None) -> int:
-    """Queue ``night``'s digests in the outbox (one transaction); returns how many are new."""
+    """Queue ``night``'s digests in the outbox (one transaction); returns how many are new.
+
+    Only the models whose check of ``night`` is not yet queued (``queued_nights``) are news;
+    the same transaction records them as queued, so a night is queued once whoever checked it
+    and whatever became of that process.
+    """
     with database(settings, engine) as db:
         with db.connect() as conn:
-            news, contexts = night_news(settings, conn, night)
-            wanted = {dedupe_key(d.recipient, night, KIND_NIGHT): d for d in digests(news)}
+            waiting = queued_nights.pending_models(conn, night)
+            if not waiting:
+                return 0
+            news, contexts = night_news(settings, conn, night, only=waiting)
+            wanted: dict[str, Digest] = {}
+            for d in digests(news):
+                wanted[dedupe_key(d.recipient, night, KIND_NIGHT)] = d
             known = box.existing_keys(conn, list(wanted))
+            for key in [k for k in wanted if k in known]:
+                digest = wanted.pop(key)
+                wanted[_late_key(digest.recipient, night,
+                                 [i.model for i in digest.items])] = digest
+            known = box.existing_keys(conn, list(wanted))
+            trouble = box.undelivered(conn)
+            notice = trouble.sentence() if trouble else None
             charts: dict[tuple[str, ...], bytes] = {}
             panels: dict[str, ChartPanel] = {}
             messages = []
@@ -189,15 +219,39 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
                         if item.model not in panels:
                             panels[item.model] = _panel(conn, item, contexts[item.model].level)
                     charts[shown] = digest_chart_png([panels[m] for m in shown])
-                composed = compose(digest, contexts, key=key, chart_models=shown)
+                composed = compose(digest, contexts, key=key, chart_models=shown,
+                                   notice=notice)
                 messages.append(box.NewMessage(key, digest.recipient, composed.subject,
                                                composed.text, composed.html, charts[shown]))
-        if not messages:
-            return 0
         with write_transaction(db) as conn:
             queued = sum(box.queue_message(conn, m, now) for m in messages)
-    log.info("queued %d alert message(s) for the night of %s", queued, night)
+            queued_nights.mark_queued(conn, waiting, night, now)
+    if queued:
+        log.info("queued %d alert message(s) for the night of %s", queued, night)
     return queued
+
+
+@dataclass(frozen=True)
+class QueueRun:
+    """What :func:`queue_pending` did: the nights it queued, oldest first, and new messages."""
+
+    nights: tuple[date, ...]
+    queued: int
+
+
+def queue_pending(settings: Settings, *, now: datetime, engine: Engine | None = None,
+                  through: date | None = None) -> QueueRun:
+    """Queue every stored check not yet queued, night by night, oldest first.
+
+    What to queue comes from the database (checked and not yet in ``queued_nights``), not from
+    what one process checked: a run killed after its checks committed and before this step
+    leaves the nights pending, and the next run (or ``alerts``) queues them, once each.
+    """
+    with database(settings, engine) as db:
+        with db.connect() as conn:
+            nights = queued_nights.pending_nights(conn, through)
+        queued = sum(queue_night(settings, night, now=now, engine=db) for night in nights)
+    return QueueRun(tuple(nights), queued)
 
 
 # sending --------------------------------------------------------------------------------------
@@ -220,7 +274,7 @@ def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Deliver
             mailer.send(_message(row, sender), key=row.dedupe_key)
         except DeliveryError as exc:
             attempts = row.attempts + 1
-            give_up = exc.permanent or attempts >= MAX_ATTEMPTS
+            give_up = exc.permanent or now - row.horizon_start >= RETRY_FOR
             with write_transaction(db) as conn:
                 box.mark_attempt_failed(conn, row.id, error=str(exc),
                                         next_attempt_at=now + backoff(attempts),
@@ -231,9 +285,10 @@ def _deliver(db: Engine, mailer: Mailer, sender: str, now: datetime) -> _Deliver
                           row.dedupe_key, row.recipient, attempts, exc)
             else:
                 retried += 1
-                log.warning("alert %s to %s not delivered (attempt %d of %d), next try after "
-                            "%s: %s", row.dedupe_key, row.recipient, attempts, MAX_ATTEMPTS,
-                            (now + backoff(attempts)).isoformat(), exc)
+                log.warning("alert %s to %s not delivered (attempt %d), next try after %s, "
+                            "given up after %s: %s", row.dedupe_key, row.recipient, attempts,
+                            (now + backoff(attempts)).isoformat(),
+                            (row.horizon_start + RETRY_FOR).isoformat(), exc)
             if exc.unreachable:  # the others would wait out the same timeout: next run
                 log.warning("the mail server cannot be reached; the other due alerts wait "
                             "for the next run")
@@ -274,5 +329,42 @@ def send_night_alerts(settings: Settings, night: date, *, now: datetime,
                     delivery.pending, delivery.transport)
 
 
-__all__ = ["CLAIM_SECONDS", "MAX_ATTEMPTS", "AlertRun", "backoff", "night_news", "queue_night",
-           "send_due", "send_night_alerts"]
+def retry_failed(settings: Settings, *, now: datetime, engine: Engine | None = None) -> int:
+    """Send every given-up outbox row back to the queue, due now, with a fresh retry horizon."""
+    with database(settings, engine) as db, write_transaction(db) as conn:
+        count = box.retry_failed(conn, now)
+    log.info("%d failed alert message(s) sent back to the queue", count)
+    return count
+
+
+def undelivered(settings: Settings, *, engine: Engine | None = None) -> box.Undelivered:
+    """Messages given up on or waiting for another attempt."""
+    with database(settings, engine) as db, db.connect() as conn:
+        return box.undelivered(conn)
+
+
+def send_pending_alerts(settings: Settings, *, now: datetime, engine: Engine | None = None,
+                        mailer: Mailer | None = None) -> AlertRun:
+    """Queue every checked night not yet queued (oldest first), then send everything due."""
+    with database(settings, engine) as db:
+        queued = queue_pending(settings, now=now, engine=db)
+        delivery = send_due(settings, now=now, engine=db, mailer=mailer)
+    return AlertRun(queued.nights[-1] if queued.nights else None, queued.queued, delivery.sent,
+                    delivery.retried, delivery.failed, delivery.pending, delivery.transport)
+
+
+__all__ = [
+    "CLAIM_SECONDS",
+    "RETRY_FOR",
+    "AlertRun",
+    "QueueRun",
+    "backoff",
+    "night_news",
+    "queue_night",
+    "queue_pending",
+    "retry_failed",
+    "send_due",
+    "send_night_alerts",
+    "send_pending_alerts",
+    "undelivered",
+]

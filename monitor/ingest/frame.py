@@ -44,7 +44,8 @@ class FileRows:
 def read_rows(path: str | os.PathLike[str], spec: ModelSpec, options: IngestOptions) -> FileRows:
     source = open_file(path, spec.columns, options.chunk_rows, time_column=spec.time_column,
                        id_column=spec.id_column)
-    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance)
+    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance,
+                  options.earliest_day)
     parts = [check_rows(chunk, spec, rules) for chunk in source.chunks()]
     reasons = Counter(r.reason for p in parts for r in p.rejected)
     read = sum(p.read for p in parts)

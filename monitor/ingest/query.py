@@ -5,18 +5,22 @@ unchanged data is recognised as already ingested."""
 from __future__ import annotations
 
 import hashlib
+import time
 from collections.abc import Iterator, Mapping, Sequence
 from typing import Any
 
 import numpy as np
 import pyarrow as pa
 from numpy.typing import NDArray
-from sqlalchemy import text
+from sqlalchemy import Connection, text
 from sqlalchemy.exc import SQLAlchemyError
 
 from monitor.errors import InputError, MissingColumnsError
 from monitor.ingest.readers import RawChunk, Source
-from monitor.store.engine import describe_url, open_engine
+from monitor.store.engine import describe_url, driver_connection, open_engine
+
+SQLITE_PROGRESS_STEPS = 10_000  # virtual machine steps between two looks at the clock
+_PG_QUERY_CANCELED = "57014"  # SQLSTATE query_canceled (statement_timeout)
 
 
 class QuerySource(Source):
@@ -25,13 +29,14 @@ class QuerySource(Source):
     record_repeats = False  # a poll that finds nothing new leaves no batch behind
 
     def __init__(self, url: str, query: str, params: Mapping[str, Any], columns: Sequence[str],
-                 chunk_rows: int, id_column: str | None = None):
+                 chunk_rows: int, id_column: str | None = None, timeout_seconds: float = 300.0):
         self.url = url
         self.query = query
         self.params = dict(params)
         self.columns = list(columns)
         self.id_column = id_column
         self.chunk_rows = max(1, int(chunk_rows))
+        self.timeout_seconds = timeout_seconds
         where = describe_url(url)
         self.label = f"query on {where}"
         self.location = f"sql: {where}: {' '.join(query.split())}"
@@ -43,28 +48,44 @@ class QuerySource(Source):
 
     def chunks(self) -> Iterator[RawChunk]:
         engine = open_engine(self.url, create=False)
+        where = describe_url(self.url)
         try:
             with engine.connect() as conn:
+                deadline = time.monotonic() + self.timeout_seconds
+                _limit_time(conn, self.timeout_seconds, deadline)
                 try:
                     result = conn.execution_options(stream_results=True,
                                                     yield_per=self.chunk_rows).execute(
                         text(self.query), self.params)
+                    if not result.returns_rows:
+                        raise InputError(f"the query on {where} returned no rows to read (is "
+                                         "it a SELECT?); the source's query must select the "
+                                         f"columns {', '.join(self.columns)}")
+                    names = list(result.keys())
+                    missing = [c for c in self.columns if c not in names]
+                    if missing:
+                        raise MissingColumnsError(missing, names, self.label)
+                    picks = [names.index(c) for c in self.columns]
+                    first = 1
+                    for part in result.partitions():
+                        yield self._chunk([tuple(row[i] for i in picks) for row in part], first)
+                        first += len(part)
                 except SQLAlchemyError as exc:
-                    cause = getattr(exc, "orig", None) or exc
-                    raise InputError(f"the query on {describe_url(self.url)} failed: "
-                                     f"{str(cause).strip().splitlines()[0]}") from exc
-                names = list(result.keys())
-                missing = [c for c in self.columns if c not in names]
-                if missing:
-                    raise MissingColumnsError(missing, names, self.label)
-                picks = [names.index(c) for c in self.columns]
-                first = 1
-                for part in result.partitions():
-                    yield self._chunk([tuple(row[i] for i in picks) for row in part], first)
-                    first += len(part)
+                    raise self._failed(exc, deadline) from exc
             self._done = True
         finally:
             engine.dispose()
+
+    def _failed(self, exc: SQLAlchemyError, deadline: float) -> InputError:
+        cause = getattr(exc, "orig", None) or exc
+        where = describe_url(self.url)
+        if (getattr(cause, "sqlstate", None) == _PG_QUERY_CANCELED
+                or time.monotonic() >= deadline):
+            return InputError(f"the query on {where} took longer than "
+                              f"{self.timeout_seconds:g} s and was cancelled (raise the "
+                              "source's timeout_seconds if it needs longer)")
+        return InputError(f"the query on {where} failed: "
+                          f"{str(cause).strip().splitlines()[0]}")
 
     def _chunk(self, rows: list[tuple[Any, ...]], first: int) -> RawChunk:
         texts = [", ".join(f"{c}={v}" for c, v in zip(self.columns, row, strict=True))
@@ -80,6 +101,16 @@ class QuerySource(Source):
             return [texts[i] for i in picked]
 
         return RawChunk(columns, lines, raw, (), len(rows))
+
+
+def _limit_time(conn: Connection, seconds: float, deadline: float) -> None:
+    """Cancel the query after ``seconds``: PostgreSQL's statement_timeout, or an SQLite
+    progress handler that interrupts the statement once the deadline has passed."""
+    if conn.dialect.name == "postgresql":
+        conn.exec_driver_sql(f"SET statement_timeout = {max(1, int(seconds * 1000))}")
+    elif conn.dialect.name == "sqlite":
+        driver_connection(conn).set_progress_handler(
+            lambda: int(time.monotonic() >= deadline), SQLITE_PROGRESS_STEPS)
 
 
 def _array(values: list[Any]) -> pa.Array:

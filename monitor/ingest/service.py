@@ -69,6 +69,7 @@ class IngestOptions:
     future_tolerance: timedelta
     chunk_rows: int
     progress: bool
+    earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
 
     def __post_init__(self) -> None:
         if self.now.tzinfo is None:
@@ -83,7 +84,8 @@ def options_for(settings: Settings, name: str, *, strict: bool = False, progress
     return IngestOptions(
         timezone=settings.timezone, ranges=settings.for_model(name).ranges, strict=strict,
         now=now or datetime.now(UTC), future_tolerance=settings.ingest.future_tolerance,
-        chunk_rows=settings.ingest.chunk_rows, progress=progress)
+        chunk_rows=settings.ingest.chunk_rows, progress=progress,
+        earliest_day=settings.ingest.earliest_day)
 
 
 # entry points -----------------------------------------------------------------------------------
@@ -131,23 +133,26 @@ def ingest_configured_source(settings: Settings, name: str, *, now: datetime | N
             model = get_model(conn, name)
         check_model_section(settings, model)
         return ingest_query(db, model, source.resolved_url(), source.query,
-                            options_for(settings, name, now=now))
+                            options_for(settings, name, now=now),
+                            timeout_seconds=source.timeout_seconds)
 
 
 def ingest_query(engine: Engine, model: ModelRecord, source_url: str, query: str,
-                 options: IngestOptions) -> IngestSummary:
+                 options: IngestOptions, *, timeout_seconds: float = 300.0) -> IngestSummary:
     """Ingest the rows of an SQL query against another database.
 
     The query may use ``:since``: the latest stored observation time of the model (an aware
     UTC datetime; 1970-01-01 when nothing is stored). Rows already stored are duplicates, so
-    an overlapping window (``>=``) is harmless.
+    an overlapping window (``>=``) is harmless. The query is cancelled after
+    ``timeout_seconds``.
     """
     from monitor.ingest.query import QuerySource
 
     with engine.connect() as conn:
         since = last_observed_at(conn, model) or datetime(1970, 1, 1, tzinfo=UTC)
     source = QuerySource(source_url, query, {"since": since}, model.columns,
-                         options.chunk_rows, id_column=model.id_column)
+                         options.chunk_rows, id_column=model.id_column,
+                         timeout_seconds=timeout_seconds)
     return ingest_source(engine, model, source, options)
 
 
@@ -185,7 +190,8 @@ def _open(model: ModelRecord, path: str | os.PathLike[str], options: IngestOptio
 # the work ---------------------------------------------------------------------------------------
 def _ingest(conn: Connection, model: ModelRecord, source: Source,
             options: IngestOptions) -> IngestSummary:
-    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance)
+    rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance,
+                  options.earliest_day)
     batch_id = start_batch(conn, model.id, source.location, source.content_hash(), source.size,
                            options.strict, options.now)
     tally = Tally()

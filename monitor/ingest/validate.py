@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, date, datetime, time, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
@@ -27,6 +27,14 @@ from monitor.ingest.readers import RawChunk
 from monitor.ingest.reasons import Rejection, quote_value
 
 KEY_LIMIT = 200  # characters of an id (the width of observations.obs_key)
+# The largest magnitude a number may have, whatever the configured ranges. The day statistics
+# and every window built from them hold sums of squares and cross products: over N rows whose
+# values are at most B in size, each is at most N * B**2 (centred or not), and the tests and
+# fits multiply two of them (e.g. Sxx * Syy), up to (N * B**2)**2. With N up to 1e12 rows in
+# a window and B = 1e60 that is 1e264, below the largest double (about 1.8e308, IEEE 754
+# binary64), so nothing a stored row can do overflows the statistics.
+MAGNITUDE_LIMIT = 1e60
+MAGNITUDE_ROWS = 1e12  # the row count the limit above is derived for
 _NUMBER = r"^[+-]?(([0-9]+[.]?[0-9]*|[.][0-9]+)([eE][+-]?[0-9]+)?|inf|infinity|nan)$"
 _ISO_START = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}"
 _ZONED = r"[0-9]{2}:[0-9]{2}(:[0-9]{2}([.,][0-9]*)?)?\s*([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)$"
@@ -34,8 +42,8 @@ _US = pa.timestamp("us")
 _US_UTC = pa.timestamp("us", tz="UTC")
 
 # reason codes in the order the checks run; a row gets the first that applies
-_CODES = ("", "empty_field", "not_a_number", "not_finite", "bad_time", "dst_gap",
-          "dst_ambiguous", "bad_id", "out_of_range", "future_time")
+_CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
+          "dst_ambiguous", "bad_id", "out_of_range", "future_time", "too_early")
 _C = {code: i for i, code in enumerate(_CODES)}
 
 
@@ -47,11 +55,17 @@ class Rules:
     ranges: Mapping[str, tuple[float, float]]
     now: datetime
     future_tolerance: timedelta
+    earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
 
     @property
     def latest_us(self) -> int:
         latest = (self.now + self.future_tolerance).astimezone(UTC)
         return (latest - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
+
+    @property
+    def earliest_us(self) -> int:
+        earliest = datetime.combine(self.earliest_day, time(), self.zone).astimezone(UTC)
+        return (earliest - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
 
 
 @dataclass(frozen=True, eq=False)
@@ -108,12 +122,16 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
     if spec.id_column:
         ids, bad = _ids(chunk.columns[spec.id_column])
         mark(bad, "bad_id", spec.id_column)
+    with np.errstate(invalid="ignore"):
+        for j, column in enumerate(numeric):
+            mark(np.abs(values[:, j]) > MAGNITUDE_LIMIT, "too_large", column)
     for j, column in enumerate(numeric):
         if column in rules.ranges:
             low, high = rules.ranges[column]
             with np.errstate(invalid="ignore"):
                 mark((values[:, j] < low) | (values[:, j] > high), "out_of_range", column)
     mark(observed_us > rules.latest_us, "future_time", spec.time_column)
+    mark(observed_us < rules.earliest_us, "too_early", spec.time_column)
 
     good = code == 0
     rejected = _describe(chunk, np.flatnonzero(~good), code, culprit, columns, values, numeric,
@@ -316,6 +334,9 @@ _DETAILS: dict[str, Callable[[str, Any, Rules], str]] = {
     "empty_field": lambda c, v, r: f"{c} is empty",
     "not_a_number": lambda c, v, r: f"{c} is {quote_value(v)}, not a number",
     "not_finite": lambda c, v, r: f"{c} is {quote_value(v)}; only finite numbers are allowed",
+    "too_large": lambda c, v, r: (f"{c} is {quote_value(v)}; numbers beyond ±{MAGNITUDE_LIMIT:g} "
+                                  "are refused, so that sums of squares over up to "
+                                  f"{MAGNITUDE_ROWS:g} rows stay finite"),
     "bad_time": lambda c, v, r: (f"{c} is {quote_value(v)}, not an ISO 8601 time such as "
                                  "2026-03-14 08:30 or 2026-03-14T08:30:00+01:00"),
     "dst_gap": lambda c, v, r: (f"{c} {_when(v)} does not exist in {r.zone.key} (the clocks "
@@ -326,6 +347,9 @@ _DETAILS: dict[str, Callable[[str, Any, Rules], str]] = {
                                f"{c} contains a NUL character" if "\x00" in str(v) else
                                f"{c} has {len(str(v).strip())} characters; at most "
                                f"{KEY_LIMIT} are allowed"),
+    "too_early": lambda c, v, r: (f"{c} {_when(v)} is before {r.earliest_day.isoformat()}, "
+                                  "the earliest plausible day (set ingest.earliest_day earlier "
+                                  "if the data really are that old)"),
     "future_time": lambda c, v, r: (f"{c} {_when(v)} is later than now "
                                     f"({r.now.astimezone(r.zone):%Y-%m-%d %H:%M %Z}) plus "
                                     f"{r.future_tolerance / timedelta(minutes=1):g} min"),

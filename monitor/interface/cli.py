@@ -201,10 +201,15 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--id", metavar="COL", help="observation id column")
     json_flag(rep)
 
-    send = command("alerts", "queue and send a night's alert e-mails (the daemon does this "
-                   "itself; for cron after 'check')", _cmd_alerts)
-    send.add_argument("--night", metavar="DATE", type=_day,
-                      help="the checked day to report (default: yesterday)")
+    send = command("alerts", "queue the alert e-mails of every checked night not yet queued "
+                   "and send what is due (the daemon does this itself; for cron after 'check')",
+                   _cmd_alerts)
+    which = send.add_mutually_exclusive_group()
+    which.add_argument("--night", metavar="DATE", type=_day,
+                       help="only this checked day's news (default: every night not yet queued)")
+    which.add_argument("--retry-failed", action="store_true",
+                       help="send the messages given up on back to the queue (with a fresh "
+                       "retry horizon), then send what is due")
     json_flag(send)
     dmn = command("daemon", "run the scheduled nightly work until stopped (SIGTERM: finish the "
                   "current model, then exit)", _cmd_daemon)
@@ -333,6 +338,13 @@ def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
     if failures:  # an internal failure of one model outranks a bad input of another
         return max(f.exit_code for f in failures)
     if args.fail_on:
+        from monitor.alerts.service import undelivered
+
+        trouble = undelivered(settings)
+        if trouble:  # the planners may not have heard of what the checks found
+            print(f"fitwatch: {trouble.sentence()}", file=sys.stderr)
+        if trouble.failed:
+            return EXIT_THRESHOLD
         rank = {"ok": 0, "watch": 1, "refit": 2}
         worst = outcome.worst_status()
         if worst is not None and rank[worst] >= rank[args.fail_on]:
@@ -349,8 +361,9 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
     elif not statuses:
         print("no models yet")
     else:
-        nightly = statuses[0].nightly
+        nightly, trouble = statuses[0].nightly, statuses[0].undelivered
         print("\n".join(([nightly.sentence()] if nightly else [])
+                        + ([trouble.sentence()] if trouble else [])
                         + [s.sentence() for s in statuses]))
     return EXIT_OK
 
@@ -429,12 +442,17 @@ def _cmd_transition(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.alerts.service import send_night_alerts
-    from monitor.domain.days import yesterday
+    from monitor.alerts.service import retry_failed, send_night_alerts, send_pending_alerts
 
     now = datetime.now(UTC)
-    night = args.night or yesterday(now, settings.timezone)
-    result = send_night_alerts(settings, night, now=now)
+    if args.retry_failed:
+        count = retry_failed(settings, now=now)
+        if not args.json:
+            print(f"{count} failed message(s) sent back to the queue")
+    if args.night:
+        result = send_night_alerts(settings, args.night, now=now)
+    else:
+        result = send_pending_alerts(settings, now=now)
     print(dumps(result.as_dict()) if args.json else result.sentence())
     return EXIT_OK
 
@@ -448,7 +466,12 @@ def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
     else:
         for run in runs:
             print(run.sentence())
-    return EXIT_OK
+    if not args.once:
+        return EXIT_OK
+    if not runs:  # the run itself failed (logged above)
+        print("fitwatch: the nightly run failed (see the log above)", file=sys.stderr)
+        return int(ExitCode.INTERNAL)
+    return runs[-1].exit_code()
 
 
 def _cmd_replay(args: argparse.Namespace, settings: Settings) -> int:

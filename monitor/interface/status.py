@@ -17,11 +17,12 @@ from monitor.domain.phrasing import fmt
 from monitor.domain.status import Status
 from monitor.domain.version import Version
 from monitor.runtime.schedule import NightlyState, nightly_state
-from monitor.store import lease
+from monitor.store import lease, outbox
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import days_with_rows, last_observed_at
+from monitor.store.outbox import Undelivered
 from monitor.store.versions import active_version
 
 QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
@@ -40,6 +41,7 @@ class ModelStatus:
     nightly: NightlyState | None = None  # None: no daemon has ever run on this database
     last_rows_day: date | None = None  # the latest day with stored rows
     sharpen: Sharpening | None = None  # refit a loosely pinned version on a longer window
+    undelivered: Undelivered | None = None  # alert messages failed or waiting (all models)
 
     def quiet_days(self) -> int:
         """Checked days since the latest day with rows (a feed that stopped shows here)."""
@@ -53,7 +55,8 @@ class ModelStatus:
                 "active_version": self.active_version, "behind_days": self.behind_days,
                 "last_rows_day": self.last_rows_day,
                 "sharpen": self.sharpen.as_dict() if self.sharpen else None,
-                "nightly": self.nightly.as_dict() if self.nightly else None}
+                "nightly": self.nightly.as_dict() if self.nightly else None,
+                "alerts_undelivered": self.undelivered.as_dict() if self.undelivered else None}
 
     def sentence(self) -> str:
         if self.status is None:
@@ -81,6 +84,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
         held = lease.read(conn)
         nightly = nightly_state(settings, held, now) if held else None
+        trouble = outbox.undelivered(conn)
         for model in models:
             last = last_check(conn, model.id, model=model.name)
             active = active_version(conn, model.id)
@@ -93,7 +97,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
                          if active.fit_start else 0)
                 advice = sharpen_advice(model.name, active, since)
             out.append(replace(status, nightly=nightly, last_rows_day=rows_day,
-                               sharpen=advice))
+                               sharpen=advice, undelivered=trouble or None))
     return out
 
 

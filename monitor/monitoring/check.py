@@ -36,6 +36,7 @@ from monitor.store.checks import (
     load_checks,
 )
 from monitor.store.engine import write_transaction
+from monitor.store.model_lock import model_lock
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
 from monitor.store.versions import scoring_versions
@@ -103,8 +104,9 @@ def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
     for model in models:
         try:
             check_model_section(settings, model)
-            result = check_model(engine, model, settings.for_model(model.name), end, now,
-                                 progress=progress)
+            with model_lock(engine, model.id, model.name):  # one checker per model
+                result = check_model(engine, model, settings.for_model(model.name), end, now,
+                                     progress=progress)
         except FitwatchError as exc:
             if names:
                 raise
@@ -154,7 +156,10 @@ def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end
         first = True
         while block_start <= end:
             block_end = min(end, block_start + timedelta(days=BLOCK_DAYS - 1))
-            with write_transaction(engine) as conn:
+            # one snapshot for the block: the rows and the day statistics (with the revision
+            # the check records) must describe the same state, or a day could be stored as
+            # checked at a revision whose rows it did not score
+            with write_transaction(engine, snapshot=True) as conn:
                 if first:
                     delete_checks_from(conn, model.id, start)
                     first = False

@@ -71,6 +71,9 @@ _STYLE: dict[RcKeyType, Any] = {
     "ytick.labelsize": 7,
     "figure.facecolor": "white",
     "savefig.facecolor": "white",
+    # labels are column and model names, never formulas: a name like "cost $ (net)" or
+    # "$x_1$" is drawn as typed instead of going to mathtext (which fails on most of them)
+    "text.parse_math": False,
 }
 
 

@@ -11,11 +11,8 @@ exits cleanly.
 from __future__ import annotations
 
 import logging
-import os
 import signal
-import socket
 import threading
-import uuid
 from collections.abc import Callable
 from datetime import UTC, datetime, timedelta
 from types import FrameType
@@ -24,9 +21,11 @@ from apscheduler.schedulers.background import BackgroundScheduler
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
+from monitor.alerts.service import send_due
 from monitor.config import Settings
 from monitor.domain.model import check_model_sections
 from monitor.errors import StateError
+from monitor.runtime.holder import gone_from_this_host, holder_name
 from monitor.runtime.nightly import NightRun, run_night
 from monitor.runtime.schedule import LATE_GRACE, LEASE_TTL, cron_trigger
 from monitor.store import lease
@@ -36,10 +35,7 @@ from monitor.store.models import list_models
 log = logging.getLogger(__name__)
 
 WAIT_POLL_SECONDS = 30.0
-
-
-def holder_name() -> str:
-    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+MAIL_RETRY_POLL = timedelta(minutes=5)  # the first backoff step; later ones are longer
 
 
 class NightlyWorker:
@@ -78,6 +74,18 @@ class NightlyWorker:
             finally:
                 lease.run_finished(self.engine, self.holder, self.clock(), status)
 
+    def retry_mail(self) -> None:
+        """Between nights: send the outbox rows whose retry is due (backoff of minutes to
+        hours), so a mail server that was away gets the night's news the same day."""
+        if self.stop.is_set() or not self._one_at_a_time.acquire(blocking=False):
+            return  # a night is running; it sends what is due itself
+        try:
+            send_due(self.settings, now=self.clock(), engine=self.engine, mailer=self.mailer)
+        except Exception:  # logged; the rows wait for the next try
+            log.exception("retrying the alert messages failed")
+        finally:
+            self._one_at_a_time.release()
+
     def heartbeat(self) -> None:
         try:
             alive = lease.renew(self.engine, self.holder, self.clock(), self.ttl)
@@ -111,6 +119,8 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
             scheduler.add_job(worker.heartbeat, "interval",
                               seconds=max(ttl.total_seconds() / 4, 0.05), id="heartbeat")
             if not once:
+                scheduler.add_job(worker.retry_mail, "interval",
+                                  seconds=MAIL_RETRY_POLL.total_seconds(), id="mail")
                 scheduler.add_job(worker.run_once, cron_trigger(settings), id="night",
                                   max_instances=1, coalesce=True,
                                   misfire_grace_time=int(LATE_GRACE.total_seconds()))
@@ -135,13 +145,23 @@ def _wait_for_lease(worker: NightlyWorker, once: bool, poll_seconds: float) -> b
         with worker.engine.connect() as conn:
             state = lease.read(conn)
         other = state.holder if state else "another instance"
+        if state and state.holder and gone_from_this_host(state.holder):
+            log.warning("the lease holder %s is no longer running on this host (killed or "
+                        "crashed); taking the lease over", state.holder)
+            if lease.take_over(worker.engine, state.holder, worker.holder, worker.clock(),
+                               worker.ttl):
+                return True
+            continue  # someone else was quicker; look again
+        expires = (f"{state.expires_at:%Y-%m-%d %H:%M:%S} UTC" if state and state.expires_at
+                   else "when it is released")
         if once:
             raise StateError(f"another fitwatch daemon ({other}) holds this database's lease "
-                             "and runs the nights; nothing done (stop that daemon, or let it "
-                             "do the run)")
+                             f"until {expires} and runs the nights; nothing done (stop that "
+                             "daemon or let it do the run; a daemon that died on another "
+                             "host frees the lease when it expires, one on this host at once)")
         if other != said:
-            log.warning("waiting for the lease held by %s (expires %s)", other,
-                        state.expires_at if state else "?")
+            log.warning("waiting for the lease held by %s (it expires %s unless renewed)",
+                        other, expires)
             said = other
         if worker.stop.wait(poll_seconds):
             return False

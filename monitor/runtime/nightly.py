@@ -5,7 +5,8 @@ daemon --once`` calls it from cron. Everything it needs to know comes from the d
 record, so a machine that was off for a week catches up the whole week. Models are checked one
 at a time: a stop request (SIGTERM) is honoured between models, and one model's failure is
 logged with its traceback, written to the audit log and does not stop the others. Alerts go out
-for each newly checked night, oldest first, so news in the middle of a catch-up is not lost.
+for every stored check not yet queued, night by night, oldest first, so news in the middle of a
+catch-up is not lost, nor the news of a run that died after checking and before queueing.
 """
 
 from __future__ import annotations
@@ -19,16 +20,15 @@ from typing import Any
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import Mailer
-from monitor.alerts.service import AlertRun, queue_night, send_due
+from monitor.alerts.service import AlertRun, queue_pending, send_due
 from monitor.config import Settings
 from monitor.domain.days import yesterday
-from monitor.errors import Failure, describe
+from monitor.errors import ExitCode, Failure, describe
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
 from monitor.monitoring.check import CheckOutcome, ModelCheck, run_checks
 from monitor.store import audit
-from monitor.store.checks import last_check
 from monitor.store.engine import write_transaction
 from monitor.store.models import find_model, list_models
 
@@ -46,7 +46,7 @@ class NightRun:
     sweep: Sweep
     sources: tuple[IngestSummary, ...]  # rows pulled from models' SQL sources
     checks: CheckOutcome
-    nights: tuple[date, ...]  # newly checked nights (their alerts were queued)
+    nights: tuple[date, ...]  # nights whose alerts this run queued (checked by it or before)
     alerts: AlertRun | None  # None: the alerts failed (see problems)
     stopped: bool  # a stop request ended the run early
     problems: tuple[str, ...] = ()  # inbox or SQL source failures (checks still ran)
@@ -57,7 +57,19 @@ class NightRun:
 
     @property
     def status(self) -> str:
-        return STOPPED if self.stopped else PARTIAL if self.failures or self.problems else OK
+        gave_up = self.alerts is not None and self.alerts.failed > 0
+        return (STOPPED if self.stopped
+                else PARTIAL if self.failures or self.problems or gave_up else OK)
+
+    def exit_code(self) -> int:
+        """For ``daemon --once`` (cron): 0 when all went through (or a stop request ended the
+        run); else the worst failure's code, 2 for a bug in a model's check, else 1."""
+        if self.status != PARTIAL:
+            return int(ExitCode.OK)
+        codes = [int(r.failure.exit_code) for r in self.failures if r.failure]
+        if self.problems or (self.alerts is not None and self.alerts.failed):
+            codes.append(int(ExitCode.INPUT))
+        return max(codes)
 
     def as_dict(self) -> dict[str, Any]:
         return {"started_at": self.started_at, "through": self.through, "status": self.status,
@@ -83,7 +95,9 @@ class NightRun:
         parts.extend(self.problems)
         if self.alerts is not None:
             parts.append(f"{self.alerts.queued} alert message(s) queued, "
-                         f"{self.alerts.sent} sent")
+                         f"{self.alerts.sent} sent"
+                         + (f", {self.alerts.failed} given up (see 'fitwatch status')"
+                            if self.alerts.failed else ""))
         if self.stopped:
             parts.append("stopped early on request")
         return "; ".join(parts)
@@ -92,7 +106,7 @@ class NightRun:
 def run_night(settings: Settings, engine: Engine, *, now: datetime,
               mailer: Mailer | None = None, actor: str = "daemon",
               should_stop: Callable[[], bool] = lambda: False) -> NightRun:
-    """Sweep, check every model through yesterday, then alert per newly checked night."""
+    """Sweep, check every model through yesterday, then alert per night not yet queued."""
     through = yesterday(now, settings.timezone)
     problems: list[str] = []  # failures outside a model's check (inbox, SQL sources)
     try:
@@ -106,42 +120,41 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
     stopped = False
     with engine.connect() as conn:
         names = [m.name for m in list_models(conn)]
-    nights: set[date] = set()
     pulled: list[IngestSummary] = []
     for name in names:
         if should_stop():
             stopped = True
             break
-        before = _last_checked(engine, name)
         pulled.extend(_pull_source(settings, engine, name, now, actor, problems))
         outcome = _check_one(settings, engine, name, through, now, actor)
         results.extend(outcome.results)
-        # rechecked old days (late rows) were reported on their own night already
-        nights.update(c.day for c in outcome.checks if before is None or c.day > before)
-    alerts = _alert(settings, engine, sorted(nights), now, mailer, actor, problems)
+    done = _alert(settings, engine, now, mailer, actor, problems)
+    alerts, nights = done if done is not None else (None, ())
     return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
-                    tuple(sorted(nights)), alerts, stopped, tuple(problems))
+                    nights, alerts, stopped, tuple(problems))
 
 
-def _alert(settings: Settings, engine: Engine, nights: list[date], now: datetime,
-           mailer: Mailer | None, actor: str, problems: list[str]) -> AlertRun | None:
-    """Queue each new night's digests, oldest first, then send everything that is due.
+def _alert(settings: Settings, engine: Engine, now: datetime, mailer: Mailer | None,
+           actor: str, problems: list[str]) -> tuple[AlertRun, tuple[date, ...]] | None:
+    """Queue every checked night not yet queued, oldest first, then send everything due.
 
-    Queueing comes first and apart from sending, so a transport that fails (no SMTP password,
-    a folder that cannot be written) loses no night: its messages wait in the outbox and go
-    out on a later run, once each. Failures are recorded and do not fail the checks.
+    What to queue comes from the stored checks (``queued_nights``), so the nights of a run that
+    died after its checks committed are queued by the next one; rechecked old days (late rows)
+    keep their mark and are not reported twice. Queueing comes first and apart from sending, so
+    a transport that fails (no SMTP password, a folder that cannot be written) loses no night:
+    its messages wait in the outbox and go out on a later run, once each. Failures are
+    recorded and do not fail the checks.
     """
-    queued = 0
     try:
-        for night in nights:
-            queued += queue_night(settings, night, now=now, engine=engine)
+        queued = queue_pending(settings, now=now, engine=engine)
         sent = send_due(settings, now=now, engine=engine, mailer=mailer)
     except Exception as exc:
         log.exception("the alerts could not all go out")
         problems.append(f"alerts: {describe(exc)}")
         _record_failure(engine, None, describe(exc), now, actor, stage="alerts")
         return None
-    return replace(sent, night=nights[-1] if nights else None, queued=queued)
+    night = queued.nights[-1] if queued.nights else None
+    return replace(sent, night=night, queued=queued.queued), queued.nights
 
 
 def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, actor: str,
@@ -156,13 +169,6 @@ def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, a
         problems.append(f"{name} source: {describe(exc)}")
         _record_failure(engine, name, describe(exc), now, actor, stage="source")
         return []
-
-
-def _last_checked(engine: Engine, name: str) -> date | None:
-    with engine.connect() as conn:
-        model = find_model(conn, name)
-        last = last_check(conn, model.id) if model else None
-    return last.day if last else None
 
 
 def _check_one(settings: Settings, engine: Engine, name: str, through: date, now: datetime,

@@ -14,6 +14,7 @@ from apscheduler.triggers.cron import CronTrigger
 
 from monitor.config import Settings
 from monitor.domain.days import local_time
+from monitor.runtime.holder import gone_from_this_host
 from monitor.store import lease
 
 LEASE_TTL = timedelta(minutes=10)
@@ -36,12 +37,27 @@ class NightlyState:
     due: datetime | None  # the latest scheduled time that has passed
     late: bool
     daemon_alive: bool
+    holder: str | None = None  # who holds the lease (host:pid:tag)
+    lease_expires: datetime | None = None  # unless the holder renews it
+    holder_gone: bool = False  # the holder's process no longer exists on this host
 
     def as_dict(self) -> dict[str, Any]:
         return {"last_run_started_at": self.last_started,
                 "last_run_finished_at": self.last_finished,
                 "last_run_status": self.last_status, "due": self.due, "late": self.late,
-                "daemon_alive": self.daemon_alive}
+                "daemon_alive": self.daemon_alive, "lease_holder": self.holder,
+                "lease_expires_at": self.lease_expires, "lease_holder_gone": self.holder_gone}
+
+    def _daemon(self) -> str:
+        if self.holder_gone:
+            return (f"daemon not running (its process {self.holder} is gone; its lease would "
+                    f"expire {self.lease_expires:%Y-%m-%d %H:%M %Z}; a new daemon on this host "
+                    "takes it over at once)")
+        if self.daemon_alive:
+            until = (f", lease until {self.lease_expires:%Y-%m-%d %H:%M %Z}"
+                     if self.lease_expires else "")
+            return f"daemon running ({self.holder}{until})"
+        return "daemon not running"
 
     def sentence(self) -> str:
         when = (self.last_finished or self.last_started)
@@ -49,8 +65,8 @@ class NightlyState:
                 else "no nightly run yet")
         if self.late:
             return (f"LATE: the nightly run due {self.due:%Y-%m-%d %H:%M %Z} has not started; "
-                    f"{done}; daemon {'running' if self.daemon_alive else 'not running'}")
-        return f"{done}; daemon {'running' if self.daemon_alive else 'not running'}"
+                    f"{done}; {self._daemon()}")
+        return f"{done}; {self._daemon()}"
 
 
 def nightly_state(settings: Settings, state: lease.LeaseState, now: datetime) -> NightlyState:
@@ -60,11 +76,14 @@ def nightly_state(settings: Settings, state: lease.LeaseState, now: datetime) ->
     started = state.last_run_started_at
     late = due is not None and now - due > LATE_GRACE and (started is None or started < due)
     beat = state.heartbeat_at
-    alive = state.holder is not None and beat is not None and \
+    gone = gone_from_this_host(state.holder)
+    alive = state.holder is not None and beat is not None and not gone and \
         now - beat < STALE_HEARTBEATS * LEASE_TTL / 4 + timedelta(minutes=1)
-
+    held = state.holder is not None and state.expires_at is not None
     return NightlyState(local_time(started, zone), local_time(state.last_run_finished_at, zone),
-                        state.last_run_status, local_time(due, zone), late, alive)
+                        state.last_run_status, local_time(due, zone), late, alive,
+                        state.holder, local_time(state.expires_at, zone) if held else None,
+                        gone)
 
 
 def last_scheduled(trigger: CronTrigger, since: datetime, now: datetime) -> datetime | None:

@@ -8,7 +8,7 @@ from contextlib import contextmanager
 from sqlalchemy import Engine
 
 from monitor.config import Settings
-from monitor.store.engine import open_engine, require_current
+from monitor.store.engine import open_engine, require_current, warn_if_shared
 
 
 @contextmanager
@@ -21,6 +21,7 @@ def database(settings: Settings, engine: Engine | None = None) -> Iterator[Engin
     opened = open_engine(settings.database_url, create=False)
     try:
         require_current(opened)
+        warn_if_shared(opened)
         yield opened
     finally:
         opened.dispose()

@@ -22,16 +22,18 @@ from pathlib import Path
 from typing import Any
 
 from alembic import command
+from alembic.autogenerate import compare_metadata
 from alembic.config import Config
 from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from alembic.util import CommandError
-from sqlalchemy import Connection, Engine, create_engine, event
+from sqlalchemy import Connection, Engine, create_engine, event, func, inspect, select
 from sqlalchemy.engine import URL, ExceptionContext, make_url
 from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
 
 from monitor.config import Settings
 from monitor.errors import DatabaseError
+from monitor.store.schema import metadata
 
 log = logging.getLogger(__name__)
 
@@ -162,16 +164,22 @@ def _sqlite_engine(url: URL, create: bool) -> Engine:
 
 
 @contextmanager
-def write_transaction(engine: Engine, *, foreign_keys: bool = True) -> Iterator[Connection]:
+def write_transaction(engine: Engine, *, foreign_keys: bool = True,
+                      snapshot: bool = False) -> Iterator[Connection]:
     """A connection in a transaction meant to write; committed on success, rolled back on error.
 
     On SQLite the transaction takes the write lock at once (``BEGIN IMMEDIATE``), so two
-    writers queue on the busy timeout instead of failing when one upgrades a read lock.
+    writers queue on the busy timeout instead of failing when one upgrades a read lock; every
+    read in it sees one state of the database. ``snapshot=True`` gives PostgreSQL the same:
+    REPEATABLE READ, so all statements read the snapshot of the first one (under the default
+    READ COMMITTED, each statement sees what committed before it began).
     ``foreign_keys=False`` skips SQLite's per-row reference checks for bulk writes whose
     parents the caller has verified inside the transaction (the write lock keeps them there).
     """
     with engine.connect() as conn:
         conn.execution_options(**{_IMMEDIATE: True})
+        if snapshot and conn.dialect.name == "postgresql":
+            conn.execution_options(isolation_level="REPEATABLE READ")
         relax = not foreign_keys and conn.dialect.name == "sqlite"
         if relax:
             driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
@@ -209,8 +217,28 @@ def driver_cursor(conn: Connection) -> Iterator[Any]:
         cursor.close()
 
 
+def warn_if_shared(engine: Engine) -> None:
+    """Log a warning when the SQLite database file can be read or written by other users.
+
+    fitwatch creates the file owner-only (0600); a file that existed before, or was copied,
+    keeps its mode, and the database holds the observations and the audit log. Not changed
+    behind the user's back: a group may share it on purpose.
+    """
+    path = sqlite_path(engine.url) if engine.dialect.name == "sqlite" else None
+    if path is None:
+        return
+    try:
+        mode = path.stat().st_mode & 0o777
+    except OSError:
+        return
+    if mode & 0o077:
+        log.warning("the database file %s can be read by other users (mode %04o); unless that "
+                    "is intended, make it owner-only: chmod 600 %s", path, mode, path)
+
+
 # migrations -------------------------------------------------------------------------------------
 SCRIPT_LOCATION = "monitor:migrations"  # a package resource: found wherever monitor is installed
+MIGRATION_LOCK = 0x66776D67  # pg_advisory_xact_lock key serialising upgrades ("fwmg")
 
 
 def alembic_config() -> Config:
@@ -245,6 +273,8 @@ def upgrade_database(engine: Engine) -> str:
                 driver_connection(conn).execute("PRAGMA foreign_keys = OFF")
             try:
                 with conn.begin():
+                    if not sqlite:  # two inits at once: the second waits, then finds head
+                        conn.execute(select(func.pg_advisory_xact_lock(MIGRATION_LOCK)))
                     config.attributes["connection"] = conn
                     command.upgrade(config, "head")
                     if sqlite:
@@ -281,6 +311,11 @@ def require_current(engine: Engine) -> None:
     if current == head:
         return
     if current is None:
+        if _has_our_tables(engine):
+            raise DatabaseError(f"the database ({where}) has fitwatch's tables but no record of "
+                                "their schema revision (the alembic_version table is missing); "
+                                "run 'fitwatch init': it compares the tables with this "
+                                "version's schema and records the revision when they match")
         raise DatabaseError(f"the database ({where}) is not set up; run 'fitwatch init'")
     known = {script.revision for script in
              ScriptDirectory.from_config(alembic_config()).walk_revisions()}
@@ -299,12 +334,16 @@ class InitResult:
     revision: str
     previous: str | None
     location: str
+    recorded: bool = False  # the tables were there; only the lost revision record was written
 
     @property
     def changed(self) -> bool:
         return self.previous != self.revision
 
     def sentence(self) -> str:
+        if self.recorded:
+            return (f"database tables match revision {self.revision}; recorded it (the "
+                    f"revision record was missing) ({self.location})")
         if self.previous is None:
             return f"database created at revision {self.revision} ({self.location})"
         if self.changed:
@@ -314,14 +353,55 @@ class InitResult:
 
 
 def init_database(settings: Settings) -> InitResult:
-    """Create the database or upgrade it to the newest revision; safe to run any number of times."""
+    """Create the database or upgrade it to the newest revision; safe to run any number of times.
+
+    A database whose tables exist without their revision record (the ``alembic_version``
+    table lost, e.g. dropped by hand or left out of a partial restore) is compared with this
+    version's schema: when nothing differs the revision is recorded, else the differences are
+    named, instead of failing on "table already exists".
+    """
     engine = open_engine(settings.database_url)
     try:
+        warn_if_shared(engine)
         previous = current_revision(engine)
+        if previous is None and _has_our_tables(engine):
+            return _record_lost_revision(engine)
         revision = upgrade_database(engine)
         return InitResult(revision, previous, describe_url(engine.url))
     finally:
         engine.dispose()
+
+
+def _has_our_tables(engine: Engine) -> bool:
+    try:
+        names = set(inspect(engine).get_table_names())
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+    return bool(names & {t.name for t in metadata.sorted_tables})
+
+
+def _record_lost_revision(engine: Engine) -> InitResult:
+    where = describe_url(engine.url)
+    try:
+        with engine.connect() as conn:
+            context = MigrationContext.configure(conn, opts={"compare_type": True})
+            differences = compare_metadata(context, metadata)
+    except SQLAlchemyError as exc:
+        raise _db_error(engine, exc) from exc
+    if differences:
+        shown = "; ".join(str(d) for d in differences[:5])
+        raise DatabaseError(f"the database ({where}) has fitwatch tables but no record of their "
+                            f"schema revision, and they differ from this version's schema "
+                            f"({len(differences)} difference(s): {shown}); restore it from a "
+                            "backup, or point --db at another database")
+    head = head_revision()
+    config = alembic_config()
+    with engine.connect() as conn, conn.begin():
+        config.attributes["connection"] = conn
+        command.stamp(config, head)
+    log.warning("recorded schema revision %s for %s (its revision record was missing and the "
+                "tables match)", head, where)
+    return InitResult(head, None, where, recorded=True)
 
 
 # database failures ----------------------------------------------------------------------------

@@ -3,7 +3,8 @@
 A lease is one row of ``scheduler_lease``. Taking it is a single conditional UPDATE (free,
 expired, or already ours), so two workers racing on SQLite or PostgreSQL cannot both win; the
 holder renews it with each heartbeat and clears it when it stops. A worker that dies without
-clearing it loses the lease when it expires.
+clearing it loses the lease when it expires, or at once to an instance on the same host that
+sees the holder's process is gone (:func:`take_over`).
 """
 
 from __future__ import annotations
@@ -59,6 +60,17 @@ def try_acquire(engine: Engine, holder: str, now: datetime, ttl: timedelta,
             .where(c.name == name,
                    or_(c.holder.is_(None), c.expires_at.is_(None), c.expires_at <= now,
                        c.holder == holder))
+            .values(holder=holder, acquired_at=now, expires_at=now + ttl, heartbeat_at=now))
+        return taken.rowcount == 1
+
+
+def take_over(engine: Engine, gone: str, holder: str, now: datetime, ttl: timedelta,
+              name: str = NIGHTLY) -> bool:
+    """Take the lease from ``gone`` (a holder known to be dead), if it still holds it."""
+    c = scheduler_lease.c
+    with write_transaction(engine) as conn:
+        taken = conn.execute(
+            update(scheduler_lease).where(c.name == name, c.holder == gone)
             .values(holder=holder, acquired_at=now, expires_at=now + ttl, heartbeat_at=now))
         return taken.rowcount == 1
 

@@ -231,6 +231,17 @@ outbox = Table(
     Column("created_at", UtcDateTime, nullable=False),
     Column("next_attempt_at", UtcDateTime, nullable=False),
     Column("sent_at", UtcDateTime),
+    # the retry horizon counts from here: queueing, or the last 'alerts --retry-failed'
+    Column("retry_since", UtcDateTime),
+)
+
+# which (model, night) checks the alerts have considered: a check without a row here is news
+# not yet queued, whatever process made it (rows are kept when late rows recheck the day)
+queued_nights = Table(
+    "queued_nights", metadata,
+    Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), primary_key=True),
+    Column("day", Date, primary_key=True),
+    Column("queued_at", UtcDateTime, nullable=False),
 )
 
 audit_log = Table(

@@ -16,6 +16,7 @@ from tests.support.mail import (
     SMTP_PASSWORD,
     SMTP_USER,
     Authenticator,
+    FaultyHandler,
     Handler,
     RecordingMailer,
     SmtpServer,
@@ -31,17 +32,23 @@ def recording() -> RecordingMailer:
 
 @pytest.fixture
 def smtp_server() -> Iterator[StartServer]:
-    """``smtp_server(auth=False, starttls=None, implicit=None, port=None)`` starts a server on
-    127.0.0.1; ``starttls``/``implicit`` take a server-side SSLContext. Stopped after the test."""
+    """``smtp_server(auth=False, starttls=None, implicit=None, port=None, script=None,
+    password=SMTP_PASSWORD, without=())`` starts a server on 127.0.0.1. ``script``: the
+    scripted faults of ``FaultyHandler``; ``password``: the one AUTH accepts for SMTP_USER;
+    ``without``: AUTH mechanisms not offered; ``starttls``/``implicit`` take a server-side
+    SSLContext. Stopped after the test."""
     started: list[Controller] = []
 
     def start(*, auth: bool = False, starttls: ssl.SSLContext | None = None,
-              implicit: ssl.SSLContext | None = None, port: int | None = None) -> SmtpServer:
-        handler = Handler()
-        authenticator = Authenticator(SMTP_USER, SMTP_PASSWORD) if auth else None
+              implicit: ssl.SSLContext | None = None, port: int | None = None,
+              script: list[str] | None = None, password: str = SMTP_PASSWORD,
+              without: tuple[str, ...] = ()) -> SmtpServer:
+        handler = Handler() if script is None else FaultyHandler(script)
+        authenticator = Authenticator(SMTP_USER, password) if auth else None
         kwargs: dict[str, Any] = {}
         if authenticator is not None:
-            kwargs.update(authenticator=authenticator, auth_require_tls=starttls is not None)
+            kwargs.update(authenticator=authenticator, auth_require_tls=starttls is not None,
+                          auth_exclude_mechanism=list(without))
         if starttls is not None:
             kwargs.update(tls_context=starttls, require_starttls=True)
         if implicit is not None:

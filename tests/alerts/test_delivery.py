@@ -27,7 +27,7 @@ from monitor.alerts import service
 from monitor.alerts.mailer import SmtpMailer, scrub
 from monitor.alerts.service import (
     CLAIM_SECONDS,
-    MAX_ATTEMPTS,
+    RETRY_FOR,
     backoff,
     send_due,
     send_night_alerts,
@@ -162,23 +162,29 @@ def test_crash_inside_a_send_leaves_the_row_claimed_until_the_claim_expires(
     assert (row.status, row.attempts) == ("sent", 1)
 
 
-def test_backoff_doubles_to_a_cap_and_gives_up_after_max_attempts(
+def test_backoff_doubles_to_a_cap_and_gives_up_only_after_days(
         world: World, recording: RecordingMailer) -> None:
+    """RFC 5321 §4.5.4.1: the give-up time "generally needs to be at least 4-5 days"; before,
+    the outbox gave up after 10 attempts, about a day, so a weekend outage lost the alerts."""
+    assert timedelta(days=4) <= RETRY_FOR
     assert [backoff(n) for n in (1, 2, 3, 4, 7, 8, 20)] == [
         timedelta(minutes=m) for m in (5, 10, 20, 40, 320, 360, 360)]
     recording.fail_with = down()
-    now = night_after(NIGHT)
-    send_night_alerts(world.settings, NIGHT, now=now, engine=world.engine, mailer=recording)
-    for _ in range(MAX_ATTEMPTS - 1):
+    queued = night_after(NIGHT)
+    send_night_alerts(world.settings, NIGHT, now=queued, engine=world.engine, mailer=recording)
+    tries = [queued]
+    while True:
         (row,) = _rows(world.engine)
-        assert row.status == "pending"
+        if row.status != "pending":
+            break
         run = send_due(world.settings, now=row.next_attempt_at, engine=world.engine,
                        mailer=recording)
-        now = row.next_attempt_at
-    (row,) = _rows(world.engine)
-    assert (row.status, row.attempts, run.failed) == ("failed", MAX_ATTEMPTS, 1)
+        tries.append(row.next_attempt_at)
+    assert (row.status, run.failed) == ("failed", 1)
+    assert tries[-2] - queued < RETRY_FOR <= tries[-1] - queued  # kept trying for 5 days
+    assert row.attempts == len(tries) > 20  # not 10 attempts in a day
     assert row.last_error == "connection refused (test)"
-    assert send_due(world.settings, now=now + timedelta(days=7), engine=world.engine,
+    assert send_due(world.settings, now=tries[-1] + timedelta(days=7), engine=world.engine,
                     mailer=recording).sent == 0
 
 

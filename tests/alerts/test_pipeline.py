@@ -21,7 +21,7 @@ import pytest
 from sqlalchemy import Engine
 
 from monitor.alerts.mailer import DeliveryError, EmlFolderMailer
-from monitor.alerts.service import send_night_alerts
+from monitor.alerts.service import send_night_alerts, send_pending_alerts
 from monitor.config import Settings
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import promote
@@ -186,3 +186,37 @@ def test_eml_folder_write_is_atomic_and_idempotent(tmp_path: Path) -> None:
     blocked.write_text("a file, not a folder")
     with pytest.raises(DeliveryError, match="cannot write"):
         EmlFolderMailer(blocked).send(msg, key="k")
+
+
+def test_a_model_checked_after_its_night_was_mailed_gets_its_own_digest(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    """Queueing follows the stored checks: a check stored after the night's digest went out
+    (the model failed that night and was checked on a later run) is still news, once."""
+    models = {MODEL: WORDS[MODEL], "yard_moves": {}}
+    settings = _settings(make_settings, engine, tmp_path, models)
+    World(engine, settings, tmp_path)
+    fit_model(settings, FitRequest("yard_moves", tmp_path / "history.csv", "load_minutes",
+                                   ("pallets",), "docked_at", "load_id"),
+              now=night_after(date(2026, 3, 8)), engine=engine, actor="test")
+    night = date(2026, 3, 20)
+
+    def store(name: str, status: str) -> None:
+        with engine.begin() as conn:
+            model = get_model(conn, name)
+            version = active_version(conn, model.id)
+            assert version is not None
+            insert_checks(conn, [day_check(night, status, night, model_id=model.id,
+                                           version_id=version.id, model=name)])
+
+    store(MODEL, "watch")
+    first = send_pending_alerts(settings, now=night_after(night), engine=engine)
+    store("yard_moves", "refit")
+    second = send_pending_alerts(settings, now=night_after(night), engine=engine)
+    third = send_pending_alerts(settings, now=night_after(night), engine=engine)
+    assert (first.queued, second.queued, third.queued) == (1, 1, 0)
+    with engine.connect() as conn:
+        keys = [r.dedupe_key for r in outbox.rows(conn)]
+        subjects = [r.subject for r in outbox.rows(conn)]
+    assert keys[0] == f"night/2026-03-20/{LEAD}" and keys[1].startswith("night+")
+    assert subjects == ["fitwatch: dock_loading is on watch",
+                        "fitwatch: yard_moves needs a refit"]

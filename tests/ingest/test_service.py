@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import time
 from datetime import date, datetime, timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -292,3 +293,64 @@ def test_a_database_error_leaves_inbox_files_where_they_are(store: Store, tmp_pa
 def test_options_validate() -> None:
     with pytest.raises(ValueError, match="aware"):
         IngestOptions(BERLIN, {}, False, datetime(2026, 1, 1), timedelta(0), 10, False)
+
+
+@pytest.mark.parametrize("query", [
+    "UPDATE loads SET pallets = pallets",  # runs, but returns no result set
+    "CREATE TABLE scratch (a INTEGER)",  # DDL on SQLite
+    "DELETE FROM loads WHERE 0"])
+def test_a_source_query_without_rows_is_a_clear_error(store: Store, tmp_path: Path,
+                                                      query: str) -> None:
+    """Before: ResourceClosedError (a traceback) from reading the columns of no result."""
+    from monitor.errors import InputError
+    url = f"sqlite:///{tmp_path / 'erp.db'}"
+    _demo_rows(3, 12).to_sql("loads", url, index=False)
+    with pytest.raises(InputError, match=r"returned no rows to read \(is it a SELECT\?\)"):
+        ingest_query(store.engine, store.loads, url, query, _options(store))
+
+
+def test_a_slow_sqlite_source_is_cancelled_after_its_timeout(store: Store,
+                                                            tmp_path: Path) -> None:
+    from monitor.errors import InputError
+    url = f"sqlite:///{tmp_path / 'erp.db'}"
+    _demo_rows(3, 13).to_sql("loads", url, index=False)
+    endless = ("WITH RECURSIVE n(i) AS (SELECT 1 UNION ALL SELECT i + 1 FROM n "
+               "WHERE i < 1000000000000) SELECT load_id, docked_at, pallets, load_minutes "
+               "FROM loads, (SELECT max(i) AS m FROM n)")
+    started = time.monotonic()
+    with pytest.raises(InputError, match="took longer than 1 s and was cancelled"):
+        ingest_query(store.engine, store.loads, url, endless, _options(store),
+                     timeout_seconds=1.0)
+    assert time.monotonic() - started < 10  # before: no limit at all
+
+
+@pytest.mark.postgres
+def test_a_slow_postgresql_source_is_cancelled_after_its_timeout(
+        store: Store, postgres_url: str) -> None:
+    from monitor.errors import InputError
+    sleepy = ("SELECT 'L1' AS load_id, '2026-03-02 08:00' AS docked_at, 3 AS pallets, "
+              "30.0 AS load_minutes FROM (SELECT pg_sleep(20)) AS s")
+    started = time.monotonic()
+    with pytest.raises(InputError, match="took longer than 1 s and was cancelled"):
+        ingest_query(store.engine, store.loads, postgres_url, sleepy, _options(store),
+                     timeout_seconds=1.0)
+    assert time.monotonic() - started < 10  # PostgreSQL's statement_timeout cancelled it
+
+
+def test_implausibly_old_times_are_rejected_with_the_window(store: Store) -> None:
+    """Years 0001 and 1900 were stored as observation times; now the plausible window starts
+    at ingest.earliest_day (default 1990-01-01, in the configured zone, Europe/Berlin here)."""
+    path = store.write("old.csv", csv_text("L1,0001-01-01 08:00,10,31.5,D1",
+                                           "L2,1900-03-02 09:00,12,35,D2",
+                                           "L3,1989-12-31 23:59,12,35,D2",
+                                           "L4,1990-01-01 00:00,12,35,D2",
+                                           "L5,2026-03-02 09:00,12,35,D2"))
+    summary = ingest_file(store.engine, store.loads, path, _options(store))
+    assert (summary.accepted, summary.rejected) == (2, 3)
+    assert summary.reasons == {"too_early": 3}
+    with store.engine.connect() as conn:
+        (first, *_) = rejected_rows_of(conn, summary.batch_id)
+    assert first.line == 2 and "before 1990-01-01, the earliest plausible day" in first.detail
+    older = _options(store, earliest_day=date(1900, 1, 1))
+    again = ingest_file(store.engine, store.loads, path, older)
+    assert (again.accepted, again.rejected) == (2, 1)  # 1900 and 1989 now; 0001 still not

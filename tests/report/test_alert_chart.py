@@ -11,10 +11,18 @@ import io
 from dataclasses import replace
 
 import numpy as np
+import pytest
 from PIL import Image
 
 from monitor.domain.check import DayCheck
-from monitor.report.charts import ALERT_SIZE, ChartPanel, alert_chart_png, digest_chart_png
+from monitor.report.charts import (
+    ALERT_SIZE,
+    ChartPanel,
+    _figure,
+    alert_chart_png,
+    digest_chart_png,
+    png_bytes,
+)
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from tests.support.png import png_size
@@ -61,3 +69,18 @@ def test_digest_chart_stacks_one_pair_of_panels_per_model(changed: World) -> Non
     with Image.open(io.BytesIO(data)) as image:  # Pillow as an independent decoder
         assert image.size == (ALERT_SIZE[0], 3 * ALERT_SIZE[1])
     assert digest_chart_png(panels[:1]) == alert_chart_png(checks, 0.95)
+
+
+@pytest.mark.parametrize("name", ["cost $ (net) per $", "$\\undefined{x}$", "pallets$_{2}"])
+def test_names_with_dollar_signs_are_drawn_as_plain_text(name: str) -> None:
+    """Column and model names go onto the charts as typed: matplotlib's mathtext would parse
+    "$...$" as a formula and fail on most names (matplotlib's ``text.parse_math`` rcParam)."""
+    with _figure((400, 300)) as fig:
+        ax = fig.add_subplot()
+        ax.plot([0, 1], [0, 1], label=name)
+        ax.set_xlabel(name)
+        title = ax.set_title(name)
+        ax.legend()
+        data = png_bytes(fig)
+        assert title.get_text() == name and not title.get_parse_math()
+    assert data.startswith(b"\x89PNG\r\n\x1a\n")  # PNG signature (W3C PNG specification)

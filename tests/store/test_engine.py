@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import stat
 from pathlib import Path
 
@@ -164,3 +165,52 @@ def test_relaxed_foreign_keys_are_restored(engine) -> None:
     with engine.connect() as conn:
         if conn.dialect.name == "sqlite":
             assert conn.exec_driver_sql("PRAGMA foreign_keys").scalar() == 1
+
+
+def test_a_lost_revision_record_is_found_and_recorded_by_init(database_url: str,
+                                                              make_settings) -> None:
+    """Before: status said "not set up; run 'fitwatch init'" and init failed on "table models
+    already exists"; a circle with no way out."""
+    engine = open_engine(database_url)
+    try:
+        upgrade_database(engine)
+        with engine.begin() as conn:
+            conn.execute(text("DROP TABLE alembic_version"))
+        with pytest.raises(DatabaseError, match="no record of their schema revision"):
+            require_current(engine)
+        result = init_database(make_settings(database_url))
+        assert result.recorded and result.revision == head_revision()
+        assert "recorded it" in result.sentence()
+        require_current(engine)  # set up again, nothing else touched
+        # tables that differ from the schema are not stamped over
+        with engine.begin() as conn:
+            conn.execute(text("DROP TABLE alembic_version"))
+            conn.execute(text("DROP TABLE queued_nights"))
+        with pytest.raises(DatabaseError, match="differ from this version's schema"):
+            init_database(make_settings(database_url))
+    finally:
+        if engine.dialect.name == "postgresql":  # leave the shared database empty, not broken
+            with engine.begin() as conn:
+                names = [t.name for t in metadata.sorted_tables] + ["alembic_version"]
+                conn.execute(text("DROP TABLE IF EXISTS "
+                                  + ", ".join(f'"{n}"' for n in names) + " CASCADE"))
+        engine.dispose()
+
+
+def test_a_database_file_others_can_read_is_reported(tmp_path: Path, make_settings,
+                                                     caplog: pytest.LogCaptureFixture) -> None:
+    """fitwatch creates its file owner-only; one that existed with 0644 (copied, or made by
+    another tool) is named with a chmod hint on every command that opens it."""
+    path = tmp_path / "shared.db"
+    settings = make_settings(f"sqlite:///{path}")
+    init_database(settings)
+    path.chmod(0o644)
+    with caplog.at_level(logging.WARNING):
+        init_database(settings)
+    assert f"the database file {path} can be read by other users (mode 0644)" in caplog.text
+    assert f"chmod 600 {path}" in caplog.text
+    caplog.clear()
+    path.chmod(0o600)
+    with caplog.at_level(logging.WARNING):
+        init_database(settings)
+    assert "can be read by other users" not in caplog.text

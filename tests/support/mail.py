@@ -87,6 +87,34 @@ class Handler:
         return "250 Message accepted for delivery"
 
 
+class FaultyHandler(Handler):
+    """A server that misbehaves on purpose, one scripted reply per DATA command, then 250.
+
+    Script entries: an SMTP reply (``"451 4.3.0 try again later"``, ``"554 5.7.1 refused"``),
+    ``"drop"`` (the connection is cut after the data arrived, before any reply: the message is
+    not kept, as a crash before the queue file is written) or ``"store-drop"`` (the message is
+    kept, then the connection is cut before the reply: the one case where SMTP itself makes the
+    client send it again, RFC 5321 §4.1.1.4 and §6.1).
+    """
+
+    def __init__(self, script: list[str]) -> None:
+        super().__init__()
+        self.script = list(script)
+        self.data_commands = 0
+
+    async def handle_DATA(self, server: Any, session: Any, envelope: Any) -> str:
+        self.data_commands += 1
+        step = self.script.pop(0) if self.script else "250"
+        if step in ("drop", "store-drop"):
+            if step == "store-drop":
+                await super().handle_DATA(server, session, envelope)
+            server.transport.abort()
+            return "250 never seen by the client"
+        if step.startswith("2"):
+            return await super().handle_DATA(server, session, envelope)
+        return step
+
+
 class Authenticator:
     def __init__(self, user: str, password: str):
         self.user, self.password = user.encode(), password.encode()

@@ -1,0 +1,49 @@
+"""Which stored checks the alerts have considered: ``queued_nights``, one row per (model, night).
+
+A check with no row here is news not yet queued, whoever stored it and whatever happened to
+that process afterwards. The rows are written in the transaction that queues the night's
+messages, so a crash leaves either both or neither.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from datetime import date, datetime
+
+from sqlalchemy import Connection, and_, select
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.sql.expression import Join
+
+from monitor.store.schema import day_checks, queued_nights
+
+
+def _unqueued() -> Join:
+    return day_checks.outerjoin(queued_nights, and_(
+        queued_nights.c.model_id == day_checks.c.model_id,
+        queued_nights.c.day == day_checks.c.day))
+
+
+def pending_nights(conn: Connection, through: date | None = None) -> list[date]:
+    """Checked nights with at least one model's check not yet queued, oldest first."""
+    query = (select(day_checks.c.day).distinct().select_from(_unqueued())
+             .where(queued_nights.c.day.is_(None)).order_by(day_checks.c.day))
+    if through is not None:
+        query = query.where(day_checks.c.day <= through)
+    return [r[0] for r in conn.execute(query)]
+
+
+def pending_models(conn: Connection, night: date) -> set[int]:
+    """Models whose check of ``night`` is not yet queued."""
+    query = (select(day_checks.c.model_id).select_from(_unqueued())
+             .where(day_checks.c.day == night, queued_nights.c.day.is_(None)))
+    return {int(r[0]) for r in conn.execute(query)}
+
+
+def mark_queued(conn: Connection, model_ids: Iterable[int], night: date, now: datetime) -> None:
+    """Record that these models' checks of ``night`` were queued (a repeat is ignored)."""
+    values = [{"model_id": m, "day": night, "queued_at": now} for m in sorted(set(model_ids))]
+    if not values:
+        return
+    builder = postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert
+    conn.execute(builder(queued_nights).values(values).on_conflict_do_nothing(
+        index_elements=[queued_nights.c.model_id, queued_nights.c.day]))
