@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import date, timedelta
+from functools import cached_property
 
 import numpy as np
 from numpy.typing import NDArray
@@ -61,8 +62,9 @@ class VersionContext:
     target_arl: float = 1000.0
     guarantee: float = 0.95
 
-    @property
+    @cached_property
     def reference(self) -> Moments:
+        """The fit window's statistics as one (merged once per context, read every day)."""
         return self.reference_days.total()
 
     def limit(self, state: CheckState) -> float:

@@ -138,8 +138,10 @@ class DayMoments:
         if any(s != count for s in shapes):
             raise ValueError("every per-day array needs one entry per day")
         for name in ("n", "mean", "comoment", "minimum", "maximum", "days"):
-            arr = np.array(getattr(self, name))
-            arr.setflags(write=False)
+            arr = getattr(self, name)
+            if not (isinstance(arr, np.ndarray) and not arr.flags.writeable):
+                arr = np.array(arr)  # a private copy; read-only arrays (views of frozen
+                arr.setflags(write=False)  # tables, merge results) are shared as they are
             object.__setattr__(self, name, arr)
 
     @property
@@ -216,10 +218,18 @@ class DayMoments:
         return _concat(self, later)
 
     def total(self) -> Moments:
-        """All days merged into one :class:`Moments`."""
+        """All days merged into one :class:`Moments`: a pairwise tree of merges, halving the
+        table each round (the pairwise algorithm of Chan, Golub & LeVeque 1979)."""
         if len(self) == 0:
             return Moments.empty(self.dim)
-        return self.prefix().day(len(self) - 1)
+        out = self
+        while len(out) > 1:
+            pairs = len(out) // 2
+            merged = _merge_arrays(out.select(slice(0, 2 * pairs, 2)),
+                                   out.select(slice(1, 2 * pairs, 2)))
+            out = _concat(merged, out.select(slice(2 * pairs, None))) if len(out) % 2 \
+                else merged
+        return out.day(0)
 
     def prefix(self) -> DayMoments:
         """Entry ``d`` is days ``0..d`` merged (ranges included).
