@@ -179,7 +179,7 @@ def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine)
     assert code != 0 and "--yes" in err
     code, out, _ = cli("model", "delete", "dock_east", "--yes")
     assert code == 0 and "deleted with its" in out
-    with database(_settings(cli), engine) as db, db.connect() as conn:
+    with database(_settings(cli.config), engine) as db, db.connect() as conn:
         rows = conn.execute(audit_log.select().order_by(audit_log.c.id)).all()
     actions = [r.action for r in rows]
     assert actions[-2:] == ["rename", "delete"] and "fit" in actions
@@ -198,18 +198,12 @@ def test_a_model_without_a_version_does_not_fail_the_others_night(cli, engine: E
     from monitor.store.models import create_model
 
     assert cli(*FIT, "--data", str(HISTORY))[0] == 0
-    with database(_settings(cli), engine) as db, write_transaction(db) as conn:
+    with database(_settings(cli.config), engine) as db, write_transaction(db) as conn:
         create_model(conn, ModelSpec("waiting", "minutes", ("pallets",), "at"),
                      datetime(2026, 3, 8, tzinfo=UTC))
     code, out, err = cli("check", "--through", "2026-03-10")
     assert code == 0, err
     assert "waiting: nothing new to check (no active version yet" in out
-
-
-def _settings(cli):
-    from monitor.config import load_settings
-
-    return load_settings(cli.config)
 
 
 def _config_with(cli, extra: str) -> None:

@@ -26,6 +26,8 @@ from scipy import stats
 
 from monitor.stats.moments import Moments
 
+Q_BOUND = 37.5  # |Q| beyond which the tail probability underflows a double (Φ(-37.5) ≈ 5e-308)
+
 
 def level_of(values: ArrayLike) -> Moments:
     """The count, mean and centred sum of squares of day mean residuals (NaN ignored)."""
@@ -46,10 +48,14 @@ def q_value(level: Moments, value: float) -> float | None:
         return None
     s = math.sqrt(m2 / (n - 1))
     t = (value - float(level.mean[0])) / (s * math.sqrt(1.0 + 1.0 / n))
-    # through the tail on the value's own side, so a far-out value keeps its digits
+    # through the tail on the value's own side, so a far-out value keeps its digits; beyond
+    # what a double can hold as a tail probability the value is clipped (still far past any
+    # chart limit)
     if t > 0:
-        return float(stats.norm.isf(stats.t.sf(t, n - 1)))
-    return float(stats.norm.ppf(stats.t.cdf(t, n - 1)))
+        q = float(stats.norm.isf(stats.t.sf(t, n - 1)))
+    else:
+        q = float(stats.norm.ppf(stats.t.cdf(t, n - 1)))
+    return float(np.clip(q, -Q_BOUND, Q_BOUND)) if not math.isnan(q) else 0.0
 
 
 @dataclass(frozen=True, eq=False)

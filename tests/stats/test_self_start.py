@@ -38,6 +38,7 @@ def test_q_is_the_studentized_prediction_error_through_its_t_law() -> None:
     assert q_value(level_of(known), new) == pytest.approx(expected, rel=1e-10)
     # a far-out value keeps its digits (the tail on its own side)
     assert np.isfinite(q_value(level_of(known), 1e4))
+    assert q_value(level_of(known), -1e80) == -37.5  # past any tail a double can hold
 
 
 def test_q_values_of_normal_data_are_standard_normal_from_the_first_day() -> None:
