@@ -46,7 +46,7 @@ class CheckSettings:
     min_fit_days: int = 5
     slope_chart_step: float = 0.10  # the within-day slope chart is tuned to this share of a slope
     slope_chart_arl_days: float = 5000.0  # its in-control run length (false refits add up)
-    learn_until_days: int = 60  # a version fitted on fewer days learns its level until then
+    learn_until_days: int = 40  # a version fitted on fewer days learns its level until then
 
 
 @dataclass(frozen=True)

@@ -55,7 +55,7 @@ def test_demo_runs_end_to_end_and_finds_the_layout_change(demo: DemoRun) -> None
     # fitted on about two weeks, the new version is self-starting: its limit is that of exact
     # parameters, and it learns its level from its own days; no refit until the spread changes
     calibration = second.candidate.baseline.calibration
-    assert calibration is not None and calibration.learn_until == 60
+    assert calibration is not None and calibration.learn_until == 40
     assert calibration.h == pytest.approx(calibration.h_known)
     between = [c for c in result.checks
                if promoted.effective_day <= c.day < scenario.spread_change]

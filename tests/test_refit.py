@@ -242,7 +242,7 @@ def test_a_version_fitted_on_a_week_self_starts(changed: World) -> None:
     refit(changed.settings, MODEL, start=date(2026, 4, 6), engine=changed.engine)
     candidate = _versions(changed)[-1]
     calibration = candidate.baseline.calibration
-    assert calibration is not None and calibration.learn_until == 60
+    assert calibration is not None and calibration.learn_until == 40
     # the known-parameter limit (Quesenberry's Q values are exactly standard normal)
     assert calibration.h == pytest.approx(calibration.h_known) and calibration.draws == 0
 
@@ -289,7 +289,7 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
                                engine=changed.engine)
     v2 = _versions(changed)[1]
     calibration = v2.baseline.calibration
-    assert calibration is not None and calibration.learn_until == 60
+    assert calibration is not None and calibration.learn_until == 40
     assert status.status == "ok" and status.sharpen is None
     with changed.engine.connect() as conn:
         checks = load_checks(conn, get_model(conn, MODEL).id, date(2026, 4, 13))
@@ -300,7 +300,7 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
     # model show and its JSON say how far the learning has come
     view = show_version(changed.settings, MODEL, engine=changed.engine)
     fit_days = v2.baseline.fit_days
-    assert (f"learned so far: {fit_days + learned[-1]} of 60 days ({fit_days} fit days and "
+    assert (f"learned so far: {fit_days + learned[-1]} of 40 days ({fit_days} fit days and "
             f"{learned[-1]} checked days); learning") in view.text()
     assert view.as_dict()["cusum"]["learned_days"] == learned[-1]
 

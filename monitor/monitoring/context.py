@@ -24,6 +24,7 @@ from monitor.stats.calibration import (
     calibrate_chart,
     chart_design,
     frozen_limit,
+    self_starts,
     shock_persistence,
 )
 from monitor.stats.day_effects import day_residuals
@@ -92,7 +93,7 @@ class VersionContext:
             reference = DayMoments.empty(version.k + 1)
             design = imported_design(version)
         learns = (base.reference is not None and settings.cusum_unit == "day"
-                  and design.n_days < settings.learn_until_days)
+                  and self_starts(design, settings.learn_until_days))
         learn_until = settings.learn_until_days if learns else 0
         stored = base.calibration
         if stored is not None and stored.matches(settings.cusum_k, settings.cusum_arl_days,

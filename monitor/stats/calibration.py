@@ -138,9 +138,13 @@ class ChartDesign:
 def chart_design(fit: OLSFit, days: DayMoments, effects: DayEffects,
                  diagnosis: FitDiagnosis | None) -> ChartDesign:
     """The bias chart's design of a version: its fit window's persistence, and the day shocks
-    net of a weekly rhythm when the fit window showed one (the chart then subtracts it)."""
+    net of a weekly rhythm when the fit window showed one without persistence (the chart
+    subtracts the rhythm whenever there is one)."""
     rhythm = diagnosis.rhythm() if diagnosis is not None else None
-    if rhythm is not None and diagnosis is not None:
+    if rhythm is not None and diagnosis is not None and diagnosis.chart_persistence() == 0:
+        # with persistent shocks the weekday means carry the shocks' runs too, and the share
+        # the rhythm explains is overstated: the day shocks keep their full variance then
+        # (the chart still subtracts the offsets, which only makes it more cautious)
         effects = net_of_rhythm(effects, rhythm, diagnosis.weekday_days)
     return ChartDesign.from_fit(fit, days, effects, Persistence.of(diagnosis))
 
@@ -253,9 +257,17 @@ def calibrate_chart(design: ChartDesign, k: float, target_arl: float, guarantee:
     """The bias chart's limit: bootstrap-calibrated (:func:`calibrate_h`) for a version fitted
     on at least ``learn_until`` days; for a shorter fit window, the limit of a self-starting
     chart (:func:`self_starting`)."""
-    if design.n_days < learn_until:
+    if self_starts(design, learn_until):
         return self_starting(k, target_arl, guarantee, learn_until)
     return calibrate_h(design, k=k, target_arl=target_arl, guarantee=guarantee)
+
+
+def self_starts(design: ChartDesign, learn_until: int) -> bool:
+    """Whether a version with this design learns its level: fitted on fewer than
+    ``learn_until`` days with rows and without persistent day shocks (Quesenberry's Q values are
+    independent only for independent days; with persistence the bootstrap limit, which allows
+    for it, is used as for any window)."""
+    return design.n_days < learn_until and design.phi == 0.0
 
 
 @lru_cache(maxsize=512)

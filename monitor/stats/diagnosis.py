@@ -197,12 +197,21 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
     counts = np.bincount(idx, minlength=g).astype(np.float64)
     means = np.bincount(idx, weights=r, minlength=g) / np.maximum(counts, 1)
     u = means / np.sqrt(tau2 + sigma_w2 / np.maximum(counts, 1))
-    rs, lb = ljung_box(u, lags or default_lags(g))
     wd = np.asarray(weekdays, dtype=np.int64)
     effects: list[float | None] = []
     for w in range(7):
         on = wd == w
         effects.append(float(means[on].mean() - means.mean()) if on.any() else None)
+    weekday_test = weekday_anova(u, wd)
+    per_weekday = [int((wd == w).sum()) for w in range(7)]
+    if weekday_test.significant(RHYTHM_ALPHA) and \
+            min(c for c in per_weekday if c > 0) >= RHYTHM_MIN_DAYS:
+        # the charts measure against the rhythm, so persistence is judged net of it too: a
+        # weekday pattern would otherwise bias the lag-1 correlation (Saturday low, Monday
+        # high makes neighbours look opposed) and hide a persistence the charts must allow for
+        offsets = np.array([0.0 if e is None else e for e in effects])
+        u = (means - offsets[wd]) / np.sqrt(tau2 + sigma_w2 / np.maximum(counts, 1))
+    rs, lb = ljung_box(u, lags or default_lags(g))
     within = r - means[idx]
     scaled = within * np.sqrt(counts[idx] / np.maximum(counts[idx] - 1, 1))
     robust = MAD_TO_SD * float(np.median(np.abs(scaled - np.median(scaled))))
@@ -221,12 +230,12 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
                       / np.maximum(counts, 1)[:, None])[idx]
     return FitDiagnosis(
         days=g, persistence=float(rs[0]) if len(rs) else float("nan"), persistence_test=lb,
-        weekday_test=weekday_anova(u, wd), weekday_effects=tuple(effects),
+        weekday_test=weekday_test, weekday_effects=tuple(effects),
         spread_x_test=koenker_breusch_pagan(within, x),
         classical_sd=math.sqrt(sigma_w2), robust_sd=robust,
         tail_share=beyond / len(r) if len(r) else float("nan"), tail_pvalue=tail_p,
         fit_coverage=covered_share, day_spreads=tuple(spreads),
-        weekday_days=tuple(int((wd == w).sum()) for w in range(7)),
+        weekday_days=tuple(per_weekday),
         slope_noise_ratio=slope_noise_ratio(centred_x, within, sigma_w2,
                                             TAIL_SDS * robust if robust > 0 else np.inf))
 
