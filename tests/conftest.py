@@ -144,3 +144,23 @@ def demo(tmp_path_factory: pytest.TempPathFactory) -> DemoRun:
     folder = tmp_path_factory.mktemp("demo") / "demo"
     leave_an_earlier_run(folder)
     return run_demo_command(folder)
+
+
+@pytest.fixture
+def cli(engine: Engine, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+        ) -> Callable[..., tuple[int, str, str]]:
+    """Run the command line against ``engine`` with a settings file in ``tmp_path``; returns
+    the exit code, stdout and stderr. ``cli.config`` is the settings file."""
+    from monitor.interface.cli import main
+
+    url = engine.url.render_as_string(hide_password=False)
+    config = tmp_path / "fitwatch.toml"
+    config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
+
+    def run(*argv: str) -> tuple[int, str, str]:
+        code = main(["--config", str(config), *argv])
+        captured = capsys.readouterr()
+        return code, captured.out, captured.err
+
+    run.config = config  # type: ignore[attr-defined]
+    return run

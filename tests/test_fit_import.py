@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -12,7 +11,6 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
-from monitor.interface.cli import main
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import active_version
@@ -21,22 +19,6 @@ ROOT = Path(__file__).resolve().parents[1]
 HISTORY = ROOT / "demo_data" / "history.csv"
 FIT = ["model", "fit", "dock_loading", "--y", "load_minutes", "--x", "pallets",
        "--time", "docked_at", "--id", "load_id"]
-
-
-@pytest.fixture
-def cli(engine: Engine, tmp_path: Path, capsys: pytest.CaptureFixture[str]
-        ) -> Callable[..., tuple[int, str, str]]:
-    url = engine.url.render_as_string(hide_password=False)
-    config = tmp_path / "fitwatch.toml"
-    config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
-
-    def run(*argv: str) -> tuple[int, str, str]:
-        code = main(["--config", str(config), *argv])
-        captured = capsys.readouterr()
-        return code, captured.out, captured.err
-
-    run.config = config  # type: ignore[attr-defined]
-    return run
 
 
 def test_fit_creates_the_model_and_agrees_with_statsmodels(cli) -> None:

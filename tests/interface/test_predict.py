@@ -3,31 +3,12 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.api as sm
-from sqlalchemy import Engine
-
-from monitor.interface.cli import main
-
-
-@pytest.fixture
-def cli(engine: Engine, tmp_path: Path, capsys: pytest.CaptureFixture[str]
-        ) -> Callable[..., tuple[int, str, str]]:
-    url = engine.url.render_as_string(hide_password=False)
-    config = tmp_path / "fitwatch.toml"
-    config.write_text(f'[database]\nurl = "{url}"\n')
-
-    def run(*argv: str) -> tuple[int, str, str]:
-        code = main(["--config", str(config), *argv])
-        captured = capsys.readouterr()
-        return code, captured.out, captured.err
-
-    return run
 
 
 def _longley(tmp_path: Path) -> tuple[pd.DataFrame, Path]:
