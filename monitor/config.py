@@ -13,13 +13,15 @@ import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields, replace
 from datetime import date, datetime, timedelta
+from functools import lru_cache
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from apscheduler.triggers.cron import CronTrigger
-
 from monitor.errors import ConfigError
+
+if TYPE_CHECKING:
+    from apscheduler.triggers.cron import CronTrigger
 
 DEFAULT_FILE = "fitwatch.toml"
 ENV_VAR = "FITWATCH_CONFIG"
@@ -74,16 +76,23 @@ class AlertSettings:
 class ScheduleSettings:
     """When the daemon runs: a five-field cron expression read in ``timezone``.
 
-    ``trigger`` is the scheduler's own parse of it, made when the settings are made, so a
-    schedule the scheduler would refuse never gets past loading (:func:`parse_cron`).
+    ``trigger`` is the scheduler's own parse of it (:func:`parse_cron`). It is made on first
+    use, by the commands that run or report the schedule (``daemon``, ``status``, ``init``),
+    not at load: the scheduler library and the asyncio under it stay out of every other
+    command's start-up. A schedule the scheduler refuses is a :class:`ConfigError` naming the
+    key and the file, whichever of those commands meets it first.
     """
 
     cron: str = "30 2 * * *"
     timezone: ZoneInfo = field(default_factory=lambda: ZoneInfo("UTC"))
-    trigger: CronTrigger = field(init=False, repr=False, compare=False)
+    source: str = field(default="<settings>", repr=False, compare=False)
 
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "trigger", parse_cron(self.cron, self.timezone))
+    @property
+    def trigger(self) -> CronTrigger:
+        try:
+            return parse_cron(self.cron, self.timezone)
+        except ValueError as exc:
+            raise ConfigError(str(exc), source=self.source, key="schedule.cron") from exc
 
 
 @dataclass(frozen=True)
@@ -215,10 +224,7 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     sch = r.table(top.get("schedule", {}), "schedule", {"cron", "timezone"})
     cron = r.string(sch, "schedule.cron", ScheduleSettings.cron, non_empty=True)
     zone = r.zone(sch, "schedule.timezone", "UTC")
-    try:
-        schedule = ScheduleSettings(cron=cron, timezone=zone)
-    except ValueError as exc:
-        raise r.fail("schedule.cron", str(exc)) from exc
+    schedule = ScheduleSettings(cron=cron, timezone=zone, source=source)
 
     check = _check_settings(r, top.get("check", {}), "check", CheckSettings())
     alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
@@ -392,6 +398,7 @@ _CRON_FIELDS = (("minute", "minute"), ("hour", "hour"), ("day", "day of month"),
 _CRON_EPOCH = datetime(2000, 1, 1)  # a fixed start for "does it ever fire" (leap years ahead)
 
 
+@lru_cache(maxsize=16)
 def parse_cron(cron: str, zone: ZoneInfo) -> CronTrigger:
     """The scheduler's trigger for a five-field cron expression; ValueError says what is wrong.
 
@@ -399,6 +406,8 @@ def parse_cron(cron: str, zone: ZoneInfo) -> CronTrigger:
     crontab numbers them from Sunday = 0 (the warning in the documentation of
     ``CronTrigger.from_crontab``), so ``1-5`` would silently run Tuesday to Saturday.
     """
+    from apscheduler.triggers.cron import CronTrigger  # only where the schedule is used
+
     parts = cron.split()
     if len(parts) != 5:
         raise ValueError(f"{cron!r} is not a five-field cron expression "

@@ -28,7 +28,8 @@ import pytest
 from sqlalchemy import Engine, text
 
 from monitor.config import Settings, parse_settings
-from monitor.store.engine import open_engine, upgrade_database
+from monitor.store.engine import open_engine
+from monitor.store.migrate import upgrade_database
 from monitor.store.schema import metadata
 from tests.support.demo import DemoRun, leave_an_earlier_run, run_demo_command
 from tests.support.snapshots import WorldCache

@@ -81,7 +81,8 @@ def test_late_rows_reevaluate_from_their_day_as_if_processed_in_order(
     # the same rows, all present before any check, in a second database: identical results
     other = tmp_path / "other"
     other.mkdir()
-    from monitor.store.engine import open_engine, upgrade_database
+    from monitor.store.engine import open_engine
+    from monitor.store.migrate import upgrade_database
     url = f"sqlite:///{other / 'fitwatch.db'}"
     engine2 = open_engine(url)
     upgrade_database(engine2)

@@ -26,7 +26,7 @@ from sqlalchemy import Engine, func, select
 import monitor.monitoring.check as check
 from monitor.config import Settings
 from monitor.errors import StateError
-from monitor.store.engine import head_revision
+from monitor.store.migrate import head_revision
 from monitor.store.model_lock import NAMESPACE, model_lock
 from monitor.store.schema import day_checks, day_stats
 from tests.support.world import CALM, World, loads_between, settings_for, write_csv

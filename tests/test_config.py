@@ -84,15 +84,6 @@ level = 0.8
     ("[check]\ncusum_unit = 'week'", "check.cusum_unit", "one of day, observation"),
     ("[check]\nrefit_pvalue = 0.05", "check.refit_pvalue", "must not exceed"),
     ("[schedule]\ntimezone = 'Mars/Olympus'", "schedule.timezone", "unknown time zone"),
-    ("[schedule]\ncron = 'nightly'", "schedule.cron", "five-field cron"),
-    # field ranges as in crontab(5): minute 0-59, hour 0-23, day of month 1-31, month 1-12
-    ("[schedule]\ncron = '99 99 * * *'", "schedule.cron", "minute field '99'"),
-    ("[schedule]\ncron = '30 24 * * *'", "schedule.cron", "hour field '24'"),
-    ("[schedule]\ncron = '30 2 * 13 *'", "schedule.cron", "month field '13'"),
-    ("[schedule]\ncron = '30 2 31 2 *'", "schedule.cron", "never fires"),  # no 31 February
-    # crontab(5) counts weekdays from Sunday = 0, APScheduler 3.x from Monday = 0 (the warning
-    # in the documentation of CronTrigger.from_crontab): a number could mean either day
-    ("[schedule]\ncron = '30 2 * * 1-5'", "schedule.cron", "write weekdays as names"),
     ("[alerts]\nto = 'lead@example.com'", "alerts.to", "a list of strings"),
     ("[alerts]\nto = ['not-an-address']", "alerts.to", "not an e-mail address"),
     ("[alerts]\non = ['ok']", "alerts.on", "unknown status"),
@@ -123,6 +114,29 @@ def test_bad_settings_name_the_key_and_the_file(tmp_path, text, key, words):
         load_settings(path, environ={})
     message = str(err.value)
     assert str(path) in message and f"'{key}'" in message and words in message
+
+
+@pytest.mark.parametrize("cron, words", [
+    ("nightly", "five-field cron"),
+    # field ranges as in crontab(5): minute 0-59, hour 0-23, day of month 1-31, month 1-12
+    ("99 99 * * *", "minute field '99'"),
+    ("30 24 * * *", "hour field '24'"),
+    ("30 2 * 13 *", "month field '13'"),
+    ("30 2 31 2 *", "never fires"),  # no 31 February
+    # crontab(5) counts weekdays from Sunday = 0, APScheduler 3.x from Monday = 0 (the warning
+    # in the documentation of CronTrigger.from_crontab): a number could mean either day
+    ("30 2 * * 1-5", "write weekdays as names"),
+])
+def test_a_cron_the_scheduler_refuses_names_the_key_and_the_file_when_first_used(
+        tmp_path, cron, words):
+    # parsed on first use (daemon, status, init), so other commands never load the scheduler
+    path = tmp_path / "bad.toml"
+    path.write_text(f"[schedule]\ncron = '{cron}'\n")
+    settings = load_settings(path, environ={})
+    with pytest.raises(ConfigError) as err:
+        settings.schedule.trigger  # noqa: B018
+    message = str(err.value)
+    assert str(path) in message and "'schedule.cron'" in message and words in message
 
 
 def test_cron_weekday_names_mean_the_days_they_name():

@@ -27,7 +27,8 @@ from monitor.runtime.nightly import run_night
 from monitor.runtime.schedule import last_scheduled, nightly_state
 from monitor.store import audit, lease
 from monitor.store.checks import last_check
-from monitor.store.engine import open_engine, upgrade_database
+from monitor.store.engine import open_engine
+from monitor.store.migrate import upgrade_database
 from monitor.store.models import get_model
 from monitor.store.schema import scheduler_lease
 from tests.support.mail import RecordingMailer

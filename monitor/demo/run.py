@@ -34,7 +34,7 @@ from monitor.lifecycle.refit import Transition, promote, refit
 from monitor.monitoring.check import run_checks
 from monitor.store import outbox
 from monitor.store.access import database
-from monitor.store.engine import init_database
+from monitor.store.migrate import init_database
 from monitor.store.models import get_model
 
 MODEL = "dock_loading"

@@ -226,7 +226,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 # handlers -------------------------------------------------------------------------------------
 def _cmd_init(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.store.engine import init_database
+    from monitor.store.migrate import init_database
 
     print(init_database(settings).sentence())
     return EXIT_OK

@@ -5,13 +5,12 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import sys
 from collections.abc import Mapping
 from datetime import date, datetime
 from enum import Enum
 from pathlib import Path
 from typing import Any
-
-import numpy as np
 
 
 def to_jsonable(value: Any) -> Any:
@@ -22,10 +21,12 @@ def to_jsonable(value: Any) -> Any:
         return {str(k): to_jsonable(v) for k, v in value.items()}
     if isinstance(value, list | tuple | set | frozenset):
         return [to_jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return to_jsonable(value.tolist())
-    if isinstance(value, np.generic):
-        return to_jsonable(value.item())
+    np = sys.modules.get("numpy")  # a numpy value exists only once numpy is loaded: the
+    if np is not None:  # --help and the errors of a mistyped command never load it
+        if isinstance(value, np.ndarray):
+            return to_jsonable(value.tolist())
+        if isinstance(value, np.generic):
+            return to_jsonable(value.item())
     if isinstance(value, float):
         return value if math.isfinite(value) else None
     if isinstance(value, datetime | date):

@@ -7,8 +7,6 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any, Protocol
 
-from tqdm import tqdm
-
 
 class Progress(Protocol):
     def update(self, n: int = 1) -> Any: ...
@@ -31,6 +29,8 @@ def progress_bar(total: int, description: str, *, enabled: bool,
     if not enabled:
         yield _Silent()
         return
+    from tqdm import tqdm  # only when a bar is drawn
+
     with tqdm(total=total, desc=description, unit=unit, file=sys.stderr, leave=False,
               dynamic_ncols=True) as bar:
         yield bar

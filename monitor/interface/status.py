@@ -16,7 +16,7 @@ from monitor.domain.model import ModelRecord
 from monitor.domain.phrasing import fmt
 from monitor.domain.status import Status
 from monitor.domain.version import Version
-from monitor.runtime.schedule import NightlyState, nightly_state
+from monitor.runtime.schedule import NightlyState, cron_trigger, nightly_state
 from monitor.store import lease, outbox
 from monitor.store.access import database
 from monitor.store.checks import last_check
@@ -79,6 +79,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
                    now: datetime | None = None, engine: Engine | None = None) -> list[ModelStatus]:
     now = now or datetime.now(UTC)
     last_day = yesterday(now, settings.timezone)
+    cron_trigger(settings)  # status reports the schedule: a cron it cannot read is said first
     out = []
     with database(settings, engine) as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)

@@ -1,6 +1,6 @@
 """Alembic environment for fitwatch.
 
-``fitwatch init`` (``monitor.store.engine.upgrade_database``) passes its open connection in
+``fitwatch init`` (``monitor.store.migrate.upgrade_database``) passes its open connection in
 ``config.attributes["connection"]``. Run by hand (``alembic -c migrations/alembic.ini ...``), the
 database URL comes from ``-x url=...`` or else from the fitwatch settings (``--config`` order:
 ``$FITWATCH_CONFIG``, ``./fitwatch.toml``, defaults).

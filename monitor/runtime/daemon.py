@@ -104,6 +104,7 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
                started: Callable[[NightlyWorker], None] | None = None) -> list[NightRun]:
     """Run until stopped (or one catch-up run with ``once``); returns the runs made."""
     holder = holder or holder_name()
+    cron_trigger(settings)  # a cron the scheduler refuses stops the daemon before anything else
     with database(settings, engine) as db:
         with db.connect() as conn:  # a misspelt [models.NAME] stops the daemon before it starts
             check_model_sections(settings, list_models(conn))

@@ -8,14 +8,15 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any
-
-from apscheduler.triggers.cron import CronTrigger
+from typing import TYPE_CHECKING, Any
 
 from monitor.config import Settings
 from monitor.domain.days import local_time
 from monitor.runtime.holder import gone_from_this_host
 from monitor.store import lease
+
+if TYPE_CHECKING:
+    from apscheduler.triggers.cron import CronTrigger
 
 LEASE_TTL = timedelta(minutes=10)
 LATE_GRACE = timedelta(hours=1)  # a run that has not started this long after its time is late
@@ -23,7 +24,8 @@ STALE_HEARTBEATS = 3  # missed heartbeats before a holder counts as gone
 
 
 def cron_trigger(settings: Settings) -> CronTrigger:
-    """The nightly schedule, as parsed (and checked) when the settings were loaded."""
+    """The nightly schedule, parsed (and checked, :class:`ConfigError` when the scheduler
+    refuses it) on first use."""
     return settings.schedule.trigger
 
 

@@ -29,8 +29,8 @@ from __future__ import annotations
 from functools import lru_cache
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import optimize, special
 
 FloatArray = NDArray[np.float64]
 
@@ -123,7 +123,7 @@ def _nystrom(drift: FloatArray, eta: FloatArray, m: int) -> FloatArray:
     # y_j - s_i - drift = half * (x_j - unit_i) - drift
     gap = half * (x[None, :] - unit[:, None])[None] - drift[:, None, None]
     system = np.empty((len(eta), m + 1, m + 1))
-    system[:, :, 0] = -special.ndtr(-drift[:, None] - half[:, 0] * (unit + 1.0))  # fall to 0
+    system[:, :, 0] = -scipy.special.ndtr(-drift[:, None] - half[:, 0] * (unit + 1.0))  # fall to 0
     system[:, :, 1:] = np.exp(-0.5 * gap * gap) * (-(half[:, 0] * w) / _ROOT_2PI)[:, None, :]
     system[:, np.arange(m + 1), np.arange(m + 1)] += 1.0
     rhs = np.ones((len(eta), m + 1, 1))
@@ -180,7 +180,7 @@ def solve_h(k: float, target_arl: float, mean: float = 0.0, sd: float = 1.0,
         if high > _MAX_ETA * sd:
             raise ValueError(f"no h up to {_MAX_ETA * sd:g} reaches an ARL of {target_arl:g} "
                              f"(mean {mean:g}, sd {sd:g}, k {k:g})")
-    return float(optimize.brentq(gap, low, high, xtol=1e-12, rtol=1e-12))
+    return float(scipy.optimize.brentq(gap, low, high, xtol=1e-12, rtol=1e-12))
 
 
 def solve_h_many(k: float, target_arl: float, mean: ArrayLike, sd: ArrayLike,

@@ -26,9 +26,8 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
-import scipy.linalg as sla
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
 from monitor.stats.moments import DayMoments, Moments
@@ -135,8 +134,8 @@ def _result(name: str, statistic: float, df_num: int, df_den: int,
     if math.isnan(statistic):
         return _undefined(name, df_num, df_den, "the unrestricted model fits exactly (RSS = 0)",
                           n_clusters)
-    return FTest(name, statistic, float(stats.f.sf(statistic, df_num, df_den)), df_num, df_den,
-                 n_clusters)
+    p_value = float(scipy.stats.f.sf(statistic, df_num, df_den))
+    return FTest(name, statistic, p_value, df_num, df_den, n_clusters)
 
 
 def _undefined(name: str, df_num: int, df_den: int, reason: str,
@@ -272,7 +271,7 @@ def clustered_change_test(reference_days: DayMoments, recent_days: DayMoments,
         return _undefined(name, q, groups - 1, "the unrestricted model fits exactly (RSS = 0)",
                           groups)
     iid = rss / (rows - 2 * p) * (fits[0].bread + fits[1].bread)[np.ix_(tested, tested)]
-    if sla.eigh(cov, iid, eigvals_only=True)[0] <= 1e-8:
+    if scipy.linalg.eigh(cov, iid, eigvals_only=True)[0] <= 1e-8:
         return _undefined(name, q, groups - 1,
                           f"the day-clustered covariance of the {q} tested differences is "
                           f"singular; {groups} days are too few", groups)

@@ -14,8 +14,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike
-from scipy import special, stats
 
 
 @dataclass(frozen=True)
@@ -45,7 +45,7 @@ def wilson_interval(covered: float, n: float, level: float = 0.95) -> tuple[floa
     """Wilson (1927) score interval for a proportion; counts may be non-integer (effective)."""
     if n <= 0:
         return float("nan"), float("nan")
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = scipy.stats.norm.ppf(0.5 + level / 2)
     p = covered / n
     centre = (p + z * z / (2 * n)) / (1 + z * z / n)
     half = z * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / (1 + z * z / n)
@@ -67,8 +67,8 @@ def coverage_test(covered: int, n: int, target: float, dispersion: float = 1.0,
     ne, ke = n / dispersion, covered / dispersion
     low, high = wilson_interval(ke, ne, level)
     # P(X <= k) = I_{1-L}(n - k, k + 1); P(X >= k) = I_L(k, n - k + 1)
-    p_low = 1.0 if covered >= n else float(special.betainc(ne - ke, ke + 1, 1 - target))
-    p_high = 1.0 if covered <= 0 else float(special.betainc(ke, ne - ke + 1, target))
+    p_low = 1.0 if covered >= n else float(scipy.special.betainc(ne - ke, ke + 1, 1 - target))
+    p_high = 1.0 if covered <= 0 else float(scipy.special.betainc(ke, ne - ke + 1, target))
     return CoverageTest(n, covered, target, dispersion, low, high, p_low, p_high)
 
 

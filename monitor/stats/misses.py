@@ -38,8 +38,8 @@ from dataclasses import dataclass, replace
 from functools import lru_cache
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import fft, special, stats
 
 from monitor.stats.coverage import CoverageTest, coverage_test
 from monitor.stats.day_effects import DayEffects
@@ -120,10 +120,11 @@ def _day_pmf(tau2: float, sigma_w2: float, half_width: float, scale: float,
     """
     p = _miss_probabilities(tau2, sigma_w2, half_width, scale)
     k = np.arange(n + 1, dtype=np.float64)
-    log_coef = special.gammaln(n + 1) - special.gammaln(k + 1) - special.gammaln(n - k + 1)
+    gammaln = scipy.special.gammaln
+    log_coef = gammaln(n + 1) - gammaln(k + 1) - gammaln(n - k + 1)
     with np.errstate(divide="ignore"):
-        log_pmf = (log_coef[:, None] + special.xlogy(k[:, None], p[None, :])
-                   + special.xlog1py((n - k)[:, None], -p[None, :]))
+        log_pmf = (log_coef[:, None] + scipy.special.xlogy(k[:, None], p[None, :])
+                   + scipy.special.xlog1py((n - k)[:, None], -p[None, :]))
     pmf = np.exp(log_pmf) @ _shock_weights()
     pmf /= pmf.sum()
     tail = np.cumsum(pmf[::-1])[::-1]
@@ -145,7 +146,7 @@ class _WindowCgf:
         sizes, counts = np.unique(day_rows, return_counts=True)
         self.sizes, self.counts = sizes, counts.astype(np.float64)
         self.n = sizes.astype(np.float64)[:, None]
-        self.logit = special.logit(p)
+        self.logit = scipy.special.logit(p)
         with np.errstate(divide="ignore"):
             self.log_p, self.log_1mp = np.log(p), np.log1p(-p)
             self.log_w = np.log(_shock_weights())
@@ -155,7 +156,7 @@ class _WindowCgf:
         log_mgf = self.log_w + self.n * np.logaddexp(self.log_1mp, self.log_p + s)
         top = log_mgf.max(axis=1)
         k_day = top + np.log(np.exp(log_mgf - top[:, None]).sum(axis=1))
-        return k_day, np.exp(log_mgf - k_day[:, None]), special.expit(self.logit + s)
+        return k_day, np.exp(log_mgf - k_day[:, None]), scipy.special.expit(self.logit + s)
 
     def __call__(self, s: float) -> tuple[float, float, float]:
         """``K(s)``, ``K'(s)`` (the tilted mean) and ``K''(s)`` (the tilted variance)."""
@@ -246,14 +247,14 @@ def _tilted_pvalues(p: FloatArray, day_rows: NDArray[np.int64],
         return None
     k_s, _, _ = cgf(s)
     low, high = _cut(cgf, s, k_s, -1, 0), _cut(cgf, s, k_s, 1, total)
-    size = fft.next_fast_len(high - low + 1, real=True)
+    size = scipy.fft.next_fast_len(high - low + 1, real=True)
     _, weights, q = cgf.tilt(s)
     z = cgf.logit + s
     # log q and log(1 - q); a node sure to miss (q = 1) or to cover (q = 0) has one value, k = n
     # or k = 0, and the other logarithm (-inf, multiplied by 0) is replaced by any finite number
     log_q = np.where(q > 0, -np.logaddexp(0.0, -z), 0.0)
     log_1mq = np.where(q < 1, -np.logaddexp(0.0, z), 0.0)
-    log_fact = special.gammaln(np.arange(int(cgf.sizes.max()) + 1) + 1.0)
+    log_fact = scipy.special.gammaln(np.arange(int(cgf.sizes.max()) + 1) + 1.0)
     spectrum = np.ones(size // 2 + 1, dtype=np.complex128)
     for n, count, w_day in zip(cgf.sizes.tolist(), cgf.counts.tolist(), weights, strict=True):
         keep = w_day > _NODE_TAIL
@@ -270,9 +271,9 @@ def _tilted_pvalues(p: FloatArray, day_rows: NDArray[np.int64],
         k = np.arange(int(widths.sum())) - np.repeat(np.cumsum(widths) - widths - first, widths)
         log_pmf = (log_fact[n] - log_fact[k] - log_fact[n - k] + k * log_q[keep][node]
                    + (n - k) * log_1mq[keep][node] + log_wk[node])
-        day = fft.rfft(np.bincount(k % size, np.exp(log_pmf), minlength=size))
+        day = scipy.fft.rfft(np.bincount(k % size, np.exp(log_pmf), minlength=size))
         spectrum *= day if count == 1 else day ** int(count)
-    wrapped = np.clip(fft.irfft(spectrum, size), 0.0, None)
+    wrapped = np.clip(scipy.fft.irfft(spectrum, size), 0.0, None)
     # the smaller tail, tilt undone: P(M = x) = P_s(M = x) exp(K(s) - s x), which only falls
     # away from ``misses`` on the side summed
     x = np.arange(misses, high + 1) if s >= 0 else np.arange(low, misses + 1)
@@ -303,14 +304,14 @@ def _miss_probabilities(tau2: float, sigma_w2: float, half_width: float,
     shocks = np.sqrt(2.0) * tau * x
     if sw == 0:
         return (np.abs(shocks) > half_width).astype(np.float64)
-    upper = stats.norm.sf((half_width - shocks) / sw)
-    lower = stats.norm.cdf((-half_width - shocks) / sw)
+    upper = scipy.stats.norm.sf((half_width - shocks) / sw)
+    lower = scipy.stats.norm.cdf((-half_width - shocks) / sw)
     return np.clip(upper + lower, 0.0, 1.0)
 
 
 @lru_cache(maxsize=1)
 def _hermite() -> tuple[FloatArray, FloatArray]:
-    return special.roots_hermite(SHOCK_NODES)
+    return scipy.special.roots_hermite(SHOCK_NODES)
 
 
 def shock_weights() -> FloatArray:
@@ -358,7 +359,7 @@ def guaranteed_scale(log_sd: float, guarantee: float) -> float:
     :func:`spread_uncertainty`; for independent rows ``log_sd = 1 / sqrt(2 dof)``)."""
     if not 0 < guarantee < 1:
         raise ValueError(f"the guarantee is a probability in (0, 1); got {guarantee}")
-    return float(np.exp(stats.norm.ppf(guarantee) * log_sd))
+    return float(np.exp(scipy.stats.norm.ppf(guarantee) * log_sd))
 
 
 def spread_uncertainty(effects: DayEffects) -> float:

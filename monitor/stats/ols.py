@@ -16,9 +16,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg as sla
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from monitor.errors import DegenerateDataError
 from monitor.stats.moments import Moments
@@ -114,12 +113,12 @@ class OLSFit:
 
     @property
     def pvalues(self) -> FloatArray:
-        return 2.0 * stats.t.sf(np.abs(self.tvalues), self.dof)
+        return 2.0 * scipy.stats.t.sf(np.abs(self.tvalues), self.dof)
 
     def confidence_interval(self, level: float = 0.95) -> FloatArray:
         """Two-sided confidence intervals of the coefficients, shape ``(p, 2)``."""
         _check_level(level)
-        half = stats.t.ppf(0.5 + level / 2.0, self.dof) * self.std_errors
+        half = scipy.stats.t.ppf(0.5 + level / 2.0, self.dof) * self.std_errors
         return np.column_stack([self.coef - half, self.coef + half])
 
     # prediction -------------------------------------------------------------------------
@@ -160,10 +159,10 @@ def fit_ols(x: ArrayLike, y: ArrayLike, names: Sequence[str] | None = None) -> O
     xc, yc = xs - xmean, ys - ymean
     scale = np.sqrt(np.einsum("ij,ij->j", xc, xc))
     q, r = np.linalg.qr(xc / scale)
-    _check_rank(names, np.abs(np.diag(r)), sla.svdvals(r), n)
-    slopes = sla.solve_triangular(r, q.T @ yc) / scale
+    _check_rank(names, np.abs(np.diag(r)), scipy.linalg.svdvals(r), n)
+    slopes = scipy.linalg.solve_triangular(r, q.T @ yc) / scale
     resid = yc - xc @ slopes
-    r_inv = sla.solve_triangular(r, np.eye(k))
+    r_inv = scipy.linalg.solve_triangular(r, np.eye(k))
     slope_inverse = (r_inv @ r_inv.T) / np.outer(scale, scale)
     root = r * scale  # upper-triangular square root of the centred cross-products
     return OLSFit(
@@ -193,15 +192,15 @@ def fit_moments(moments: Moments, names: Sequence[str] | None = None) -> OLSFit:
     _check_constant(names, np.where(constant, xmean, 0.0), np.where(constant, xmean, 1.0))
     scale = np.sqrt(variances)
     try:
-        upper = sla.cholesky(mxx / np.outer(scale, scale), lower=False)
+        upper = scipy.linalg.cholesky(mxx / np.outer(scale, scale), lower=False)
     except np.linalg.LinAlgError:
         upper = np.zeros((k, k))
     # The co-moments square the condition number, so the usable relative size is its root.
-    _check_rank(names, np.abs(np.diag(upper)), sla.svdvals(upper), n,
+    _check_rank(names, np.abs(np.diag(upper)), scipy.linalg.svdvals(upper), n,
                 floor=16 * np.sqrt(_EPS))
-    slopes = sla.cho_solve((upper, False), mxy / scale) / scale
+    slopes = scipy.linalg.cho_solve((upper, False), mxy / scale) / scale
     rss = float(moments.comoment[k, k] - mxy @ slopes)
-    u_inv = sla.solve_triangular(upper, np.eye(k))
+    u_inv = scipy.linalg.solve_triangular(upper, np.eye(k))
     slope_inverse = (u_inv @ u_inv.T) / np.outer(scale, scale)
     return OLSFit(
         terms=(INTERCEPT, *names),
@@ -237,7 +236,7 @@ def _condition_number(n: int, xmean: FloatArray, root: FloatArray) -> float:
     a[0, 0] = np.sqrt(n)
     a[0, 1:] = np.sqrt(n) * xmean
     a[1:, 1:] = root
-    sv = sla.svdvals(a)
+    sv = scipy.linalg.svdvals(a)
     return float(sv[0] / sv[-1]) if sv[-1] > 0 else float("inf")
 
 

@@ -21,8 +21,8 @@ from dataclasses import dataclass, replace
 from functools import lru_cache
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal, stats
 
 from monitor.stats.coverage import CoverageTest, coverage_test
 from monitor.stats.misses import (
@@ -66,7 +66,7 @@ def persistent_pvalues(law: MissLaw, day_rows: ArrayLike, misses: int,
             alpha = pi[:, None] * day
             continue
         moved = step.T @ alpha
-        full = signal.fftconvolve(moved, day, axes=1)
+        full = scipy.signal.fftconvolve(moved, day, axes=1)
         alpha = np.concatenate([full[:, :cells - 1], full[:, cells - 1:].sum(axis=1,
                                                                             keepdims=True)],
                                axis=1)
@@ -82,8 +82,8 @@ def persistent_pvalues(law: MissLaw, day_rows: ArrayLike, misses: int,
 def _capped_binomial(n: int, p: FloatArray, cells: int) -> FloatArray:
     """Per node: ``Bin(n, p_j)`` at ``0..cells-2`` and its remaining mass in the last cell."""
     k = np.arange(cells - 1)
-    head = stats.binom.pmf(k[None, :], n, p[:, None])
-    tail = stats.binom.sf(cells - 2, n, p)[:, None]
+    head = scipy.stats.binom.pmf(k[None, :], n, p[:, None])
+    tail = scipy.stats.binom.sf(cells - 2, n, p)[:, None]
     return np.concatenate([head, tail], axis=1)
 
 

@@ -21,8 +21,8 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike
-from scipy import stats
 
 from monitor.stats.moments import Moments
 
@@ -52,9 +52,9 @@ def q_value(level: Moments, value: float) -> float | None:
     # what a double can hold as a tail probability the value is clipped (still far past any
     # chart limit)
     if t > 0:
-        q = float(stats.norm.isf(stats.t.sf(t, n - 1)))
+        q = float(scipy.stats.norm.isf(scipy.stats.t.sf(t, n - 1)))
     else:
-        q = float(stats.norm.ppf(stats.t.cdf(t, n - 1)))
+        q = float(scipy.stats.norm.ppf(scipy.stats.t.cdf(t, n - 1)))
     return float(np.clip(q, -Q_BOUND, Q_BOUND)) if not math.isnan(q) else 0.0
 
 

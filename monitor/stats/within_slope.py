@@ -47,8 +47,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy
 from numpy.typing import ArrayLike, NDArray
-from scipy import optimize, special, stats
 
 from monitor.stats.diagnosis import TAIL_SDS
 from monitor.stats.moments import DayMoments, Moments
@@ -279,14 +279,15 @@ def _decision_interval(steps: FloatArray, target: FloatArray, ref_se: FloatArray
     ``target_arl`` under the guaranteed estimation errors (see the module text); inf where no
     ``H`` up to :data:`MAX_H` does (the fit window pins that slope down too loosely)."""
     k = steps.shape[1]
-    q_ref = float(stats.norm.ppf((1 + guarantee) / 2))
+    q_ref = float(scipy.stats.norm.ppf((1 + guarantee) / 2))
     hs = []
     for j in range(k):
         lam = steps[:, j]
         # underestimated variances: the within part on dof, tau² on days - 1 df, each at the
         # guarantee quantile
-        within_hi = float(dof / stats.chi2.ppf(1 - guarantee, dof)) if dof > 0 else 1.0
-        tau_hi = float((days - 1) / stats.chi2.ppf(1 - guarantee, days - 1)) if days > 1 else 1.0
+        within_hi = float(dof / scipy.stats.chi2.ppf(1 - guarantee, dof)) if dof > 0 else 1.0
+        tau_hi = (float((days - 1) / scipy.stats.chi2.ppf(1 - guarantee, days - 1))
+                  if days > 1 else 1.0)
         v = within_var[:, j] + tau2[j]
         sd = np.sqrt((within_var[:, j] * within_hi + tau2[j] * tau_hi) / v)
         shift = q_ref * ref_se[j] / np.sqrt(v)  # the reference's error, in day sd units
@@ -323,7 +324,7 @@ def _solve_h(lam: FloatArray, sd: FloatArray, shift: FloatArray, target_arl: flo
         if hi >= MAX_H:
             return float("inf")
         lo, hi = hi, min(hi * 2, MAX_H)
-    return float(optimize.brentq(gap, lo, hi, xtol=1e-6))
+    return float(scipy.optimize.brentq(gap, lo, hi, xtol=1e-6))
 
 
 def two_sided_arl(lam: ArrayLike, sd: ArrayLike, shift: ArrayLike, h: float) -> float:
@@ -360,7 +361,7 @@ def mixture_arl(means: ArrayLike, sds: ArrayLike, h: float, nodes: int | None = 
     gap = y[None, :] - s_points[:, None]  # y_j - s_i
     z = (gap[:, :, None] - mu) / sd
     density = (np.exp(-0.5 * z * z) / (sd * _ROOT_2PI)).mean(axis=2)
-    fall = special.ndtr((-s_points[:, None] - mu) / sd).mean(axis=1)
+    fall = scipy.special.ndtr((-s_points[:, None] - mu) / sd).mean(axis=1)
     system = np.empty((nodes + 1, nodes + 1))
     system[:, 0] = -fall
     system[:, 1:] = -density * (half * w)

@@ -11,6 +11,7 @@ import json
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -33,13 +34,13 @@ from sqlalchemy import (
     select,
     update,
 )
-from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.sql.compiler import SQLCompiler
 
 from monitor.domain.model import ModelRecord
 from monitor.stats.moments import DayMoments, Moments
 from monitor.store.engine import driver_cursor
 from monitor.store.schema import day_stats, observations, predictor_columns
+from monitor.store.upsert import insert_for
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
@@ -189,7 +190,7 @@ def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
 def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
                    rows: PreparedRows) -> InsertResult:
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
-    stmt = (sqlite.insert(observations)
+    stmt = (insert_for(conn, observations)
             .values(model_id=literal_column(str(int(model.id))),
                     batch_id=literal_column(str(int(batch_id))),
                     **{name: bindparam(name) for name in names})
@@ -211,21 +212,26 @@ def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
     return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
 
 
-_STAGE = Table(
-    "fitwatch_stage", MetaData(),
-    Column("obs_key", String(200)), Column("observed_at_us", BigInteger),
-    Column("day", String(10)), Column("y", Float),
-    *(Column(name, Float) for name in predictor_columns(8)),
-    prefixes=["TEMPORARY"], postgresql_on_commit="DROP",
-)
+@lru_cache(maxsize=1)
+def _stage() -> Table:
+    """The per-transaction staging table of the PostgreSQL bulk path (made on first use: a
+    ``postgresql_*`` option loads that dialect, which SQLite users never need)."""
+    return Table(
+        "fitwatch_stage", MetaData(),
+        Column("obs_key", String(200)), Column("observed_at_us", BigInteger),
+        Column("day", String(10)), Column("y", Float),
+        *(Column(name, Float) for name in predictor_columns(8)),
+        prefixes=["TEMPORARY"], postgresql_on_commit="DROP",
+    )
 
 
 def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
                        rows: PreparedRows) -> InsertResult:
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
+    stage = _stage()
     exists = conn.exec_driver_sql("SELECT to_regclass('pg_temp.fitwatch_stage')").scalar()
     if exists is None:
-        _STAGE.create(conn)
+        stage.create(conn)
     else:
         conn.exec_driver_sql("TRUNCATE fitwatch_stage")
     with driver_cursor(conn) as cursor, \
@@ -233,10 +239,10 @@ def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
         for row in rows.tuples:
             copy.write_row(row)
     source = select(literal_column(str(int(model.id))), literal_column(str(int(batch_id))),
-                    _STAGE.c.obs_key, _STAGE.c.observed_at_us,
-                    cast(_STAGE.c.day, Date), _STAGE.c.y,
-                    *(_STAGE.c[c] for c in names[4:]))
-    stmt = (postgresql.insert(observations)
+                    stage.c.obs_key, stage.c.observed_at_us,
+                    cast(stage.c.day, Date), stage.c.y,
+                    *(stage.c[c] for c in names[4:]))
+    stmt = (insert_for(conn, observations)
             .from_select(["model_id", "batch_id", *names], source)
             .on_conflict_do_nothing(index_elements=["model_id", "obs_key"])
             .returning(observations.c.obs_key))
@@ -257,8 +263,10 @@ def _stored_under(conn: Connection, model: ModelRecord,
                   keys: NDArray[np.object_]) -> list[tuple[Any, ...]]:
     """(key, id, batch_id, observed_at_us, y, x...) of the stored rows with these keys."""
     xs = [observations.c[c] for c in predictor_columns(model.k)]
-    listed = bindparam("keys", keys.tolist(), type_=postgresql.ARRAY(String))
     if conn.dialect.name == "postgresql":
+        from sqlalchemy.dialects.postgresql import ARRAY
+
+        listed = bindparam("keys", keys.tolist(), type_=ARRAY(String))
         match = observations.c.obs_key == func.any(listed)
     else:
         each = func.json_each(bindparam("keys", json.dumps(keys.tolist()))).table_valued("value")

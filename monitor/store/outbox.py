@@ -14,9 +14,9 @@ from dataclasses import dataclass
 from datetime import datetime
 
 from sqlalchemy import Connection, func, select, update
-from sqlalchemy.dialects import postgresql, sqlite
 
 from monitor.store.schema import outbox
+from monitor.store.upsert import insert_for
 
 PENDING, SENT, FAILED = "pending", "sent", "failed"
 
@@ -103,8 +103,7 @@ def queue_message(conn: Connection, message: NewMessage, now: datetime) -> bool:
     ``INSERT ... ON CONFLICT DO NOTHING`` on the unique key, so two runs of the same night racing
     each other on PostgreSQL store the message once instead of one of them failing.
     """
-    builder = postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert
-    statement = builder(outbox).values(
+    statement = insert_for(conn, outbox).values(
         dedupe_key=message.dedupe_key, recipient=message.recipient, subject=message.subject,
         body_text=message.body_text, body_html=message.body_html, chart_png=message.chart_png,
         status=PENDING, attempts=0, last_error=None, created_at=now, next_attempt_at=now,

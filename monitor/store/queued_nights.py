@@ -11,10 +11,10 @@ from collections.abc import Iterable
 from datetime import date, datetime
 
 from sqlalchemy import Connection, and_, select
-from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.sql.expression import Join
 
 from monitor.store.schema import day_checks, queued_nights
+from monitor.store.upsert import insert_for
 
 
 def _unqueued() -> Join:
@@ -44,6 +44,5 @@ def mark_queued(conn: Connection, model_ids: Iterable[int], night: date, now: da
     values = [{"model_id": m, "day": night, "queued_at": now} for m in sorted(set(model_ids))]
     if not values:
         return
-    builder = postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert
-    conn.execute(builder(queued_nights).values(values).on_conflict_do_nothing(
+    conn.execute(insert_for(conn, queued_nights).values(values).on_conflict_do_nothing(
         index_elements=[queued_nights.c.model_id, queued_nights.c.day]))

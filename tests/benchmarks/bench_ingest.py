@@ -65,7 +65,8 @@ def prepare_fitwatch(url: str, with_id: bool) -> None:
     from datetime import UTC, datetime
 
     from monitor.domain.model import ModelSpec
-    from monitor.store.engine import open_engine, upgrade_database
+    from monitor.store.engine import open_engine
+    from monitor.store.migrate import upgrade_database
     from monitor.store.models import create_model
 
     engine = open_engine(url)

@@ -38,7 +38,8 @@ from monitor.ingest.service import ingest_file, options_for
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.monitoring.check import run_checks
 from monitor.stats import misses
-from monitor.store.engine import init_database, open_engine
+from monitor.store.engine import open_engine
+from monitor.store.migrate import init_database
 from monitor.store.models import get_model
 
 

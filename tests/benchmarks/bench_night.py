@@ -31,7 +31,8 @@ from monitor.ingest.service import ingest_file, options_for
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.monitoring.check import run_checks
 from monitor.runtime.nightly import run_night
-from monitor.store.engine import init_database, open_engine
+from monitor.store.engine import open_engine
+from monitor.store.migrate import init_database
 from monitor.store.models import get_model
 
 START = date(2024, 1, 1)

@@ -40,7 +40,8 @@ from sqlalchemy import func, select
 
 from monitor.alerts.compose import message_id
 from monitor.config import load_settings
-from monitor.store.engine import open_engine, upgrade_database
+from monitor.store.engine import open_engine
+from monitor.store.migrate import upgrade_database
 from monitor.store.schema import day_checks, observations, outbox, queued_nights
 from tests.support.mail import Handler, free_port
 from tests.support.night_child import ROOT, expected_keys, night_config

@@ -16,7 +16,8 @@ import pytest
 from sqlalchemy import Engine
 
 from monitor.config import Settings, parse_settings
-from monitor.store.engine import open_engine, upgrade_database
+from monitor.store.engine import open_engine
+from monitor.store.migrate import upgrade_database
 from tests.support.snapshots import WorldCache
 from tests.support.world import CALM, CHANGED, FIT_CANDIDATE, LAST_DAY, REACH_REFIT, WORDS, World
 

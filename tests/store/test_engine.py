@@ -15,15 +15,12 @@ from monitor.errors import DatabaseError
 from monitor.store.engine import (
     current_revision,
     describe_url,
-    downgrade_database,
-    head_revision,
-    init_database,
     normalize_url,
     open_engine,
     require_current,
-    upgrade_database,
     write_transaction,
 )
+from monitor.store.migrate import downgrade_database, head_revision, init_database, upgrade_database
 from monitor.store.schema import metadata
 
 
@@ -124,9 +121,20 @@ def test_require_current_says_what_to_do(database_url: str) -> None:
             require_current(engine)
         with pytest.raises(DatabaseError, match="newer fitwatch"):
             upgrade_database(engine)
-        with engine.begin() as conn:
+        with engine.begin() as conn:  # an older revision this program can upgrade from
+            conn.execute(text("UPDATE alembic_version SET version_num = '0001'"))
+        with pytest.raises(DatabaseError, match=f"at revision 0001, this fitwatch needs "
+                                                f"{head_revision()}; run 'fitwatch init'"):
+            require_current(engine)
+        with engine.begin() as conn:  # two rows: not a revision this program can work with
             conn.execute(text("UPDATE alembic_version SET version_num = :v"),
                          {"v": head_revision()})
+            conn.execute(text("INSERT INTO alembic_version (version_num) VALUES ('0002')"))
+        with pytest.raises(DatabaseError, match="several schema revisions"):
+            require_current(engine)
+        with engine.begin() as conn:
+            conn.execute(text("DELETE FROM alembic_version WHERE version_num = '0002'"))
+        require_current(engine)
     finally:
         engine.dispose()
 

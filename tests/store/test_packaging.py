@@ -12,7 +12,8 @@ from pathlib import Path
 
 from alembic.script import ScriptDirectory
 
-from monitor.store.engine import SCRIPT_LOCATION, alembic_config
+from monitor.migrations import HEAD_REVISION
+from monitor.store.migrate import SCRIPT_LOCATION, alembic_config
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -29,6 +30,8 @@ def test_alembic_finds_the_migrations_as_a_package_resource() -> None:
     assert files and chain == files
     assert scripts.get_revision(chain[0]).down_revision is None
     assert scripts.get_heads() == [chain[-1]]
+    # the constant everyday commands compare with (they never load Alembic) is that head
+    assert chain[-1] == HEAD_REVISION
 
 
 def test_every_non_python_file_of_the_package_is_declared_as_package_data() -> None:

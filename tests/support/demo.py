@@ -22,7 +22,8 @@ from monitor.demo.run import DemoResult
 from monitor.demo.scenario import TIMEZONE
 from monitor.interface.cli import main
 from monitor.lifecycle.fit import FitRequest, fit_model
-from monitor.store.engine import open_engine, upgrade_database
+from monitor.store.engine import open_engine
+from monitor.store.migrate import upgrade_database
 from tests.support.world import HISTORY, MODEL, night_after
 
 ROOT = Path(__file__).resolve().parents[2]

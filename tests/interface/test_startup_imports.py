@@ -1,0 +1,84 @@
+"""The quick commands answer at once: they never import the heavy libraries they do not use.
+
+Each command runs in a fresh interpreter (``python -c``, this checkout's code) against a copy of
+the demo database and prints the heavy modules it ended up with. What counts as heavy, with its
+import cost on the project's 2-core machine (``python -X importtime``, Python 3.11): scipy's
+submodules (stats alone about 0.5 s), pandas (about 0.3 s), matplotlib, Jinja2, pyarrow,
+Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database (about
+30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
+reports the schedule, so it is the one command here that may use APScheduler. Start-up times are measured by
+``tests/benchmarks/bench_startup.py``, not asserted here (a busy machine would make that flaky).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from tests.support.demo import DemoRun
+
+ROOT = Path(__file__).resolve().parents[2]
+
+HEAVY = ("scipy.stats", "scipy.linalg", "scipy.optimize", "scipy.signal", "scipy.fft",
+         "scipy.special", "scipy.integrate", "pandas", "matplotlib", "jinja2", "pyarrow",
+         "alembic", "psycopg", "sqlalchemy.dialects.postgresql", "apscheduler", "tqdm")
+
+PROBE = """
+import io, json, sys
+from contextlib import redirect_stdout
+from monitor.interface.cli import main
+with redirect_stdout(io.StringIO()) as out:
+    code = main(sys.argv[1:])
+heavy = sorted(m for m in {heavy!r} if m in sys.modules)
+print(json.dumps({{"code": code, "heavy": heavy, "printed": len(out.getvalue())}}))
+"""
+
+
+def loaded_by(argv: list[str], cwd: Path) -> dict[str, object]:
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    env.pop("FITWATCH_CONFIG", None)
+    result = subprocess.run([sys.executable, "-c", PROBE.format(heavy=HEAVY), *argv], cwd=cwd,
+                            env=env, capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stderr
+    return json.loads(result.stdout.splitlines()[-1])
+
+
+@pytest.fixture
+def config(demo: DemoRun, tmp_path: Path) -> Path:
+    shutil.copyfile(demo.folder / "fitwatch.db", tmp_path / "fitwatch.db")
+    path = tmp_path / "fitwatch.toml"
+    path.write_text(f'[database]\nurl = "sqlite:///{tmp_path / "fitwatch.db"}"\n'
+                    '[schedule]\ntimezone = "Europe/Berlin"\ncron = "30 2 * * mon-sat"\n')
+    return path
+
+
+@pytest.mark.parametrize("argv, allowed", [
+    (["status"], {"apscheduler", "asyncio"}),
+    (["status", "--json"], {"apscheduler", "asyncio"}),
+    (["model", "list"], set()),
+    (["model", "show", "dock_loading"], set()),
+    (["model", "show", "dock_loading", "--json"], set()),
+])
+def test_quick_commands_leave_the_heavy_libraries_alone(config: Path, argv: list[str],
+                                                         allowed: set[str]) -> None:
+    seen = loaded_by(["--config", str(config), *argv], config.parent)
+    assert seen["code"] == 0 and seen["printed"], seen  # it did its work
+    assert set(seen["heavy"]) <= allowed, f"{argv} imported {seen['heavy']}"
+
+
+def test_help_imports_nothing_heavy_not_even_numpy(tmp_path: Path) -> None:
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    probe = ("import sys\nfrom monitor.interface.cli import main\n"
+             "try:\n    main(['--help'])\nexcept SystemExit:\n    pass\n"
+             "print(sorted(m for m in ('numpy', 'sqlalchemy', *{heavy!r}) if m in sys.modules))")
+    result = subprocess.run([sys.executable, "-c", probe.format(heavy=HEAVY)], cwd=tmp_path,
+                            env=env, capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stderr
+    assert "usage: fitwatch" in result.stdout
+    assert result.stdout.splitlines()[-1] == "[]"
