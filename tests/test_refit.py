@@ -311,8 +311,12 @@ def test_asking_to_hold_out_more_days_than_there_are_says_so(
     changed = refitted_from_30_march
     result = compare(changed.settings, MODEL, holdout_days=12, engine=changed.engine)
     assert result.recommendation.action == "wait"
+    # the candidate's window reaches the last day, so the 12 held out are cut from it and it is
+    # refitted on the days before: the advice counts the days still missing, not "a few"
+    fit = changed.settings.check.min_fit_days
     assert result.recommendation.sentence.startswith(
-        "There are 12 days with rows in the candidate's window; more than 12 are needed")
+        "There are 12 days with rows in the candidate's window; holding 12 out takes 12 and at "
+        f"least {fit} before them to refit the candidate on: {fit} more day(s) with rows.")
 
 
 @pytest.mark.slow

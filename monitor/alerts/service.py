@@ -53,11 +53,12 @@ from monitor.config import Settings
 from monitor.domain.check import DayCheck
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
+from monitor.errors import StateError
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.store import audit, queued_nights
 from monitor.store import outbox as box
 from monitor.store.access import database
-from monitor.store.checks import last_check, load_checks
+from monitor.store.checks import last_check, load_checks, models_checked_on
 from monitor.store.engine import write_transaction
 from monitor.store.models import list_models
 from monitor.store.versions import list_versions
@@ -316,13 +317,22 @@ def send_due(settings: Settings, *, now: datetime, engine: Engine | None = None,
 
 
 def send_night_alerts(settings: Settings, night: date, *, now: datetime,
-                      engine: Engine | None = None, mailer: Mailer | None = None) -> AlertRun:
+                      engine: Engine | None = None, mailer: Mailer | None = None,
+                      require_checked: bool = False) -> AlertRun:
     """Queue ``night``'s messages, then send everything due (this night's and earlier retries).
 
     The one entry point for the daemon and the command line. ``night`` is the calendar day that
-    was just checked, in the configured time zone; ``now`` is the instant of the run.
+    was just checked, in the configured time zone; ``now`` is the instant of the run. A night
+    no model has been checked for is a :class:`StateError` when ``require_checked`` (the
+    command line: there is nothing to send yet, and saying nothing would look like "all quiet").
     """
     with database(settings, engine) as db:
+        if require_checked:
+            with db.connect() as conn:
+                if not models_checked_on(conn, night):
+                    raise StateError(f"no model has been checked for the night of {night}; "
+                                     f"run 'fitwatch check --through {night}' first, then "
+                                     "'fitwatch alerts --night' again")
         queued = queue_night(settings, night, now=now, engine=db)
         delivery = send_due(settings, now=now, engine=db, mailer=mailer)
     return AlertRun(night, queued, delivery.sent, delivery.retried, delivery.failed,

@@ -48,16 +48,27 @@ def check_text(outcome: CheckOutcome) -> str:
         if r.error:
             lines.append(f"{r.model}: not checked: {r.error}")
             continue
+        if r.reported_day is not None and not r.checks:
+            why = f" ({r.note})" if r.note else ""
+            lines.append(f"{r.model}: {r.reported_day} has not been checked{why}")
+            continue
         if not r.checks:
             lines.append(f"{r.model}: nothing new to check ({r.note})")
             continue
-        head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
+        if r.reported_day is not None:
+            done = "checked before, reported again" if r.checked_before else "checked now"
+            head = f"{r.model}: {r.reported_day} ({done})"
+        else:
+            head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
         if r.recomputed_from:
             head += f"; late rows made it re-check from {r.recomputed_from}"
         lines.append(head)
         for c in r.checks:
             lines.append("  " + day_line(c))
         last = r.checks[-1]
-        lines.append(f"  now {last.status.upper()} since {last.status_since}:")
+        when = f"on {last.day}" if r.reported_day is not None else "now"
+        lines.append(f"  {when} {last.status.upper()} since {last.status_since}:")
         lines.extend(f"    - {reason}" for reason in last.reasons)
+    if not lines:
+        return "no models to check (fit one with 'fitwatch model fit NAME ...')"
     return "\n".join(lines)

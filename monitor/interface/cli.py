@@ -345,9 +345,8 @@ def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
             print(f"fitwatch: {trouble.sentence()}", file=sys.stderr)
         if trouble.failed:
             return EXIT_THRESHOLD
-        rank = {"ok": 0, "watch": 1, "refit": 2}
         worst = outcome.worst_status()
-        if worst is not None and rank[worst] >= rank[args.fail_on]:
+        if worst is not None and worst.at_least(args.fail_on):
             return EXIT_THRESHOLD
     return EXIT_OK
 
@@ -450,7 +449,7 @@ def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
         if not args.json:
             print(f"{count} failed message(s) sent back to the queue")
     if args.night:
-        result = send_night_alerts(settings, args.night, now=now)
+        result = send_night_alerts(settings, args.night, now=now, require_checked=True)
     else:
         result = send_pending_alerts(settings, now=now)
     print(dumps(result.as_dict()) if args.json else result.sentence())

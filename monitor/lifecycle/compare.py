@@ -107,7 +107,9 @@ def _compare(conn: Connection, model: ModelRecord, active: Version,
     held = days[-wanted:] if len(days) > wanted else []
     refit_needed = candidate.fit_end is not None and bool(held) and candidate.fit_end >= held[0]
     before = [d for d in days if not held or d < held[0]]
-    wait = _too_few(len(days), wanted, len(held), len(before) if refit_needed else None, ms)
+    overlaps = candidate.fit_end is not None and bool(days) and candidate.fit_end >= days[-1]
+    wait = _too_few(len(days), wanted, len(held), len(before) if refit_needed else None, ms,
+                    refit_later=overlaps)
     if wait:
         return Comparison(model, active, candidate, None, "stored", None, None, None, None,
                           Recommendation(WAIT, wait, None), unit)
@@ -153,16 +155,24 @@ def _against_standing_refit(conn: Connection, model: ModelRecord, candidate: Ver
         f"the two disagree because {why}.", advice.command)
 
 
-def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSettings) -> str:
-    """Why there is too little to judge, or '' when there is enough."""
+def _too_few(days: int, wanted: int, held: int, before: int | None, ms: ModelSettings, *,
+             refit_later: bool = False) -> str:
+    """Why there is too little to judge and how many more days with rows it takes, or ''
+    when there is enough. ``refit_later``: the candidate's window reaches the last day with
+    rows, so the held-out days will be cut from it and it is refitted on the days before."""
+    fit = ms.check.min_fit_days
     if held < MIN_HOLDOUT_DAYS or held < wanted:
         need = max(wanted, MIN_HOLDOUT_DAYS)
-        return (f"There are {days} days with rows in the candidate's window; more than {need} "
-                f"are needed to hold {need} out and judge it. Compare again in a few days.")
-    if before is not None and before < ms.check.min_fit_days:
+        total = need + (fit if refit_later else 1)
+        after = (f" and at least {fit} before them to refit the candidate on" if refit_later
+                 else " and one before them")
+        return (f"There are {days} days with rows in the candidate's window; holding {need} out "
+                f"takes {need}{after}: {total - days} more day(s) with rows. Compare again "
+                f"then, or hold out fewer days (--holdout-days, at least {MIN_HOLDOUT_DAYS}).")
+    if before is not None and before < fit:
         return (f"Holding out {held} of the {days} days leaves {before} to refit the candidate "
-                f"on; at least {ms.check.min_fit_days} are needed. Hold out fewer days or "
-                "compare again in a few days.")
+                f"on; at least {fit} are needed: {fit - before} more day(s) with rows. Hold out "
+                "fewer days or compare again then.")
     return ""
 
 

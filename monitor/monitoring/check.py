@@ -56,7 +56,10 @@ class ModelCheck:
     recomputed_from: date | None  # set when late rows forced a re-evaluation
     note: str = ""
     failure: Failure | None = None  # set when the model could not be checked
-    current: DayCheck | None = None  # the model's latest check, new or stored before
+    # the model's latest check, new or stored before; with ``check --day`` that day's check
+    current: DayCheck | None = None
+    reported_day: date | None = None  # ``check --day``: the one day reported
+    checked_before: bool = False  # ``check --day``: that day was checked by an earlier run
 
     @property
     def error(self) -> str | None:
@@ -123,11 +126,15 @@ def _check_all(engine: Engine, settings: Settings, names: Sequence[str] | None,
 
 
 def _only_day(engine: Engine, model: ModelRecord, result: ModelCheck, day: date) -> ModelCheck:
+    """The run's result narrowed to ``day``: its check (new or stored before) is what is
+    reported and what ``--fail-on`` judges, not the model's status today."""
     with engine.connect() as conn:
         stored = load_checks(conn, model.id, day, day, model=model.name)
+    new = any(c.day == day for c in result.checks)
     return ModelCheck(model.name, tuple(stored), day if stored else None,
                       day if stored else None, result.recomputed_from, result.note, result.failure,
-                      current=result.current)
+                      current=stored[-1] if stored else None, reported_day=day,
+                      checked_before=bool(stored) and not new)
 
 
 def check_model(engine: Engine, model: ModelRecord, settings: ModelSettings, end: date,

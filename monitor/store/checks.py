@@ -74,6 +74,12 @@ def last_check(conn: Connection, model_id: int, before: date | None = None,
     return _check(row, model) if row is not None else None
 
 
+def models_checked_on(conn: Connection, day: date) -> int:
+    """How many models have a check of ``day``."""
+    query = select(func.count()).select_from(day_checks).where(day_checks.c.day == day)
+    return int(conn.execute(query).scalar_one())
+
+
 def earliest_stale_day(conn: Connection, model_id: int) -> date | None:
     """The first checked day whose observations changed after it was checked.
 

@@ -212,6 +212,40 @@ def test_3_when_check_fail_on_is_reached_and_0_before(cli) -> None:
     assert code == ExitCode.THRESHOLD == 3 and "now REFIT since" in out
 
 
+def test_check_day_judges_and_words_the_day_it_reports_not_today(cli) -> None:
+    # Before: with the model at refit today, --day of a quiet day still exited 3 ("now OK" on
+    # screen) and said "checked" for a day an earlier run had checked.
+    assert cli("check", MODEL, "--through", "2026-04-04")[0] == ExitCode.OK
+    code, out, _ = cli("check", MODEL, "--day", "2026-03-12", "--fail-on", "watch")
+    assert code == ExitCode.OK, out
+    assert f"{MODEL}: 2026-03-12 (checked before, reported again)" in out
+    assert "on 2026-03-12 OK since" in out and "now" not in out
+    code, out, _ = cli("check", MODEL, "--day", "2026-04-04", "--fail-on", "refit")
+    assert code == ExitCode.THRESHOLD and "on 2026-04-04 REFIT since" in out
+    # a day not yet checked is checked now, and said so
+    code, out, _ = cli("check", OTHER, "--day", "2026-03-10")
+    assert code == ExitCode.OK and f"{OTHER}: 2026-03-10 (checked now)" in out
+
+
+def test_check_with_no_models_says_so(tmp_path: Path) -> None:
+    url = f"sqlite:///{tmp_path / 'empty.db'}"
+    assert main(["--db", url, "init"]) == 0
+    result = run_cli("--db", url, "check", "--through", "2026-03-10", cwd=tmp_path)
+    assert result.returncode == ExitCode.OK
+    assert result.stdout.strip() == "no models to check (fit one with 'fitwatch model fit NAME ...')"
+
+
+def test_alerts_for_a_night_nobody_checked_is_an_error_that_says_what_to_do(cli) -> None:
+    code, out, err = cli("alerts", "--night", "2026-03-20")
+    assert code == StateError.exit_code == 1 and out == ""
+    assert err == ("fitwatch: no model has been checked for the night of 2026-03-20; run "
+                   "'fitwatch check --through 2026-03-20' first, then 'fitwatch alerts --night' "
+                   "again\n")
+    assert cli("check", MODEL, "--through", "2026-03-20")[0] == ExitCode.OK
+    code, out, _ = cli("alerts", "--night", "2026-03-20")
+    assert code == ExitCode.OK and out
+
+
 # 130 --------------------------------------------------------------------------------------------
 def test_130_when_interrupted(cli, monkeypatch: pytest.MonkeyPatch) -> None:
     # 128 + the signal number for a command ended by a signal, SIGINT being 2 (GNU Bash
