@@ -306,7 +306,8 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
 
 # Keys a [models.NAME.alerts] section may set: who hears about the model and when. The
 # transport and the sender are global, because one digest per recipient covers every model.
-_MODEL_ALERT_KEYS = {"to", "on", "remind_every_days"}
+# A model's ``to`` adds to the global recipients; ``only_to`` replaces them for that model.
+_MODEL_ALERT_KEYS = {"to", "only_to", "on", "remind_every_days"}
 
 
 def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> AlertSettings:
@@ -340,11 +341,17 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
             timeout_seconds=r.number(s, f"{key}.smtp.timeout_seconds", d.timeout_seconds,
                                      low=1.0),
         )
-    to = r.strings(sec, f"{key}.to", base.to)
-    for address in to:
+    if "to" in sec and "only_to" in sec:
+        raise ConfigError("set either to (added to the global recipients) or only_to (instead "
+                          "of them), not both", source=r.source, key=f"{key}.only_to")
+    added = "to" in sec and key != "alerts"
+    which = "only_to" if "only_to" in sec else "to"
+    named = r.strings(sec, f"{key}.{which}", () if added else base.to)
+    for address in named:
         if not _EMAIL.fullmatch(address):
             raise ConfigError(f"{address!r} is not an e-mail address", source=r.source,
-                              key=f"{key}.to")
+                              key=f"{key}.{which}")
+    to = base.to + tuple(a for a in named if a not in base.to) if added else named
     sender = r.string(sec, f"{key}.sender", base.sender, non_empty=True)
     on = r.strings(sec, f"{key}.on", base.on)
     for status in on:

@@ -23,13 +23,33 @@ from monitor.errors import ConfigError
 EXAMPLE = Path(__file__).resolve().parents[1] / "config" / "fitwatch.example.toml"
 
 
+def test_a_models_recipients_add_to_the_global_ones_unless_it_says_only():
+    # Before: a model's `to` replaced the global list, so the lead heard nothing of that model.
+    base = {"alerts": {"to": ["lead@example.com", "ops@example.com"]}}
+    added = parse_settings({**base, "models": {"a": {"alerts": {
+        "to": ["dock@example.com", "ops@example.com"]}}}}, "<test>")
+    assert added.for_model("a").alerts.to == ("lead@example.com", "ops@example.com",
+                                               "dock@example.com")
+    assert added.for_model("b").alerts.to == ("lead@example.com", "ops@example.com")
+    only = parse_settings({**base, "models": {"a": {"alerts": {"only_to": ["dock@example.com"]}}}},
+                          "<test>")
+    assert only.for_model("a").alerts.to == ("dock@example.com",)
+    with pytest.raises(ConfigError, match="either to .* or only_to"):
+        parse_settings({**base, "models": {"a": {"alerts": {"to": ["x@example.com"],
+                                                            "only_to": ["y@example.com"]}}}})
+    with pytest.raises(ConfigError, match="'models.a.alerts.only_to'.*not an e-mail address"):
+        parse_settings({"models": {"a": {"alerts": {"only_to": ["nobody"]}}}})
+    with pytest.raises(ConfigError, match="'alerts.only_to': unknown key"):  # global: to is it
+        parse_settings({"alerts": {"only_to": ["lead@example.com"]}})
+
+
 def test_example_file_is_valid_and_documents_every_key():
     settings = load_settings(EXAMPLE, environ={})
     assert settings.check == CheckSettings()
     model = settings.for_model("dock_loading")
     assert model.ranges["pallets"] == (1.0, 40.0)
     assert model.words.x_unit("pallets") == "pallet"
-    assert model.alerts.to == ("dock.planning@example.com",)
+    assert model.alerts.to == ("planning.lead@example.com", "dock.planning@example.com")
     assert settings.alerts.smtp == SmtpSettings()
     text = EXAMPLE.read_text()
     for cls in (CheckSettings, SmtpSettings):
