@@ -460,11 +460,8 @@ def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.runtime.daemon import run_daemon
 
     runs = run_daemon(settings, once=args.once)
-    if args.json:
+    if args.json:  # in text the log has said each run's sentence already (once, on stderr)
         print(dumps([r.as_dict() for r in runs]))
-    else:
-        for run in runs:
-            print(run.sentence())
     if not args.once:
         return EXIT_OK
     if not runs:  # the run itself failed (logged above)

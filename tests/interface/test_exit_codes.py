@@ -227,6 +227,17 @@ def test_check_day_judges_and_words_the_day_it_reports_not_today(cli) -> None:
     assert code == ExitCode.OK and f"{OTHER}: 2026-03-10 (checked now)" in out
 
 
+def test_daemon_once_says_each_run_once(world: Path) -> None:
+    # Before, the run's sentence went to the log (stderr) and again to stdout: a terminal or a
+    # journal, which see both, showed every line twice.
+    result = run_cli("--config", str(world), "daemon", "--once", cwd=world.parent)
+    assert result.returncode == ExitCode.OK, result.stderr
+    lines = (result.stdout + result.stderr).splitlines()
+    runs = [line for line in lines if "model-day(s) checked through" in line]
+    assert len(runs) == 1 and " INFO monitor.runtime.daemon: nightly run: " in runs[0], lines
+    assert result.stdout == ""
+
+
 def test_check_with_no_models_says_so(tmp_path: Path) -> None:
     url = f"sqlite:///{tmp_path / 'empty.db'}"
     assert main(["--db", url, "init"]) == 0
