@@ -34,12 +34,12 @@ def test_a_models_recipients_add_to_the_global_ones_unless_it_says_only():
     only = parse_settings({**base, "models": {"a": {"alerts": {"only_to": ["dock@example.com"]}}}},
                           "<test>")
     assert only.for_model("a").alerts.to == ("dock@example.com",)
-    with pytest.raises(ConfigError, match="either to .* or only_to"):
+    with pytest.raises(ConfigError, match=r"either to .* or only_to"):
         parse_settings({**base, "models": {"a": {"alerts": {"to": ["x@example.com"],
                                                             "only_to": ["y@example.com"]}}}})
-    with pytest.raises(ConfigError, match="'models.a.alerts.only_to'.*not an e-mail address"):
+    with pytest.raises(ConfigError, match=r"'models\.a\.alerts\.only_to'.*not an e-mail address"):
         parse_settings({"models": {"a": {"alerts": {"only_to": ["nobody"]}}}})
-    with pytest.raises(ConfigError, match="'alerts.only_to': unknown key"):  # global: to is it
+    with pytest.raises(ConfigError, match=r"'alerts\.only_to': unknown key"):  # global: to is it
         parse_settings({"alerts": {"only_to": ["lead@example.com"]}})
 
 

@@ -1,4 +1,4 @@
-"""The inbox the nightly run sweeps: ``<inbox>/<model name>/*.csv|*.parquet``.
+"""The inbox the nightly run sweeps: ``<inbox>/<model name>/*.csv|*.csv.gz|*.parquet``.
 
 Each file is ingested in its own transaction (as ``ingest`` would), then moved beside it into
 ``archive/`` (stored, possibly with some rows rejected and recorded) or ``rejected/`` (refused
@@ -31,7 +31,7 @@ from monitor.store.models import find_model
 
 log = logging.getLogger(__name__)
 
-SUFFIXES = (".csv", ".parquet", ".pq")
+SUFFIXES = (".csv", ".csv.gz", ".parquet", ".pq")
 ARCHIVE, REJECTED = "archive", "rejected"
 
 
@@ -67,7 +67,7 @@ class Sweep:
 def waiting_files(folder: Path) -> list[Path]:
     """Complete data files in one model's folder, oldest first (then by name)."""
     found = [p for p in folder.iterdir()
-             if p.is_file() and p.suffix.lower() in SUFFIXES and not p.name.startswith(".")
+             if p.is_file() and p.name.lower().endswith(SUFFIXES) and not p.name.startswith(".")
              and not p.name.endswith((".part", ".partial", ".tmp"))]
     return sorted(found, key=lambda p: (p.stat().st_mtime_ns, p.name))
 

@@ -11,12 +11,15 @@ number of fields is set aside (never shifts the others), and memory stays bounde
 from __future__ import annotations
 
 import csv
+import gzip
 import hashlib
 import io
 import os
+import zlib
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import BinaryIO, cast
 
 import numpy as np
 import pandas as pd
@@ -32,6 +35,7 @@ HEADER_LIMIT = 1 << 20
 BLOCK_LIMIT = 2 << 20  # bytes read at a time (memory per chunk is a few times this)
 DELIMITERS = (",", "\t", ";", "|")
 PARQUET_MAGIC = b"PAR1"
+GZIP_MAGIC = b"\x1f\x8b"  # RFC 1952 §2.3.1: ID1 ID2
 PARQUET_SUFFIXES = (".parquet", ".pq", ".parq")
 
 
@@ -90,11 +94,20 @@ def open_file(path: str | os.PathLike[str], columns: Sequence[str], chunk_rows: 
         raise InputError(f"{name}: cannot read ({exc.strerror or exc})") from exc
     if not head:
         raise InputError(f"{name} is empty")
+    if head[:2] == GZIP_MAGIC:  # read as it is, like pandas and zcat; Parquet compresses inside
+        return CsvSource(p, name, columns, chunk_rows, compressed=True)
     if head == PARQUET_MAGIC or p.suffix.lower() in PARQUET_SUFFIXES:
         from monitor.ingest.parquet import ParquetSource
 
         return ParquetSource(p, name, columns, chunk_rows, time_column, id_column)
     return CsvSource(p, name, columns, chunk_rows)
+
+
+def _opener(path: Path, compressed: bool) -> Callable[[], BinaryIO]:
+    """Opens the file's bytes, decompressed when it is gzip."""
+    if compressed:
+        return lambda: cast(BinaryIO, gzip.open(path, "rb"))
+    return lambda: path.open("rb")
 
 
 def _scan_bytes(path: Path, name: str) -> tuple[str, int]:
@@ -109,15 +122,15 @@ def _scan_bytes(path: Path, name: str) -> tuple[str, int]:
     return digest.hexdigest(), path.stat().st_size
 
 
-def _scan(path: Path, name: str) -> tuple[str, int, bool, bool]:
-    """One pass over the bytes: SHA-256, size, and whether the first line and the rest hold
-    quote characters. A NUL byte means a binary file."""
+def _scan(path: Path, name: str, compressed: bool = False) -> tuple[str, int, bool, bool]:
+    """One pass over the bytes (decompressed, for a gzip file): SHA-256, size, and whether the
+    first line and the rest hold quote characters. A NUL byte means a binary file."""
     digest = hashlib.sha256()
     size = 0
     head_quotes = body_quotes = False
     in_head = True
     try:
-        with path.open("rb") as fh:
+        with _opener(path, compressed)() as fh:
             while block := fh.read(1 << 20):
                 if b"\0" in block:
                     raise InputError(f"{name} looks like a binary file (it contains NUL bytes), "
@@ -131,6 +144,9 @@ def _scan(path: Path, name: str) -> tuple[str, int, bool, bool]:
                     in_head = cut < 0
                     body = b"" if cut < 0 else block[cut + 1:]
                 body_quotes = body_quotes or b'"' in body
+    except (gzip.BadGzipFile, EOFError, zlib.error) as exc:  # damaged or cut short
+        raise InputError(f"{name} is not a complete gzip file ({exc}); compress it again or "
+                         "ingest the uncompressed CSV") from exc
     except OSError as exc:
         raise InputError(f"{name}: cannot read ({exc.strerror or exc})") from exc
     return digest.hexdigest(), size, head_quotes, body_quotes
@@ -142,12 +158,14 @@ class CsvSource(Source):
     unit = "B"
 
     def __init__(self, path: Path, name: str, columns: Sequence[str], chunk_rows: int, *,
-                 use_csv_module: bool = False):
+                 use_csv_module: bool = False, compressed: bool = False):
         self.path = path
         self.label = name
         self.location = str(path.resolve())
         self.chunk_rows = max(1, int(chunk_rows))
-        self._hash, self.size, head_quotes, body_quotes = _scan(path, name)
+        self._bytes = _opener(path, compressed)  # sizes, offsets and the hash: of the CSV text
+        self.compressed = compressed
+        self._hash, self.size, head_quotes, body_quotes = _scan(path, name, compressed)
         self.total = self.size
         # Quotes only in the header (some exporters quote the names) keep the fast path; a
         # quoted newline in the header would put a quote after the first newline too.
@@ -172,7 +190,7 @@ class CsvSource(Source):
         return self._hash
 
     def _first_line(self) -> bytes:
-        with self.path.open("rb") as fh:
+        with self._bytes() as fh:
             head = fh.read(HEADER_LIMIT + 1)
         if self.slow:  # the header ends at the first newline outside quotes
             end = _quoted_line_end(head)
@@ -197,7 +215,7 @@ class CsvSource(Source):
         return text
 
     def _check_has_rows(self) -> None:
-        with self.path.open("rb") as fh:
+        with self._bytes() as fh:
             fh.seek(self.header_bytes)
             while block := fh.read(1 << 16):
                 if block.strip():
@@ -215,7 +233,7 @@ class CsvSource(Source):
         carry = b""
         pending: list[Rejection] = []  # a row too long to hold, reported with the next chunk
         skipping: tuple[int, bytes] | None = None
-        with self.path.open("rb") as fh:
+        with self._bytes() as fh:
             fh.seek(self.header_bytes)
             while True:
                 block = fh.read(block_size)
@@ -337,7 +355,8 @@ class CsvSource(Source):
     # slow path: quoted fields (possibly across lines) through the csv module ----------------
     def _slow_chunks(self) -> Iterator[RawChunk]:
         wanted = list(self.index.items())
-        with self.path.open("r", encoding="utf-8-sig", errors="replace", newline="") as fh:
+        with io.TextIOWrapper(self._bytes(), encoding="utf-8-sig", errors="replace",
+                              newline="") as fh:
             tap = _LineTap(fh)
             reader = csv.reader(tap, delimiter=self.delimiter, strict=False)
             next(reader)  # the header, already checked
