@@ -132,6 +132,14 @@ def build_parser() -> argparse.ArgumentParser:
     st.add_argument("names", metavar="NAME", nargs="*")
     json_flag(st)
 
+    aud = command("audit", "what was done to the models (fits, promotions, rollbacks, "
+                  "acknowledgements, renames, deletions, failed nights), by whom and why",
+                  _cmd_audit)
+    aud.add_argument("name", metavar="NAME", nargs="?", help="only this model (deleted ones too)")
+    aud.add_argument("--since", metavar="DATE", type=_day, help="entries from this day on")
+    aud.add_argument("--last", metavar="N", type=int, help="only the latest N entries")
+    json_flag(aud)
+
     ref = command("refit", "fit a candidate on the days since the estimated change and compare "
                   "it with the active version", _cmd_compare)
     ref.add_argument("name", metavar="NAME")
@@ -364,6 +372,16 @@ def _cmd_status(args: argparse.Namespace, settings: Settings) -> int:
         print("\n".join(([nightly.sentence()] if nightly else [])
                         + ([trouble.sentence()] if trouble else [])
                         + [s.sentence() for s in statuses]))
+    return EXIT_OK
+
+
+def _cmd_audit(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface.audit_view import audit_listing
+
+    if args.last is not None and args.last < 1:
+        raise UsageError("--last takes a positive number of entries")
+    listing = audit_listing(settings, args.name, since=args.since, last=args.last)
+    print(dumps(listing.as_dict()) if args.json else listing.text())
     return EXIT_OK
 
 

@@ -9,7 +9,7 @@ from typing import Any
 
 from sqlalchemy import Connection, insert, select
 
-from monitor.store.schema import audit_log, inserted_id, jsonable
+from monitor.store.schema import audit_log, inserted_id, jsonable, models, versions
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete")
 
@@ -47,3 +47,69 @@ def entries(conn: Connection, model_id: int, actions: tuple[str, ...] = ACTIONS,
     rows = conn.execute(query.order_by(audit_log.c.at, audit_log.c.id))
     return [AuditEntry(**{k: r._mapping[k] for k in AuditEntry.__dataclass_fields__})
             for r in rows]
+
+
+@dataclass(frozen=True)
+class LogLine:
+    """One entry of the audit log as ``fitwatch audit`` shows it: with the model's name and the
+    version's number (a deleted model's entries keep the name they were recorded under)."""
+
+    id: int
+    at: datetime
+    model: str | None
+    action: str
+    actor: str
+    reason: str | None
+    version: int | None
+    effective_day: date | None
+    details: dict[str, Any]
+
+
+def log_lines(conn: Connection, model: str | None = None, since: datetime | None = None,
+              limit: int | None = None) -> list[LogLine]:
+    """The audit log, oldest first; only ``model``'s entries when given (the model known by that
+    name now, or once: renamed or deleted since), only from ``since``; the latest ``limit``."""
+    query = (select(audit_log, models.c.name.label("model_name"),
+                    versions.c.number.label("version_number"))
+             .select_from(audit_log.outerjoin(models, audit_log.c.model_id == models.c.id)
+                          .outerjoin(versions, audit_log.c.version_id == versions.c.id)))
+    if since is not None:
+        query = query.where(audit_log.c.at >= since)
+    rows = conn.execute(query.order_by(audit_log.c.at.desc(), audit_log.c.id.desc())).all()
+    names = {model}
+    renames = [r.details for r in conn.execute(select(audit_log.c.details)
+                                               .where(audit_log.c.action == "rename"))]
+    while True:  # the names the model went by later (entries show the latest)
+        later = {d.get("to") for d in renames if d and d.get("from") in names} - names
+        if not later:
+            break
+        names |= later
+    out = []
+    for r in rows:
+        m = r._mapping
+        details = dict(m["details"] or {})
+        name = m["model_name"] or details.get("model")
+        if model is not None and name not in names:
+            continue
+        number = m["version_number"]
+        if number is None and isinstance(details.get("version"), int):
+            number = details["version"]
+        out.append(LogLine(m["id"], m["at"], name, m["action"], m["actor"], m["reason"], number,
+                           m["effective_day"], details))
+        if limit is not None and len(out) >= limit:
+            break
+    return out[::-1]
+
+
+def detach(conn: Connection, model_id: int, name: str) -> None:
+    """Keep ``model_id``'s entries, with its name, once the model and its versions are gone."""
+    rows = conn.execute(select(audit_log.c.id, audit_log.c.details, versions.c.number)
+                        .select_from(audit_log.outerjoin(
+                            versions, audit_log.c.version_id == versions.c.id))
+                        .where(audit_log.c.model_id == model_id)).all()
+    for entry_id, details, number in rows:
+        kept = {**(details or {}), "model": name}
+        if number is not None:
+            kept.setdefault("version", number)
+        conn.execute(audit_log.update().where(audit_log.c.id == entry_id)
+                     .values(model_id=None, version_id=None, details=jsonable(kept)))

@@ -8,8 +8,8 @@ from sqlalchemy import Connection, delete, func, select, update
 
 from monitor.domain.model import ModelRecord, ModelSpec
 from monitor.errors import NotFoundError, StateError
+from monitor.store import audit
 from monitor.store.schema import (
-    audit_log,
     batches,
     day_checks,
     day_stats,
@@ -101,8 +101,7 @@ def delete_model(conn: Connection, model: ModelRecord) -> dict[str, int]:
     conn.execute(delete(rejected_rows).where(rejected_rows.c.batch_id.in_(own_batches)))
     conn.execute(delete(batches).where(batches.c.model_id == mid))
     conn.execute(delete(day_stats).where(day_stats.c.model_id == mid))
-    conn.execute(update(audit_log).where(audit_log.c.model_id == mid)
-                 .values(model_id=None, version_id=None))
+    audit.detach(conn, mid, model.name)
     conn.execute(delete(versions).where(versions.c.model_id == mid))
     conn.execute(delete(models).where(models.c.id == mid))
     return {k: int(v) for k, v in counted.items()}

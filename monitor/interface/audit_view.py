@@ -1,0 +1,86 @@
+"""``fitwatch audit``: what was done to the models, by whom, when and why, in plain lines."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import date, datetime
+from typing import Any
+from zoneinfo import ZoneInfo
+
+from sqlalchemy import Engine
+
+from monitor.config import Settings
+from monitor.domain.days import local_time
+from monitor.store.access import database
+from monitor.store.audit import LogLine, log_lines
+from monitor.store.models import get_model
+
+
+@dataclass(frozen=True)
+class AuditListing:
+    lines: tuple[LogLine, ...]
+    zone: ZoneInfo
+    model: str | None
+
+    def text(self) -> str:
+        if not self.lines:
+            return f"nothing recorded for '{self.model}'" if self.model else "nothing recorded"
+        return "\n".join(_line(e, self.zone) for e in self.lines)
+
+    def as_dict(self) -> list[dict[str, Any]]:
+        return [{"at": e.at, "model": e.model, "action": e.action, "actor": e.actor,
+                 "version": e.version, "effective_day": e.effective_day, "reason": e.reason,
+                 "what": what_was_done(e), "details": e.details} for e in self.lines]
+
+
+def audit_listing(settings: Settings, name: str | None = None, *, since: date | None = None,
+                  last: int | None = None, engine: Engine | None = None) -> AuditListing:
+    """The audit log (of one model, when named; it may have been deleted since)."""
+    zone = settings.timezone
+    start = datetime.combine(since, datetime.min.time(), zone) if since else None
+    with database(settings, engine) as db, db.connect() as conn:
+        lines = log_lines(conn, name, start, last)
+        if name is not None and not lines:
+            get_model(conn, name)  # never heard of: say so (NotFoundError)
+    return AuditListing(tuple(lines), zone, name)
+
+
+def what_was_done(e: LogLine) -> str:
+    """The entry in words of the model's own history."""
+    d = e.details
+    version = f"version {e.version}" if e.version is not None else "a version"
+    if e.action == "fit":
+        window = d.get("window") or []
+        on = f" on {window[0]} to {window[1]}" if len(window) == 2 else ""
+        return f"fitted {version}{on} ({d.get('state', '?')})"
+    if e.action == "import":
+        return f"imported {version} from {d.get('file', '?')}"
+    if e.action == "promote":
+        was = f" in place of version {d['previous']}" if "previous" in d else ""
+        return f"promoted {version}{was}"
+    if e.action == "rollback":
+        back = f"version {d['copy_of']}" if "copy_of" in d else "the earlier version"
+        return f"rolled back to {back} (active again as {version})"
+    if e.action == "ack":
+        since = f" standing since {d['since']}" if d.get("since") else ""
+        return f"acknowledged the {d.get('status', '?')} advice{since}"
+    if e.action == "rename":
+        return f"renamed from '{d.get('from', '?')}' to '{d.get('to', '?')}'"
+    if e.action == "delete":
+        return (f"deleted with its {d.get('observations', '?')} observation(s), "
+                f"{d.get('versions', '?')} version(s) and {d.get('day_checks', '?')} day "
+                "check(s)")
+    if e.action == "failure":
+        return f"nightly {d.get('stage', 'work')} failed: {d.get('error', '?')}"
+    return e.action
+
+
+def _line(e: LogLine, zone: ZoneInfo) -> str:
+    at = local_time(e.at, zone)
+    assert at is not None
+    parts = [f"{at:%Y-%m-%d %H:%M}", e.model or "(no model)", f"{e.actor}:", what_was_done(e)]
+    if e.effective_day is not None and e.action in ("promote", "rollback", "ack", "fit"):
+        parts.append(f"from {e.effective_day}")
+    text = " ".join(parts)
+    return f"{text} (\"{e.reason}\")" if e.reason else text
+
