@@ -199,6 +199,14 @@ def build_parser() -> argparse.ArgumentParser:
                       "batches ingested on --day; alone: the model's batches")
     rows.add_argument("--batch", metavar="N", type=int, help="with --rejected: this batch")
     table_flags(rows)
+    figures = command("days", "the stored figures of past checks, one line per model and day "
+                      "(--csv: a time series)", _cmd_days)
+    figures.add_argument("names", metavar="NAME", nargs="*")
+    figures.add_argument("--from", dest="first", metavar="DATE", type=_day,
+                         help="first day (default: the first checked day)")
+    figures.add_argument("--through", dest="last", metavar="DATE", type=_day,
+                         help="last day (default: the last checked day)")
+    table_flags(figures)
     page = command("report", "write an HTML page with charts for one model", _cmd_report)
     page.add_argument("name", metavar="NAME")
     page.add_argument("--out", metavar="DIR", type=Path, required=True,
@@ -471,6 +479,16 @@ def _cmd_rows(args: argparse.Namespace, settings: Settings) -> int:
     return _show(args, lambda: view.scored_day_csv(day, zone),
                  lambda: view.scored_day_document(day, zone),
                  lambda: view.scored_day_text(day, settings.for_model(args.name).words, zone))
+
+
+def _cmd_days(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface.check_view import figures_csv, figures_document, figures_text
+    from monitor.monitoring.daily_figures import daily_figures
+
+    days = daily_figures(settings, args.names or None, first=args.first, last=args.last)
+    zone = settings.timezone
+    return _show(args, lambda: figures_csv(days, zone),
+                 lambda: [figures_document(d, zone) for d in days], lambda: figures_text(days))
 
 
 def _show(args: argparse.Namespace, csv: Callable[[], str], document: Callable[[], Any],
