@@ -93,23 +93,16 @@ def score_day(settings: Settings, name: str, day: date, *, only: RowFilter = Row
             raise NotFoundError(_no_rows(conn, model, day))
         checks = load_checks(conn, model.id, day, day, model=model.name)
         check = checks[0] if checks else None
-        version = _scoring_version(conn, model, check)
         active = active_version(conn, model.id)
+        version = version_by_id(conn, check.version_id) if check is not None else active
+        if version is None:
+            raise StateError(f"'{name}' has no active version to score rows with; fit one "
+                             f"with 'fitwatch model fit {name} ...'")
         revision = day_revision(conn, model, day)
         batches = tuple(get_batch(conn, int(b)) for b in np.unique(rows.batch_ids))
     scores = version.prediction_model().score(rows.x, rows.y, version.level)
     return ScoredDay(model, day, version, check, revision, rows, scores, only.mask(scores),
                      only, batches, active.number if active is not None else None)
-
-
-def _scoring_version(conn: Connection, model: ModelRecord, check: DayCheck | None) -> Version:
-    if check is not None:
-        return version_by_id(conn, check.version_id)
-    version = active_version(conn, model.id)
-    if version is None:
-        raise StateError(f"'{model.name}' has no active version to score rows with; fit one "
-                         f"with 'fitwatch model fit {model.name} ...'")
-    return version
 
 
 def _no_rows(conn: Connection, model: ModelRecord, day: date) -> str:
