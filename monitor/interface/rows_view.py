@@ -208,9 +208,8 @@ def _local(b: BatchRecord, zone: ZoneInfo) -> str:
 
 
 def _cell(value: Any) -> str:
-    if isinstance(value, float):
-        return f"{value:g}" if abs(value) < 1e15 else fmt(value, 6)
-    return str(value)
+    """A stored value as it was written: 22.0 as '22', 71.2 as '71.2'."""
+    return f"{value:.10g}" if isinstance(value, float) else str(value)
 
 
 def _signed(value: float) -> str:

@@ -189,6 +189,21 @@ def test_rejected_rows_keep_line_raw_text_and_reason(cli, world: World) -> None:
                                                   "2026-04-15")[1]
 
 
+def test_a_file_rejected_whole_says_how_many_good_rows_went_with_it(cli, world: World) -> None:
+    good = loads_between(CHANGED, date(2026, 4, 14), date(2026, 4, 14), 914).head(2)
+    path = world.tmp / "strict.csv"
+    path.write_text(good.to_csv(index=False) + BAD_ROW.replace("L260413", "L260414") + "\n")
+    code, _, err = cli("ingest", MODEL, str(path), "--strict")
+    assert code == 0, err
+    listed = json.loads(cli("rows", MODEL, "--rejected", "--json")[1])["batches"]
+    batch = listed[-1]
+    assert (batch["status"], batch["read"], batch["rejected"]) == ("rejected", 3, 3)
+    assert "3 (whole file)" in cli("rows", MODEL, "--rejected")[1]
+    text = cli("rows", MODEL, "--rejected", "--batch", str(batch["batch"]))[1]
+    assert "2 good row(s) went with the whole file (--strict)" in text
+    assert "line 4: not a number:" in text
+
+
 def test_csv_and_json_carry_the_same_rows(cli, world: World) -> None:
     code, out, _ = cli("rows", MODEL, "--day", "2026-04-10", "--missed", "--csv")
     assert code == 0
