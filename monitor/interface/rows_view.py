@@ -108,7 +108,7 @@ def scored_day_text(day: ScoredDay, words: Wording, zone: ZoneInfo) -> str:
         body = []
         for r in row_records(day, zone):
             flags = [f for f in ("missed", "extrapolated") if r[f]]
-            body.append([r[data[0]].strftime("%H:%M:%S"), *(_cell(r[c]) for c in data[1:]),
+            body.append([r[data[0]].strftime("%H:%M:%S"), *(_cell(r[col]) for col in data[1:]),
                          fmt(r["planned"], 4), fmt(r["lower"], 4), fmt(r["upper"], 4),
                          _signed(r["residual"]), f"{r['std_residual']:+.2f}",
                          ", ".join(flags)])
