@@ -1,12 +1,16 @@
-"""How a check run reads: the ``check --json`` document and the text a planning lead reads."""
+"""How checks read: the ``check --json`` document and the text a planning lead reads, and the
+stored figures of past checks as a time series (``days``: text, JSON and CSV)."""
 
 from __future__ import annotations
 
 from typing import Any
+from zoneinfo import ZoneInfo
 
 from monitor.domain.check import DayCheck
 from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.interface.output import csv_text
 from monitor.monitoring.check import CheckOutcome
+from monitor.monitoring.daily_figures import CheckedDay
 
 
 def day_document(c: DayCheck) -> dict[str, Any]:
@@ -72,3 +76,61 @@ def check_text(outcome: CheckOutcome) -> str:
     if not lines:
         return "no models to check (fit one with 'fitwatch model fit NAME ...')"
     return "\n".join(lines)
+
+
+# the stored figures of past checks (``days``) -------------------------------------------------
+FIGURE_COLUMNS = (
+    "model", "day", "version", "status", "since", "n", "covered", "missed", "coverage",
+    "extrapolated", "window_n", "window_covered", "window_coverage", "window_wilson_low",
+    "window_wilson_high", "window_pvalue_low", "window_pvalue_high", "cusum_value",
+    "cusum_upper", "cusum_lower", "cusum_h", "cusum_signal", "cusum_onset", "cusum_shift",
+    "slope_chart_value", "slope_chart_h", "slope_statistic", "slope_pvalue", "slope_method",
+    "chow_statistic", "chow_pvalue", "supf_statistic", "supf_pvalue", "change_day",
+    "spread_ratio", "spread_pvalue", "reasons", "checked_at")
+
+
+def figures_document(day: CheckedDay, zone: ZoneInfo) -> dict[str, Any]:
+    """One model-day of ``days --json``: the ``check --json`` entry with the version's number,
+    the misses, the leading value of each chart and when the day was checked (in ``zone``)."""
+    c = day.check
+    doc = day_document(c)
+    doc.pop("version_id")
+    chart = c.details.slope_chart
+    return {"model": doc.pop("model"), "day": doc.pop("day"), "version": day.version,
+            "status": doc.pop("status"), "since": doc.pop("since"), "n": doc.pop("n"),
+            "covered": doc.pop("covered"), "missed": c.n - c.covered, **doc,
+            "cusum": {"value": c.cusum_value, **doc["cusum"]},
+            "slope_chart": {"value": chart.value if chart else None,
+                            "h": chart.h if chart else None},
+            "checked_at": c.checked_at.astimezone(zone)}
+
+
+def figures_record(day: CheckedDay, zone: ZoneInfo) -> dict[str, Any]:
+    """One CSV row of ``days --csv``: the JSON entry flattened (``cusum.h`` -> ``cusum_h``)."""
+    doc = figures_document(day, zone)
+    low, high = doc["window"].pop("wilson")
+    doc["window"].update(wilson_low=low, wilson_high=high)
+    flat: dict[str, Any] = {}
+    for key, value in doc.items():
+        if isinstance(value, dict):
+            flat.update({f"{key}_{inner}": v for inner, v in value.items()})
+        else:
+            flat[key] = value
+    return {column: flat[column] for column in FIGURE_COLUMNS}
+
+
+def figures_csv(days: list[CheckedDay], zone: ZoneInfo) -> str:
+    return csv_text(FIGURE_COLUMNS, (figures_record(d, zone) for d in days))
+
+
+def figures_text(days: list[CheckedDay]) -> str:
+    if not days:
+        return "no checked days (in the range asked for)"
+    out: list[str] = []
+    model = None
+    for d in days:
+        if d.check.model != model:
+            model = d.check.model
+            out.append(f"{model}:")
+        out.append(f"  {day_line(d.check)}  v{d.version}")
+    return "\n".join(out)

@@ -68,6 +68,11 @@ def build_parser() -> argparse.ArgumentParser:
     def json_flag(cp: argparse.ArgumentParser) -> None:
         cp.add_argument("--json", action="store_true", help="print one JSON document")
 
+    def table_flags(cp: argparse.ArgumentParser) -> None:
+        form = cp.add_mutually_exclusive_group()
+        form.add_argument("--csv", action="store_true", help="print CSV (a header, then rows)")
+        form.add_argument("--json", action="store_true", help="print one JSON document")
+
     command("init", "create or upgrade the database", _cmd_init)
 
     model = sub.add_parser("model", help="fit, import, list, show, rename or delete models")
@@ -187,6 +192,29 @@ def build_parser() -> argparse.ArgumentParser:
     pred.add_argument("--out", metavar="FILE", type=Path,
                       help="write the planned rows here (.csv or .parquet)")
     json_flag(pred)
+    rows = command("rows", "a day's rows with planned value, prediction interval, residual and "
+                   "flags, scored by the version that checked the day; or rejected rows",
+                   _cmd_rows)
+    rows.add_argument("name", metavar="NAME")
+    rows.add_argument("--day", metavar="DATE", type=_day,
+                      help="the day's rows (with --rejected: the batches ingested that day)")
+    rows.add_argument("--missed", action="store_true",
+                      help="only rows outside their prediction interval")
+    rows.add_argument("--extrapolated", action="store_true",
+                      help="only rows with a predictor outside the fit window's range")
+    rows.add_argument("--rejected", action="store_true",
+                      help="rejected rows (line, raw text, reason) of --batch N or of the "
+                      "batches ingested on --day; alone: the model's batches")
+    rows.add_argument("--batch", metavar="N", type=int, help="with --rejected: this batch")
+    table_flags(rows)
+    figures = command("days", "the stored figures of past checks, one line per model and day "
+                      "(--csv: a time series)", _cmd_days)
+    figures.add_argument("names", metavar="NAME", nargs="*")
+    figures.add_argument("--from", dest="first", metavar="DATE", type=_day,
+                         help="first day (default: the first checked day)")
+    figures.add_argument("--through", dest="last", metavar="DATE", type=_day,
+                         help="last day (default: the last checked day)")
+    table_flags(figures)
     page = command("report", "write an HTML page with charts for one model", _cmd_report)
     page.add_argument("name", metavar="NAME")
     page.add_argument("--out", metavar="DIR", type=Path, required=True,
@@ -434,6 +462,59 @@ def _cmd_model_export(args: argparse.Namespace, settings: Settings) -> int:
     text = write_description(export_description(settings, args.name, version=args.version),
                              args.out)
     print(f"wrote {args.out}" if args.out else text, end="\n" if args.out else "")
+    return EXIT_OK
+
+
+def _cmd_rows(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface import rows_view as view
+
+    zone = settings.timezone
+    if args.rejected:
+        if args.missed or args.extrapolated:
+            raise UsageError("--missed and --extrapolated filter a day's rows, not rejected ones")
+        if args.batch is not None and args.day is not None:
+            raise UsageError("give --batch or --day with --rejected, not both")
+        from monitor.ingest.history import model_batches, rejected_rows
+
+        if args.batch is None and args.day is None:
+            listed = model_batches(settings, args.name)
+            return _show(args, lambda: view.batches_csv(listed, zone),
+                         lambda: view.batches_document(listed, zone),
+                         lambda: view.batches_text(listed, zone))
+        found = rejected_rows(settings, args.name, batch=args.batch, day=args.day)
+        return _show(args, lambda: view.rejections_csv(found),
+                     lambda: view.rejections_document(found, zone),
+                     lambda: view.rejections_text(found, zone))
+    if args.batch is not None:
+        raise UsageError("--batch goes with --rejected (a batch's rejected rows)")
+    if args.day is None:
+        raise UsageError("give the day: 'rows NAME --day DATE' (or 'rows NAME --rejected')")
+    from monitor.monitoring.day_rows import RowFilter, score_day
+
+    day = score_day(settings, args.name, args.day,
+                    only=RowFilter(missed=args.missed, extrapolated=args.extrapolated))
+    return _show(args, lambda: view.scored_day_csv(day, zone),
+                 lambda: view.scored_day_document(day, zone),
+                 lambda: view.scored_day_text(day, settings.for_model(args.name).words, zone))
+
+
+def _cmd_days(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.interface.check_view import figures_csv, figures_document, figures_text
+    from monitor.monitoring.daily_figures import daily_figures
+
+    days = daily_figures(settings, args.names or None, first=args.first, last=args.last)
+    zone = settings.timezone
+    return _show(args, lambda: figures_csv(days, zone),
+                 lambda: [figures_document(d, zone) for d in days], lambda: figures_text(days))
+
+
+def _show(args: argparse.Namespace, csv: Callable[[], str], document: Callable[[], Any],
+          text: Callable[[], str]) -> int:
+    """Print ``--csv``, ``--json`` or the text, whichever was asked for."""
+    if args.csv:
+        sys.stdout.write(csv())
+    else:
+        print(dumps(document()) if args.json else text())
     return EXIT_OK
 
 

@@ -1,12 +1,14 @@
-"""Rendering results for machines (``--json``): plain JSON values from typed results."""
+"""Rendering results for machines (``--json``, ``--csv``): plain values from typed results."""
 
 from __future__ import annotations
 
+import csv
 import dataclasses
+import io
 import json
 import math
 import sys
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from datetime import date, datetime
 from enum import Enum
 from pathlib import Path
@@ -40,3 +42,23 @@ def to_jsonable(value: Any) -> Any:
 
 def dumps(value: Any) -> str:
     return json.dumps(to_jsonable(value), indent=2, ensure_ascii=False, allow_nan=False)
+
+
+def csv_text(columns: Sequence[str], records: Iterable[Mapping[str, Any]]) -> str:
+    """Records as CSV with a header row (``--csv``): values as in ``--json`` (dates ISO,
+    floats in their shortest exact form), a missing value as an empty cell, a list joined
+    with ' | '."""
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(columns)
+    for record in records:
+        writer.writerow([_cell(to_jsonable(record.get(c))) for c in columns])
+    return out.getvalue()
+
+
+def _cell(value: Any) -> Any:
+    if value is None:
+        return ""
+    if isinstance(value, list):
+        return " | ".join(str(_cell(v)) for v in value)
+    return value

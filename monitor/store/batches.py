@@ -77,6 +77,15 @@ def list_batches(conn: Connection, model_id: int) -> list[BatchRecord]:
     return [_record(row._mapping) for row in rows]
 
 
+def batches_started_between(conn: Connection, model_id: int, start: datetime,
+                            end: datetime) -> list[BatchRecord]:
+    """The model's batches started at ``start <= started_at < end``, oldest first."""
+    rows = conn.execute(select(batches).where(
+        batches.c.model_id == model_id, batches.c.started_at >= start,
+        batches.c.started_at < end).order_by(batches.c.id))
+    return [_record(row._mapping) for row in rows]
+
+
 def find_batches_by_hash(conn: Connection, model_id: int, file_hash: str) -> list[BatchRecord]:
     """Finished batches of the model with this content hash, newest first."""
     rows = conn.execute(select(batches).where(

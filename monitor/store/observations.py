@@ -64,6 +64,20 @@ class Observations:
 
 
 @dataclass(frozen=True, eq=False)
+class DayRows:
+    """The stored rows of one model-day in time order, with their keys and batches."""
+
+    keys: NDArray[np.object_]  # the id column's value, or the content key
+    batch_ids: NDArray[np.int64]
+    observed_us: NDArray[np.int64]  # UTC epoch microseconds
+    x: NDArray[np.float64]
+    y: NDArray[np.float64]
+
+    def __len__(self) -> int:
+        return len(self.y)
+
+
+@dataclass(frozen=True, eq=False)
 class StoredDayStats:
     """Day statistics of one model over the days that have rows, in day order."""
 
@@ -103,6 +117,31 @@ def load_observations(conn: Connection, model: ModelRecord, first_day: date | No
                         np.array(columns[1], dtype=np.int64))
 
 
+def load_day_rows(conn: Connection, model: ModelRecord, day: date) -> DayRows:
+    """The stored rows of ``model`` on ``day`` with their keys and batches (one query)."""
+    xs = [observations.c[c] for c in predictor_columns(model.k)]
+    stmt = (select(observations.c.obs_key, observations.c.batch_id,
+                   observations.c.observed_at_us, observations.c.y, *xs)
+            .where(_day_range(model, day, day))
+            .order_by(observations.c.observed_at_us, observations.c.id))
+    rows = _fetch(conn, stmt)
+    if not rows:
+        return DayRows(np.zeros(0, dtype=object), np.zeros(0, np.int64), np.zeros(0, np.int64),
+                       np.zeros((0, model.k)), np.zeros(0))
+    columns = list(zip(*rows, strict=True))
+    values = np.array(columns[3:], dtype=np.float64)  # (1 + k, n)
+    return DayRows(np.array(columns[0], dtype=object), np.array(columns[1], dtype=np.int64),
+                   np.array(columns[2], dtype=np.int64), np.ascontiguousarray(values[1:].T),
+                   values[0])
+
+
+def day_revision(conn: Connection, model: ModelRecord, day: date) -> int:
+    """The day's ``day_stats.revision`` (0: no rows were ever stored for it)."""
+    found = conn.execute(select(day_stats.c.revision).where(
+        day_stats.c.model_id == model.id, day_stats.c.day == day)).scalar()
+    return int(found or 0)
+
+
 def load_day_stats(conn: Connection, model: ModelRecord, first_day: date | None = None,
                    last_day: date | None = None) -> StoredDayStats:
     """The stored per-day statistics of ``model`` (days without rows are absent)."""
@@ -131,6 +170,17 @@ def days_with_rows(conn: Connection, model: ModelRecord, first_day: date | None 
     if last_day is not None:
         stmt = stmt.where(day_stats.c.day <= last_day)
     return list(conn.execute(stmt).scalars())
+
+
+def neighbour_days(conn: Connection, model: ModelRecord, day: date
+                   ) -> tuple[date | None, date | None]:
+    """The nearest days before and after ``day`` that have stored rows (None: there is none)."""
+    has_rows = (day_stats.c.model_id == model.id, day_stats.c.n > 0)
+    before = conn.execute(select(func.max(day_stats.c.day))
+                          .where(*has_rows, day_stats.c.day < day)).scalar()
+    after = conn.execute(select(func.min(day_stats.c.day))
+                         .where(*has_rows, day_stats.c.day > day)).scalar()
+    return before, after
 
 
 def last_observed_at(conn: Connection, model: ModelRecord) -> datetime | None:

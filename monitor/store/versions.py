@@ -110,6 +110,14 @@ def get_version(conn: Connection, model_id: int, number: int, *,
     return _version(row)
 
 
+def version_by_id(conn: Connection, version_id: int) -> Version:
+    """The version stored under ``version_id`` (a day check names the version that scored it)."""
+    row = conn.execute(select(versions).where(versions.c.id == version_id)).first()
+    if row is None:
+        raise NotFoundError(f"no version with id {version_id}")
+    return _version(row)
+
+
 def list_versions(conn: Connection, model_id: int) -> list[Version]:
     rows = conn.execute(select(versions).where(versions.c.model_id == model_id)
                         .order_by(versions.c.number))

@@ -20,6 +20,7 @@ from monitor.config import Settings
 from monitor.demo.scenario import Scenario, generate_day
 from monitor.ingest.service import ingest_file, options_for
 from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.lifecycle.refit import promote
 from monitor.monitoring.check import run_checks
 from monitor.store.models import get_model
 from monitor.store.schema import day_checks
@@ -110,3 +111,30 @@ def _fit_candidate(world: World) -> None:
 
 REACH_REFIT = ("spring days checked through 12 April, refit advised", _reach_refit)
 FIT_CANDIDATE = ("version 2 fitted on 16 March to 12 April", _fit_candidate)
+
+
+# 13 April, after version 2 is promoted: one load far beyond the fitted range, one bad row
+NEW_DAY = date(2026, 4, 13)
+WIDE_PALLETS = 45  # the generator draws 4 to 33 pallets: far outside every fit window
+BAD_ROW = "L260413-900,2026-04-13 12:00:00,20,abc,D01"
+
+
+def new_day_text() -> str:
+    """13 April's loads, one of them with 45 pallets, and a row whose minutes are 'abc'."""
+    loads = loads_between(CHANGED, NEW_DAY, NEW_DAY, 913)
+    wide = loads.iloc[[0]].assign(load_id="L260413-899", docked_at="2026-04-13 11:00:00",
+                                  pallets=WIDE_PALLETS, load_minutes=110.0)
+    return pd.concat([loads, wide], ignore_index=True).to_csv(index=False) + BAD_ROW + "\n"
+
+
+def _promote_and_add_a_day(world: World) -> None:
+    promote(world.settings, MODEL, 2, now=night_after(LAST_DAY), actor="test",
+            engine=world.engine)
+    path = world.tmp / "loads_2026-04-13.csv"
+    path.write_text(new_day_text())
+    summary = world.ingest(path, NEW_DAY)
+    assert (summary.rejected, summary.reasons) == (1, {"not_a_number": 1})
+
+
+PROMOTE_AND_ADD_A_DAY = ("version 2 promoted; 13 April ingested with a wide load and a bad row",
+                         _promote_and_add_a_day)
