@@ -167,7 +167,7 @@ def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine)
     assert actions[-2:] == ["rename", "delete"] and "fit" in actions
     assert all(r.model_id is None for r in rows)  # kept, detached from the deleted model
     assert rows[-1].details["model"] == "dock_east" and rows[-1].details["observations"] > 0
-    assert audit.ACTIONS[-2:] == ("rename", "delete")
+    assert {"rename", "delete"} <= set(audit.ACTIONS)
     code, out, _ = cli("model", "list", "--json")
     assert json.loads(out) == []
 

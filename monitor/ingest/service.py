@@ -5,6 +5,11 @@ day statistics are committed together or not at all. Rows are keyed by the model
 without one, by a hash of their content; a row whose key is already stored is a duplicate when
 its values are equal and a conflict (rejected) when they differ, whether the earlier row came
 from another file or from this one. Re-ingesting a file that adds nothing leaves no trace.
+
+A corrected file is ingested with ``replace``: where a key stored by another file comes with
+other values, the new values win; the old ones are kept in ``replaced_rows``, the correction is
+audited, and the days whose rows changed get restated statistics with a new revision, so the
+next check checks them again from the earliest one.
 """
 
 from __future__ import annotations
@@ -33,6 +38,7 @@ from monitor.ingest.reasons import Rejection
 from monitor.ingest.summary import IngestSummary, Tally
 from monitor.ingest.validate import CheckedRows, Rules, check_rows
 from monitor.stats.moments import DayMoments, Moments
+from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.batches import (
     add_rejected_rows,
@@ -50,6 +56,9 @@ from monitor.store.observations import (
     last_observed_at,
     merge_day_stats,
     prepare_rows,
+    replace_observations,
+    restate_day_stats,
+    undo_replacements,
 )
 
 log = logging.getLogger(__name__)
@@ -70,6 +79,8 @@ class IngestOptions:
     chunk_rows: int
     progress: bool
     earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
+    replace: bool = False  # ingest --replace: new values win over stored ones (corrections)
+    actor: str = ""  # who corrects (the audit entry of a replacement)
 
     def __post_init__(self) -> None:
         if self.now.tzinfo is None:
@@ -79,29 +90,35 @@ class IngestOptions:
 
 
 def options_for(settings: Settings, name: str, *, strict: bool = False, progress: bool = False,
-                now: datetime | None = None) -> IngestOptions:
+                now: datetime | None = None, replace: bool = False,
+                actor: str = "") -> IngestOptions:
     """The ingestion options of model ``name`` under ``settings``."""
     return IngestOptions(
         timezone=settings.timezone, ranges=settings.for_model(name).ranges, strict=strict,
         now=now or datetime.now(UTC), future_tolerance=settings.ingest.future_tolerance,
         chunk_rows=settings.ingest.chunk_rows, progress=progress,
-        earliest_day=settings.ingest.earliest_day)
+        earliest_day=settings.ingest.earliest_day, replace=replace, actor=actor)
 
 
 # entry points -----------------------------------------------------------------------------------
 def ingest_paths(settings: Settings, name: str, paths: Sequence[str | os.PathLike[str]], *,
-                 strict: bool = False, progress: bool = False,
-                 now: datetime | None = None) -> list[IngestSummary]:
+                 strict: bool = False, progress: bool = False, now: datetime | None = None,
+                 replace: bool = False, actor: str = "") -> list[IngestSummary]:
     """Ingest files for model ``name``; one summary per file, in order.
 
     Every file is opened and its header checked before the first is stored, so a missing file
-    or column changes nothing.
+    or column changes nothing. ``replace``: a corrected file's values win (see the module).
     """
     with database(settings) as engine:
         with engine.connect() as conn:
             model = get_model(conn, name)
         check_model_section(settings, model)
-        options = options_for(settings, name, strict=strict, progress=progress, now=now)
+        if replace and not model.id_column:
+            raise UsageError(f"'{name}' has no id column: its rows are keyed by their content, "
+                             "so a corrected row is a new row, not a replacement; --replace "
+                             "needs a model fitted with --id")
+        options = options_for(settings, name, strict=strict, progress=progress, now=now,
+                              replace=replace, actor=actor)
         sources = [_open(model, path, options) for path in paths]
         summaries: list[IngestSummary] = []
         for source in sources:
@@ -196,16 +213,25 @@ def _ingest(conn: Connection, model: ModelRecord, source: Source,
                            options.strict, options.now)
     tally = Tally()
     days = _DayTotals(model.k + 1)
+    changed: set[date] = set()  # days whose stored rows a correction replaced or moved
     prepared = prefetch(_prepare(chunk, model, rules) for chunk in source.chunks())
     with tqdm(total=source.total, unit=source.unit, unit_scale=True, desc=source.label,
               disable=not options.progress, leave=False, file=sys.stderr) as bar:
         for part in prepared:
             result = insert_observations(conn, model, batch_id, part.driver_rows)
-            duplicates, conflicts = _judge(model, part.checked, part.fresh, part.first, result,
-                                           batch_id, rules)
+            duplicates, conflicts, replacing = _judge(model, part.checked, part.fresh,
+                                                      part.first, result, batch_id, rules,
+                                                      replace=options.replace)
+            if len(replacing):  # now, so a later chunk meets the new values as this file's
+                fixed = part.checked.take(replacing)
+                changed |= replace_observations(
+                    conn, model, batch_id,
+                    prepare_rows(fixed.keys, fixed.observed_us, fixed.days, fixed.x, fixed.y),
+                    options.now)
             rejections = [*part.checked.rejected, *conflicts]
             tally.read += part.checked.read
-            tally.accepted += int(result.inserted.sum())
+            tally.accepted += int(result.inserted.sum()) + len(replacing)
+            tally.replaced += len(replacing)
             tally.duplicates += duplicates
             tally.reject(rejections)
             if result.inserted.all():
@@ -217,12 +243,21 @@ def _ingest(conn: Connection, model: ModelRecord, source: Source,
             bar.update(part.progress)
     status = "complete"
     if options.strict and tally.rejected:
+        undo_replacements(conn, model, batch_id)
         delete_batch_observations(conn, batch_id)
         tally.reject_file()
         status = "rejected"
     else:
         merge_day_stats(conn, model, days.moments(), options.now)
+        restate_day_stats(conn, model, changed, options.now)
         tally.days.update(days.days())
+        tally.days.update(changed)
+        if tally.replaced:
+            audit.record(conn, action="correct", actor=options.actor or "fitwatch",
+                         at=options.now, model_id=model.id, effective_day=min(changed),
+                         details={"batch": batch_id, "source": source.label,
+                                  "replaced": tally.replaced,
+                                  "days": [d.isoformat() for d in sorted(changed)]})
     file_hash = source.content_hash()
     earlier = find_batches_by_hash(conn, model.id, file_hash) if file_hash else []
     seen = bool(earlier) and earlier[0].status == status
@@ -281,14 +316,17 @@ def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray
 
 def _judge(model: ModelRecord, checked: CheckedRows, fresh: NDArray[np.bool_],
            first: NDArray[np.intp], result: InsertResult, batch_id: int,
-           rules: Rules) -> tuple[int, list[Rejection]]:
-    """Count the duplicates (same key, same values) and reject the conflicts (other values).
+           rules: Rules, *, replace: bool = False
+           ) -> tuple[int, list[Rejection], NDArray[np.intp]]:
+    """Count the duplicates (same key, same values) and reject the conflicts (other values);
+    with ``replace``, a row whose key another batch stored with other values replaces it
+    instead (the rows to replace are returned, as positions in ``checked``).
 
     A first occurrence in the chunk that was not stored is compared with the stored row; a
     later occurrence with its first one (and shares its fate when equal to it).
     """
     n = len(checked)
-    verdict = np.zeros(n, dtype=np.int8)  # 0 stored, 1 duplicate, 2 conflict
+    verdict = np.zeros(n, dtype=np.int8)  # 0 stored, 1 duplicate, 2 conflict, 3 replaces
     against: dict[int, tuple[str, tuple[float, ...]]] = {}
     where_fresh = np.flatnonzero(fresh)
     if len(result.positions):  # keys stored before: in another batch or earlier in this file
@@ -296,8 +334,9 @@ def _judge(model: ModelRecord, checked: CheckedRows, fresh: NDArray[np.bool_],
         stored = np.column_stack([result.x, result.y])
         same = ((checked.observed_us[rows] == result.observed_us)
                 & np.all(np.column_stack([checked.x[rows], checked.y[rows]]) == stored, axis=1))
-        verdict[rows] = np.where(same, 1, 2)
-        for i in np.flatnonzero(~same):
+        elsewhere = result.batch_id != batch_id
+        verdict[rows] = np.where(same, 1, np.where(replace & elsewhere, 3, 2))
+        for i in np.flatnonzero(~same & ~(replace & elsewhere)):
             where = ("earlier in this file" if result.batch_id[i] == batch_id
                      else f"in batch {int(result.batch_id[i])}")
             values = (int(result.observed_us[i]), *result.x[i].tolist(), float(result.y[i]))
@@ -316,7 +355,7 @@ def _judge(model: ModelRecord, checked: CheckedRows, fresh: NDArray[np.bool_],
                 against[int(i)] = against[int(j)]
     conflicts = [_conflict(model, checked, i, where, values, rules)
                  for i, (where, values) in sorted(against.items())]
-    return int((verdict == 1).sum()), conflicts
+    return int((verdict == 1).sum()), conflicts, np.flatnonzero(verdict == 3)
 
 
 def _values(rows: CheckedRows, i: int) -> tuple[float, ...]:

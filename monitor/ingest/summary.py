@@ -42,6 +42,7 @@ class IngestSummary:
     already_ingested: bool = False
     strict: bool = False
     status: str = "complete"  # complete | rejected (the whole file, under --strict)
+    replaced: int = 0  # of the accepted rows, those that replaced stored values (--replace)
 
     def __post_init__(self) -> None:
         if self.read != self.accepted + self.duplicates + self.rejected:
@@ -56,7 +57,8 @@ class IngestSummary:
             "model": self.model, "source": self.source, "batch_id": self.batch_id,
             "status": self.status, "strict": self.strict,
             "already_ingested": self.already_ingested,
-            "read": self.read, "accepted": self.accepted, "duplicates": self.duplicates,
+            "read": self.read, "accepted": self.accepted, "replaced": self.replaced,
+            "duplicates": self.duplicates,
             "rejected": self.rejected, "reasons": dict(self.reasons),
             "examples": [{"line": e.line, "code": e.code, "detail": e.detail}
                          for e in self.examples],
@@ -80,7 +82,9 @@ class IngestSummary:
             bad = self.rejected - self.reasons.get("file_rejected", 0)
             return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
                     f"{counts.removesuffix(' read')} are bad — {self._worst()}.")
-        text = (f"{self.source}: {counts}: {self.accepted:,} stored, "
+        replaced = (f" ({self.replaced:,} replacing stored values, kept in the audit trail)"
+                    if self.replaced else "")
+        text = (f"{self.source}: {counts}: {self.accepted:,} stored{replaced}, "
                 f"{_n(self.duplicates, 'duplicate')} skipped, {self.rejected:,} rejected")
         if self.rejected:
             text += f" — {self._worst()}"
@@ -112,6 +116,7 @@ class Tally:
 
     read: int = 0
     accepted: int = 0
+    replaced: int = 0  # of the accepted
     duplicates: int = 0
     reasons: Counter[str] = field(default_factory=Counter)
     examples: dict[str, list[Example]] = field(default_factory=dict)
@@ -131,7 +136,7 @@ class Tally:
     def reject_file(self) -> None:
         """Under ``--strict``: every row that was not bad is rejected with the file."""
         kept = self.accepted + self.duplicates
-        self.accepted = self.duplicates = 0
+        self.accepted = self.duplicates = self.replaced = 0
         self.days.clear()
         if kept:
             self.reasons["file_rejected"] += kept
@@ -146,7 +151,8 @@ class Tally:
             accepted=self.accepted, duplicates=self.duplicates, rejected=self.rejected,
             reasons=dict(sorted(self.reasons.items())), examples=examples,
             first_day=days[0] if days else None, last_day=days[-1] if days else None,
-            affected_days=days, already_ingested=already, strict=strict, status=status)
+            affected_days=days, already_ingested=already, strict=strict, status=status,
+            replaced=self.replaced)
 
 
 def _n(count: int, noun: str) -> str:

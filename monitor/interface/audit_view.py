@@ -70,6 +70,12 @@ def what_was_done(e: LogLine) -> str:
         return (f"deleted with its {d.get('observations', '?')} observation(s), "
                 f"{d.get('versions', '?')} version(s) and {d.get('day_checks', '?')} day "
                 "check(s)")
+    if e.action == "correct":
+        days = d.get("days") or []
+        span = (f" on {days[0]}" if len(days) == 1 else
+                f" on {len(days)} days, {days[0]} to {days[-1]}" if days else "")
+        return (f"corrected {d.get('replaced', '?')} row(s){span} from {d.get('source', '?')} "
+                f"(batch {d.get('batch', '?')}; the replaced values are kept)")
     if e.action == "failure":
         return f"nightly {d.get('stage', 'work')} failed: {d.get('error', '?')}"
     return e.action

@@ -65,7 +65,8 @@ def check_text(outcome: CheckOutcome) -> str:
         else:
             head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
         if r.recomputed_from:
-            head += f"; late rows made it re-check from {r.recomputed_from}"
+            head += (f"; rows that came late or were corrected made it check again from "
+                     f"{r.recomputed_from}")
         lines.append(head)
         for c in r.checks:
             lines.append("  " + day_line(c))

@@ -122,6 +122,10 @@ def build_parser() -> argparse.ArgumentParser:
                      help="run the model's SQL source ([models.NAME.source]) instead of files")
     ing.add_argument("--strict", action="store_true",
                      help="reject a whole file when any row is bad")
+    ing.add_argument("--replace", action="store_true",
+                     help="a corrected file: where a stored row has the same id, the new values "
+                          "win (the old ones stay in the audit trail; changed days are checked "
+                          "again)")
     json_flag(ing)
 
     chk = command("check", "check every unchecked day (default: through yesterday)", _cmd_check)
@@ -273,11 +277,17 @@ def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
 
     if bool(args.files) == args.source:
         raise UsageError("give either files to ingest or --source (the model's SQL source)")
+    if args.source and args.replace:
+        raise UsageError("--replace takes corrected files, not the SQL source")
     if args.source:
         summaries = [ingest_configured_source(settings, args.name)]
     else:
+        from monitor.lifecycle.fit import actor_name
+
         summaries = ingest_paths(settings, args.name, args.files, strict=args.strict,
-                                 progress=wants_progress() and not args.json)
+                                 progress=wants_progress() and not args.json,
+                                 replace=args.replace,
+                                 actor=actor_name() if args.replace else "")
     if args.json:
         print(dumps(summaries[0].as_dict() if len(summaries) == 1
                     else [s.as_dict() for s in summaries]))

@@ -11,7 +11,8 @@ from sqlalchemy import Connection, insert, select
 
 from monitor.store.schema import audit_log, inserted_id, jsonable, models, versions
 
-ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete")
+ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete",
+           "correct")
 
 
 @dataclass(frozen=True)

@@ -83,12 +83,13 @@ def models_checked_on(conn: Connection, day: date) -> int:
 def earliest_stale_day(conn: Connection, model_id: int) -> date | None:
     """The first checked day whose observations changed after it was checked.
 
-    A day is stale when rows arrived for it later: its ``day_stats.revision`` no longer equals
-    the revision the check saw (a day checked empty saw revision 0).
+    A day is stale when its rows changed later (rows arrived, or a correction changed, moved or
+    took them away): its ``day_stats.revision`` (0 when it has none) no longer equals the
+    revision the check saw (a day checked empty saw revision 0).
     """
-    joined = day_stats.join(day_checks, and_(day_checks.c.model_id == day_stats.c.model_id,
-                                             day_checks.c.day == day_stats.c.day))
-    query = (select(func.min(day_stats.c.day)).select_from(joined)
-             .where(day_stats.c.model_id == model_id,
-                    day_checks.c.stats_revision != day_stats.c.revision))
+    joined = day_checks.outerjoin(day_stats, and_(day_checks.c.model_id == day_stats.c.model_id,
+                                                  day_checks.c.day == day_stats.c.day))
+    query = (select(func.min(day_checks.c.day)).select_from(joined)
+             .where(day_checks.c.model_id == model_id,
+                    day_checks.c.stats_revision != func.coalesce(day_stats.c.revision, 0)))
     return conn.execute(query).scalar()

@@ -17,6 +17,7 @@ from monitor.store.schema import (
     models,
     observations,
     rejected_rows,
+    replaced_rows,
     versions,
 )
 
@@ -99,6 +100,7 @@ def delete_model(conn: Connection, model: ModelRecord) -> dict[str, int]:
     conn.execute(delete(day_checks).where(day_checks.c.model_id == mid))
     conn.execute(delete(observations).where(observations.c.model_id == mid))
     conn.execute(delete(rejected_rows).where(rejected_rows.c.batch_id.in_(own_batches)))
+    conn.execute(delete(replaced_rows).where(replaced_rows.c.model_id == mid))
     conn.execute(delete(batches).where(batches.c.model_id == mid))
     conn.execute(delete(day_stats).where(day_stats.c.model_id == mid))
     audit.detach(conn, mid, model.name)

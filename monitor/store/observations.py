@@ -30,6 +30,7 @@ from sqlalchemy import (
     bindparam,
     cast,
     func,
+    literal,
     literal_column,
     select,
     update,
@@ -39,7 +40,14 @@ from sqlalchemy.sql.compiler import SQLCompiler
 from monitor.domain.model import ModelRecord
 from monitor.stats.moments import DayMoments, Moments
 from monitor.store.engine import driver_cursor
-from monitor.store.schema import day_stats, observations, predictor_columns
+from monitor.store.schema import (
+    UtcDateTime,
+    day_checks,
+    day_stats,
+    observations,
+    predictor_columns,
+    replaced_rows,
+)
 from monitor.store.upsert import insert_for
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
@@ -313,18 +321,100 @@ def _stored_under(conn: Connection, model: ModelRecord,
                   keys: NDArray[np.object_]) -> list[tuple[Any, ...]]:
     """(key, id, batch_id, observed_at_us, y, x...) of the stored rows with these keys."""
     xs = [observations.c[c] for c in predictor_columns(model.k)]
+    stmt = select(observations.c.obs_key, observations.c.id, observations.c.batch_id,
+                  observations.c.observed_at_us, observations.c.y, *xs).where(
+        observations.c.model_id == model.id, _keyed(conn, keys))
+    return _fetch(conn, stmt)
+
+
+def _keyed(conn: Connection, keys: Sequence[str] | NDArray[np.object_]) -> Any:
+    """``obs_key`` is one of ``keys``: one bound array (PostgreSQL) or JSON list (SQLite),
+    whatever their number."""
+    listed = list(keys.tolist() if isinstance(keys, np.ndarray) else keys)
     if conn.dialect.name == "postgresql":
         from sqlalchemy.dialects.postgresql import ARRAY
 
-        listed = bindparam("keys", keys.tolist(), type_=ARRAY(String))
-        match = observations.c.obs_key == func.any(listed)
-    else:
-        each = func.json_each(bindparam("keys", json.dumps(keys.tolist()))).table_valued("value")
-        match = observations.c.obs_key.in_(select(each.c.value))
-    stmt = select(observations.c.obs_key, observations.c.id, observations.c.batch_id,
-                  observations.c.observed_at_us, observations.c.y, *xs).where(
-        observations.c.model_id == model.id, match)
-    return _fetch(conn, stmt)
+        return observations.c.obs_key == func.any(bindparam("keys", listed, type_=ARRAY(String)))
+    each = func.json_each(bindparam("keys", json.dumps(listed))).table_valued("value")
+    return observations.c.obs_key.in_(select(each.c.value))
+
+
+def replace_observations(conn: Connection, model: ModelRecord, batch_id: int,
+                         rows: PreparedRows, now: datetime) -> set[date]:
+    """Give the stored rows under ``rows.keys`` the new values (an explicit correction).
+
+    The values they had go to ``replaced_rows`` with this batch, and the rows now belong to it.
+    Returns the days whose rows changed (where each row was and where it is now); their day
+    statistics must be restated (:func:`restate_day_stats`). Runs in the caller's transaction.
+    """
+    if len(rows) == 0:
+        return set()
+    names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
+    match = and_(observations.c.model_id == model.id, _keyed(conn, rows.keys))
+    old_days = {r[0] for r in conn.execute(select(observations.c.day).where(match).distinct())}
+    kept = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
+    conn.execute(replaced_rows.insert().from_select(
+        ["model_id", "batch_id", "old_batch_id", *kept, "replaced_at"],
+        select(observations.c.model_id, literal_column(str(int(batch_id))),
+               observations.c.batch_id, *(observations.c[c] for c in kept),
+               literal(now, UtcDateTime())).where(match)))
+    values = [dict(zip([f"b_{n}" for n in names], row, strict=True)) for row in rows.tuples]
+    for item in values:
+        item["b_day"] = date.fromisoformat(item["b_day"])
+    conn.execute(update(observations)
+                 .where(observations.c.model_id == model.id,
+                        observations.c.obs_key == bindparam("b_obs_key"))
+                 .values(batch_id=batch_id, **{n: bindparam(f"b_{n}") for n in names[1:]}),
+                 values)
+    return old_days | {item["b_day"] for item in values}
+
+
+def undo_replacements(conn: Connection, model: ModelRecord, batch_id: int) -> None:
+    """Put back the values a batch replaced (its file was rejected whole after all)."""
+    names = ["old_batch_id", "observed_at_us", "day", "y", *predictor_columns(model.k)]
+    kept = conn.execute(select(replaced_rows.c.obs_key, *(replaced_rows.c[n] for n in names))
+                        .where(replaced_rows.c.batch_id == batch_id)).all()
+    if not kept:
+        return
+    conn.execute(update(observations)
+                 .where(observations.c.model_id == model.id,
+                        observations.c.obs_key == bindparam("b_obs_key"))
+                 .values(batch_id=bindparam("b_old_batch_id"),
+                         **{n: bindparam(f"b_{n}") for n in names[1:]}),
+                 [dict(zip(["b_obs_key", *(f"b_{n}" for n in names)], row, strict=True))
+                  for row in kept])
+    conn.execute(replaced_rows.delete().where(replaced_rows.c.batch_id == batch_id))
+
+
+def restate_day_stats(conn: Connection, model: ModelRecord, days: set[date],
+                      now: datetime) -> None:
+    """Recompute these days' statistics from their stored rows (after a correction moved or
+    changed rows), each with a new revision so that a checked day is checked again; a day left
+    without rows loses its statistics, and its check is marked stale outright (revision -1,
+    which no revision equals: a day that gets rows again starts over at revision 1)."""
+    if not days:
+        return
+    stored = {row.day: int(row.revision) for row in conn.execute(
+        select(day_stats.c.day, day_stats.c.revision).where(
+            day_stats.c.model_id == model.id, day_stats.c.day.in_(sorted(days))))}
+    for day in sorted(days):
+        rows = load_observations(conn, model, day, day)
+        where = and_(day_stats.c.model_id == model.id, day_stats.c.day == day)
+        if len(rows.y) == 0:
+            conn.execute(day_stats.delete().where(where))
+            conn.execute(update(day_checks).where(day_checks.c.model_id == model.id,
+                                                  day_checks.c.day == day)
+                         .values(stats_revision=-1))
+            continue
+        part = DayMoments.from_rows(rows.days, np.column_stack([rows.x, rows.y])).day(0)
+        revision = stored.get(day, 0) + 1
+        if day in stored:
+            conn.execute(update(day_stats).where(where).values(
+                n=part.n, moments=part.to_dict(), revision=revision, updated_at=now))
+        else:
+            conn.execute(day_stats.insert().values(model_id=model.id, day=day, n=part.n,
+                                                   moments=part.to_dict(), revision=revision,
+                                                   updated_at=now))
 
 
 def _result(inserted: NDArray[np.bool_], keys: NDArray[np.object_],

@@ -161,6 +161,23 @@ observations = Table(
     Index("ix_observations_model_day", "model_id", "day"),
 )
 
+# Rows an explicit correction (``ingest --replace``) replaced: the values as they were stored,
+# kept for the audit trail, with the batch that replaced them.
+replaced_rows = Table(
+    "replaced_rows", metadata,
+    Column("id", BigId, primary_key=True),
+    Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), nullable=False),
+    Column("batch_id", ForeignKey("batches.id", ondelete="CASCADE"), nullable=False, index=True),
+    Column("old_batch_id", Integer, nullable=False),  # the batch that had stored them
+    Column("obs_key", String(200), nullable=False),
+    Column("observed_at_us", BigInteger, nullable=False),
+    Column("day", Date, nullable=False),
+    Column("y", Float, nullable=False),
+    *(Column(f"x{i}", Float) for i in range(1, MAX_PREDICTORS + 1)),
+    Column("replaced_at", UtcDateTime, nullable=False),
+    Index("ix_replaced_rows_model_key", "model_id", "obs_key"),
+)
+
 day_stats = Table(
     "day_stats", metadata,
     Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), primary_key=True),
