@@ -63,6 +63,20 @@ def test_empty_days_are_recorded_and_do_not_move_the_chart(world: World) -> None
     assert any("no loads were recorded on 2026-03-15" in r for r in sunday.reasons)
 
 
+def test_rows_outside_the_fitted_range_are_named_in_the_days_words(world: World,
+                                                                   tmp_path: Path) -> None:
+    # Before, extrapolated rows were only counted in the JSON. Two loads of 70 pallets lie far
+    # above the history's range (the scenario draws up to 33).
+    day = loads_between(CALM, date(2026, 3, 9), date(2026, 3, 9), 21)
+    day.loc[day.index[:2], "pallets"] = 70
+    world.ingest(write_csv(day, tmp_path / "big.csv"), date(2026, 3, 9))
+    check = {c.day: c for c in world.check(date(2026, 3, 9)).checks}[date(2026, 3, 9)]
+    assert check.extrapolated == 2
+    assert any(f"of the {check.n} loads on 2026-03-09 fell inside the 95 % interval (2 of them "
+               "lay outside the range the line was fitted on: planned by extending it)" in r
+               for r in check.reasons), check.reasons
+
+
 def test_late_rows_reevaluate_from_their_day_as_if_processed_in_order(
         world: World, engine: Engine, make_settings, tmp_path: Path) -> None:
     full = loads_between(CALM, date(2026, 3, 9), date(2026, 3, 28), 13)

@@ -167,6 +167,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         predictors=ctx.version.terms[1:], slope=slope, spread=spread, since=since,
         held_since=carry.status_since if verdict.held else None, slope_chart=slope_chart,
         slope_onset=carry.state.slope_onset,
+        extrapolated=int(scores.extrapolated.sum()) if scores else 0,
     )
     reasons = reasons_for(verdict, figures, words, response)
     if watch_held:

@@ -43,6 +43,7 @@ class Figures:
     held_since: date | None
     slope_chart: SlopeChartDay | None = None
     slope_onset: date | None = None  # the within-day slope chart's run began on this day
+    extrapolated: int = 0  # rows with a predictor outside the fit window's range
 
 
 def _amount(value: float, words: Wording, response: str) -> str:
@@ -60,8 +61,13 @@ def _coverage_today(f: Figures, words: Wording) -> str:
     if f.n == 0:
         return f"no {words.rows} were recorded on {f.day.isoformat()}"
     noun = words.row if f.n == 1 else words.rows
-    return (f"{percent(f.covered / f.n)} of the {f.n} {noun} on {f.day.isoformat()} fell inside "
+    text = (f"{percent(f.covered / f.n)} of the {f.n} {noun} on {f.day.isoformat()} fell inside "
             f"the {percent(f.level)} interval")
+    if f.extrapolated:
+        some = "it lay" if f.n == 1 else ("all of them lay" if f.extrapolated == f.n else
+                                          f"{f.extrapolated} of them lay")
+        text += f" ({some} outside the range the line was fitted on: planned by extending it)"
+    return text
 
 
 def _window(f: Figures, words: Wording) -> str:
