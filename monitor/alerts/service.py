@@ -55,6 +55,7 @@ from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError
 from monitor.report.charts import ChartPanel, digest_chart_png
+from monitor.report.marks import load_marks
 from monitor.store import audit, queued_nights
 from monitor.store import outbox as box
 from monitor.store.access import database
@@ -171,9 +172,10 @@ def _chart_models(digest: Digest) -> tuple[str, ...]:
 
 
 def _panel(conn: Connection, news: ModelNews, level: float) -> ChartPanel:
-    checks = load_checks(conn, news.check.model_id, news.night - timedelta(days=CHART_DAYS - 1),
-                         news.night, model=news.model)
-    return ChartPanel(news.model, checks, level)
+    first = news.night - timedelta(days=CHART_DAYS - 1)
+    checks = load_checks(conn, news.check.model_id, first, news.night, model=news.model)
+    marks = load_marks(conn, news.check.model_id, first, news.night)
+    return ChartPanel(news.model, checks, level, marks)
 
 
 def _late_key(recipient: str, night: date, models: Sequence[str]) -> str:

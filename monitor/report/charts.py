@@ -12,7 +12,7 @@ for the same input: fixed size and dpi, fonts that ship with matplotlib (DejaVu 
 from __future__ import annotations
 
 import io
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import date
@@ -30,11 +30,12 @@ if TYPE_CHECKING:
     from matplotlib.typing import RcKeyType
 
 from monitor.domain.check import DayCheck
+from monitor.report.marks import PLURALS, Mark
 from monitor.report.series import (
     CoverageSeries,
     CusumSeries,
+    LimitShareSeries,
     ResidualSeries,
-    ScatterSeries,
     coverage_series,
     cusum_series,
 )
@@ -53,6 +54,8 @@ GREY = "#8C8C8C"
 ALERT_SIZE = (640, 360)  # pixels, width × height
 REPORT_SIZE = (800, 400)
 SCATTER_SIZE = (800, 520)
+GLANCE_SIZE = (360, 140)  # the small chart of a model on the team page
+SHARE_TOP = 2.0  # its axis: up to twice a chart's limit
 DPI = 100
 
 _STYLE: dict[RcKeyType, Any] = {
@@ -103,26 +106,104 @@ def _x(days: Sequence[date]) -> np.ndarray:
     return np.asarray(mdates.date2num(list(days)), dtype=float) if days else np.array([])
 
 
-def _legend(ax: Axes) -> None:
+def legend_above(ax: Axes, ncols: int = 4) -> None:
     """The legend above the plot area, right-aligned, on the title's line: never over the data."""
-    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=4, borderaxespad=0.1,
+    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=ncols, borderaxespad=0.1,
               handlelength=1.6, columnspacing=1.0)
 
 
-def nothing_yet(ax: Axes, title: str, message: str) -> None:
+def plural(n: int, one: str, many: str) -> str:
+    return f"{n} {one if n == 1 else many}"
+
+
+def percent(share: float) -> str:
+    """0.95 -> '95 %' (the project's way of writing a level)."""
+    return f"{share * 100:g} %"
+
+
+def listed(items: Sequence[str]) -> str:
+    """'a', 'a and b', 'a, b and c'."""
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
+
+
+class Caption:
+    """What a chart draws, in sentences, said by the code that draws it (the page prints it).
+
+    Each drawing function says each element as it adds it, so a caption never describes an
+    element the chart does not show (a line that was not drawn, a legend entry with no data).
+    """
+
+    def __init__(self) -> None:
+        self._sentences: list[str] = []
+
+    def say(self, sentence: str) -> None:
+        self._sentences.append(sentence)
+
+    @property
+    def text(self) -> str:
+        return " ".join(self._sentences)
+
+
+@dataclass(frozen=True)
+class Nouns:
+    """What one row is called in captions ('load', 'loads')."""
+
+    row: str = "row"
+    rows: str = "rows"
+
+
+ROWS = Nouns()  # the default: rows are called rows
+
+
+def nothing_yet(ax: Axes, title: str, message: str, caption: Caption | None = None) -> None:
     """An empty panel that says why it is empty."""
     ax.set_title(title)
     ax.set_xticks([])
     ax.set_yticks([])
     ax.grid(False)
     ax.text(0.5, 0.5, message, ha="center", va="center", transform=ax.transAxes, color=GREY)
+    if caption is not None:
+        caption.say(message[0].upper() + message[1:] + ".")
 
 
-def draw_cusum(ax: Axes, series: CusumSeries, *, title: str = "Bias CUSUM") -> None:
+# marks of what people did -----------------------------------------------------------------------
+# (colour, line style) per audit action; the legend names each, so colour is never the only cue
+MARK_STYLES: dict[str, tuple[str, Any]] = {
+    "promote": (GREEN, "-"),
+    "rollback": (GREEN, (0, (5, 2))),
+    "ack": (PURPLE, (0, (1, 1.5))),
+    "correct": (GREY, (0, (4, 1.5, 1, 1.5))),
+}
+MARKS_LISTED = 6  # a caption names this many marks, then counts the rest
+
+
+def draw_marks(ax: Axes, marks: Sequence[Mark], caption: Caption | None = None) -> None:
+    """A vertical line on the day each action took effect, one legend entry per kind."""
+    labelled: set[str] = set()
+    for mark in marks:
+        colour, style = MARK_STYLES[mark.action]
+        label = None if mark.action in labelled else mark.noun
+        labelled.add(mark.action)
+        ax.axvline(float(mdates.date2num(mark.day)), color=colour, linestyle=style,
+                   linewidth=1.3, label=label, zorder=1.5)
+    if caption is not None and marks:
+        named = [f"{m.text} from {m.day}" for m in marks[:MARKS_LISTED]]
+        if len(marks) > MARKS_LISTED:
+            named.append(plural(len(marks) - MARKS_LISTED, "more action", "more actions"))
+        kinds = listed([PLURALS[a] for a in MARK_STYLES if a in labelled])
+        caption.say(f"Vertical lines mark {kinds} on the day each took effect: "
+                    f"{'; '.join(named)}.")
+
+
+# time charts ------------------------------------------------------------------------------------
+def draw_cusum(ax: Axes, series: CusumSeries, *, title: str = "Bias CUSUM",
+               marks: Sequence[Mark] = (), caption: Caption | None = None,
+               nouns: Nouns = ROWS) -> None:
     """Upper path above zero, lower path below, the limits ±h, signal days marked."""
     if series.empty:
-        nothing_yet(ax, title, "nothing to show yet: no checked day with rows")
+        nothing_yet(ax, title, f"nothing to show yet: no checked day with {nouns.rows}", caption)
         return
+    say = caption.say if caption is not None else (lambda _: None)
     x = _x(series.days)
     ax.step(x, series.h, where="mid", color=INK, linestyle="--", linewidth=0.9, label="±h")
     ax.step(x, -series.h, where="mid", color=INK, linestyle="--", linewidth=0.9)
@@ -131,50 +212,146 @@ def draw_cusum(ax: Axes, series: CusumSeries, *, title: str = "Bias CUSUM") -> N
             label="upper (y above plan)")
     ax.plot(x, series.lower, color=BLUE, linewidth=1.4, marker=".", markersize=3,
             label="lower (y below plan)")
+    say(f"The upper path (above zero) grows while {nouns.rows} run above their planned values, "
+        "the lower path (below zero) while they run below; dashed lines are the limits ±h "
+        f"(days without {nouns.rows} are gaps).")
     if series.signal.any():
         path = np.where(series.upper >= -series.lower, series.upper, series.lower)
         ax.plot(x[series.signal], path[series.signal], linestyle="none", marker="D",
                 markersize=5, markerfacecolor="none", markeredgecolor=INK, label="signal")
+        days = series.signal_days
+        say(f"Diamonds mark the {plural(len(days), 'day', 'days')} the chart signalled, the "
+            f"first {days[0]}.")
+    else:
+        say("The chart did not signal in this period.")
+    draw_marks(ax, marks, caption)
     ax.set_title(title)
     ax.set_ylabel("CUSUM (sd units)")
-    _legend(ax)
+    legend_above(ax)
     _date_axis(ax)
 
 
-def draw_coverage(ax: Axes, series: CoverageSeries, *, title: str = "Coverage") -> None:
+def draw_coverage(ax: Axes, series: CoverageSeries, *, title: str = "Coverage",
+                  marks: Sequence[Mark] = (), caption: Caption | None = None,
+                  nouns: Nouns = ROWS) -> None:
     """Daily coverage points, the rolling window's Wilson band and the level L."""
     if series.empty:
-        nothing_yet(ax, title, "nothing to show yet: no checked day with rows")
+        nothing_yet(ax, title, f"nothing to show yet: no checked day with {nouns.rows}", caption)
         return
+    say = caption.say if caption is not None else (lambda _: None)
     x = _x(series.days)
     band = np.isfinite(series.wilson_low) & np.isfinite(series.wilson_high)
-    ax.fill_between(x, series.wilson_low, series.wilson_high, where=band, step="mid",
-                    color=SKY, alpha=0.35, linewidth=0, label="window Wilson band")
-    ax.step(x, series.window_coverage, where="mid", color=BLUE, linewidth=1.0,
-            label="window coverage")
     ax.plot(x, series.coverage, linestyle="none", marker="o", markersize=3, color=INK,
-            label="daily coverage")
+            label="daily coverage", zorder=3)
+    say(f"Dots: the share of each day's {nouns.rows} inside the prediction interval (days "
+        f"without {nouns.rows} are left empty).")
+    if band.any():
+        ax.fill_between(x, series.wilson_low, series.wilson_high, where=band, step="mid",
+                        color=SKY, alpha=0.35, linewidth=0, label="window Wilson band")
+        ax.step(x, series.window_coverage, where="mid", color=BLUE, linewidth=1.0,
+                label="window coverage")
+        say("Step line and shaded band: coverage over the rolling window "
+            f"{'' if series.window_days is None else f'of {series.window_days} days '}"
+            "with its Wilson score interval.")
     ax.axhline(series.level, color=ORANGE, linewidth=1.2, linestyle="-.",
                label=f"level L = {series.level:.0%}")
+    say(f"Dash-dot line: the level L = {percent(series.level)}.")
+    draw_marks(ax, marks, caption)
     low = np.nanmin(np.concatenate([series.coverage, series.wilson_low, [series.level]]))
     ax.set_ylim(max(0.0, min(low, 1.0) - 0.05), 1.02)
     ax.yaxis.set_major_formatter(mticker.PercentFormatter(1.0, decimals=0))
     ax.set_title(title)
     ax.set_ylabel("inside interval")
-    _legend(ax)
+    legend_above(ax)
     _date_axis(ax)
 
 
-def alert_chart_png(checks: Sequence[DayCheck], level: float) -> bytes:
+def versions_named(numbers: Sequence[int]) -> str:
+    """'version 1', 'versions 1 and 2'."""
+    return ("version " if len(numbers) == 1 else "versions ") + listed([str(n) for n in numbers])
+
+
+def draw_residuals(ax: Axes, series: ResidualSeries,
+                   *, title: str = "Standardized predictive residuals",
+                   marks: Sequence[Mark] = (), caption: Caption | None = None,
+                   nouns: Nouns = ROWS, scorers: Sequence[int] = ()) -> None:
+    """Every scored row as a dot, the day means as a line, the interval's edges as ±limit."""
+    if series.empty:
+        nothing_yet(ax, title, f"nothing to show yet: no checked day with {nouns.rows}", caption)
+        return
+    say = caption.say if caption is not None else (lambda _: None)
+    x = _x(series.days)
+    ax.axhline(0.0, color=GREY, linewidth=0.6)
+    ax.step(x, series.limit, where="mid", color=INK, linestyle="--", linewidth=0.9,
+            label="interval edge ±t")
+    ax.step(x, -series.limit, where="mid", color=INK, linestyle="--", linewidth=0.9)
+    rows = np.asarray(mdates.date2num(series.row_day.astype("datetime64[s]").astype(object)))
+    ax.plot(rows, series.z, linestyle="none", marker=".", markersize=2.5, color=GREY,
+            alpha=0.6, label=f"one {nouns.row}")
+    ax.plot(x, series.day_mean, color=VERMILION, linewidth=1.3, marker="s", markersize=2.5,
+            label="day mean")
+    by = f", scored by {versions_named(scorers)} as the checks scored them" if scorers else ""
+    say(f"Grey dots: the standardized predictive residual of each of the "
+        f"{len(series.z)} {nouns.rows} of the checked days, (observed − planned) divided by its "
+        f"prediction standard error{by}. Line with squares: their mean per day. Dashed lines: "
+        "the interval's edges ±t, so dots beyond them fell outside the prediction interval "
+        f"({_how_many(int((~series.inside).sum()))}).")
+    draw_marks(ax, marks, caption)
+    ax.set_title(title)
+    ax.set_ylabel("(y − planned) / its standard error")
+    legend_above(ax)
+    _date_axis(ax)
+
+
+def _how_many(n: int) -> str:
+    return "none did" if n == 0 else "1 did" if n == 1 else f"{n} did"
+
+
+def draw_limit_share(ax: Axes, series: LimitShareSeries, *, marks: Sequence[Mark] = (),
+                     caption: Caption | None = None) -> None:
+    """The two charts' nearness to their limits (1 = refit), the watch share, the marks; the
+    axis stops at ``SHARE_TOP`` (a chart far past its limit says no more by rising further)."""
+    if series.empty:
+        nothing_yet(ax, "", "not checked yet", caption)
+        return
+    say = caption.say if caption is not None else (lambda _: None)
+    x = _x(series.days)
+    ax.axhline(1.0, color=INK, linewidth=0.9, linestyle="--", label="limit (refit)")
+    ax.axhline(series.watch, color=ORANGE, linewidth=0.9, linestyle="-.", label="watch")
+    ax.step(x, np.minimum(series.bias, SHARE_TOP), where="mid", color=VERMILION,
+            linewidth=1.3, label="bias chart")
+    drawn = ["the bias chart (solid)"]
+    if np.isfinite(series.slope).any():
+        ax.step(x, np.minimum(series.slope, SHARE_TOP), where="mid", color=BLUE, linewidth=1.1,
+                linestyle=(0, (3, 1)), label="slope chart")
+        drawn.append("the within-day slope chart (dashed)")
+    say(f"{series.days[0]} to {series.days[-1]}: {' and '.join(drawn)} as a share of the "
+        f"limit; dashed line 100 % (refit), dash-dot line {percent(series.watch)} (watch).")
+    if np.nanmax(np.concatenate([series.bias, series.slope])) > SHARE_TOP:
+        say(f"Values above {percent(SHARE_TOP)} are drawn at the top.")
+    draw_marks(ax, marks, caption)
+    ax.set_ylim(0.0, SHARE_TOP * 1.04)
+    ax.yaxis.set_major_locator(mticker.FixedLocator([0.0, 1.0, SHARE_TOP]))
+    ax.yaxis.set_major_formatter(mticker.PercentFormatter(1.0, decimals=0))
+    ax.tick_params(labelsize=6)
+    locator = mdates.AutoDateLocator(minticks=2, maxticks=4)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+
+
+# the e-mail chart -------------------------------------------------------------------------------
+def alert_chart_png(checks: Sequence[DayCheck], level: float,
+                    marks: Sequence[Mark] = ()) -> bytes:
     """A compact two-panel PNG (640×360 px) for an alert e-mail.
 
     Top: the two CUSUM paths (upper as +, lower as −) against ±h; bottom: daily coverage against
-    the level ``level`` with the rolling window's Wilson band. Days without rows are gaps.
+    the level ``level`` with the rolling window's Wilson band. Days without rows are gaps;
+    promotions, rollbacks, acknowledgements and corrections are vertical lines on both.
     """
     with _figure(ALERT_SIZE) as fig:
         top, bottom = fig.subplots(2, 1, sharex=True)
-        draw_cusum(top, cusum_series(checks))
-        draw_coverage(bottom, coverage_series(checks, level))
+        draw_cusum(top, cusum_series(checks), marks=marks)
+        draw_coverage(bottom, coverage_series(checks, level), marks=marks)
         return png_bytes(fig)
 
 
@@ -185,108 +362,76 @@ class ChartPanel:
     model: str
     checks: Sequence[DayCheck]
     level: float
+    marks: Sequence[Mark] = ()
 
 
 def digest_chart_png(panels: Sequence[ChartPanel]) -> bytes:
     """The alert chart for a digest: one :func:`alert_chart_png` pair of panels per model,
     stacked and titled with the model's name (640 px wide, 360 px per model)."""
     if len(panels) == 1:
-        return alert_chart_png(panels[0].checks, panels[0].level)
+        return alert_chart_png(panels[0].checks, panels[0].level, panels[0].marks)
     size = (ALERT_SIZE[0], ALERT_SIZE[1] * len(panels))
     with _figure(size) as fig:
         axes = fig.subplots(2 * len(panels), 1)
         for i, panel in enumerate(panels):
             draw_cusum(axes[2 * i], cusum_series(panel.checks),
-                       title=f"{panel.model}: bias CUSUM")
+                       title=f"{panel.model}: bias CUSUM", marks=panel.marks)
             draw_coverage(axes[2 * i + 1], coverage_series(panel.checks, panel.level),
-                          title=f"{panel.model}: coverage")
+                          title=f"{panel.model}: coverage", marks=panel.marks)
         return png_bytes(fig)
 
 
-# the report's charts ---------------------------------------------------------------------------
-_LINE_STYLES = {"active": (BLUE, "-", SKY), "candidate": (GREEN, "--", None)}
+# the report's pictures --------------------------------------------------------------------------
+@dataclass(frozen=True)
+class Chart:
+    """One picture of a page: its file name, its PNG, and what it shows in words."""
+
+    file: str
+    png: bytes
+    caption: str
+    alt: str
 
 
-def draw_scatter(ax: Axes, series: ScatterSeries) -> None:
-    """Rows (recent ones larger and filled), each version's line and band, fit ranges of x."""
-    title = f"{series.y_label} against {series.x_label}"
-    if series.empty:
-        nothing_yet(ax, title, "nothing to show yet: no rows stored")
-        return
-    older = ~series.recent
-    ax.plot(series.x[older], series.y[older], linestyle="none", marker="o", markersize=3,
-            markerfacecolor="none", markeredgecolor=GREY, markeredgewidth=0.6, alpha=0.7,
-            label="earlier rows")
-    ax.plot(series.x[series.recent], series.y[series.recent], linestyle="none", marker="o",
-            markersize=4, markerfacecolor=ORANGE, markeredgecolor=INK, markeredgewidth=0.4,
-            label=f"rows since {series.recent_from}")
-    for line in series.lines:
-        colour, style, fill = _LINE_STYLES.get(line.state, (PURPLE, ":", None))
-        name = f"version {line.number} ({line.state})"
-        ax.plot(line.x, line.mean, color=colour, linestyle=style, linewidth=1.6, label=name)
-        if fill is not None:
-            ax.fill_between(line.x, line.lower, line.upper, color=fill, alpha=0.3, linewidth=0,
-                            label=f"{line.level:.0%} prediction band, version {line.number}")
-        else:
-            ax.plot(line.x, line.lower, color=colour, linestyle=":", linewidth=1.0,
-                    label=f"{line.level:.0%} prediction band, version {line.number}")
-            ax.plot(line.x, line.upper, color=colour, linestyle=":", linewidth=1.0)
-        for edge in (line.fit_x_min, line.fit_x_max):
-            if edge is not None and np.isfinite(edge):
-                ax.axvline(edge, color=colour, linestyle=(0, (1, 3)), linewidth=1.0)
-    if any(line.fit_x_min is not None for line in series.lines):
-        ax.plot([], [], color=INK, linestyle=(0, (1, 3)), linewidth=1.0,
-                label="range of x in the fit window")
-    ax.set_title(title)
-    ax.set_xlabel(series.x_label)
-    ax.set_ylabel(series.y_label)
-    if series.note:
-        ax.text(0.99, 0.02, series.note, ha="right", va="bottom", transform=ax.transAxes,
-                color=GREY, fontsize=7)
-    ax.legend(loc="upper left", ncols=2)
+def drawn(file: str, size: tuple[int, int], alt: str,
+          draw: Callable[[Figure, Caption], None]) -> Chart:
+    """Draw a figure of ``size`` pixels with ``draw(fig, caption)`` and keep what it said."""
+    caption = Caption()
+    with _figure(size) as fig:
+        draw(fig, caption)
+        return Chart(file, png_bytes(fig), caption.text, alt)
 
 
-def draw_residuals(ax: Axes, series: ResidualSeries,
-                   *, title: str = "Standardized predictive residuals") -> None:
-    """Every scored row as a dot, the day means as a line, the interval's edges as ±limit."""
-    if series.empty:
-        nothing_yet(ax, title, "nothing to show yet: no checked day with rows")
-        return
-    x = _x(series.days)
-    ax.axhline(0.0, color=GREY, linewidth=0.6)
-    ax.step(x, series.limit, where="mid", color=INK, linestyle="--", linewidth=0.9,
-            label="interval edge ±t")
-    ax.step(x, -series.limit, where="mid", color=INK, linestyle="--", linewidth=0.9)
-    rows = np.asarray(mdates.date2num(series.row_day.astype("datetime64[s]").astype(object)))
-    ax.plot(rows, series.z, linestyle="none", marker=".", markersize=2.5, color=GREY,
-            alpha=0.6, label="one row")
-    ax.plot(x, series.day_mean, color=VERMILION, linewidth=1.3, marker="s", markersize=2.5,
-            label="day mean")
-    ax.set_title(title)
-    ax.set_ylabel("(y − prediction) / its standard error")
-    _legend(ax)
-    _date_axis(ax)
+def glance_chart(file: str, series: LimitShareSeries, marks: Sequence[Mark],
+                 model: str) -> Chart:
+    """The team page's small chart of one model (:func:`draw_limit_share`)."""
+    def draw(fig: Figure, caption: Caption) -> None:
+        draw_limit_share(fig.subplots(), series, marks=marks, caption=caption)
+
+    chart = drawn(file, GLANCE_SIZE, "", draw)
+    return Chart(chart.file, chart.png, chart.caption, f"{model}: {chart.caption}")
 
 
-def scatter_png(series: ScatterSeries) -> bytes:
-    with _figure(SCATTER_SIZE) as fig:
-        draw_scatter(fig.subplots(), series)
-        return png_bytes(fig)
+def coverage_chart(series: CoverageSeries, marks: Sequence[Mark], nouns: Nouns) -> Chart:
+    def draw(fig: Figure, caption: Caption) -> None:
+        draw_coverage(fig.subplots(), series, title="Daily coverage of the prediction interval",
+                      marks=marks, caption=caption, nouns=nouns)
+
+    return drawn("coverage.png", REPORT_SIZE, "daily coverage of the prediction interval", draw)
 
 
-def coverage_png(series: CoverageSeries) -> bytes:
-    with _figure(REPORT_SIZE) as fig:
-        draw_coverage(fig.subplots(), series, title="Daily coverage of the prediction interval")
-        return png_bytes(fig)
+def cusum_chart(series: CusumSeries, marks: Sequence[Mark], nouns: Nouns) -> Chart:
+    def draw(fig: Figure, caption: Caption) -> None:
+        draw_cusum(fig.subplots(), series, title="Bias CUSUM of the day residuals", marks=marks,
+                   caption=caption, nouns=nouns)
+
+    return drawn("cusum.png", REPORT_SIZE, "bias CUSUM paths against their limits", draw)
 
 
-def cusum_png(series: CusumSeries) -> bytes:
-    with _figure(REPORT_SIZE) as fig:
-        draw_cusum(fig.subplots(), series, title="Bias CUSUM of the day residuals")
-        return png_bytes(fig)
+def residuals_chart(series: ResidualSeries, marks: Sequence[Mark], nouns: Nouns,
+                    scorers: Sequence[int]) -> Chart:
+    def draw(fig: Figure, caption: Caption) -> None:
+        draw_residuals(fig.subplots(), series, marks=marks, caption=caption, nouns=nouns,
+                       scorers=scorers)
 
-
-def residuals_png(series: ResidualSeries) -> bytes:
-    with _figure(REPORT_SIZE) as fig:
-        draw_residuals(fig.subplots(), series)
-        return png_bytes(fig)
+    return drawn("residuals.png", REPORT_SIZE, "standardized predictive residuals over time",
+                 draw)

@@ -1,8 +1,9 @@
 """``report``: one model's page, a self-contained folder with ``index.html`` and PNG charts.
 
 Loading (one read-only connection), series (:mod:`monitor.report.series`), drawing
-(:mod:`monitor.report.charts`) and the page (a Jinja2 template shipped in ``templates/``,
-autoescaped, inline CSS, no scripts or external assets) are kept apart.
+(:mod:`monitor.report.charts` and :mod:`monitor.report.row_charts`, each chart with the caption
+its drawing code wrote) and the page (a Jinja2 template shipped in ``templates/``, autoescaped,
+inline CSS, no scripts or external assets) are kept apart.
 """
 
 from __future__ import annotations
@@ -13,7 +14,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-from jinja2 import Environment, PackageLoader, StrictUndefined
 from sqlalchemy import Connection, Engine
 
 from monitor.config import ModelSettings, Settings
@@ -26,16 +26,20 @@ from monitor.errors import InputError
 from monitor.interface.output import to_jsonable
 from monitor.interface.versions import VersionView
 from monitor.monitoring.wording import WindowFinding, window_findings
-from monitor.report import charts
+from monitor.report import charts, row_charts
+from monitor.report.files import folder_for, render, unusable, write_files
+from monitor.report.marks import Mark, load_marks
 from monitor.report.series import (
     CoverageSeries,
     CusumSeries,
     ResidualSeries,
     ScatterSeries,
+    ScoredRows,
     coverage_series,
     cusum_series,
     residual_series,
     scatter_series,
+    score_rows,
 )
 from monitor.store.access import database
 from monitor.store.checks import last_check, load_checks
@@ -45,9 +49,6 @@ from monitor.store.versions import list_versions
 
 PAGE = "index.html"
 _TEMPLATE = "report.html.j2"
-_environment = Environment(loader=PackageLoader("monitor.report", "templates"),
-                           autoescape=True, undefined=StrictUndefined,
-                           trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
 
 
 @dataclass(frozen=True)
@@ -83,12 +84,23 @@ class ReportData:
     candidate: Version | None
     last: DayCheck | None  # the model's latest check, possibly before the period
     checks: tuple[DayCheck, ...]
-    scatter: ScatterSeries
+    scatter: ScatterSeries | None  # a model with one predictor: y against x with the lines
+    scored: ScoredRows  # the rows of the checked days, scored as the checks scored them
     coverage: CoverageSeries
     cusum: CusumSeries
     residuals: ResidualSeries
+    marks: tuple[Mark, ...]  # promotions, rollbacks, acknowledgements, corrections
     first_day: date
     last_day: date
+
+    @property
+    def nouns(self) -> charts.Nouns:
+        return charts.Nouns(self.settings.words.row, self.settings.words.rows)
+
+    @property
+    def y_label(self) -> str:
+        unit = self.settings.words.y_unit
+        return f"{self.model.response} ({unit})" if unit else self.model.response
 
 
 def write_report(settings: Settings, name: str, out_dir: Path, *, engine: Engine | None = None,
@@ -96,35 +108,47 @@ def write_report(settings: Settings, name: str, out_dir: Path, *, engine: Engine
     """Write model ``name``'s report for the ``days`` days through its last checked day.
 
     Without checks the period ends on the day of the last stored row (or yesterday). The folder
-    is created when missing; files from an earlier report in it are overwritten.
+    is created when missing; files from an earlier report in it are replaced (each file whole:
+    a reader never sees half a file).
     """
     if days < 1:
         raise InputError(f"a report covers at least one day; got days={days}")
     out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"{out_dir} is a file; the report needs a folder to write "
-                         f"{PAGE} and its charts into")
+    unusable(out_dir, PAGE)
     now = now or datetime.now(UTC)
     with database(settings, engine) as db, db.connect() as conn:
         data = load_report_data(conn, settings, name, now, days)
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"cannot create the report folder {out_dir}: {exc.strerror}") from exc
-    drawn = {
-        "scatter.png": charts.scatter_png(data.scatter),
-        "coverage.png": charts.coverage_png(data.coverage),
-        "cusum.png": charts.cusum_png(data.cusum),
-        "residuals.png": charts.residuals_png(data.residuals),
-    }
-    for file, content in drawn.items():
-        (out_dir / file).write_bytes(content)
-    page = out_dir / PAGE
-    page.write_text(render_page(data, now.astimezone(settings.timezone)), encoding="utf-8")
-    return ReportResult(page, tuple(out_dir / f for f in drawn), name,
-                        data.active.number if data.active else None,
+    return write_model_page(data, folder_for(out_dir, PAGE), now.astimezone(settings.timezone))
+
+
+def write_model_page(data: ReportData, out_dir: Path, written_at: datetime,
+                     back: str | None = None) -> ReportResult:
+    """Draw ``data``'s charts and write them and the page into ``out_dir`` (which exists);
+    ``back``: the address of the team page, relative to this one, when it has one."""
+    pictures = report_charts(data)
+    html = render_page(data, written_at, pictures, back)
+    write_files(out_dir, {**{c.file: c.png for c in pictures}, PAGE: html.encode("utf-8")})
+    return ReportResult(out_dir / PAGE, tuple(out_dir / c.file for c in pictures),
+                        data.model.name, data.active.number if data.active else None,
                         data.candidate.number if data.candidate else None,
                         data.last.status if data.last else None, data.first_day, data.last_day)
+
+
+def report_charts(data: ReportData) -> tuple[charts.Chart, ...]:
+    """The page's charts, in page order: rows first (y against x for one predictor, else
+    observed against planned and the residuals against each predictor), then the time charts,
+    each time chart with the period's marks."""
+    nouns, marks = data.nouns, data.marks
+    if data.scatter is not None:
+        rows = [row_charts.scatter_chart(data.scatter, nouns)]
+    else:
+        rows = [row_charts.planned_chart(data.scored, data.y_label, nouns),
+                row_charts.predictor_residuals_chart(data.scored, data.model.predictors, nouns)]
+    scorers = [s.number for s in data.scored.scorers]
+    return (*rows,
+            charts.coverage_chart(data.coverage, marks, nouns),
+            charts.cusum_chart(data.cusum, marks, nouns),
+            charts.residuals_chart(data.residuals, marks, nouns, scorers))
 
 
 def load_report_data(conn: Connection, settings: Settings, name: str, now: datetime,
@@ -146,18 +170,21 @@ def load_report_data(conn: Connection, settings: Settings, name: str, now: datet
     first_day = last_day - timedelta(days=days - 1)
     checks = tuple(load_checks(conn, model.id, first_day, last_day, model=name))
     rows = load_observations(conn, model, first_day, last_day)
+    marks = load_marks(conn, model.id, first_day, last_day)
     words = own.words
-    x_label = model.predictors[0]
     y_label = f"{model.response} ({words.y_unit})" if words.y_unit else model.response
     recent_from = max(first_day, last_day - timedelta(days=own.check.coverage_window_days - 1))
     lines = [v for v in (active, candidate) if v is not None]
     level = active.level if active else own.check.level
+    scored = score_rows(rows, checks, versions)
+    scatter = (scatter_series(rows, lines, recent_from, model.predictors[0], y_label)
+               if model.k == 1 else None)
     return ReportData(
         model=model, settings=own, active=active, candidate=candidate, last=last, checks=checks,
-        scatter=scatter_series(rows, lines, recent_from, x_label, y_label),
-        coverage=coverage_series(checks, level), cusum=cusum_series(checks),
-        residuals=residual_series(rows, checks, versions),
-        first_day=first_day, last_day=last_day)
+        scatter=scatter, scored=scored,
+        coverage=coverage_series(checks, level, own.check.coverage_window_days),
+        cusum=cusum_series(checks), residuals=residual_series(scored, checks, versions),
+        marks=marks, first_day=first_day, last_day=last_day)
 
 
 # the page ---------------------------------------------------------------------------------------
@@ -223,11 +250,15 @@ def _comparison(active: Version | None,
     return rows
 
 
-def render_page(data: ReportData, written_at: datetime) -> str:
-    """The HTML of the report (autoescaped: names and reasons cannot inject markup)."""
+def render_page(data: ReportData, written_at: datetime,
+                pictures: tuple[charts.Chart, ...] | None = None,
+                back: str | None = None) -> str:
+    """The HTML of the report (autoescaped: names and reasons cannot inject markup); the charts
+    are drawn here unless given."""
+    pictures = report_charts(data) if pictures is None else pictures
     words = data.settings.words
-    window = data.settings.check.coverage_window_days
     last = data.last
+    drawn = {line.number for line in data.scatter.lines} if data.scatter else set()
     context = {
         "model": data.model.name,
         "formula": f"{data.model.response} ~ {' + '.join(data.model.predictors)}",
@@ -238,15 +269,15 @@ def render_page(data: ReportData, written_at: datetime) -> str:
         "last_checked_day": last.day if last else None,
         "first_day": data.first_day, "last_day": data.last_day,
         "checked_days": len(data.checks),
-        "window": window, "recent_from": data.scatter.recent_from,
         "active": _version_view(data.active),
         "window_findings": _window_findings(data),
         "learning": _learning(data),
         "candidate": _version_view(data.candidate),
+        "candidate_drawn": data.candidate is not None and data.candidate.number in drawn,
         "comparison": _comparison(data.active, data.candidate),
-        "scatter_note": data.scatter.note,
-        "has_checks": not data.coverage.empty,
-        "signal_days": data.cusum.signal_days,
+        "marks": data.marks,
+        "charts": pictures,
+        "back": back,
         "written_at": written_at.strftime("%Y-%m-%d %H:%M %Z"),
     }
-    return _environment.get_template(_TEMPLATE).render(**context)
+    return render(_TEMPLATE, context)

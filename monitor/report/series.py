@@ -57,13 +57,15 @@ class CoverageSeries:
     wilson_low: np.ndarray
     wilson_high: np.ndarray
     level: float
+    window_days: int | None = None  # the rolling window's length, when known
 
     @property
     def empty(self) -> bool:
         return not np.isfinite(self.coverage).any()
 
 
-def coverage_series(checks: Sequence[DayCheck], level: float) -> CoverageSeries:
+def coverage_series(checks: Sequence[DayCheck], level: float,
+                    window_days: int | None = None) -> CoverageSeries:
     days, indexed = _by_day(checks)
     n = np.array([indexed[d].n if d in indexed else 0 for d in days], dtype=float)
     return CoverageSeries(
@@ -72,7 +74,7 @@ def coverage_series(checks: Sequence[DayCheck], level: float) -> CoverageSeries:
         window_coverage=_column(days, indexed, "window_coverage", need_rows=False),
         wilson_low=_column(days, indexed, "wilson_low", need_rows=False),
         wilson_high=_column(days, indexed, "wilson_high", need_rows=False),
-        level=level,
+        level=level, window_days=window_days,
     )
 
 
@@ -180,13 +182,77 @@ def scatter_series(observations: Observations, versions: Sequence[Version],
     return ScatterSeries(x, observations.y, recent, recent_from, lines, x_label, y_label, note)
 
 
+@dataclass(frozen=True)
+class Scorer:
+    """A version that scored rows in the period: its number, interval level L, and the edge of
+    its interval in standardized units, t(dof, (1 + L) / 2)."""
+
+    number: int
+    level: float
+    limit: float
+
+
+@dataclass(frozen=True, eq=False)
+class ScoredRows:
+    """Every stored row of a checked day, scored as the nightly check scored it: by the version
+    that checked its day (the check's ``version_id``), at that version's level L, through the
+    same :meth:`~monitor.stats.prediction.PredictionModel.score` call. Rows of days without a
+    check are left out. Ordered by day and time, like the stored rows."""
+
+    day: np.ndarray  # datetime64[D]
+    x: np.ndarray  # (n, k) predictor values
+    y: np.ndarray
+    version: np.ndarray  # the number of the version that scored the row
+    planned: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    z: np.ndarray  # (y - planned) / the prediction standard error
+    inside: np.ndarray  # bool: inside the prediction interval
+    scorers: tuple[Scorer, ...]  # the versions that scored rows here, by number
+
+    @property
+    def empty(self) -> bool:
+        return len(self.y) == 0
+
+    def __len__(self) -> int:
+        return len(self.y)
+
+
+def score_rows(observations: Observations, checks: Sequence[DayCheck],
+               versions: Sequence[Version]) -> ScoredRows:
+    """The rows of ``observations`` that fall on a checked day, each scored by its check's
+    version (see :class:`ScoredRows`)."""
+    by_id = {v.id: v for v in versions}
+    n, k = len(observations), observations.x.shape[1]
+    version = np.zeros(n, dtype=np.int64)
+    planned, lower, upper, z = (np.full(n, np.nan) for _ in range(4))
+    inside = np.zeros(n, dtype=bool)
+    scorers = []
+    for version_id in sorted({c.version_id for c in checks}):
+        v = by_id[version_id]
+        model = v.prediction_model()
+        own = np.array([c.day for c in checks if c.version_id == version_id],
+                       dtype="datetime64[D]")
+        rows = np.isin(observations.days, own)
+        if rows.any():
+            s = model.score(observations.x[rows], observations.y[rows], v.level)
+            planned[rows], lower[rows], upper[rows] = s.predicted, s.lower, s.upper
+            z[rows], inside[rows], version[rows] = s.z, s.inside, v.number
+            scorers.append(Scorer(v.number, v.level, model.critical_value(v.level)))
+    keep = version > 0
+    return ScoredRows(observations.days[keep], observations.x[keep].reshape(-1, k),
+                      observations.y[keep], version[keep], planned[keep], lower[keep],
+                      upper[keep], z[keep], inside[keep],
+                      tuple(sorted(scorers, key=lambda s: s.number)))
+
+
 @dataclass(frozen=True, eq=False)
 class ResidualSeries:
     """Standardized predictive residuals of every row on a checked day, and their day means.
 
-    Each row is scored by the version that scored its day (the check's ``version_id``), at that
-    version's level; ``limit`` is the interval's edge in the same units, t(dof, (1 + L) / 2),
-    so a row beyond ±limit fell outside its prediction interval.
+    Each row is scored by the version that scored its day (:func:`score_rows`); ``limit`` is
+    the interval's edge in the same units, t(dof, (1 + L) / 2), so a row beyond ±limit fell
+    outside its prediction interval.
     """
 
     days: tuple[date, ...]  # calendar days from the first to the last check
@@ -201,33 +267,58 @@ class ResidualSeries:
         return len(self.z) == 0
 
 
-def residual_series(observations: Observations, checks: Sequence[DayCheck],
+def residual_series(observations: Observations | ScoredRows, checks: Sequence[DayCheck],
                     versions: Sequence[Version]) -> ResidualSeries:
+    """The residual chart's series; ``observations`` may be scored already (:func:`score_rows`
+    of the same checks and versions)."""
+    scored = (observations if isinstance(observations, ScoredRows)
+              else score_rows(observations, checks, versions))
     days, indexed = _by_day(checks)
     by_id = {v.id: v for v in versions}
-    row_day = observations.days
-    z = np.full(len(row_day), np.nan)
-    inside = np.zeros(len(row_day), dtype=bool)
-    limit = np.full(len(days), np.nan)
-    day_index = {d: i for i, d in enumerate(days)}
-    for version_id in sorted({c.version_id for c in checks}):
-        version = by_id[version_id]
-        model = version.prediction_model()
-        own = np.array([d for d, c in indexed.items() if c.version_id == version_id],
-                       dtype="datetime64[D]")
-        rows = np.isin(row_day, own)
-        if rows.any():
-            scores = model.score(observations.x[rows], observations.y[rows], version.level)
-            z[rows], inside[rows] = scores.z, scores.inside
-        for d in own.astype(object):
-            limit[day_index[d]] = model.critical_value(version.level)
-    scored = np.isfinite(z)
-    row_day, z, inside = row_day[scored], z[scored], inside[scored]
+    edge = {i: by_id[i].prediction_model().critical_value(by_id[i].level)
+            for i in {c.version_id for c in checks}}
+    limit = np.array([edge[indexed[d].version_id] if d in indexed else np.nan for d in days],
+                     dtype=float)
     day_mean = np.full(len(days), np.nan)
-    if days and len(z):
-        position = (row_day - np.datetime64(days[0], "D")).astype(int)
+    if days and len(scored):
+        position = (scored.day - np.datetime64(days[0], "D")).astype(int)
         counts = np.bincount(position, minlength=len(days))
-        sums = np.bincount(position, weights=z, minlength=len(days))
+        sums = np.bincount(position, weights=scored.z, minlength=len(days))
         with np.errstate(invalid="ignore", divide="ignore"):
             day_mean = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
-    return ResidualSeries(days, row_day, z, inside, day_mean, limit)
+    return ResidualSeries(days, scored.day, scored.z, scored.inside, day_mean, limit)
+
+
+@dataclass(frozen=True)
+class LimitShareSeries:
+    """How near the bias chart and the within-day slope chart stood to their limits, each day:
+    the larger CUSUM side over h, and the leading slope side over its h (1 = the limit, where
+    the check advises a refit; ``watch`` = the share that puts a model on watch).
+
+    A day without rows keeps the standing value (the charts did not move); a day whose check
+    ran no slope chart is NaN there."""
+
+    days: tuple[date, ...]
+    bias: np.ndarray
+    slope: np.ndarray
+    watch: float
+
+    @property
+    def empty(self) -> bool:
+        return not np.isfinite(self.bias).any()
+
+
+def limit_share_series(checks: Sequence[DayCheck], watch: float) -> LimitShareSeries:
+    days, indexed = _by_day(checks)
+    bias = np.full(len(days), np.nan)
+    slope = np.full(len(days), np.nan)
+    for i, d in enumerate(days):
+        check = indexed.get(d)
+        if check is None:
+            continue
+        if check.cusum_h:
+            bias[i] = max(check.cusum_upper, check.cusum_lower) / check.cusum_h
+        chart = check.details.slope_chart
+        if chart is not None and chart.h > 0:
+            slope[i] = chart.value / chart.h
+    return LimitShareSeries(days, bias, slope, watch)
