@@ -108,6 +108,14 @@ class IngestSettings:
 
 
 @dataclass(frozen=True)
+class ReportSettings:
+    """The team page the nightly run refreshes (``report --all``), when ``dir`` is set."""
+
+    dir: str = ""  # empty: no page; relative paths are taken from the working directory
+    days: int = 90  # days shown, through each model's last checked day
+
+
+@dataclass(frozen=True)
 class Wording:
     """How reasons name things: 'each pallet now adds 2.6 min', '71 % of yesterday's loads'."""
 
@@ -162,6 +170,7 @@ class Settings:
     check: CheckSettings = field(default_factory=CheckSettings)
     alerts: AlertSettings = field(default_factory=AlertSettings)
     ingest: IngestSettings = field(default_factory=IngestSettings)
+    report: ReportSettings = field(default_factory=ReportSettings)
     models: Mapping[str, ModelSettings] = field(default_factory=dict)
     source: str | None = None
 
@@ -217,7 +226,8 @@ def load_settings(explicit: str | os.PathLike[str] | None = None,
 def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Settings:
     """Validate a parsed TOML document into :class:`Settings`."""
     r = _Reader(source)
-    top = r.table(data, "", {"database", "schedule", "check", "alerts", "ingest", "models"})
+    top = r.table(data, "", {"database", "schedule", "check", "alerts", "ingest", "report",
+                             "models"})
     db = r.table(top.get("database", {}), "database", {"url"})
     url = r.string(db, "database.url", Settings.database_url, non_empty=True)
 
@@ -238,6 +248,11 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
         inbox=r.string(ing, "ingest.inbox", ""),
         earliest_day=_day(r, ing, "ingest.earliest_day", IngestSettings.earliest_day),
     )
+
+    rep = r.table(top.get("report", {}), "report", {"dir", "days"})
+    report = ReportSettings(dir=r.string(rep, "report.dir", ""),
+                            days=r.integer(rep, "report.days", ReportSettings.days, low=1,
+                                           high=3660))
 
     models: dict[str, ModelSettings] = {}
     for name, section in r.table(top.get("models", {}), "models", None).items():
@@ -264,7 +279,7 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
             else None,
         )
     return Settings(database_url=url, schedule=schedule, check=check, alerts=alerts,
-                    ingest=ingest, models=models, source=source)
+                    ingest=ingest, report=report, models=models, source=source)
 
 
 def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> CheckSettings:

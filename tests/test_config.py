@@ -12,6 +12,7 @@ import pytest
 from monitor.config import (
     AlertSettings,
     CheckSettings,
+    ReportSettings,
     Settings,
     SmtpSettings,
     SqlSourceSettings,
@@ -183,3 +184,22 @@ def test_broken_toml_and_missing_file_are_config_errors(tmp_path):
         load_settings(tmp_path / "nope.toml", environ={})
     with pytest.raises(ConfigError, match="FITWATCH_CONFIG"):
         load_settings(None, environ={"FITWATCH_CONFIG": str(tmp_path / "nope.toml")})
+
+
+def test_report_settings_name_the_team_page_folder():
+    assert Settings().report == ReportSettings(dir="", days=90)
+    settings = parse_settings({"report": {"dir": "/srv/fitwatch/pages", "days": 30}}, "<test>")
+    assert settings.report == ReportSettings(dir="/srv/fitwatch/pages", days=30)
+    with pytest.raises(ConfigError, match=r"'report\.folder': unknown key; allowed here: days, "
+                                          r"dir"):
+        parse_settings({"report": {"folder": "pages"}}, "<test>")
+    with pytest.raises(ConfigError, match=r"'report\.days'.*at least 1"):
+        parse_settings({"report": {"days": 0}}, "<test>")
+    with pytest.raises(ConfigError, match=r"'report\.dir'.*expected a string"):
+        parse_settings({"report": {"dir": 1}}, "<test>")
+    example = load_settings(EXAMPLE, environ={})
+    assert example.report == ReportSettings()
+    text = EXAMPLE.read_text()
+    assert "\n[report]\n" in text
+    for f in fields(ReportSettings):
+        assert f"\n{f.name} =" in text, f"report.{f.name} is not documented"

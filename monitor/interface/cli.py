@@ -219,8 +219,11 @@ def build_parser() -> argparse.ArgumentParser:
     figures.add_argument("--through", dest="last", metavar="DATE", type=_day,
                          help="last day (default: the last checked day)")
     table_flags(figures)
-    page = command("report", "write an HTML page with charts for one model", _cmd_report)
-    page.add_argument("name", metavar="NAME")
+    page = command("report", "write an HTML page with charts for one model, or for every "
+                   "model with a team page linking them (--all)", _cmd_report)
+    page.add_argument("name", metavar="NAME", nargs="?")
+    page.add_argument("--all", action="store_true",
+                      help="every model: DIR/index.html lists them, each page under DIR/models/")
     page.add_argument("--out", metavar="DIR", type=Path, required=True,
                       help="folder for index.html and its charts (created when missing)")
     page.add_argument("--days", metavar="N", type=int, default=90,
@@ -529,6 +532,14 @@ def _show(args: argparse.Namespace, csv: Callable[[], str], document: Callable[[
 
 
 def _cmd_report(args: argparse.Namespace, settings: Settings) -> int:
+    if bool(args.name) == args.all:
+        raise UsageError("give either a model's NAME or --all (every model and a team page)")
+    if args.all:
+        from monitor.report.team import write_team_report
+
+        team = write_team_report(settings, args.out, days=args.days)
+        print(dumps(team.as_dict()) if args.json else team.sentence())
+        return int(ExitCode.INPUT) if team.problems else EXIT_OK
     from monitor.report.page import write_report
 
     result = write_report(settings, args.name, args.out, days=args.days)

@@ -1,4 +1,5 @@
-"""One nightly run: sweep the inbox, check every unchecked day through yesterday, send alerts.
+"""One nightly run: sweep the inbox, check every unchecked day through yesterday, send alerts,
+and refresh the team page when ``[report] dir`` is set.
 
 The daemon calls :func:`run_night` on its schedule (and once at start, to catch up); ``fitwatch
 daemon --once`` calls it from cron. Everything it needs to know comes from the database's own
@@ -15,6 +16,7 @@ import logging
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 from datetime import date, datetime
+from pathlib import Path
 from typing import Any
 
 from sqlalchemy import Engine
@@ -130,6 +132,8 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
         results.extend(outcome.results)
     done = _alert(settings, engine, now, mailer, actor, problems)
     alerts, nights = done if done is not None else (None, ())
+    if settings.report.dir and not stopped:
+        _team_page(settings, engine, now, actor, problems)
     return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
                     nights, alerts, stopped, tuple(problems))
 
@@ -155,6 +159,25 @@ def _alert(settings: Settings, engine: Engine, now: datetime, mailer: Mailer | N
         return None
     night = queued.nights[-1] if queued.nights else None
     return replace(sent, night=night, queued=queued.queued), queued.nights
+
+
+def _team_page(settings: Settings, engine: Engine, now: datetime, actor: str,
+               problems: list[str]) -> None:
+    """Refresh the team page (``[report] dir``) from what the run stored. A failure is logged,
+    recorded and reported with the run; the checks and alerts are done and stay done."""
+    from monitor.report.team import write_team_report  # matplotlib and Jinja2: only here
+
+    try:
+        team = write_team_report(settings, Path(settings.report.dir), engine=engine, now=now,
+                                 days=settings.report.days)
+    except Exception as exc:  # a full disk, a folder not writable: tomorrow's run tries again
+        log.exception("writing the team page into %s failed", settings.report.dir)
+        problems.append(f"report: {describe(exc)}")
+        _record_failure(engine, None, describe(exc), now, actor, stage="report")
+        return
+    for problem in team.problems:
+        log.error("the team page could not show %s", problem)
+        problems.append(f"report: {problem}")
 
 
 def _pull_source(settings: Settings, engine: Engine, name: str, now: datetime, actor: str,
