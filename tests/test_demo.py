@@ -17,7 +17,9 @@ from monitor.interface.cli import main
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import list_versions
+from tests.report.test_page import Page
 from tests.support.demo import STALE_MAIL, DemoRun
+from tests.support.png import png_size
 from tests.support.world import MODEL
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -86,3 +88,24 @@ def test_the_demo_command_starts_afresh_over_an_earlier_run(demo: DemoRun) -> No
     announced = re.findall(r'e-mail to the planning lead: "', demo.output)
     assert len(mails) == len(announced)
     assert f"{len(mails)} e-mail(s) to the planning lead are in" in demo.output
+
+
+@pytest.mark.slow
+def test_the_demo_leaves_the_team_page_and_says_where_to_open_it(demo: DemoRun) -> None:
+    # Before: the demo left no HTML or PNG. Now its folder holds the pages `report --all`
+    # writes, its settings name that folder for the daemon, and the output says where to look.
+    page = demo.result.team_page
+    assert page == demo.folder / "report" / "index.html"
+    assert page.resolve().as_uri() in demo.output
+    settings = load_settings(demo.result.config)
+    assert Path(settings.report.dir) == demo.folder / "report"
+    team = Page(page.read_text(encoding="utf-8"))
+    assert team.links == [f"models/{MODEL}/index.html"]
+    assert team.images == [f"models/{MODEL}/glance.png"]
+    model_page = page.parent / team.links[0]
+    own = Page(model_page.read_text(encoding="utf-8"))
+    assert own.images and all(png_size((model_page.parent / src).read_bytes())[0] > 0
+                              for src in own.images)
+    # the lead's promotions are marked on the time charts and listed with their reasons
+    for moved in demo.result.promotions:
+        assert f"{moved.effective_day}: version {moved.active} promoted" in own.words

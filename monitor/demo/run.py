@@ -52,6 +52,9 @@ to = ["planning.lead@example.com"]
 sender = "fitwatch@example.com"
 eml_dir = "{outbox}"
 
+[report]
+dir = "{report}"
+
 [models.{model}.ranges]
 pallets = [1, 40]
 load_minutes = [1, 400]
@@ -74,13 +77,14 @@ class DemoResult:
     checks: tuple[DayCheck, ...]
     comparisons: tuple[Comparison, ...] = ()
     promotions: tuple[Transition, ...] = ()
+    team_page: Path | None = None  # the team page (report --all) written at the end
 
 
 def write_config(directory: Path) -> Path:
     path = directory / "fitwatch.toml"
     path.write_text(CONFIG_TEXT.format(db=(directory / "fitwatch.db").resolve().as_posix(),
                                        tz=TIMEZONE, outbox=(directory / "outbox").as_posix(),
-                                       model=MODEL))
+                                       report=(directory / "report").as_posix(), model=MODEL))
     return path
 
 
@@ -107,9 +111,10 @@ def run_demo(directory: Path, out: TextIO, seed: int = DEFAULT_SEED) -> DemoResu
     init_database(settings)
     with database(settings) as engine:
         played = _play(engine, settings, files, scenario, zone, say)
-    _closing(say, config, played, scenario)
+        team = _team_page(engine, settings, directory, played)
+    _closing(say, config, played, scenario, team)
     return DemoResult(config, directory / "fitwatch.db", tuple(played.checks),
-                      tuple(played.comparisons), tuple(played.promotions))
+                      tuple(played.comparisons), tuple(played.promotions), team)
 
 
 @dataclass
@@ -211,13 +216,22 @@ def _respond(engine: Engine, settings: Settings, now: datetime, played: _Played,
     say("\n")
 
 
+def _team_page(engine: Engine, settings: Settings, directory: Path, played: _Played) -> Path:
+    """The pages the team would open in the morning (``report --all``), as of the last night."""
+    from monitor.report.team import write_team_report  # matplotlib and Jinja2: only here
+
+    last = played.checks[-1].day if played.checks else None
+    now = _night_after(last, settings.timezone) if last else None
+    return write_team_report(settings, Path(settings.report.dir), engine=engine, now=now).path
+
+
 def _night_after(day: date, zone: ZoneInfo) -> datetime:
     """03:00 local time on the night after ``day``: when the nightly run would see it."""
     return datetime.combine(day + timedelta(days=1), time(3, 0), tzinfo=zone)
 
 
 def _closing(say: Callable[[str], object], config: Path, played: _Played,
-             scenario: Scenario) -> None:
+             scenario: Scenario, team: Path) -> None:
     checks = played.checks
     first_refit = next((c for c in checks if c.status == "refit"), None)
     say("\nWhat happened in the data (the generator's truth, unknown to the monitor):\n")
@@ -234,8 +248,10 @@ def _closing(say: Callable[[str], object], config: Path, played: _Played,
     if mails:
         say(f"\n{len(mails)} e-mail(s) to the planning lead are in {mails[0].parent} "
             "(open them with any mail program).\n")
+    say(f"\nThe team's page, with the model's charts one click away: open\n"
+        f"  {team.resolve().as_uri()}\nin a browser "
+        f"(written by: fitwatch --config {config} report --all --out {team.parent}).\n")
     say(f"\nTry: fitwatch --config {config} status\n")
-    say(f"     fitwatch --config {config} report {MODEL} --out {config.parent / 'report'}\n")
     say(f"     fitwatch --config {config} model list\n")
     say(f"     fitwatch --config {config} compare {MODEL}\n"
         if any(c.recommendation.action != "promote" for c in played.comparisons[-1:]) else "")

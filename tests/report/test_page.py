@@ -32,6 +32,7 @@ class Page(HTMLParser):
         super().__init__(convert_charrefs=True)
         self.tags: list[str] = []
         self.images: list[str] = []
+        self.links: list[str] = []
         self.ids: list[str] = []
         self.text: list[str] = []
         self.feed(text)
@@ -42,6 +43,8 @@ class Page(HTMLParser):
         values = dict(attrs)
         if tag == "img":
             self.images.append(values["src"] or "")
+        if tag == "a" and values.get("href"):
+            self.links.append(values["href"] or "")
         if values.get("id"):
             self.ids.append(values["id"] or "")
 
