@@ -108,4 +108,5 @@ def test_the_demo_leaves_the_team_page_and_says_where_to_open_it(demo: DemoRun) 
                               for src in own.images)
     # the lead's promotions are marked on the time charts and listed with their reasons
     for moved in demo.result.promotions:
-        assert f"{moved.effective_day}: version {moved.active} promoted" in own.words
+        assert (f"{moved.effective_day}: promoted version {moved.active} in place of version "
+                f"{moved.previous}") in own.words

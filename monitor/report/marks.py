@@ -14,8 +14,9 @@ from datetime import date, timedelta
 
 from sqlalchemy import Connection
 
+from monitor.interface.audit_view import what_was_done
 from monitor.store import audit
-from monitor.store.audit import AuditEntry
+from monitor.store.audit import AuditEntry, LogLine
 
 MARKED = ("promote", "rollback", "ack", "correct")  # audit actions drawn on time charts
 NOUNS = {"promote": "promotion", "rollback": "rollback", "ack": "acknowledgement",
@@ -30,7 +31,7 @@ class Mark:
 
     day: date  # the day it took effect (a correction: the earliest day whose rows changed)
     action: str  # one of MARKED
-    text: str  # "version 2 promoted", in the audit log's own terms
+    text: str  # "promoted version 2 in place of version 1", as ``fitwatch audit`` says it
     reason: str | None = None  # as given with the action (``--reason``)
 
     @property
@@ -39,18 +40,11 @@ class Mark:
 
 
 def _text(e: AuditEntry) -> str:
-    d = e.details or {}
-    number = d.get("version")  # promotions and rollbacks record the number they made active
-    version = f"version {number}" if isinstance(number, int) else "a version"
-    if e.action == "promote":
-        return f"{version} promoted"
-    if e.action == "rollback":
-        back = f"version {d['copy_of']}" if "copy_of" in d else "the earlier version"
-        return f"rolled back to {back} (active as {version})"
-    if e.action == "ack":
-        return f"{d.get('status', 'the')} advice acknowledged"
-    replaced = d.get("replaced")
-    return f"{replaced} row(s) corrected" if replaced is not None else "rows corrected"
+    """The entry in the words of ``fitwatch audit``."""
+    number = (e.details or {}).get("version")  # promotions and rollbacks record it
+    return what_was_done(LogLine(e.id, e.at, None, e.action, e.actor, e.reason,
+                                 number if isinstance(number, int) else None, e.effective_day,
+                                 e.details or {}))
 
 
 def marks_from(entries: Iterable[AuditEntry], first: date, last: date) -> tuple[Mark, ...]:

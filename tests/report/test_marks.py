@@ -26,8 +26,11 @@ from monitor.store.models import get_model
 from tests.report.conftest import ACKED, HOSTILE_REASON, PROMOTED, TEAM_LAST, Team
 from tests.support.world import MODEL, WORDS, night_after
 
-EXPECTED = (Mark(ACKED, "ack", "refit advice acknowledged", HOSTILE_REASON),
-            Mark(PROMOTED, "promote", "version 2 promoted", "the new layout"))
+# worded as `fitwatch audit` words them (monitor.interface.audit_view.what_was_done)
+EXPECTED = (Mark(ACKED, "ack", "acknowledged the refit advice standing since 2026-03-16",
+                 HOSTILE_REASON),
+            Mark(PROMOTED, "promote", "promoted version 2 in place of version 1",
+                 "the new layout"))
 
 
 def _entry(action: str, day: date | None, **details) -> AuditEntry:
@@ -39,17 +42,19 @@ def test_marks_from_the_audit_log() -> None:
     entries = [
         _entry("fit", date(2026, 3, 9)),  # not an action on the charts
         _entry("promote", date(2026, 2, 28), version=2),  # before the period
-        _entry("rollback", date(2026, 3, 20), version=4, copy_of=1),
-        _entry("correct", date(2026, 3, 2), replaced=3, days=["2026-03-02"]),
-        _entry("ack", date(2026, 4, 1), status="watch"),  # the day after the last: kept
+        _entry("rollback", date(2026, 3, 20), version=4, copy_of=1, previous=3),
+        _entry("correct", date(2026, 3, 2), replaced=3, days=["2026-03-02"], source="a.csv",
+               batch=7),
+        _entry("ack", date(2026, 4, 1), status="watch", since="2026-03-28"),  # the next day
         _entry("ack", date(2026, 4, 2), status="refit"),  # two days after: left out
         _entry("failure", None),
     ]
     marks = marks_from(entries, date(2026, 3, 1), date(2026, 3, 31))
     assert [(m.day, m.action, m.text) for m in marks] == [
-        (date(2026, 3, 2), "correct", "3 row(s) corrected"),
-        (date(2026, 3, 20), "rollback", "rolled back to version 1 (active as version 4)"),
-        (date(2026, 4, 1), "ack", "watch advice acknowledged"),
+        (date(2026, 3, 2), "correct",
+         "corrected 3 row(s) on 2026-03-02 from a.csv (batch 7; the replaced values are kept)"),
+        (date(2026, 3, 20), "rollback", "rolled back to version 1 (active again as version 4)"),
+        (date(2026, 4, 1), "ack", "acknowledged the watch advice standing since 2026-03-28"),
     ]
     assert {m.reason for m in marks} == {"why"}
 
@@ -60,7 +65,7 @@ def test_the_report_marks_the_acknowledgement_and_the_promotion(team: Team) -> N
     assert data.marks == EXPECTED
     pictures = {c.file: c.caption for c in report_charts(data)}
     said = ("Vertical lines mark promotions and acknowledgements on the day each took effect: "
-            f"refit advice acknowledged from {ACKED}; version 2 promoted from {PROMOTED}.")
+            f"{EXPECTED[0].text} from {ACKED}; {EXPECTED[1].text} from {PROMOTED}.")
     for file in ("coverage.png", "cusum.png", "residuals.png"):  # every time chart
         assert said in pictures[file], file
     assert "Vertical lines" not in pictures["scatter.png"]  # not a time chart

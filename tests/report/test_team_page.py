@@ -115,7 +115,7 @@ def test_text_is_escaped_on_every_page(team: Team, tmp_path: Path) -> None:
     longley = Page((report.path.parent / "models" / LONGLEY / "index.html").read_text())
     assert f"TOTEMP ~ GNP + {HOSTILE_COLUMN}" in longley.words  # a column name, as typed
     dock = Page((report.path.parent / "models" / MODEL / "index.html").read_text())
-    assert f"refit advice acknowledged (“{HOSTILE_REASON}”)" in dock.words
+    assert f"refit advice standing since 2026-03-16 (“{HOSTILE_REASON}”)" in dock.words
 
 
 def test_a_model_name_that_is_markup_shows_literally() -> None:
