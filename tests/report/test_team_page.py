@@ -230,3 +230,12 @@ def test_no_team_page_without_the_setting(engine: Engine, longley_only, tmp_path
     monkeypatch.chdir(tmp_path)
     run = run_night(longley_only(), engine, now=night_after(LONGLEY_LAST + timedelta(days=1)))
     assert run.status == "ok" and not any(tmp_path.rglob("*.html"))
+
+
+def test_a_team_page_of_no_model_says_how_to_start(engine: Engine, make_settings,
+                                                   tmp_path: Path) -> None:
+    settings = make_settings(engine.url.render_as_string(hide_password=False))
+    report = write_team_report(settings, tmp_path / "team", engine=engine)
+    assert report.rows == () and report.problems == ()
+    page = Page(report.path.read_text(encoding="utf-8"))
+    assert "No model is defined yet" in page.words and page.images == []
