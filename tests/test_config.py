@@ -83,6 +83,9 @@ level = 0.8
     ("[check]\ncoverage_window_days = 2.5", "check.coverage_window_days", "an integer"),
     ("[check]\ncusum_unit = 'week'", "check.cusum_unit", "one of day, observation"),
     ("[check]\nrefit_pvalue = 0.05", "check.refit_pvalue", "must not exceed"),
+    ("[check]\nsilence_pvalue = 0", "check.silence_pvalue", "strictly between 0 and 1"),
+    ("[models.m.check]\nrejected_file_share = 1.5", "models.m.check.rejected_file_share",
+     "strictly between 0 and 1"),
     ("[schedule]\ntimezone = 'Mars/Olympus'", "schedule.timezone", "unknown time zone"),
     ("[schedule]\ncron = 'nightly'", "schedule.cron", "five-field cron"),
     # field ranges as in crontab(5): minute 0-59, hour 0-23, day of month 1-31, month 1-12
