@@ -41,7 +41,8 @@ class IngestSummary:
     affected_days: tuple[date, ...]
     already_ingested: bool = False
     strict: bool = False
-    status: str = "complete"  # complete | rejected (the whole file, under --strict)
+    # complete | rejected: nothing of the file stored, its rows all bad (or one, under --strict)
+    status: str = "complete"
 
     def __post_init__(self) -> None:
         if self.read != self.accepted + self.duplicates + self.rejected:
@@ -49,6 +50,17 @@ class IngestSummary:
                              f"{self.accepted} + {self.duplicates} + {self.rejected}")
         if sum(self.reasons.values()) != self.rejected:
             raise ValueError(f"reason counts of {self.source} do not add up to {self.rejected}")
+
+    @property
+    def rejected_whole(self) -> bool:
+        """Nothing of the file was stored because of its rows (every one bad, or --strict)."""
+        return self.status == "rejected"
+
+    @property
+    def bad_share(self) -> float:
+        """The share of the rows read that were bad (not those rejected with a --strict file)."""
+        bad = self.rejected - self.reasons.get("file_rejected", 0)
+        return bad / self.read if self.read else 0.0
 
     def as_dict(self) -> dict[str, Any]:
         """The ``ingest --json`` document."""
@@ -67,6 +79,8 @@ class IngestSummary:
     def sentence(self) -> str:
         """One line for people, naming the worst reasons with line numbers."""
         counts = f"{_n(self.read, 'row')} read"
+        if self.read == 0:
+            return f"{self.source}: a header without rows: a night without rows, nothing to store."
         if self.already_ingested and self.status == "rejected":
             return (f"{self.source}: rejected whole before (batch {self.batch_id}); nothing "
                     f"changed ({counts}).")
@@ -78,8 +92,13 @@ class IngestSummary:
                     f"({counts}, {self.duplicates:,} already stored{again}).")
         if self.status == "rejected":
             bad = self.rejected - self.reasons.get("file_rejected", 0)
-            return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
-                    f"{counts.removesuffix(' read')} are bad — {self._worst()}.")
+            rows = counts.removesuffix(" read")
+            if bad < self.read:
+                return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
+                        f"{rows} are bad — {self._worst()}.")
+            every = "the 1 row is" if self.read == 1 else f"all {rows} are"
+            return (f"{self.source}: rejected whole, nothing stored: {every} bad — "
+                    f"{self._worst()}{self._example()}.")
         text = (f"{self.source}: {counts}: {self.accepted:,} stored, "
                 f"{_n(self.duplicates, 'duplicate')} skipped, {self.rejected:,} rejected")
         if self.rejected:
@@ -88,6 +107,16 @@ class IngestSummary:
             first, last = self.first_day.isoformat(), _iso(self.last_day)
             text += f"; day {first}" if first == last else f"; days {first} to {last}"
         return text + "."
+
+    def _example(self) -> str:
+        """The first shown row of the commonest reason, as '; e.g. line 2: why'."""
+        ranked = sorted(((n, code) for code, n in self.reasons.items() if code != "file_rejected"),
+                        key=lambda item: (-item[0], list(REASONS).index(item[1])))
+        for _, code in ranked[:1]:
+            for e in self.examples:
+                if e.code == code:
+                    return f"; e.g. line {e.line}: {e.detail}"
+        return ""
 
     def _worst(self) -> str:
         ranked = sorted(((n, code) for code, n in self.reasons.items() if code != "file_rejected"),

@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.phrasing import fmt, fmt_p, percent
-from monitor.monitoring.check import CheckOutcome
+from monitor.monitoring.check import CheckOutcome, ModelCheck
 
 
 def day_document(c: DayCheck) -> dict[str, Any]:
@@ -42,22 +44,26 @@ def day_line(c: DayCheck) -> str:
             f"slope {fmt_p(c.slope_pvalue)}")
 
 
-def check_text(outcome: CheckOutcome) -> str:
+def check_text(outcome: CheckOutcome, health: Sequence[DataHealth] = ()) -> str:
+    """The run for people; ``health``: the checked models' standing data findings."""
     lines: list[str] = []
+    data = {h.model: h for h in health if h.stands}
     for r in outcome.results:
-        if r.error:
-            lines.append(f"{r.model}: not checked: {r.error}")
-            continue
-        if not r.checks:
-            lines.append(f"{r.model}: nothing new to check ({r.note})")
-            continue
-        head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
-        if r.recomputed_from:
-            head += f"; late rows made it re-check from {r.recomputed_from}"
-        lines.append(head)
-        for c in r.checks:
-            lines.append("  " + day_line(c))
-        last = r.checks[-1]
-        lines.append(f"  now {last.status.upper()} since {last.status_since}:")
-        lines.extend(f"    - {reason}" for reason in last.reasons)
+        lines.extend(_check_lines(r))
+        if r.model in data:
+            lines.extend(f"  ! data: {sentence}" for sentence in data[r.model].sentences())
     return "\n".join(lines)
+
+
+def _check_lines(r: ModelCheck) -> list[str]:
+    if r.error:
+        return [f"{r.model}: not checked: {r.error}"]
+    if not r.checks:
+        return [f"{r.model}: nothing new to check ({r.note})"]
+    head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
+    if r.recomputed_from:
+        head += f"; late rows made it re-check from {r.recomputed_from}"
+    last = r.checks[-1]
+    return [head, *("  " + day_line(c) for c in r.checks),
+            f"  now {last.status.upper()} since {last.status_since}:",
+            *(f"    - {reason}" for reason in last.reasons)]

@@ -233,6 +233,7 @@ def _cmd_init(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.domain.data_health import mostly_rejected
     from monitor.ingest.service import ingest_configured_source, ingest_paths
 
     if bool(args.files) == args.source:
@@ -248,7 +249,15 @@ def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
     else:
         for summary in summaries:
             print(summary.sentence())
-    return EXIT_OK
+    share = settings.for_model(args.name).check.rejected_file_share
+    for summary in summaries:
+        if summary.rejected_whole:
+            print(f"fitwatch: {summary.source} was rejected whole: nothing of it was stored",
+                  file=sys.stderr)
+        elif mostly_rejected(summary.rejected, summary.read, share):
+            print(f"fitwatch: warning: {summary.source} lost most of its rows "
+                  f"({summary.rejected:,} of {summary.read:,} rejected)", file=sys.stderr)
+    return ExitCode.INPUT if any(s.rejected_whole for s in summaries) else EXIT_OK
 
 
 def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
@@ -330,24 +339,31 @@ def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
 def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.interface.check_view import check_document, check_text
     from monitor.monitoring.check import run_checks
+    from monitor.monitoring.data_health import data_health
 
     outcome = run_checks(settings, args.names or None, day=args.day, through=args.through,
                          progress=wants_progress() and not args.json)
-    print(dumps(check_document(outcome)) if args.json else check_text(outcome))
+    checked = [r.model for r in outcome.results if r.current is not None]
+    health = [h for h in data_health(settings, checked) if h.stands] if checked else []
+    print(dumps(check_document(outcome)) if args.json else check_text(outcome, health))
     failures = [r.failure for r in outcome.results if r.failure]
     if failures:  # an internal failure of one model outranks a bad input of another
         return max(f.exit_code for f in failures)
     if args.fail_on:
         from monitor.alerts.service import undelivered
+        from monitor.domain.status import Status
 
         trouble = undelivered(settings)
         if trouble:  # the planners may not have heard of what the checks found
             print(f"fitwatch: {trouble.sentence()}", file=sys.stderr)
         if trouble.failed:
             return EXIT_THRESHOLD
-        rank = {"ok": 0, "watch": 1, "refit": 2}
+        for h in health:  # data findings count as "watch": the monitor cannot vouch for these
+            print(f"fitwatch: {h.model}: data: {h.headline()}", file=sys.stderr)
         worst = outcome.worst_status()
-        if worst is not None and rank[worst] >= rank[args.fail_on]:
+        if health and Status.WATCH.at_least(args.fail_on):
+            return EXIT_THRESHOLD
+        if worst is not None and worst.at_least(args.fail_on):
             return EXIT_THRESHOLD
     return EXIT_OK
 

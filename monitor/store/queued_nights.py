@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from datetime import date, datetime
 
-from sqlalchemy import Connection, and_, select
+from sqlalchemy import Connection, and_, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.sql.expression import Join
 
@@ -47,3 +47,9 @@ def mark_queued(conn: Connection, model_ids: Iterable[int], night: date, now: da
     builder = postgresql.insert if conn.dialect.name == "postgresql" else sqlite.insert
     conn.execute(builder(queued_nights).values(values).on_conflict_do_nothing(
         index_elements=[queued_nights.c.model_id, queued_nights.c.day]))
+
+
+def last_queued_at(conn: Connection, model_id: int, before: date) -> datetime | None:
+    """When the model's latest night before ``before`` was queued (None: never)."""
+    return conn.execute(select(func.max(queued_nights.c.queued_at)).where(
+        queued_nights.c.model_id == model_id, queued_nights.c.day < before)).scalar()
