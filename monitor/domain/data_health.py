@@ -42,8 +42,16 @@ class RejectedExample:
         return f"e.g. line {self.line}: {self.detail} (the line reads \"{raw}\")"
 
 
-def _reasons(reasons: tuple[ReasonCount, ...]) -> str:
-    return "; ".join(f"{r.count:,} {r.phrase}" for r in reasons)
+def _why(reasons: tuple[ReasonCount, ...], example: RejectedExample | None) -> str:
+    """' — 56 not a number; e.g. line 2: ...' (empty without reasons or example)."""
+    text = " — " + "; ".join(f"{r.count:,} {r.phrase}" for r in reasons) if reasons else ""
+    return text + (f"; {example.phrase()}" if example is not None else "")
+
+
+def _why_dict(reasons: tuple[ReasonCount, ...], example: RejectedExample | None
+              ) -> dict[str, Any]:
+    return {"reasons": {r.code: r.count for r in reasons},
+            "example": asdict(example) if example is not None else None}
 
 
 @dataclass(frozen=True)
@@ -77,18 +85,12 @@ class BadFile:
         else:
             what = (f"lost most of its rows: {self.bad:,} of {self.read:,} rejected "
                     f"({percent(self.bad / self.read)})")
-        text = f"{self.name} ({when}) {what}"
-        if self.reasons:
-            text += f" — {_reasons(self.reasons)}"
-        if self.example is not None:
-            text += f"; {self.example.phrase()}"
-        return text
+        return f"{self.name} ({when}) {what}{_why(self.reasons, self.example)}"
 
     def as_dict(self) -> dict[str, Any]:
         return {"batch_id": self.batch_id, "source": self.source,
                 "ingested_at": self.ingested_at, "read": self.read, "bad": self.bad,
-                "whole": self.whole, "reasons": {r.code: r.count for r in self.reasons},
-                "example": asdict(self.example) if self.example else None,
+                "whole": self.whole, **_why_dict(self.reasons, self.example),
                 "sentence": self.sentence()}
 
 
@@ -147,20 +149,14 @@ class RisingRejections:
         text = (f"{self.short()}: {percent(self.recent_share, 1)} of the {self.recent_read:,} "
                 f"rows of the last {self.days} days ({self.recent_rejected:,}), against "
                 f"{percent(self.past_share, 1)} before ({fmt_p(self.pvalue)})")
-        if self.reasons:
-            text += f" — {_reasons(self.reasons)}"
-        if self.example is not None:
-            text += f"; {self.example.phrase()}"
-        return text
+        return text + _why(self.reasons, self.example)
 
     def as_dict(self) -> dict[str, Any]:
         return {"days": self.days, "recent_rejected": self.recent_rejected,
                 "recent_read": self.recent_read, "recent_share": self.recent_share,
                 "past_rejected": self.past_rejected, "past_read": self.past_read,
                 "past_share": self.past_share, "pvalue": self.pvalue,
-                "reasons": {r.code: r.count for r in self.reasons},
-                "example": asdict(self.example) if self.example else None,
-                "sentence": self.sentence()}
+                **_why_dict(self.reasons, self.example), "sentence": self.sentence()}
 
 
 @dataclass(frozen=True)

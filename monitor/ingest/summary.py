@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 from datetime import date
 from typing import Any
 
-from monitor.ingest.reasons import REASONS, Rejection
+from monitor.ingest.reasons import REASONS, Rejection, ranked
 
 EXAMPLES_PER_REASON = 3
 REASONS_NAMED = 3
@@ -110,19 +110,16 @@ class IngestSummary:
 
     def _example(self) -> str:
         """The first shown row of the commonest reason, as '; e.g. line 2: why'."""
-        ranked = sorted(((n, code) for code, n in self.reasons.items() if code != "file_rejected"),
-                        key=lambda item: (-item[0], list(REASONS).index(item[1])))
-        for _, code in ranked[:1]:
+        for code, _ in ranked(self.reasons)[:1]:
             for e in self.examples:
                 if e.code == code:
                     return f"; e.g. line {e.line}: {e.detail}"
         return ""
 
     def _worst(self) -> str:
-        ranked = sorted(((n, code) for code, n in self.reasons.items() if code != "file_rejected"),
-                        key=lambda item: (-item[0], list(REASONS).index(item[1])))
+        worst = ranked(self.reasons)
         parts = []
-        for count, code in ranked[:REASONS_NAMED]:
+        for code, count in worst[:REASONS_NAMED]:
             lines = [e.line for e in self.examples if e.code == code]
             where = ""
             if lines:
@@ -130,8 +127,8 @@ class IngestSummary:
                 label = "line" if len(lines) == 1 and not more else "lines"
                 where = f" ({label} {', '.join(str(x) for x in lines)}{more})"
             parts.append(f"{count:,} {REASONS[code]}{where}")
-        if len(ranked) > REASONS_NAMED:
-            parts.append(f"{sum(n for n, _ in ranked[REASONS_NAMED:]):,} other")
+        if len(worst) > REASONS_NAMED:
+            parts.append(f"{sum(n for _, n in worst[REASONS_NAMED:]):,} other")
         return "; ".join(parts)
 
 

@@ -36,7 +36,7 @@ from monitor.domain.data_health import (
 )
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version
-from monitor.ingest.reasons import REASONS
+from monitor.ingest.reasons import REASONS, ranked
 from monitor.stats.rejection_rise import rejection_rise
 from monitor.stats.silence import WeekdayCalendar, silent_run
 from monitor.store.access import database
@@ -140,11 +140,8 @@ def _corrected(batch: BatchRecord, recent: Iterable[BatchRecord], check: CheckSe
 
 
 def _ranked(reasons: Counter[str]) -> tuple[ReasonCount, ...]:
-    order = list(REASONS)
-    ranked = sorted(((n, code) for code, n in reasons.items() if code != STRICT_ONLY and n),
-                    key=lambda item: (-item[0], order.index(item[1]) if item[1] in order else 0))
     return tuple(ReasonCount(code, REASONS.get(code, code), n)
-                 for n, code in ranked[:REASONS_SHOWN])
+                 for code, n in ranked(reasons)[:REASONS_SHOWN])
 
 
 def _example(conn: Connection, batch_ids: Sequence[int],
