@@ -1,8 +1,9 @@
 """The ``fitwatch`` command line: parse, call one library function, print, map errors to codes.
 
 Exit codes (:class:`~monitor.errors.ExitCode`): 0 done; 1 bad input, usage, state or database
-(message on stderr, no traceback); 2 internal error (traceback in the log); 3 ``check --fail-on``
-threshold reached; 130 interrupted. Each error carries its code; :func:`exit_code_for` reads it.
+(message on stderr, no traceback), and ``ingest`` of a file rejected whole; 2 internal error
+(traceback in the log); 3 ``check --fail-on`` threshold reached (a data-health finding counts as
+``watch``); 130 interrupted. Each error carries its code; :func:`exit_code_for` reads it.
 """
 
 from __future__ import annotations
