@@ -9,6 +9,7 @@ third silent working day is flagged, a second is not, and a closed Sunday never 
 
 from __future__ import annotations
 
+import json
 from collections.abc import Callable
 from datetime import date, timedelta
 from email.message import EmailMessage
@@ -23,6 +24,7 @@ from tests.support.mail import RecordingMailer
 from tests.support.world import CALM, MODEL, WORDS, World, loads_between, night_after
 
 LEAD = "planning.lead@example.com"
+DEMO_NIGHTS = Path(__file__).resolve().parents[1] / "demo_data" / "nights"
 
 
 def _world(engine: Engine, make_settings: Callable, tmp_path: Path) -> World:
@@ -208,3 +210,24 @@ def test_a_rising_rejection_share_is_a_finding(engine: Engine, make_settings,
     assert rising.reasons[0].code == "not_a_number"
     assert "more rows rejected than usual: " in rising.sentence()
     assert "load_minutes is '—', not a number" in rising.sentence()
+
+
+def test_an_imported_version_is_judged_by_its_own_days(cli, tmp_path: Path) -> None:
+    # an imported version's fit window is not in the database; its own days with rows are
+    # the calendar: 9 to 28 March, Monday to Saturday, three of each (0.5 / 4 for a silent
+    # working day), so the fourth silent working day is the first implausible one
+    doc = {"response": "load_minutes", "predictors": ["pallets"], "time_column": "docked_at",
+           "id_column": "load_id", "s": 5.6, "dof": 3800, "fit_end": "2026-03-08",
+           "coefficients": {"intercept": 9.0, "pallets": 2.1}}
+    (tmp_path / "v.json").write_text(json.dumps(doc))
+    assert cli("model", "import", MODEL, str(tmp_path / "v.json"))[0] == 0
+    nights = sorted(DEMO_NIGHTS.glob("loads_2026-03-*.csv"))
+    assert cli("ingest", MODEL, *(str(p) for p in nights if p.name < "loads_2026-03-29"))[0] == 0
+    assert cli("check", "--through", "2026-04-01")[0] == 0
+    assert json.loads(cli("status", "--json")[1])[0]["data_health"] is None
+    code, _, err = cli("check", "--through", "2026-04-02", "--fail-on", "watch")
+    assert code == 3 and f"fitwatch: {MODEL}: data: no rows since 2026-03-28\n" in err
+    code, out, _ = cli("status", "--json")
+    silent = json.loads(out)[0]["data_health"]["silent"]
+    assert silent["calendar"] == "version 1's days so far (2026-03-09 to 2026-03-28)"
+    assert silent["flagged_on"] == "2026-04-02"
