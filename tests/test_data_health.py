@@ -130,7 +130,7 @@ def test_a_file_rejected_whole_reaches_status_the_digest_and_fail_on(
     send_night_alerts(world.settings, day, now=night_after(day), engine=engine, mailer=mailer)
     ((key, message),) = mailer.sent
     assert _night(key) == day
-    assert message["Subject"] == f"fitwatch: {MODEL}: {semi} rejected whole"
+    assert message["Subject"] == f"fitwatch: {MODEL}: {semi.name} rejected whole"
     text = " ".join(_text(message).split())
     first = loads.iloc[0]
     minutes = f"{first['load_minutes']:.1f}".replace(".", ",")

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass
 from datetime import date, datetime
+from pathlib import PurePath
 from typing import Any
 
 from monitor.domain.phrasing import fmt_p, percent
@@ -72,7 +73,8 @@ class BadFile:
         return "an SQL source run" if self.source.startswith("sql:") else self.source
 
     def short(self) -> str:
-        return f"{self.name} rejected {'whole' if self.whole else 'mostly'}"
+        name = self.name if self.source.startswith("sql:") else PurePath(self.source).name
+        return f"{name} rejected {'whole' if self.whole else 'mostly'}"
 
     def sentence(self) -> str:
         when = f"ingested {self.ingested_at:%Y-%m-%d %H:%M}"
