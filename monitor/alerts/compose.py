@@ -19,6 +19,7 @@ from email.utils import format_datetime
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
 from monitor.alerts.news import (
+    DATA,
     ENTERED,
     REMINDER,
     RESTART,
@@ -69,6 +70,7 @@ class ItemView:
     figures: tuple[Figure, ...]
     command: str | None
     command_note: str
+    data: tuple[str, ...] = ()  # the standing data findings, one sentence each
 
 
 @dataclass(frozen=True)
@@ -125,9 +127,20 @@ def headline(item: ModelNews) -> str:
         parts.append(f"Reminder: {m} still {_status_phrase(c.status).removeprefix('is ')} "
                      f"— {item.days_in_status} days since {c.status_since.isoformat()}, "
                      "no action recorded yet")
-    if SETTLED in item.events:
+    silent = item.data.silent if item.data is not None else None
+    if SETTLED in item.events and silent is not None:
+        parts.append(f"{m}: {item.previous_status} ended on {item.night.isoformat()} for want "
+                     f"of rows, not because the model is back in line ({silent.short()})")
+    elif SETTLED in item.events:
         parts.append(f"{m} is back in line: {item.previous_status} ended on "
                      f"{item.night.isoformat()} without a change of version")
+    if DATA in item.events and item.data is not None:
+        text = f"{m}: the data need a look: {item.data.headline()}"
+        if silent is not None:
+            days = (f"the days through {silent.last_rows_day.isoformat()}"
+                    if silent.last_rows_day else "no day with rows")
+            text += f"; its status ({c.status}) judges {days}"
+        parts.append(text)
     return ". ".join(parts)
 
 
@@ -183,13 +196,18 @@ def next_command(item: ModelNews, ctx: ModelContext) -> tuple[str | None, str]:
     if item.status == Status.WATCH:
         return (f"fitwatch report {m} --out report-{m}",
                 "writes the charts and figures to look at before deciding")
+    if item.data is not None:
+        return (f"fitwatch status {m}",
+                "shows the data findings; they clear once rows arrive again and files are "
+                "stored cleanly")
     return None, "nothing to do"
 
 
 def item_view(item: ModelNews, ctx: ModelContext) -> ItemView:
     command, note = next_command(item, ctx)
     return ItemView(item.model, item.status, headline(item), tuple(item.check.reasons),
-                    _figures(item, ctx), command, note)
+                    _figures(item, ctx), command, note,
+                    tuple(item.data.sentences()) if item.data is not None else ())
 
 
 def subject(digest: Digest) -> str:
@@ -204,13 +222,17 @@ def subject(digest: Digest) -> str:
             if still:
                 what = what.removeprefix("is ")
             return f"fitwatch: {lead}{m} {still}{what}"
+        if item.data is not None and (DATA in item.events or SETTLED in item.events):
+            return f"fitwatch: {m}: {item.data.headline()}"
         if RESTART in item.events:
             return f"fitwatch: {m} restarted, first day {item.status}"
         return f"fitwatch: {m} back in line"
     refit = sum(i.status == Status.REFIT for i in items)
     watch = sum(i.status == Status.WATCH for i in items)
-    rest = len(items) - refit - watch
+    data = sum(i.status == Status.OK and i.data is not None for i in items)
+    rest = len(items) - refit - watch - data
     counts = [f"{n} {word}" for n, word in ((refit, "refit"), (watch, "watch"),
+                                            (data, "data to look at"),
                                             (rest, "back in line")) if n]
     return f"fitwatch: news on {len(items)} models ({', '.join(counts)})"
 

@@ -51,9 +51,11 @@ from monitor.alerts.news import (
 )
 from monitor.config import Settings
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError
+from monitor.monitoring.data_health import model_data_health
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.store import audit, queued_nights
 from monitor.store import outbox as box
@@ -143,10 +145,25 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         coverage_window_days=ms.check.coverage_window_days)
 
 
-def night_news(settings: Settings, conn: Connection, night: date,
+def _data(settings: Settings, conn: Connection, model: ModelRecord, check: DayCheck,
+          versions: Sequence[Version], night: date,
+          now: datetime) -> tuple[DataHealth, DataHealth | None]:
+    """The model's data findings as of the night (at ``now``) and as of its previous digest."""
+    scoring = next((v for v in versions if v.id == check.version_id), None)
+    ms = settings.for_model(model.name)
+    data = model_data_health(conn, model, ms.check, scoring, through=night, now=now,
+                             zone=settings.timezone)
+    since = queued_nights.last_queued_at(conn, model.id, night)
+    before = None if since is None else model_data_health(
+        conn, model, ms.check, scoring, through=night - timedelta(days=1), now=since,
+        zone=settings.timezone)
+    return data, before
+
+
+def night_news(settings: Settings, conn: Connection, night: date, *, now: datetime,
                only: set[int] | None = None) -> tuple[list[ModelNews], dict[str, ModelContext]]:
-    """Every model's news for ``night`` (or only that of the models ``only``) and what
-    composing it needs."""
+    """Every model's news for ``night`` (or only that of the models ``only``), queued at
+    ``now``, and what composing it needs."""
     news, contexts = [], {}
     for model in list_models(conn):
         if only is not None and model.id not in only:
@@ -155,13 +172,14 @@ def night_news(settings: Settings, conn: Connection, night: date,
         if not checks:
             continue
         previous = last_check(conn, model.id, before=night, model=model.name)
+        versions = list_versions(conn, model.id)
+        data, before = _data(settings, conn, model, checks[0], versions, night, now)
         item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
-                          settings.for_model(model.name).alerts)
+                          settings.for_model(model.name).alerts, data=data, data_before=before)
         if item is None:
             continue
         news.append(item)
-        contexts[model.name] = _context(settings, model, checks[0],
-                                        list_versions(conn, model.id))
+        contexts[model.name] = _context(settings, model, checks[0], versions)
     return news, contexts
 
 
@@ -196,7 +214,7 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
             waiting = queued_nights.pending_models(conn, night)
             if not waiting:
                 return 0
-            news, contexts = night_news(settings, conn, night, only=waiting)
+            news, contexts = night_news(settings, conn, night, now=now, only=waiting)
             wanted: dict[str, Digest] = {}
             for d in digests(news):
                 wanted[dedupe_key(d.recipient, night, KIND_NIGHT)] = d

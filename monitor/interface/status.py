@@ -11,11 +11,13 @@ from sqlalchemy import Engine
 
 from monitor.config import Settings
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.days import local_day, yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.phrasing import fmt
 from monitor.domain.status import Status
 from monitor.domain.version import Version
+from monitor.monitoring.data_health import model_data_health
 from monitor.runtime.schedule import NightlyState, cron_trigger, nightly_state
 from monitor.store import lease, outbox
 from monitor.store.access import database
@@ -25,7 +27,6 @@ from monitor.store.observations import days_with_rows, last_observed_at
 from monitor.store.outbox import Undelivered
 from monitor.store.versions import active_version
 
-QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
 SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
 
 
@@ -42,12 +43,7 @@ class ModelStatus:
     last_rows_day: date | None = None  # the latest day with stored rows
     sharpen: Sharpening | None = None  # refit a loosely pinned version on a longer window
     undelivered: Undelivered | None = None  # alert messages failed or waiting (all models)
-
-    def quiet_days(self) -> int:
-        """Checked days since the latest day with rows (a feed that stopped shows here)."""
-        if self.last_checked_day is None or self.last_rows_day is None:
-            return 0
-        return max(0, (self.last_checked_day - self.last_rows_day).days)
+    data: DataHealth | None = None  # findings about the data, apart from the status
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.model, "status": self.status, "since": self.since,
@@ -56,23 +52,26 @@ class ModelStatus:
                 "last_rows_day": self.last_rows_day,
                 "sharpen": self.sharpen.as_dict() if self.sharpen else None,
                 "nightly": self.nightly.as_dict() if self.nightly else None,
+                "data_health": self.data.as_dict() if self.data else None,
                 "alerts_undelivered": self.undelivered.as_dict() if self.undelivered else None}
 
     def sentence(self) -> str:
+        data = [f"  ! data: {d}" for d in self.data.sentences()] if self.data else []
         if self.status is None:
             head = f"{self.model}: not checked yet"
             if self.active_version is None:
-                return head + " (no active version; run 'fitwatch model fit')"
-            return head + " (run 'fitwatch check')"
+                return "\n".join([head + " (no active version; run 'fitwatch model fit')", *data])
+            return "\n".join([head + " (run 'fitwatch check')", *data])
         head = (f"{self.model}: {self.status.upper()} since {self.since}, checked through "
                 f"{self.last_checked_day} (version {self.active_version})")
         if self.behind_days > 0:
             head += f"; {self.behind_days} complete day(s) not checked yet"
-        if self.quiet_days() >= QUIET_DAYS:
-            head += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
-                     "data still arriving?")
+        if self.data is not None and self.data.silent is not None:
+            head += (f"; the status judges the days through {self.data.silent.last_rows_day}, "
+                     "the last with rows" if self.data.silent.last_rows_day else
+                     "; no day with rows has been checked")
         extra = [self.sharpen.sentence()] if self.sharpen else []
-        return "\n".join([head, *(f"  - {r}" for r in [*self.reasons, *extra])])
+        return "\n".join([head, *data, *(f"  - {r}" for r in [*self.reasons, *extra])])
 
 
 def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
@@ -97,8 +96,12 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
                 since = (len(days_with_rows(conn, model, active.fit_start))
                          if active.fit_start else 0)
                 advice = sharpen_advice(model.name, active, since)
+            data = model_data_health(conn, model, settings.for_model(model.name).check, active,
+                                     through=last.day if last else None, now=now,
+                                     zone=settings.timezone)
             out.append(replace(status, nightly=nightly, last_rows_day=rows_day,
-                               sharpen=advice, undelivered=trouble or None))
+                               sharpen=advice, undelivered=trouble or None,
+                               data=data if data.stands else None))
     return out
 
 
