@@ -104,8 +104,9 @@ def _action_phrase(a: Action) -> str:
         return (f"version {a.version} was promoted by {a.actor}{why} and plans with it from "
                 f"{a.effective_day.isoformat()}")
     if a.action == "rollback":
-        return (f"{a.actor} went back to the earlier line{why}: version {a.version} plans from "
-                f"{a.effective_day.isoformat()}")
+        earlier = f"version {a.copy_of}" if a.copy_of is not None else "the earlier line"
+        return (f"{a.actor} rolled back to {earlier}{why}: its line plans again, as version "
+                f"{a.version}, from {a.effective_day.isoformat()}")
     return (f"{a.actor} acknowledged the advice{why}; the bias chart restarted on "
             f"{a.effective_day.isoformat()}")
 

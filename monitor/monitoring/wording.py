@@ -123,12 +123,18 @@ def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str
     return f"{finding.signal} signal ({finding.level})"
 
 
+def held_reason(since: date | None) -> str:
+    """The first reason of each day a refit stands (``status`` leaves it out once a promotion,
+    rollback or acknowledgement has released it)."""
+    return (f"refit advised since {since.isoformat() if since else '—'}; this stands until a "
+            "new version is promoted or the advice is acknowledged")
+
+
 def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
     """The day's reasons, strongest first; an ``ok`` day says what was seen."""
     out = []
     if verdict.held:
-        out.append(f"refit advised since {f.held_since.isoformat() if f.held_since else '—'}; "
-                   "this stands until a new version is promoted or the advice is acknowledged")
+        out.append(held_reason(f.held_since))
     out.extend(_capital(_finding(x, f, words, response)) for x in verdict.findings)
     today = _coverage_today(f, words)
     if not verdict.findings:

@@ -6,9 +6,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Any
+from zoneinfo import ZoneInfo
 
 from sqlalchemy import Connection, insert, select
 
+from monitor.domain.action import RESTART_ACTIONS, Action
+from monitor.domain.days import local_day
 from monitor.store.schema import audit_log, inserted_id, jsonable
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete")
@@ -47,3 +50,17 @@ def entries(conn: Connection, model_id: int, actions: tuple[str, ...] = ACTIONS,
     rows = conn.execute(query.order_by(audit_log.c.at, audit_log.c.id))
     return [AuditEntry(**{k: r._mapping[k] for k in AuditEntry.__dataclass_fields__})
             for r in rows]
+
+
+def actions(conn: Connection, model_id: int, from_day: date,
+            zone: ZoneInfo | None = None) -> list[Action]:
+    """The promotions, rollbacks and acknowledgements taking effect on ``from_day`` or later,
+    in the order they were recorded (``zone``: the local day each was recorded on)."""
+    out = []
+    for e in entries(conn, model_id, RESTART_ACTIONS, from_day=from_day):
+        details = e.details or {}
+        assert e.effective_day is not None  # every restart action has one
+        out.append(Action(e.action, e.effective_day, e.actor, e.reason, details.get("version"),
+                          details.get("previous"), details.get("copy_of"),
+                          local_day(e.at, zone) if zone is not None else None))
+    return out
