@@ -130,7 +130,8 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         version=scoring.number if scoring else None,
         plan_slopes=tuple(float(b) for b in scoring.coefficients[1:]) if scoring else (),
         candidate=max(candidates) if candidates else None,
-        coverage_window_days=ms.check.coverage_window_days)
+        coverage_window_days=ms.check.coverage_window_days,
+        version_from=scoring.active_from if scoring else None)
 
 
 def night_news(settings: Settings, conn: Connection, night: date,

@@ -11,7 +11,7 @@ from numpy.typing import NDArray
 
 from monitor.config import Wording
 from monitor.domain.check import SlopeChartDay
-from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
@@ -43,6 +43,9 @@ class Figures:
     held_since: date | None
     slope_chart: SlopeChartDay | None = None
     slope_onset: date | None = None  # the within-day slope chart's run began on this day
+    window_first: date | None = None  # the coverage window's first day ...
+    window_held: int | None = None  # ... and its days (fewer than window_days after a restart)
+    window_version: int | None = None  # the version whose takeover restarted the window
 
 
 def _amount(value: float, words: Wording, response: str) -> str:
@@ -68,7 +71,9 @@ def _window(f: Figures, words: Wording) -> str:
     w = f.window
     if w is None:
         return ""
-    return (f"over the last {f.window_days} days {percent(w.coverage)} of {w.n} {words.rows} did "
+    span = window_span(f.window_held or f.window_days, f.window_days, f.window_first or f.day,
+                       f.window_version)
+    return (f"{span} {percent(w.coverage)} of {w.n} {words.rows} did "
             f"(plausible range {percent(w.wilson_low)}–{percent(w.wilson_high)})")
 
 
