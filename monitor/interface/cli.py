@@ -280,9 +280,8 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
     if args.json:
         print(dumps({**view.as_dict(), "warnings": list(report.warnings)}))
     else:
-        print(view.text())
-        for note in report.warnings:
-            print(f"note: {note}")
+        print(report.sentence())
+        print(view.text())  # its notes are the import's warnings
     return EXIT_OK
 
 

@@ -59,7 +59,8 @@ class VersionView:
             "dispersion": base.dispersion,
             "cusum": {"k": cal.k if cal else None, "h": cal.h if cal else None,
                       "target_arl": cal.target_arl if cal else None,
-                      "guarantee": cal.guarantee if cal else None,
+                      "guarantee": cal.guarantee if cal and cal.calibrated else None,
+                      "promise": self.promise(),
                       "h_known": cal.h_known if cal else None,
                       "arl_known": cal.arl_known if cal else None,
                       "calibrated": cal.calibrated if cal else None,
@@ -100,17 +101,9 @@ class VersionView:
                          f"{fmt(base.sigma_w2 ** 0.5, 3)}")
         cal = base.calibration
         if cal is not None:
-            if cal.learn_until:
-                promise = (f"self-starting: fitted on fewer than {cal.learn_until} days, the "
-                           "version learns its level from its own in-control days until it "
-                           f"counts {cal.learn_until}, so this limit holds exactly meanwhile; "
-                           "the first refit stops the learning")
-            elif cal.calibrated:
-                promise = f"held with probability {fmt(cal.guarantee, 2)}"
-            else:
-                promise = f"with the fitted values taken as exact: {cal.reason}"
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
-                         f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
+                         f"{fmt(cal.target_arl, 4)} days between false alarms, "
+                         f"{self.promise()})")
             if cal.learn_until and base.fit_days:
                 lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
         found = [f for f in self.findings() if f.found]
@@ -120,8 +113,30 @@ class VersionView:
         elif base.diagnosis is not None:
             lines.append("  the fit window shows no persistence, weekday rhythm, spread growing "
                          "with the predictors or excess outliers")
+        if v.note:
+            lines.append(f"  about it: {v.note}")
         lines.extend(f"  note: {note}" for note in v.draft.notes)
         return "\n".join(lines)
+
+    def promise(self) -> str | None:
+        """How far the bias chart's false-alarm spacing can be relied on (text and JSON)."""
+        v = self.version
+        cal = v.baseline.calibration
+        if cal is None:
+            return None
+        if cal.learn_until:
+            return (f"self-starting: fitted on fewer than {cal.learn_until} days, the version "
+                    "learns its level from its own in-control days until it counts "
+                    f"{cal.learn_until}, so this limit holds exactly meanwhile; the first refit "
+                    "stops the learning")
+        if cal.calibrated:
+            return f"held with probability {fmt(cal.guarantee, 2)}"
+        if v.source == VersionSource.IMPORT:
+            return ("but only if the imported coefficients and scatter are exact: the file "
+                    "carries no days of the fit window, so their estimation error is not "
+                    "allowed for (a version fitted here allows for it); if the line was fitted "
+                    "on few rows, false alarms may come sooner")
+        return f"but only if the fitted values are exact ({cal.reason})"
 
     def learning_text(self, fit_days: int, learn_until: int) -> str:
         """How far a self-starting version has learned its level."""
