@@ -15,7 +15,7 @@ from sqlalchemy import Engine
 from monitor.errors import StateError, UsageError
 from monitor.interface.cli import main
 from monitor.interface.status import model_statuses
-from monitor.interface.versions import show_version
+from monitor.interface.versions import list_model_lines, show_version
 from monitor.lifecycle.compare import compare
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import acknowledge, promote, refit, rollback
@@ -186,6 +186,8 @@ def test_status_after_a_promotion_says_what_happened_and_what_comes_next(
     assert (doc["active_version"], doc["last_check_version"]) == (2, 1)
     assert [(a["action"], a["version"], a["effective_day"]) for a in doc["actions_pending"]] \
         == [("promote", 2, date(2026, 4, 13))]
+    (line,) = list_model_lines(changed.settings, engine=changed.engine)
+    assert line.sentence().endswith("; v2 of 2; refit under v1 (checked through 2026-04-12)")
     # once a day is checked under version 2, status speaks of version 2 again
     changed.add_days(date(2026, 4, 13), date(2026, 4, 13), 79, "first.csv")
     changed.check(date(2026, 4, 13))

@@ -295,10 +295,7 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet; create one with 'fitwatch model fit NAME --data FILE ...'")
     else:
         for line in lines:
-            active = f"v{line.active_version}" if line.active_version else "no active version"
-            state = (f"{line.status} (checked through {line.last_checked_day})"
-                     if line.status else "not checked yet")
-            print(f"{line.name}: {line.formula}; {active} of {line.versions}; {state}")
+            print(line.sentence())
     return EXIT_OK
 
 

@@ -188,11 +188,22 @@ class ModelLine:
     versions: int
     status: str | None
     last_checked_day: date | None
+    checked_version: int | None = None  # the version the last check scored with
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.name, "formula": self.formula,
                 "active_version": self.active_version, "versions": self.versions,
-                "status": self.status, "last_checked_day": self.last_checked_day}
+                "status": self.status, "last_checked_day": self.last_checked_day,
+                "last_check_version": self.checked_version}
+
+    def sentence(self) -> str:
+        active = f"v{self.active_version}" if self.active_version else "no active version"
+        state = "not checked yet"
+        if self.status:
+            under = (f" under v{self.checked_version}"
+                     if self.checked_version != self.active_version else "")
+            state = f"{self.status}{under} (checked through {self.last_checked_day})"
+        return f"{self.name}: {self.formula}; {active} of {self.versions}; {state}"
 
 
 def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
@@ -202,8 +213,11 @@ def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> lis
             versions = list_versions(conn, model.id)
             active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
             last = last_check(conn, model.id)
+            checked = next((v.number for v in versions
+                            if last is not None and v.id == last.version_id), None)
             out.append(ModelLine(model.name,
                                  f"{model.response} ~ {' + '.join(model.predictors)}",
                                  active.number if active else None, len(versions),
-                                 last.status if last else None, last.day if last else None))
+                                 last.status if last else None, last.day if last else None,
+                                 checked))
     return out
