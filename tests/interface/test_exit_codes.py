@@ -232,7 +232,8 @@ def test_check_with_no_models_says_so(tmp_path: Path) -> None:
     assert main(["--db", url, "init"]) == 0
     result = run_cli("--db", url, "check", "--through", "2026-03-10", cwd=tmp_path)
     assert result.returncode == ExitCode.OK
-    assert result.stdout.strip() == "no models to check (fit one with 'fitwatch model fit NAME ...')"
+    assert result.stdout.strip() == \
+        "no models to check (fit one with 'fitwatch model fit NAME ...')"
 
 
 def test_alerts_for_a_night_nobody_checked_is_an_error_that_says_what_to_do(cli) -> None:

@@ -6,8 +6,9 @@ import cost on the project's 2-core machine (``python -X importtime``, Python 3.
 submodules (stats alone about 0.5 s), pandas (about 0.3 s), matplotlib, Jinja2, pyarrow,
 Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database (about
 30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
-reports the schedule, so it is the one command here that may use APScheduler. Start-up times are measured by
-``tests/benchmarks/bench_startup.py``, not asserted here (a busy machine would make that flaky).
+reports the schedule, so it is the one command here that may use APScheduler. Start-up times
+are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy machine would
+make that flaky).
 """
 
 from __future__ import annotations
