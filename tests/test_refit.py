@@ -12,9 +12,11 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
+from monitor.domain.action import Action
+from monitor.domain.status import Status
 from monitor.errors import StateError, UsageError
 from monitor.interface.cli import main
-from monitor.interface.status import model_statuses
+from monitor.interface.status import ModelStatus, model_statuses
 from monitor.interface.versions import list_model_lines, show_version
 from monitor.lifecycle.compare import compare
 from monitor.lifecycle.fit import FitRequest, fit_model
@@ -223,6 +225,17 @@ def test_status_after_an_acknowledgement_and_a_second_ack_refused(changed: World
                     engine=changed.engine)
     with changed.engine.connect() as conn:
         assert len(audit.entries(conn, get_model(conn, MODEL).id, ("ack",))) == 1
+
+
+def test_status_after_an_action_still_says_when_rows_stopped_and_days_wait() -> None:
+    ack = Action("ack", date(2026, 4, 13), "lead", None, 1, 1, recorded_on=date(2026, 4, 14))
+    status = ModelStatus(MODEL, Status.WATCH, date(2026, 4, 10), date(2026, 4, 12),
+                         ("Loads ran 3 min above plan",), 1, behind_days=2,
+                         last_rows_day=date(2026, 4, 8), checked_version=1, pending=(ack,))
+    head = status.sentence().splitlines()[0]
+    assert head.startswith(f"{MODEL}: WATCH acknowledged by lead on 2026-04-14; ")
+    assert head.endswith("; 2 complete day(s) not checked yet; no rows since 2026-04-08 (4 "
+                         "days): is the data still arriving?")
 
 
 @pytest.mark.slow

@@ -79,14 +79,19 @@ class ModelStatus:
         if self.acted_since_check():
             return self._after_action()
         head = (f"{self.model}: {self.status.upper()} since {self.since}, checked through "
-                f"{self.last_checked_day} (version {self.active_version})")
-        if self.behind_days > 0:
-            head += f"; {self.behind_days} complete day(s) not checked yet"
-        if self.quiet_days() >= QUIET_DAYS:
-            head += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
-                     "data still arriving?")
+                f"{self.last_checked_day} (version {self.active_version})") + self._lag()
         extra = [self.sharpen.sentence()] if self.sharpen else []
         return "\n".join([head, *(f"  - {r}" for r in [*self.reasons, *extra])])
+
+    def _lag(self) -> str:
+        """Days not checked yet, and a feed that went quiet."""
+        out = ""
+        if self.behind_days > 0:
+            out += f"; {self.behind_days} complete day(s) not checked yet"
+        if self.quiet_days() >= QUIET_DAYS:
+            out += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
+                    "data still arriving?")
+        return out
 
     def _after_action(self) -> str:
         """What was done since the last check and what comes next; the last check's status
@@ -108,8 +113,7 @@ class ModelStatus:
                     f"version {self.active_version} until you refit or the evidence changes; "
                     f"its charts restart on {ack.effective_day}, the first day not checked yet")
             label = f"last check before the acknowledgement, under version {self.checked_version}"
-        if self.behind_days > 0:
-            head += f"; {self.behind_days} complete day(s) not checked yet"
+        head += self._lag()
         before = [r for r in self.reasons if r != held_reason(self.since)]
         return "\n".join([head, f"  {label} ({self.last_checked_day}): {self.status.upper()} "
                                  f"since {self.since}", *(f"    - {r}" for r in before)])
