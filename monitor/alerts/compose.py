@@ -29,7 +29,8 @@ from monitor.alerts.news import (
     ModelNews,
 )
 from monitor.config import Wording
-from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.check import coverage_span
+from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
 from monitor.domain.status import Status
 
 KIND_NIGHT = "night"  # the nightly digest; the kind part of the dedupe key
@@ -50,6 +51,7 @@ class ModelContext:
     plan_slopes: tuple[float, ...]  # the active version's slopes, one per predictor
     candidate: int | None  # newest candidate version waiting for promotion
     coverage_window_days: int
+    version_from: date | None = None  # the day the active version took over
 
 
 @dataclass(frozen=True)
@@ -106,8 +108,9 @@ def _action_phrase(a: Action) -> str:
         return (f"version {a.version} was promoted by {a.actor}{why} and plans with it from "
                 f"{a.effective_day.isoformat()}")
     if a.action == "rollback":
-        return (f"{a.actor} went back to the earlier line{why}: version {a.version} plans from "
-                f"{a.effective_day.isoformat()}")
+        earlier = f"version {a.copy_of}" if a.copy_of is not None else "the earlier line"
+        return (f"{a.actor} rolled back to {earlier}{why}: its line plans again, as version "
+                f"{a.version}, from {a.effective_day.isoformat()}")
     return (f"{a.actor} acknowledged the advice{why}; the bias chart restarted on "
             f"{a.effective_day.isoformat()}")
 
@@ -149,10 +152,15 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
     out = []
     if c.window_coverage is not None:
         below = "below" if c.window_coverage < ctx.level else "at or above"
+        fresh = c.state.fresh_from
+        first, held = coverage_span(c.day, ctx.coverage_window_days, fresh)
+        took_over = fresh is not None and fresh == ctx.version_from
+        span = window_span(held, ctx.coverage_window_days, first,
+                           ctx.version if took_over else None)
         out.append(Figure(
             "Coverage", f"{percent(c.window_coverage)} vs {percent(ctx.level)} planned",
-            f"{c.window_covered} of {c.window_n} {words.rows} inside the interval over the last "
-            f"{ctx.coverage_window_days} days, {below} the level (plausible range "
+            f"{c.window_covered} of {c.window_n} {words.rows} inside the interval {span}, "
+            f"{below} the level (plausible range "
             f"{percent(c.wilson_low)}–{percent(c.wilson_high)}; "
             f"{fmt_p(c.coverage_p_low)} for too few)"))
     lead = max(c.cusum_upper, c.cusum_lower)

@@ -26,25 +26,15 @@ from dataclasses import dataclass
 from datetime import date
 
 from monitor.config import AlertSettings
+from monitor.domain.action import RESTART_ACTIONS, Action
 from monitor.domain.check import DayCheck
 from monitor.domain.data_health import DataHealth
 from monitor.domain.status import Status
 
 ENTERED, REMINDER, RESTART, SETTLED = "entered", "reminder", "restart", "settled"
 DATA = "data"  # a data finding new on the night (or a silent feed's reminder)
-RESTART_ACTIONS = ("promote", "rollback", "ack")
 
-
-@dataclass(frozen=True)
-class Action:
-    """A promotion, rollback or acknowledgement, as the audit log recorded it."""
-
-    action: str  # promote | rollback | ack
-    effective_day: date
-    actor: str
-    reason: str | None
-    version: int | None  # the version in force from effective_day
-    previous: int | None  # the version in force before it
+__all__ = ["RESTART_ACTIONS", "Action", "Digest", "ModelNews", "digests", "model_news"]
 
 
 @dataclass(frozen=True)

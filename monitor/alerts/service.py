@@ -42,7 +42,6 @@ from monitor.alerts.compose import (
 )
 from monitor.alerts.mailer import DeliveryError, Mailer, mailer_for
 from monitor.alerts.news import (
-    RESTART_ACTIONS,
     Action,
     Digest,
     ModelNews,
@@ -119,16 +118,7 @@ class _Delivery:
 
 # deciding and queueing ------------------------------------------------------------------------
 def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
-    out = []
-    for e in audit.entries(conn, model.id, RESTART_ACTIONS, from_day=night):
-        if e.effective_day != night:
-            continue
-        details = e.details or {}
-        version = details.get("version")
-        if e.action == "ack":
-            version = None
-        out.append(Action(e.action, night, e.actor, e.reason, version, details.get("previous")))
-    return out
+    return [a for a in audit.actions(conn, model.id, night) if a.effective_day == night]
 
 
 def _context(settings: Settings, model: ModelRecord, check: DayCheck,
@@ -142,7 +132,8 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         version=scoring.number if scoring else None,
         plan_slopes=tuple(float(b) for b in scoring.coefficients[1:]) if scoring else (),
         candidate=max(candidates) if candidates else None,
-        coverage_window_days=ms.check.coverage_window_days)
+        coverage_window_days=ms.check.coverage_window_days,
+        version_from=scoring.active_from if scoring else None)
 
 
 def _data(settings: Settings, conn: Connection, model: ModelRecord, check: DayCheck,

@@ -336,9 +336,8 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
     if args.json:
         print(dumps({**view.as_dict(), "warnings": list(report.warnings)}))
     else:
-        print(view.text())
-        for note in report.warnings:
-            print(f"note: {note}")
+        print(report.sentence())
+        print(view.text())  # its notes are the import's warnings
     return EXIT_OK
 
 
@@ -352,10 +351,7 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet; create one with 'fitwatch model fit NAME --data FILE ...'")
     else:
         for line in lines:
-            active = f"v{line.active_version}" if line.active_version else "no active version"
-            state = (f"{line.status} (checked through {line.last_checked_day})"
-                     if line.status else "not checked yet")
-            print(f"{line.name}: {line.formula}; {active} of {line.versions}; {state}")
+            print(line.sentence())
     return EXIT_OK
 
 

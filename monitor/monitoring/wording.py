@@ -11,7 +11,7 @@ from numpy.typing import NDArray
 
 from monitor.config import Wording
 from monitor.domain.check import SlopeChartDay
-from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
@@ -44,6 +44,9 @@ class Figures:
     slope_chart: SlopeChartDay | None = None
     slope_onset: date | None = None  # the within-day slope chart's run began on this day
     extrapolated: int = 0  # rows with a predictor outside the fit window's range
+    window_first: date | None = None  # the coverage window's first day ...
+    window_held: int | None = None  # ... and its days (fewer than window_days after a restart)
+    window_version: int | None = None  # the version whose takeover restarted the window
 
 
 def _amount(value: float, words: Wording, response: str) -> str:
@@ -74,7 +77,9 @@ def _window(f: Figures, words: Wording) -> str:
     w = f.window
     if w is None:
         return ""
-    return (f"over the last {f.window_days} days {percent(w.coverage)} of {w.n} {words.rows} did "
+    span = window_span(f.window_held or f.window_days, f.window_days, f.window_first or f.day,
+                       f.window_version)
+    return (f"{span} {percent(w.coverage)} of {w.n} {words.rows} did "
             f"(plausible range {percent(w.wilson_low)}–{percent(w.wilson_high)})")
 
 
@@ -129,12 +134,18 @@ def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str
     return f"{finding.signal} signal ({finding.level})"
 
 
+def held_reason(since: date | None) -> str:
+    """The first reason of each day a refit stands (``status`` leaves it out once a promotion,
+    rollback or acknowledgement has released it)."""
+    return (f"refit advised since {since.isoformat() if since else '—'}; this stands until a "
+            "new version is promoted or the advice is acknowledged")
+
+
 def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
     """The day's reasons, strongest first; an ``ok`` day says what was seen."""
     out = []
     if verdict.held:
-        out.append(f"refit advised since {f.held_since.isoformat() if f.held_since else '—'}; "
-                   "this stands until a new version is promoted or the advice is acknowledged")
+        out.append(held_reason(f.held_since))
     out.extend(_capital(_finding(x, f, words, response)) for x in verdict.findings)
     today = _coverage_today(f, words)
     if not verdict.findings:

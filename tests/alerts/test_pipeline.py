@@ -96,6 +96,8 @@ def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings
     text = _text(restart)
     assert "version 2 was promoted by lead (new dock layout)" in text
     assert "first day, 2026-04-13, came out ok" in text
+    # the coverage window restarted with version 2: one day, not "the last 14 days"
+    assert "inside the interval on the 1 day under version 2 (from 2026-04-13)" in text
     night(date(2026, 4, 14))
     assert date(2026, 4, 14) not in subjects  # all quiet after the promotion
 
