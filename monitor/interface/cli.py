@@ -618,10 +618,26 @@ def _cmd_demo(args: argparse.Namespace, settings: Settings) -> int:
 
 
 # entry point ----------------------------------------------------------------------------------
+_LISTS = ("files", "names")  # the positional lists that may follow options (ingest, check, ...)
+
+
+def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argparse.Namespace:
+    """Parse ``argv``, letting a command's list of files or names continue after its options
+    (``ingest NAME --strict FILE``: argparse ends a ``*`` positional at the first option)."""
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        target = next((name for name in _LISTS if isinstance(getattr(args, name, None), list)),
+                      None)
+        if target is None or any(item.startswith("-") for item in extra):
+            parser.error(f"unrecognized arguments: {' '.join(extra)}")
+        getattr(args, target).extend(extra)
+    return args
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     try:
-        args = parser.parse_args(argv)
+        args = _parse(parser, argv)
         logging.basicConfig(
             level=(logging.INFO if args.command == "daemon" else logging.WARNING)
             - 10 * min(args.verbose, 2),
