@@ -9,7 +9,6 @@ chart it shows by ``cid:`` (RFC 2046 §5.1.4, RFC 2387, RFC 2392).
 from __future__ import annotations
 
 import hashlib
-import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
@@ -182,10 +181,7 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
         else:
             value = "no recent estimate"
         since = f", change since about {c.change_day.isoformat()}" if c.change_day else ""
-        statistic = (f"F = {fmt(c.slope_statistic, 3)}, " if c.slope_statistic is not None
-                     and math.isfinite(c.slope_statistic) else "")
-        out.append(Figure("Slope", value, f"slope change test {statistic}"
-                                          f"{fmt_p(c.slope_pvalue)}{since}"))
+        out.append(Figure("Slope", value, f"slope change test {fmt_p(c.slope_pvalue)}{since}"))
     return tuple(out)
 
 

@@ -174,6 +174,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         slope_onset=carry.state.slope_onset, window_first=window_first,
         window_held=window_held, window_version=window_version,
         extrapolated=int(scores.extrapolated.sum()) if scores else 0,
+        typical_x=ctx.version.line.xmean,
     )
     reasons = reasons_for(verdict, figures, words, response)
     if watch_held:

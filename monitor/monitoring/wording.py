@@ -44,6 +44,7 @@ class Figures:
     slope_chart: SlopeChartDay | None = None
     slope_onset: date | None = None  # the within-day slope chart's run began on this day
     extrapolated: int = 0  # rows with a predictor outside the fit window's range
+    typical_x: NDArray[np.float64] | None = None  # the fit window's mean of each predictor
     window_first: date | None = None  # the coverage window's first day ...
     window_held: int | None = None  # ... and its days (fewer than window_days after a restart)
     window_version: int | None = None  # the version whose takeover restarted the window
@@ -141,9 +142,41 @@ def held_reason(since: date | None) -> str:
             "new version is promoted or the advice is acknowledged")
 
 
+def plan_terms(verdict: Verdict, f: Figures, words: Wording, response: str) -> str | None:
+    """What a bias or slope finding means for plans, signed, in the model's units: how far a
+    typical row (the fit window's mean of each predictor) now runs from plan, and how much
+    more or less each unit of a predictor adds than planned. None without such a finding."""
+    if not any(x.signal in ("bias", "slope") for x in verdict.findings):
+        return None
+    parts = []
+    if math.isfinite(f.cusum_shift) and f.cusum_shift != 0:
+        side = "above" if f.cusum_shift > 0 else "below"
+        at = ""
+        if f.typical_x is not None and len(f.typical_x) == len(f.predictors):
+            at = " (" + ", ".join(f"{name} ≈ {fmt(float(v), 2)}" for name, v in
+                                  zip(f.predictors, f.typical_x, strict=True)) + ")"
+        parts.append(f"a typical {words.row}{at} now runs about "
+                     f"{_amount(f.cusum_shift, words, response)} {side} plan")
+    if f.new_slopes is not None:
+        for name, old, new in zip(f.predictors, f.old_slopes, f.new_slopes, strict=True):
+            if not (math.isfinite(old) and math.isfinite(new)) or new == old:
+                continue
+            more = "more" if new > old else "less"
+            parts.append(f"each {words.x_unit(name)} adds about "
+                         f"{_amount(new - old, words, response)} {more} than planned")
+    if not parts:
+        return None
+    return _capital("in plan terms: " + "; ".join(parts))
+
+
 def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
-    """The day's reasons, strongest first; an ``ok`` day says what was seen."""
+    """The day's reasons, strongest first, led by what they mean for plans; an ``ok`` day says
+    what was seen. A day's own coverage is a reason only when it supports the finding (below
+    the level, or no rows)."""
     out = []
+    plain = plan_terms(verdict, f, words, response)
+    if plain is not None:
+        out.append(plain)
     if verdict.held:
         out.append(held_reason(f.held_since))
     out.extend(_capital(_finding(x, f, words, response)) for x in verdict.findings)
@@ -152,7 +185,7 @@ def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> 
         chart = (f"the bias chart stands at {fmt(f.cusum_value, 2)} of its limit {fmt(f.h, 2)}"
                  if f.cusum_value > 0 else "the bias chart is at zero")
         out.append(_capital(f"no sign of change: {today}; {chart}"))
-    else:
+    elif f.n == 0 or f.covered / f.n < f.level:
         out.append(_capital(today))
     return out
 
