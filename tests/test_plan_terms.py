@@ -11,7 +11,9 @@ import numpy as np
 from monitor.config import Wording
 from monitor.domain.status import Status
 from monitor.monitoring.wording import Figures, plan_terms, reasons_for
+from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
+from monitor.stats.spread import SpreadTest
 
 DAY = date(2026, 4, 14)
 WORDS = Wording(row="load", rows="loads", y_unit="min", x_units={"pallets": "pallet"})
@@ -60,8 +62,20 @@ def test_several_predictors_and_no_units() -> None:
     assert "job_units adds" not in text  # unchanged slopes are not news
 
 
-def test_no_plan_terms_for_coverage_or_spread_alone_and_supporting_coverage_stays() -> None:
+def test_coverage_and_spread_in_plan_terms_and_supporting_coverage_stays() -> None:
     watch = Verdict(Status.WATCH, (Finding("coverage", Status.WATCH, "low"),), held=False)
-    assert plan_terms(watch, _figures(), WORDS, "load_minutes") is None
-    reasons = reasons_for(watch, _figures(n=25, covered=19), WORDS, "load_minutes")
+    window = CoverageTest(n=160, covered=118, target=0.95, dispersion=1.0, wilson_low=0.67,
+                          wilson_high=0.80, pvalue_low=1e-6, pvalue_high=1.0)
+    reasons = reasons_for(watch, _figures(n=25, covered=19, window=window), WORDS,
+                          "load_minutes")
+    # 118 of 160 inside: 26 % outside where a 95 % interval allows for 5 %
+    assert reasons[0] == ("In plan terms: 26 % of loads now fall outside their planned range, "
+                          "where the plans allow for 5 %")
     assert reasons[-1] == "76 % of the 25 loads on 2026-04-14 fell inside the 95 % interval"
+    spread = Verdict(Status.WATCH, (Finding("spread", Status.WATCH, "wider"),), held=False)
+    wider = SpreadTest(ratio=1.4, statistic=1.96, df_num=100, df_den=500, pvalue=1e-4,
+                       pvalue_narrower=1.0, method="within-day")
+    text = plan_terms(spread, _figures(spread=wider), WORDS, "load_minutes")
+    assert text == ("In plan terms: loads scatter 40 % more around plan than when it was "
+                    "fitted, so the planned ranges are too narrow")
+    assert plan_terms(watch, _figures(), WORDS, "load_minutes") is None  # no window: nothing

@@ -30,7 +30,9 @@ def _low_coverage_reasons(**window: object) -> list[str]:
                       predictors=("pallets",), slope=None, spread=None, since=DAY,
                       held_since=None, **window)  # type: ignore[arg-type]
     verdict = Verdict(Status.REFIT, (Finding("coverage", Status.REFIT, "low"),), held=False)
-    return reasons_for(verdict, figures, WORDS, "load_minutes")
+    reasons = reasons_for(verdict, figures, WORDS, "load_minutes")
+    assert reasons[0].startswith("In plan terms: 26 % of loads now fall outside")  # leads
+    return reasons[1:]
 
 
 def test_two_days_after_a_promotion_the_reason_counts_two_days() -> None:

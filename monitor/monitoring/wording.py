@@ -143,11 +143,13 @@ def held_reason(since: date | None) -> str:
 
 
 def plan_terms(verdict: Verdict, f: Figures, words: Wording, response: str) -> str | None:
-    """What a bias or slope finding means for plans, signed, in the model's units: how far a
-    typical row (the fit window's mean of each predictor) now runs from plan, and how much
-    more or less each unit of a predictor adds than planned. None without such a finding."""
-    if not any(x.signal in ("bias", "slope") for x in verdict.findings):
-        return None
+    """What the findings mean for plans, in the model's units: for a bias or slope finding, how
+    far a typical row (the fit window's mean of each predictor) now runs from plan, signed,
+    and how much more or less each unit of a predictor adds than planned; for coverage or
+    spread alone, how often rows fall outside their planned range. None without a finding."""
+    signals = {x.signal for x in verdict.findings}
+    if not signals & {"bias", "slope"}:
+        return _range_terms(verdict, f, words)
     parts = []
     if math.isfinite(f.cusum_shift) and f.cusum_shift != 0:
         side = "above" if f.cusum_shift > 0 else "below"
@@ -167,6 +169,26 @@ def plan_terms(verdict: Verdict, f: Figures, words: Wording, response: str) -> s
     if not parts:
         return None
     return _capital("in plan terms: " + "; ".join(parts))
+
+
+def _range_terms(verdict: Verdict, f: Figures, words: Wording) -> str | None:
+    """Coverage or spread findings in plan terms: the planned ranges are too narrow or wide."""
+    outside = 1 - f.level
+    for x in verdict.findings:
+        if x.signal == "coverage" and x.kind == "low" and f.window is not None:
+            return _capital(f"in plan terms: {percent(1 - f.window.coverage)} of {words.rows} "
+                            f"now fall outside their planned range, where the plans allow for "
+                            f"{percent(outside)}")
+        if x.signal == "coverage" and x.kind == "high" and f.window is not None:
+            return _capital(f"in plan terms: only {percent(1 - f.window.coverage)} of "
+                            f"{words.rows} fall outside their planned range, where the plans "
+                            f"allow for {percent(outside)}: the ranges carry more slack than "
+                            "needed")
+        if x.signal == "spread" and f.spread is not None:
+            return _capital(f"in plan terms: {words.rows} scatter "
+                            f"{percent(f.spread.ratio - 1)} more around plan than when it was "
+                            "fitted, so the planned ranges are too narrow")
+    return None
 
 
 def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
