@@ -49,6 +49,10 @@ class CheckSettings:
     slope_chart_step: float = 0.10  # the within-day slope chart is tuned to this share of a slope
     slope_chart_arl_days: float = 5000.0  # its in-control run length (false refits add up)
     learn_until_days: int = 40  # a version fitted on fewer days learns its level until then
+    # data health (monitor.monitoring.data_health): a silent feed, bad files, rising rejections
+    silence_pvalue: float = 0.001  # a run of days without rows this unlikely by the fit calendar
+    rejected_file_share: float = 0.5  # a file with more of its rows rejected is "mostly rejected"
+    rejection_pvalue: float = 0.001  # the last week's rejection share tested against the long run
 
 
 @dataclass(frozen=True)
@@ -297,7 +301,8 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
             values[name] = r.number(sec, full, default, low=0.0)
     out = replace(base, **values)
     for name in ("level", "guarantee", "refit_pvalue", "watch_pvalue",
-                 "watch_cusum_fraction", "day_effects_alpha"):
+                 "watch_cusum_fraction", "day_effects_alpha", "silence_pvalue",
+                 "rejected_file_share", "rejection_pvalue"):
         value = getattr(out, name)
         if not 0.0 < value < 1.0:
             raise ConfigError(f"must lie strictly between 0 and 1; got {value}", source=r.source,

@@ -4,6 +4,7 @@ instead of blocking every run until its lease expires; messages say when a lease
 
 from __future__ import annotations
 
+import logging
 import os
 import signal
 import subprocess
@@ -36,7 +37,8 @@ def _config(engine: Engine, tmp: Path) -> Path:
 
 def test_daemon_once_exits_non_zero_when_a_model_failed(
         engine: Engine, make_settings: Callable[..., Settings], tmp_path: Path,
-        monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]) -> None:
+        monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture) -> None:
+    caplog.set_level(logging.INFO, logger="monitor.runtime.daemon")
     World(engine, settings_for(make_settings, engine), tmp_path)
 
     def broken(*args: object, **kwargs: object) -> None:
@@ -44,7 +46,9 @@ def test_daemon_once_exits_non_zero_when_a_model_failed(
 
     monkeypatch.setattr(nightly, "run_checks", broken)
     assert main(["--config", str(_config(engine, tmp_path)), "daemon", "--once"]) == 2
-    assert "disk on fire" in capsys.readouterr().out  # the run's sentence names it
+    # the run's sentence, said once in the log, names it
+    assert any("nightly run: " in r.getMessage() and "disk on fire" in r.getMessage()
+               for r in caplog.records)
     with engine.connect() as conn:
         assert lease.read(conn).last_run_status == "partial"
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
@@ -11,6 +12,7 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
+from monitor.lifecycle.importer import NO_SLOPE_TEST, OPTIONAL, REQUIRED
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import active_version
@@ -105,7 +107,7 @@ def test_imported_model_scores_like_statsmodels(cli, tmp_path: Path) -> None:
     doc = json.loads(out)
     assert doc["source"] == "import" and doc["active_from"] == "2026-03-09"
     assert doc["warnings"] == ["no day-effect variances (tau2, sigma_w2): days are assumed "
-                               "independent"]
+                               "independent", NO_SLOPE_TEST.format(name="dock_loading")]
     frame = pd.read_csv(HISTORY)
     ref = sm.OLS(frame["load_minutes"], sm.add_constant(frame["pallets"])).fit()
     x0 = np.array([4.0, 20.0, 33.0])
@@ -134,6 +136,76 @@ def _settings(config: Path):
 def test_import_errors_name_the_problem(cli, tmp_path: Path, override, words: str) -> None:
     code, _, err = cli("model", "import", "dock_loading", str(_import_file(tmp_path, **override)))
     assert code == 1 and words in err, err
+
+
+def test_import_says_what_it_did_and_each_note_once(cli, tmp_path: Path) -> None:
+    # Issue 13: the import's answer misspelt what it did, and printed every note twice
+    path = _import_file(tmp_path, covariance=None)
+    code, out, err = cli("model", "import", "dock_loading", str(path))
+    assert code == 0, err
+    lines = out.splitlines()
+    assert lines[0] == (f"dock_loading: version 1 imported from {path} (active: it scores days "
+                        "from 2026-03-09)")
+    assert lines[1] == "dock_loading version 1 (active, imported)"
+    notes = [line for line in lines if "note:" in line]
+    assert len(notes) == 3 and len(set(notes)) == 3
+    code, out, _ = cli("model", "import", "dock_loading", str(path))
+    assert code == 0 and out.splitlines()[0].endswith(
+        "version 2 imported from " + str(path) + " (a candidate: 'fitwatch promote dock_loading "
+        "2' makes it the active version)")
+
+
+def test_import_text_and_json_agree_on_what_the_bias_chart_promises(cli, tmp_path: Path) -> None:
+    # Issue 13: the text promised a limit "held with probability 0.95" while the JSON said
+    # calibrated: false. An imported version has no fit-window days to allow for the
+    # estimation error of its values, and both now say so in the same words.
+    path = _import_file(tmp_path)
+    code, out, _ = cli("model", "import", "dock_loading", str(path), "--json")
+    cusum = json.loads(out)["cusum"]
+    assert code == 0 and cusum["calibrated"] is False and cusum["guarantee"] is None
+    assert cusum["promise"].startswith("but only if the imported coefficients and scatter are "
+                                       "exact: the file carries no days of the fit window")
+    code, text, _ = cli("model", "show", "dock_loading")
+    assert code == 0 and cusum["promise"] in text
+    assert "held with probability" not in text
+
+
+def test_an_imported_version_says_why_it_has_no_slope_test(cli, tmp_path: Path) -> None:
+    # Issue 13: an imported version never got a slope test and nothing said why
+    assert cli("model", "import", "dock_loading", str(_import_file(tmp_path)))[0] == 0
+    code, text, _ = cli("model", "show", "dock_loading")
+    assert code == 0
+    assert ("note: no slope test and no within-day slope chart: both compare recent days with "
+            "the fit window's rows day by day") in text
+    assert "'fitwatch refit dock_loading --start DAY'" in text
+
+
+def _readme_section(title: str) -> str:
+    text = (ROOT / "README.md").read_text(encoding="utf-8")
+    start = text.index(f"\n## {title}\n")
+    end = text.find("\n## ", start + 1)
+    return text[start:end if end > 0 else None]
+
+
+def test_the_readme_documents_every_import_key_and_its_example_imports(cli,
+                                                                        tmp_path: Path) -> None:
+    # Issue 13: the format was documented nowhere; a user learnt the keys from an error
+    section = _readme_section("The model import file")
+    table_keys = {key for line in section.splitlines() if line.startswith("| `")
+                  for key in re.findall(r"`(\w+)`", line.split("|")[1])}
+    assert table_keys == set(REQUIRED) | set(OPTIONAL)
+    example = re.search(r"```toml\n(.*?)```", section, re.S)
+    assert example is not None
+    path = tmp_path / "example.toml"
+    path.write_text(example.group(1), encoding="utf-8")
+    code, out, err = cli("model", "import", "dock_loading", str(path), "--json")
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["coefficients"] == {"intercept": 8.553, "pallets": 2.089}
+    assert doc["fit_window"] == ["2026-01-05", "2026-03-07"]
+    # and an error about a key points there
+    code, _, err = cli("model", "import", "dock_loading", str(_import_file(tmp_path, colour=1)))
+    assert code == 1 and "'The model import file'" in err
 
 
 def test_a_failed_fit_leaves_no_model_behind(cli, engine: Engine) -> None:

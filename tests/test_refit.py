@@ -12,10 +12,13 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
+from monitor.domain.action import Action
+from monitor.domain.data_health import DataHealth, SilentFeed
+from monitor.domain.status import Status
 from monitor.errors import StateError, UsageError
 from monitor.interface.cli import main
-from monitor.interface.status import model_statuses
-from monitor.interface.versions import show_version
+from monitor.interface.status import ModelStatus, model_statuses
+from monitor.interface.versions import list_model_lines, show_version
 from monitor.lifecycle.compare import compare
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import acknowledge, promote, refit, rollback
@@ -141,12 +144,126 @@ def test_rollback_brings_back_a_copy_of_the_earlier_version(with_candidate: Worl
     changed.add_days(date(2026, 4, 13), date(2026, 4, 15), 76, "days.csv")
     changed.check(date(2026, 4, 15))
     result = rollback(changed.settings, MODEL, reason="wrong window",
-                      now=night_after(date(2026, 4, 15)), engine=changed.engine)
+                      now=night_after(date(2026, 4, 15)), actor="lead", engine=changed.engine)
     assert (result.active, result.previous, result.effective_day) == (3, 2, date(2026, 4, 16))
     v1, v2, v3 = _versions(changed)
     assert v3.state == "active" and v3.note == "copy of version 1"
     assert list(v3.coefficients) == list(v1.coefficients)
     assert (v2.active_from, v2.active_until) == (date(2026, 4, 13), date(2026, 4, 15))
+    # Issue 13: it said "version 3 rolled back to by ..."; it names the version that came back
+    assert result.copy_of == 1 and result.as_dict()["copy_of"] == 1
+    assert result.sentence().startswith(
+        f"{MODEL}: rolled back to version 1 by lead (wrong window): its line is active again "
+        "as version 3 (a copy under a new number, because each version scores one unbroken run "
+        "of days) and scores days from 2026-04-16; version 2 scored the days before")
+    # rolling back again brings back version 2's line, as version 4
+    changed.add_days(date(2026, 4, 16), date(2026, 4, 16), 78, "one_more.csv")
+    changed.check(date(2026, 4, 16))
+    again = rollback(changed.settings, MODEL, now=night_after(date(2026, 4, 16)), actor="lead",
+                     engine=changed.engine)
+    assert (again.copy_of, again.active, again.previous) == (2, 4, 3)
+    assert again.sentence().startswith(f"{MODEL}: rolled back to version 2 by lead: its line is "
+                                       "active again as version 4")
+    v4 = _versions(changed)[3]
+    assert v4.note == "copy of version 2" and list(v4.coefficients) == list(v2.coefficients)
+
+
+def test_status_after_a_promotion_says_what_happened_and_what_comes_next(
+        with_candidate: World) -> None:
+    # Issue 13: status paired the new version's number with reasons computed under the old one
+    changed = with_candidate
+    promote(changed.settings, MODEL, 2, reason="layout change", actor="lead",
+            now=night_after(date(2026, 4, 12)), engine=changed.engine)
+    (status,) = model_statuses(changed.settings, now=night_after(date(2026, 4, 12)),
+                               engine=changed.engine)
+    text = status.sentence()
+    head, label, *reasons = text.splitlines()
+    assert head == (f"{MODEL}: version 2 active since 2026-04-13 (promoted by lead on "
+                    "2026-04-13: layout change); not checked with it yet: the next check scores "
+                    "from 2026-04-13 with fresh charts")
+    assert label == "  last night under version 1 (2026-04-12): REFIT since " \
+        f"{status.since}"
+    assert reasons and all(r.startswith("    - ") for r in reasons)
+    assert "stands until" not in text and "(version 2)" not in text
+    doc = status.as_dict()
+    assert (doc["active_version"], doc["last_check_version"]) == (2, 1)
+    assert [(a["action"], a["version"], a["effective_day"]) for a in doc["actions_pending"]] \
+        == [("promote", 2, date(2026, 4, 13))]
+    (line,) = list_model_lines(changed.settings, engine=changed.engine)
+    assert line.sentence().endswith("; v2 of 2; refit under v1 (checked through 2026-04-12)")
+    # once a day is checked under version 2, status speaks of version 2 again
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 13), 79, "first.csv")
+    changed.check(date(2026, 4, 13))
+    (status,) = model_statuses(changed.settings, now=night_after(date(2026, 4, 13)),
+                               engine=changed.engine)
+    assert status.sentence().startswith(f"{MODEL}: OK since 2026-04-13, checked through "
+                                        "2026-04-13 (version 2)")
+    assert status.as_dict()["actions_pending"] == []
+
+
+def test_status_after_an_acknowledgement_and_a_second_ack_refused(changed: World) -> None:
+    ack = acknowledge(changed.settings, MODEL, reason="training week", actor="lead",
+                      now=night_after(date(2026, 4, 12)), engine=changed.engine)
+    assert ack.sentence().startswith(f"{MODEL}: the refit advice (since ")
+    assert ack.sentence().endswith("acknowledged by lead (training week); the model stays on "
+                                   "version 1 and its charts restart on 2026-04-13, the first "
+                                   "day not checked yet")
+    (status,) = model_statuses(changed.settings, now=night_after(date(2026, 4, 12)),
+                               engine=changed.engine)
+    text = status.sentence()
+    assert text.splitlines()[0] == (
+        f"{MODEL}: REFIT acknowledged by lead on 2026-04-13: training week; the model stays on "
+        "version 1 until you refit or the evidence changes; its charts restart on 2026-04-13, "
+        "the first day not checked yet")
+    assert text.splitlines()[1] == ("  last check before the acknowledgement, under version 1 "
+                                    f"(2026-04-12): REFIT since {status.since}")
+    assert "stands until" not in text  # Issue 13: the acknowledged refit still "stood"
+    # a second acknowledgement of the same advice is refused, and nothing is recorded
+    with pytest.raises(StateError, match=r"the refit advice \(since .*\) was already "
+                       r"acknowledged by lead on 2026-04-13: training week; the charts restart "
+                       r"on 2026-04-13, the first day not checked yet; nothing changed"):
+        acknowledge(changed.settings, MODEL, now=night_after(date(2026, 4, 12)),
+                    engine=changed.engine)
+    with changed.engine.connect() as conn:
+        assert len(audit.entries(conn, get_model(conn, MODEL).id, ("ack",))) == 1
+
+
+def test_status_after_an_action_still_says_when_rows_stopped_and_days_wait() -> None:
+    ack = Action("ack", date(2026, 4, 13), "lead", None, 1, 1, recorded_on=date(2026, 4, 14))
+    silent = SilentFeed(last_rows_day=date(2026, 4, 8), first_day=date(2026, 4, 9),
+                        through=date(2026, 4, 12), days=4, expected_days=3.9, chance=1e-4,
+                        level=1e-3, flagged_on=date(2026, 4, 11), calendar="the fit window")
+    status = ModelStatus(MODEL, Status.WATCH, date(2026, 4, 10), date(2026, 4, 12),
+                         ("Loads ran 3 min above plan",), 1, behind_days=2,
+                         last_rows_day=date(2026, 4, 8), checked_version=1, pending=(ack,),
+                         data=DataHealth(MODEL, silent=silent))
+    lines = status.sentence().splitlines()
+    assert lines[0].startswith(f"{MODEL}: WATCH acknowledged by lead on 2026-04-14; ")
+    assert lines[0].endswith("; 2 complete day(s) not checked yet; the status judges the days "
+                             "through 2026-04-08, the last with rows")
+    assert any(line.startswith("  ! data: ") for line in lines)
+
+
+@pytest.mark.slow
+def test_rolling_back_a_promotion_not_yet_in_force(changed: World) -> None:
+    # rows through 15 April stored but checked through the 12th only: a candidate fitted
+    # through the 15th takes over on the 16th, so version 1 still scores the 13th to the 15th
+    changed.add_days(date(2026, 4, 13), date(2026, 4, 15), 80, "unchecked.csv")
+    fit_model(changed.settings, FitRequest(MODEL, start=date(2026, 3, 16),
+                                           end=date(2026, 4, 15)),
+              now=night_after(date(2026, 4, 15)), engine=changed.engine)
+    assert promote(changed.settings, MODEL, 2, now=night_after(date(2026, 4, 15)),
+                   engine=changed.engine).effective_day == date(2026, 4, 16)
+    result = rollback(changed.settings, MODEL, now=night_after(date(2026, 4, 15)),
+                      engine=changed.engine)
+    assert (result.active, result.copy_of, result.effective_day) == (3, 1, date(2026, 4, 13))
+    assert result.sentence().endswith("version 2 never scored a day (its promotion had not "
+                                      "taken effect)")
+    v1, v2, v3 = _versions(changed)
+    assert v1.active_until == date(2026, 4, 12)  # not still "through 15 April"
+    assert v3.active_from == date(2026, 4, 13) and v2.active_until < v2.active_from
+    checks = changed.check(date(2026, 4, 15)).checks
+    assert {c.version_id for c in checks} == {v3.id}
 
 
 def test_refused_actions_say_why(world: World) -> None:
@@ -165,14 +282,21 @@ def test_commands(changed: World, capsys: pytest.CaptureFixture[str]) -> None:
     config.write_text(f'[database]\nurl = "{url}"\n[schedule]\ntimezone = "Europe/Berlin"\n')
     assert main(["--config", str(config), "model", "fit", MODEL, "--start", "2026-03-16"]) == 0
     capsys.readouterr()
+    assert main(["--config", str(config), "ack", MODEL]) == 0
+    assert "advice (since 2026-" in capsys.readouterr().out
+    # the same advice again: refused with exit code 1 (a state error, README), nothing recorded
+    assert main(["--config", str(config), "ack", MODEL]) == 1
+    err = capsys.readouterr().err
+    assert "was already acknowledged" in err and "nothing changed" in err
     assert main(["--config", str(config), "promote", MODEL, "2", "--reason", "new layout",
                  "--json"]) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["active"] == 2 and doc["effective_day"] == "2026-04-13"
     assert main(["--config", str(config), "promote", MODEL, "9"]) == 1
     assert "no version 9" in capsys.readouterr().err
-    assert main(["--config", str(config), "ack", MODEL]) == 0
-    assert "advice acknowledged" in capsys.readouterr().out
+    # a promotion not checked yet restarts the charts anyway: nothing to acknowledge
+    assert main(["--config", str(config), "ack", MODEL]) == 1
+    assert "version 2 takes over on 2026-04-13" in capsys.readouterr().err
 
 
 @pytest.mark.slow

@@ -9,7 +9,6 @@ chart it shows by ``cid:`` (RFC 2046 §5.1.4, RFC 2387, RFC 2392).
 from __future__ import annotations
 
 import hashlib
-import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
@@ -19,6 +18,7 @@ from email.utils import format_datetime
 from jinja2 import Environment, PackageLoader, StrictUndefined, select_autoescape
 
 from monitor.alerts.news import (
+    DATA,
     ENTERED,
     REMINDER,
     RESTART,
@@ -28,7 +28,8 @@ from monitor.alerts.news import (
     ModelNews,
 )
 from monitor.config import Wording
-from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.check import coverage_span
+from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
 from monitor.domain.status import Status
 
 KIND_NIGHT = "night"  # the nightly digest; the kind part of the dedupe key
@@ -49,6 +50,7 @@ class ModelContext:
     plan_slopes: tuple[float, ...]  # the active version's slopes, one per predictor
     candidate: int | None  # newest candidate version waiting for promotion
     coverage_window_days: int
+    version_from: date | None = None  # the day the active version took over
 
 
 @dataclass(frozen=True)
@@ -69,6 +71,7 @@ class ItemView:
     figures: tuple[Figure, ...]
     command: str | None
     command_note: str
+    data: tuple[str, ...] = ()  # the standing data findings, one sentence each
 
 
 @dataclass(frozen=True)
@@ -104,8 +107,9 @@ def _action_phrase(a: Action) -> str:
         return (f"version {a.version} was promoted by {a.actor}{why} and plans with it from "
                 f"{a.effective_day.isoformat()}")
     if a.action == "rollback":
-        return (f"{a.actor} went back to the earlier line{why}: version {a.version} plans from "
-                f"{a.effective_day.isoformat()}")
+        earlier = f"version {a.copy_of}" if a.copy_of is not None else "the earlier line"
+        return (f"{a.actor} rolled back to {earlier}{why}: its line plans again, as version "
+                f"{a.version}, from {a.effective_day.isoformat()}")
     return (f"{a.actor} acknowledged the advice{why}; the bias chart restarted on "
             f"{a.effective_day.isoformat()}")
 
@@ -125,9 +129,20 @@ def headline(item: ModelNews) -> str:
         parts.append(f"Reminder: {m} still {_status_phrase(c.status).removeprefix('is ')} "
                      f"— {item.days_in_status} days since {c.status_since.isoformat()}, "
                      "no action recorded yet")
-    if SETTLED in item.events:
+    silent = item.data.silent if item.data is not None else None
+    if SETTLED in item.events and silent is not None:
+        parts.append(f"{m}: {item.previous_status} ended on {item.night.isoformat()} for want "
+                     f"of rows, not because the model is back in line ({silent.short()})")
+    elif SETTLED in item.events:
         parts.append(f"{m} is back in line: {item.previous_status} ended on "
                      f"{item.night.isoformat()} without a change of version")
+    if DATA in item.events and item.data is not None:
+        text = f"{m}: the data need a look: {item.data.headline()}"
+        if silent is not None:
+            days = (f"the days through {silent.last_rows_day.isoformat()}"
+                    if silent.last_rows_day else "no day with rows")
+            text += f"; its status ({c.status}) judges {days}"
+        parts.append(text)
     return ". ".join(parts)
 
 
@@ -136,10 +151,15 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
     out = []
     if c.window_coverage is not None:
         below = "below" if c.window_coverage < ctx.level else "at or above"
+        fresh = c.state.fresh_from
+        first, held = coverage_span(c.day, ctx.coverage_window_days, fresh)
+        took_over = fresh is not None and fresh == ctx.version_from
+        span = window_span(held, ctx.coverage_window_days, first,
+                           ctx.version if took_over else None)
         out.append(Figure(
             "Coverage", f"{percent(c.window_coverage)} vs {percent(ctx.level)} planned",
-            f"{c.window_covered} of {c.window_n} {words.rows} inside the interval over the last "
-            f"{ctx.coverage_window_days} days, {below} the level (plausible range "
+            f"{c.window_covered} of {c.window_n} {words.rows} inside the interval {span}, "
+            f"{below} the level (plausible range "
             f"{percent(c.wilson_low)}–{percent(c.wilson_high)}; "
             f"{fmt_p(c.coverage_p_low)} for too few)"))
     lead = max(c.cusum_upper, c.cusum_lower)
@@ -161,10 +181,7 @@ def _figures(item: ModelNews, ctx: ModelContext) -> tuple[Figure, ...]:
         else:
             value = "no recent estimate"
         since = f", change since about {c.change_day.isoformat()}" if c.change_day else ""
-        statistic = (f"F = {fmt(c.slope_statistic, 3)}, " if c.slope_statistic is not None
-                     and math.isfinite(c.slope_statistic) else "")
-        out.append(Figure("Slope", value, f"slope change test {statistic}"
-                                          f"{fmt_p(c.slope_pvalue)}{since}"))
+        out.append(Figure("Slope", value, f"slope change test {fmt_p(c.slope_pvalue)}{since}"))
     return tuple(out)
 
 
@@ -183,13 +200,18 @@ def next_command(item: ModelNews, ctx: ModelContext) -> tuple[str | None, str]:
     if item.status == Status.WATCH:
         return (f"fitwatch report {m} --out report-{m}",
                 "writes the charts and figures to look at before deciding")
+    if item.data is not None:
+        return (f"fitwatch status {m}",
+                "shows the data findings; they clear once rows arrive again and files are "
+                "stored cleanly")
     return None, "nothing to do"
 
 
 def item_view(item: ModelNews, ctx: ModelContext) -> ItemView:
     command, note = next_command(item, ctx)
     return ItemView(item.model, item.status, headline(item), tuple(item.check.reasons),
-                    _figures(item, ctx), command, note)
+                    _figures(item, ctx), command, note,
+                    tuple(item.data.sentences()) if item.data is not None else ())
 
 
 def subject(digest: Digest) -> str:
@@ -204,13 +226,17 @@ def subject(digest: Digest) -> str:
             if still:
                 what = what.removeprefix("is ")
             return f"fitwatch: {lead}{m} {still}{what}"
+        if item.data is not None and (DATA in item.events or SETTLED in item.events):
+            return f"fitwatch: {m}: {item.data.headline()}"
         if RESTART in item.events:
             return f"fitwatch: {m} restarted, first day {item.status}"
         return f"fitwatch: {m} back in line"
     refit = sum(i.status == Status.REFIT for i in items)
     watch = sum(i.status == Status.WATCH for i in items)
-    rest = len(items) - refit - watch
+    data = sum(i.status == Status.OK and i.data is not None for i in items)
+    rest = len(items) - refit - watch - data
     counts = [f"{n} {word}" for n, word in ((refit, "refit"), (watch, "watch"),
+                                            (data, "data to look at"),
                                             (rest, "back in line")) if n]
     return f"fitwatch: news on {len(items)} models ({', '.join(counts)})"
 

@@ -42,7 +42,6 @@ from monitor.alerts.compose import (
 )
 from monitor.alerts.mailer import DeliveryError, Mailer, mailer_for
 from monitor.alerts.news import (
-    RESTART_ACTIONS,
     Action,
     Digest,
     ModelNews,
@@ -51,9 +50,11 @@ from monitor.alerts.news import (
 )
 from monitor.config import Settings
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError
+from monitor.monitoring.data_health import model_data_health
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.report.marks import load_marks
 from monitor.store import audit, queued_nights
@@ -118,16 +119,7 @@ class _Delivery:
 
 # deciding and queueing ------------------------------------------------------------------------
 def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
-    out = []
-    for e in audit.entries(conn, model.id, RESTART_ACTIONS, from_day=night):
-        if e.effective_day != night:
-            continue
-        details = e.details or {}
-        version = details.get("version")
-        if e.action == "ack":
-            version = None
-        out.append(Action(e.action, night, e.actor, e.reason, version, details.get("previous")))
-    return out
+    return [a for a in audit.actions(conn, model.id, night) if a.effective_day == night]
 
 
 def _context(settings: Settings, model: ModelRecord, check: DayCheck,
@@ -141,13 +133,29 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         version=scoring.number if scoring else None,
         plan_slopes=tuple(float(b) for b in scoring.coefficients[1:]) if scoring else (),
         candidate=max(candidates) if candidates else None,
-        coverage_window_days=ms.check.coverage_window_days)
+        coverage_window_days=ms.check.coverage_window_days,
+        version_from=scoring.active_from if scoring else None)
 
 
-def night_news(settings: Settings, conn: Connection, night: date,
+def _data(settings: Settings, conn: Connection, model: ModelRecord, check: DayCheck,
+          versions: Sequence[Version], night: date,
+          now: datetime) -> tuple[DataHealth, DataHealth | None]:
+    """The model's data findings as of the night (at ``now``) and as of its previous digest."""
+    scoring = next((v for v in versions if v.id == check.version_id), None)
+    ms = settings.for_model(model.name)
+    data = model_data_health(conn, model, ms.check, scoring, through=night, now=now,
+                             zone=settings.timezone)
+    since = queued_nights.last_queued_at(conn, model.id, night)
+    before = None if since is None else model_data_health(
+        conn, model, ms.check, scoring, through=night - timedelta(days=1), now=since,
+        zone=settings.timezone)
+    return data, before
+
+
+def night_news(settings: Settings, conn: Connection, night: date, *, now: datetime,
                only: set[int] | None = None) -> tuple[list[ModelNews], dict[str, ModelContext]]:
-    """Every model's news for ``night`` (or only that of the models ``only``) and what
-    composing it needs."""
+    """Every model's news for ``night`` (or only that of the models ``only``), queued at
+    ``now``, and what composing it needs."""
     news, contexts = [], {}
     for model in list_models(conn):
         if only is not None and model.id not in only:
@@ -156,13 +164,14 @@ def night_news(settings: Settings, conn: Connection, night: date,
         if not checks:
             continue
         previous = last_check(conn, model.id, before=night, model=model.name)
+        versions = list_versions(conn, model.id)
+        data, before = _data(settings, conn, model, checks[0], versions, night, now)
         item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
-                          settings.for_model(model.name).alerts)
+                          settings.for_model(model.name).alerts, data=data, data_before=before)
         if item is None:
             continue
         news.append(item)
-        contexts[model.name] = _context(settings, model, checks[0],
-                                        list_versions(conn, model.id))
+        contexts[model.name] = _context(settings, model, checks[0], versions)
     return news, contexts
 
 
@@ -198,7 +207,7 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
             waiting = queued_nights.pending_models(conn, night)
             if not waiting:
                 return 0
-            news, contexts = night_news(settings, conn, night, only=waiting)
+            news, contexts = night_news(settings, conn, night, now=now, only=waiting)
             wanted: dict[str, Digest] = {}
             for d in digests(news):
                 wanted[dedupe_key(d.recipient, night, KIND_NIGHT)] = d

@@ -10,7 +10,7 @@ typed and frozen; ``monitor.store.checks`` serializes them in one place.
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
-from datetime import date, datetime
+from datetime import date, datetime, timedelta
 
 from monitor.domain.status import Status
 from monitor.stats.change import FTest
@@ -59,6 +59,17 @@ class CoverageDay:
     rows: int
     covered: int
     spread: float | None = None  # log day spread (monitor.stats.diagnosis.day_spread)
+
+
+def coverage_span(day: date, window_days: int, fresh_from: date | None) -> tuple[date, int]:
+    """The first day of the rolling coverage window that ends on ``day``, and how many days it
+    holds: ``window_days``, or fewer while the last restart (``fresh_from``: a version took
+    over or the advice was acknowledged) lies inside it, since the window counts no day before.
+    """
+    first = day - timedelta(days=window_days - 1)
+    if fresh_from is not None and fresh_from > first:
+        first = fresh_from
+    return first, (day - first).days + 1
 
 
 @dataclass(frozen=True)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from datetime import date
 
 
 def fmt(value: float | None, digits: int = 3) -> str:
@@ -29,3 +30,16 @@ def percent(value: float | None, decimals: int = 0) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "—"
     return f"{100 * value:.{decimals}f} %"
+
+
+def window_span(days: int, window_days: int, first: date, version: int | None) -> str:
+    """Which days a rolling window's figures cover: 'over the last 14 days', or, while a restart
+    lies inside it, only the days since: 'on the 1 day under version 5 (from 2026-04-21)' when
+    a version took over (``version``), 'on the 3 days since the advice was acknowledged
+    (2026-04-21)' otherwise."""
+    if days >= window_days:
+        return f"over the last {window_days} days"
+    span = "the 1 day" if days == 1 else f"the {days} days"
+    if version is not None:
+        return f"on {span} under version {version} (from {first.isoformat()})"
+    return f"on {span} since the advice was acknowledged ({first.isoformat()})"

@@ -1,8 +1,11 @@
 """The inbox the nightly run sweeps: ``<inbox>/<model name>/*.csv|*.csv.gz|*.parquet``.
 
 Each file is ingested in its own transaction (as ``ingest`` would), then moved beside it into
-``archive/`` (stored, possibly with some rows rejected and recorded) or ``rejected/`` (refused
-whole: unreadable, a missing column; the reason is written next to it as ``NAME.reason.txt``).
+``archive/`` (stored, possibly with some rows rejected and recorded; a header without rows is
+an empty night) or ``rejected/`` (refused whole: unreadable, a missing column, or every row bad;
+the reason is written next to it as ``NAME.reason.txt``). A file refused whole, or one that lost
+more than ``check.rejected_file_share`` of its rows, is logged as a warning (and is a data
+health finding: ``monitor.monitoring.data_health``).
 A crash between the ingest's commit and the move leaves the file in the inbox; the next sweep
 ingests it again, which changes nothing (the batch is recognised by its content hash), and then
 moves it. A database error stops the sweep and leaves the file where it is. Files whose names
@@ -23,6 +26,7 @@ from typing import Any
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.data_health import mostly_rejected
 from monitor.domain.model import check_model_section
 from monitor.errors import ConfigError, InputError
 from monitor.ingest.service import ingest_file, options_for
@@ -112,13 +116,17 @@ def _take(engine: Engine, settings: Settings, model: Any, path: Path,
         moved = _move(path, REJECTED)
         moved.with_name(moved.name + ".reason.txt").write_text(f"{exc}\n", encoding="utf-8")
         return SweptFile(model.name, moved, "rejected", None, str(exc))
-    if summary.status == "rejected":
+    if summary.rejected_whole:
         moved = _move(path, REJECTED)
         moved.with_name(moved.name + ".reason.txt").write_text(summary.sentence() + "\n",
                                                                encoding="utf-8")
+        log.warning("inbox file %s moved to %s: %s", path, moved.parent, summary.sentence())
         return SweptFile(model.name, moved, "rejected", summary, summary.sentence())
-    log.info("%s", summary.sentence())
-    return SweptFile(model.name, _move(path, ARCHIVE), "archived", summary)
+    moved = _move(path, ARCHIVE)
+    share = settings.for_model(model.name).check.rejected_file_share
+    if mostly_rejected(summary.rejected, summary.read, share):
+        log.warning("inbox file %s lost most of its rows: %s", path, summary.sentence())
+    return SweptFile(model.name, moved, "archived", summary)
 
 
 def _move(path: Path, where: str) -> Path:

@@ -78,7 +78,8 @@ class Source:
 # opening files ----------------------------------------------------------------------------------
 def open_file(path: str | os.PathLike[str], columns: Sequence[str], chunk_rows: int, *,
               time_column: str | None = None, id_column: str | None = None) -> Source:
-    """A CSV or Parquet file, checked: it exists, is readable, has the columns and some rows."""
+    """A CSV or Parquet file, checked: it exists, is readable and has the columns. A header
+    without rows is a night without rows, not an error."""
     p = Path(path)
     name = str(path)
     if not p.exists():
@@ -184,7 +185,6 @@ class CsvSource(Source):
                 raise InputError(f"column '{column}' appears {fields.count(column)} times in "
                                  f"the header of {name}")
         self.index = {c: fields.index(c) for c in columns}
-        self._check_has_rows()
 
     def content_hash(self) -> str | None:
         return self._hash
@@ -213,14 +213,6 @@ class CsvSource(Source):
             raise InputError(f"{self.label} uses CR-only line endings; save it with LF or "
                              "CRLF line endings")
         return text
-
-    def _check_has_rows(self) -> None:
-        with self._bytes() as fh:
-            fh.seek(self.header_bytes)
-            while block := fh.read(1 << 16):
-                if block.strip():
-                    return
-        raise InputError(f"{self.label} has a header but no rows")
 
     def chunks(self) -> Iterator[RawChunk]:
         return self._slow_chunks() if self.slow else self._fast_chunks()

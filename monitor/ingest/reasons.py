@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 RAW_LIMIT = 2000  # characters of a rejected row's text that are kept
@@ -26,6 +27,15 @@ REASONS: dict[str, str] = {
     "conflict": "conflicts with a stored row",
     "file_rejected": "rejected with the whole file (--strict)",
 }
+
+
+def ranked(counts: Mapping[str, int]) -> list[tuple[str, int]]:
+    """Reason codes and counts, the commonest first (ties in the order of the checks); rows
+    rejected only along with a --strict file are left out."""
+    order = list(REASONS)
+    found = [(code, n) for code, n in counts.items() if code != "file_rejected" and n]
+    return sorted(found, key=lambda item: (-item[1], order.index(item[0])
+                                           if item[0] in order else len(order)))
 
 
 @dataclass(frozen=True)

@@ -258,6 +258,8 @@ def _ingest(conn: Connection, model: ModelRecord, source: Source,
                          details={"batch": batch_id, "source": source.label,
                                   "replaced": tally.replaced,
                                   "days": [d.isoformat() for d in sorted(changed)]})
+        if tally.read and tally.rejected == tally.read:  # every row bad: nothing of it stored
+            status = "rejected"
     file_hash = source.content_hash()
     earlier = find_batches_by_hash(conn, model.id, file_hash) if file_hash else []
     seen = bool(earlier) and earlier[0].status == status

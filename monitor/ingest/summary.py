@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 from datetime import date
 from typing import Any
 
-from monitor.ingest.reasons import REASONS, Rejection
+from monitor.ingest.reasons import REASONS, Rejection, ranked
 
 EXAMPLES_PER_REASON = 3
 REASONS_NAMED = 3
@@ -41,7 +41,8 @@ class IngestSummary:
     affected_days: tuple[date, ...]
     already_ingested: bool = False
     strict: bool = False
-    status: str = "complete"  # complete | rejected (the whole file, under --strict)
+    # complete | rejected: nothing of the file stored, its rows all bad (or one, under --strict)
+    status: str = "complete"
     replaced: int = 0  # of the accepted rows, those that replaced stored values (--replace)
 
     def __post_init__(self) -> None:
@@ -50,6 +51,17 @@ class IngestSummary:
                              f"{self.accepted} + {self.duplicates} + {self.rejected}")
         if sum(self.reasons.values()) != self.rejected:
             raise ValueError(f"reason counts of {self.source} do not add up to {self.rejected}")
+
+    @property
+    def rejected_whole(self) -> bool:
+        """Nothing of the file was stored because of its rows (every one bad, or --strict)."""
+        return self.status == "rejected"
+
+    @property
+    def bad_share(self) -> float:
+        """The share of the rows read that were bad (not those rejected with a --strict file)."""
+        bad = self.rejected - self.reasons.get("file_rejected", 0)
+        return bad / self.read if self.read else 0.0
 
     def as_dict(self) -> dict[str, Any]:
         """The ``ingest --json`` document."""
@@ -69,6 +81,8 @@ class IngestSummary:
     def sentence(self) -> str:
         """One line for people, naming the worst reasons with line numbers."""
         counts = f"{_n(self.read, 'row')} read"
+        if self.read == 0:
+            return f"{self.source}: a header without rows: a night without rows, nothing to store."
         if self.already_ingested and self.status == "rejected":
             return (f"{self.source}: rejected whole before (batch {self.batch_id}); nothing "
                     f"changed ({counts}).")
@@ -80,8 +94,13 @@ class IngestSummary:
                     f"({counts}, {self.duplicates:,} already stored{again}).")
         if self.status == "rejected":
             bad = self.rejected - self.reasons.get("file_rejected", 0)
-            return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
-                    f"{counts.removesuffix(' read')} are bad — {self._worst()}.")
+            rows = counts.removesuffix(" read")
+            if bad < self.read:
+                return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
+                        f"{rows} are bad — {self._worst()}.")
+            every = "the 1 row is" if self.read == 1 else f"all {rows} are"
+            return (f"{self.source}: rejected whole, nothing stored: {every} bad — "
+                    f"{self._worst()}{self._example()}.")
         replaced = (f" ({self.replaced:,} replacing stored values, kept in the audit trail)"
                     if self.replaced else "")
         text = (f"{self.source}: {counts}: {self.accepted:,} stored{replaced}, "
@@ -93,11 +112,18 @@ class IngestSummary:
             text += f"; day {first}" if first == last else f"; days {first} to {last}"
         return text + "."
 
+    def _example(self) -> str:
+        """The first shown row of the commonest reason, as '; e.g. line 2: why'."""
+        for code, _ in ranked(self.reasons)[:1]:
+            for e in self.examples:
+                if e.code == code:
+                    return f"; e.g. line {e.line}: {e.detail}"
+        return ""
+
     def _worst(self) -> str:
-        ranked = sorted(((n, code) for code, n in self.reasons.items() if code != "file_rejected"),
-                        key=lambda item: (-item[0], list(REASONS).index(item[1])))
+        worst = ranked(self.reasons)
         parts = []
-        for count, code in ranked[:REASONS_NAMED]:
+        for code, count in worst[:REASONS_NAMED]:
             lines = [e.line for e in self.examples if e.code == code]
             where = ""
             if lines:
@@ -105,8 +131,8 @@ class IngestSummary:
                 label = "line" if len(lines) == 1 and not more else "lines"
                 where = f" ({label} {', '.join(str(x) for x in lines)}{more})"
             parts.append(f"{count:,} {REASONS[code]}{where}")
-        if len(ranked) > REASONS_NAMED:
-            parts.append(f"{sum(n for n, _ in ranked[REASONS_NAMED:]):,} other")
+        if len(worst) > REASONS_NAMED:
+            parts.append(f"{sum(n for _, n in worst[REASONS_NAMED:]):,} other")
         return "; ".join(parts)
 
 

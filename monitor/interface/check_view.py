@@ -3,13 +3,15 @@ stored figures of past checks as a time series (``days``: text, JSON and CSV).""
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 from zoneinfo import ZoneInfo
 
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.interface.output import csv_text
-from monitor.monitoring.check import CheckOutcome
+from monitor.monitoring.check import CheckOutcome, ModelCheck
 from monitor.monitoring.daily_figures import CheckedDay
 
 
@@ -46,37 +48,40 @@ def day_line(c: DayCheck) -> str:
             f"slope {fmt_p(c.slope_pvalue)}")
 
 
-def check_text(outcome: CheckOutcome) -> str:
+def check_text(outcome: CheckOutcome, health: Sequence[DataHealth] = ()) -> str:
+    """The run for people; ``health``: the checked models' standing data findings."""
     lines: list[str] = []
+    data = {h.model: h for h in health if h.stands}
     for r in outcome.results:
-        if r.error:
-            lines.append(f"{r.model}: not checked: {r.error}")
-            continue
-        if r.reported_day is not None and not r.checks:
-            why = f" ({r.note})" if r.note else ""
-            lines.append(f"{r.model}: {r.reported_day} has not been checked{why}")
-            continue
-        if not r.checks:
-            lines.append(f"{r.model}: nothing new to check ({r.note})")
-            continue
-        if r.reported_day is not None:
-            done = "checked before, reported again" if r.checked_before else "checked now"
-            head = f"{r.model}: {r.reported_day} ({done})"
-        else:
-            head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
-        if r.recomputed_from:
-            head += (f"; rows that came late or were corrected made it check again from "
-                     f"{r.recomputed_from}")
-        lines.append(head)
-        for c in r.checks:
-            lines.append("  " + day_line(c))
-        last = r.checks[-1]
-        when = f"on {last.day}" if r.reported_day is not None else "now"
-        lines.append(f"  {when} {last.status.upper()} since {last.status_since}:")
-        lines.extend(f"    - {reason}" for reason in last.reasons)
+        lines.extend(_check_lines(r))
+        if r.model in data:
+            lines.extend(f"  ! data: {sentence}" for sentence in data[r.model].sentences())
     if not lines:
         return "no models to check (fit one with 'fitwatch model fit NAME ...')"
     return "\n".join(lines)
+
+
+def _check_lines(r: ModelCheck) -> list[str]:
+    if r.error:
+        return [f"{r.model}: not checked: {r.error}"]
+    if r.reported_day is not None and not r.checks:
+        why = f" ({r.note})" if r.note else ""
+        return [f"{r.model}: {r.reported_day} has not been checked{why}"]
+    if not r.checks:
+        return [f"{r.model}: nothing new to check ({r.note})"]
+    if r.reported_day is not None:
+        done = "checked before, reported again" if r.checked_before else "checked now"
+        head = f"{r.model}: {r.reported_day} ({done})"
+    else:
+        head = f"{r.model}: checked {r.first_day} .. {r.last_day} ({len(r.checks)} day(s))"
+    if r.recomputed_from:
+        head += (f"; rows that came late or were corrected made it check again from "
+                 f"{r.recomputed_from}")
+    last = r.checks[-1]
+    when = f"on {last.day}" if r.reported_day is not None else "now"
+    return [head, *("  " + day_line(c) for c in r.checks),
+            f"  {when} {last.status.upper()} since {last.status_since}:",
+            *(f"    - {reason}" for reason in last.reasons)]
 
 
 # the stored figures of past checks (``days``) -------------------------------------------------

@@ -1,8 +1,9 @@
 """The ``fitwatch`` command line: parse, call one library function, print, map errors to codes.
 
 Exit codes (:class:`~monitor.errors.ExitCode`): 0 done; 1 bad input, usage, state or database
-(message on stderr, no traceback); 2 internal error (traceback in the log); 3 ``check --fail-on``
-threshold reached; 130 interrupted. Each error carries its code; :func:`exit_code_for` reads it.
+(message on stderr, no traceback), and ``ingest`` of a file rejected whole; 2 internal error
+(traceback in the log); 3 ``check --fail-on`` threshold reached (a data-health finding counts as
+``watch``); 130 interrupted. Each error carries its code; :func:`exit_code_for` reads it.
 """
 
 from __future__ import annotations
@@ -276,6 +277,7 @@ def _cmd_init(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.domain.data_health import mostly_rejected
     from monitor.ingest.service import ingest_configured_source, ingest_paths
 
     if bool(args.files) == args.source:
@@ -297,7 +299,15 @@ def _cmd_ingest(args: argparse.Namespace, settings: Settings) -> int:
     else:
         for summary in summaries:
             print(summary.sentence())
-    return EXIT_OK
+    share = settings.for_model(args.name).check.rejected_file_share
+    for summary in summaries:
+        if summary.rejected_whole:
+            print(f"fitwatch: {summary.source} was rejected whole: nothing of it was stored",
+                  file=sys.stderr)
+        elif mostly_rejected(summary.rejected, summary.read, share):
+            print(f"fitwatch: warning: {summary.source} lost most of its rows "
+                  f"({summary.rejected:,} of {summary.read:,} rejected)", file=sys.stderr)
+    return ExitCode.INPUT if any(s.rejected_whole for s in summaries) else EXIT_OK
 
 
 def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
@@ -329,9 +339,8 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
     if args.json:
         print(dumps({**view.as_dict(), "warnings": list(report.warnings)}))
     else:
-        print(view.text())
-        for note in report.warnings:
-            print(f"note: {note}")
+        print(report.sentence())
+        print(view.text())  # its notes are the import's warnings
     return EXIT_OK
 
 
@@ -345,10 +354,7 @@ def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
         print("no models yet; create one with 'fitwatch model fit NAME --data FILE ...'")
     else:
         for line in lines:
-            active = f"v{line.active_version}" if line.active_version else "no active version"
-            state = (f"{line.status} (checked through {line.last_checked_day})"
-                     if line.status else "not checked yet")
-            print(f"{line.name}: {line.formula}; {active} of {line.versions}; {state}")
+            print(line.sentence())
     return EXIT_OK
 
 
@@ -379,22 +385,31 @@ def _cmd_model_show(args: argparse.Namespace, settings: Settings) -> int:
 def _cmd_check(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.interface.check_view import check_document, check_text
     from monitor.monitoring.check import run_checks
+    from monitor.monitoring.data_health import data_health
 
     outcome = run_checks(settings, args.names or None, day=args.day, through=args.through,
                          progress=wants_progress() and not args.json)
-    print(dumps(check_document(outcome)) if args.json else check_text(outcome))
+    # data findings are about now: a report of a past day (--day) is judged on that day alone
+    checked = [r.model for r in outcome.results if r.current is not None and not args.day]
+    health = [h for h in data_health(settings, checked) if h.stands] if checked else []
+    print(dumps(check_document(outcome)) if args.json else check_text(outcome, health))
     failures = [r.failure for r in outcome.results if r.failure]
     if failures:  # an internal failure of one model outranks a bad input of another
         return max(f.exit_code for f in failures)
     if args.fail_on:
         from monitor.alerts.service import undelivered
+        from monitor.domain.status import Status
 
         trouble = undelivered(settings)
         if trouble:  # the planners may not have heard of what the checks found
             print(f"fitwatch: {trouble.sentence()}", file=sys.stderr)
         if trouble.failed:
             return EXIT_THRESHOLD
+        for h in health:  # data findings count as "watch": the monitor cannot vouch for these
+            print(f"fitwatch: {h.model}: data: {h.headline()}", file=sys.stderr)
         worst = outcome.worst_status()
+        if health and Status.WATCH.at_least(args.fail_on):
+            return EXIT_THRESHOLD
         if worst is not None and worst.at_least(args.fail_on):
             return EXIT_THRESHOLD
     return EXIT_OK
@@ -614,10 +629,26 @@ def _cmd_demo(args: argparse.Namespace, settings: Settings) -> int:
 
 
 # entry point ----------------------------------------------------------------------------------
+_LISTS = ("files", "names")  # the positional lists that may follow options (ingest, check, ...)
+
+
+def _parse(parser: argparse.ArgumentParser, argv: Sequence[str] | None) -> argparse.Namespace:
+    """Parse ``argv``, letting a command's list of files or names continue after its options
+    (``ingest NAME --strict FILE``: argparse ends a ``*`` positional at the first option)."""
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        target = next((name for name in _LISTS if isinstance(getattr(args, name, None), list)),
+                      None)
+        if target is None or any(item.startswith("-") for item in extra):
+            parser.error(f"unrecognized arguments: {' '.join(extra)}")
+        getattr(args, target).extend(extra)
+    return args
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     try:
-        args = parser.parse_args(argv)
+        args = _parse(parser, argv)
         logging.basicConfig(
             level=(logging.INFO if args.command == "daemon" else logging.WARNING)
             - 10 * min(args.verbose, 2),

@@ -4,28 +4,31 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from datetime import UTC, date, datetime
+from datetime import UTC, date, datetime, timedelta
 from typing import Any
 
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.action import Action
 from monitor.domain.check import DayCheck
+from monitor.domain.data_health import DataHealth
 from monitor.domain.days import local_day, yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.phrasing import fmt
 from monitor.domain.status import Status
 from monitor.domain.version import Version
+from monitor.monitoring.data_health import model_data_health
+from monitor.monitoring.wording import held_reason
 from monitor.runtime.schedule import NightlyState, cron_trigger, nightly_state
-from monitor.store import lease, outbox
+from monitor.store import audit, lease, outbox
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import days_with_rows, last_observed_at
 from monitor.store.outbox import Undelivered
-from monitor.store.versions import active_version
+from monitor.store.versions import active_version, version_number
 
-QUIET_DAYS = 3  # checked days without rows before status asks whether data still arrive
 SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
 
 
@@ -42,12 +45,9 @@ class ModelStatus:
     last_rows_day: date | None = None  # the latest day with stored rows
     sharpen: Sharpening | None = None  # refit a loosely pinned version on a longer window
     undelivered: Undelivered | None = None  # alert messages failed or waiting (all models)
-
-    def quiet_days(self) -> int:
-        """Checked days since the latest day with rows (a feed that stopped shows here)."""
-        if self.last_checked_day is None or self.last_rows_day is None:
-            return 0
-        return max(0, (self.last_checked_day - self.last_rows_day).days)
+    data: DataHealth | None = None  # findings about the data, apart from the status
+    checked_version: int | None = None  # the version the last check scored with
+    pending: tuple[Action, ...] = ()  # actions taking effect after the last checked day
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.model, "status": self.status, "since": self.since,
@@ -56,23 +56,66 @@ class ModelStatus:
                 "last_rows_day": self.last_rows_day,
                 "sharpen": self.sharpen.as_dict() if self.sharpen else None,
                 "nightly": self.nightly.as_dict() if self.nightly else None,
-                "alerts_undelivered": self.undelivered.as_dict() if self.undelivered else None}
+                "data_health": self.data.as_dict() if self.data else None,
+                "alerts_undelivered": self.undelivered.as_dict() if self.undelivered else None,
+                "last_check_version": self.checked_version,
+                "actions_pending": [a.as_dict() for a in self.pending]}
+
+    def acted_since_check(self) -> bool:
+        """A promotion, rollback or acknowledgement awaits its first check: the last check's
+        status and reasons belong to the state before it."""
+        return bool(self.pending) or (self.checked_version is not None
+                                      and self.checked_version != self.active_version)
 
     def sentence(self) -> str:
+        data = [f"  ! data: {d}" for d in self.data.sentences()] if self.data else []
         if self.status is None:
             head = f"{self.model}: not checked yet"
             if self.active_version is None:
-                return head + " (no active version; run 'fitwatch model fit')"
-            return head + " (run 'fitwatch check')"
+                return "\n".join([head + " (no active version; run 'fitwatch model fit')", *data])
+            return "\n".join([head + " (run 'fitwatch check')", *data])
+        if self.acted_since_check():
+            return "\n".join([self._after_action(), *data])
         head = (f"{self.model}: {self.status.upper()} since {self.since}, checked through "
-                f"{self.last_checked_day} (version {self.active_version})")
-        if self.behind_days > 0:
-            head += f"; {self.behind_days} complete day(s) not checked yet"
-        if self.quiet_days() >= QUIET_DAYS:
-            head += (f"; no rows since {self.last_rows_day} ({self.quiet_days()} days): is the "
-                     "data still arriving?")
+                f"{self.last_checked_day} (version {self.active_version})") + self._lag()
         extra = [self.sharpen.sentence()] if self.sharpen else []
-        return "\n".join([head, *(f"  - {r}" for r in [*self.reasons, *extra])])
+        return "\n".join([head, *data, *(f"  - {r}" for r in [*self.reasons, *extra])])
+
+    def _lag(self) -> str:
+        """Days not checked yet, and what the status judges when the feed went silent."""
+        out = ""
+        if self.behind_days > 0:
+            out += f"; {self.behind_days} complete day(s) not checked yet"
+        if self.data is not None and self.data.silent is not None:
+            out += (f"; the status judges the days through {self.data.silent.last_rows_day}, "
+                    "the last with rows" if self.data.silent.last_rows_day else
+                    "; no day with rows has been checked")
+        return out
+
+    def _after_action(self) -> str:
+        """What was done since the last check and what comes next; the last check's status
+        follows, labelled as the state before the action (its standing-refit line, released
+        by the action, left out)."""
+        assert self.status is not None and self.last_checked_day is not None
+        takeover = next((a for a in reversed(self.pending) if a.takes_over), None)
+        ack = next((a for a in reversed(self.pending) if a.action == "ack"), None)
+        if takeover is not None or ack is None:
+            first = takeover.effective_day if takeover else None
+            how = f" ({takeover.how()})" if takeover else ""
+            since = f" since {first}" if first else ""
+            head = (f"{self.model}: version {self.active_version} active{since}{how}; not "
+                    "checked with it yet" + (f": the next check scores from {first} with fresh "
+                                             "charts" if first else ""))
+            label = f"last night under version {self.checked_version}"
+        else:
+            head = (f"{self.model}: {self.status.upper()} {ack.how()}; the model stays on "
+                    f"version {self.active_version} until you refit or the evidence changes; "
+                    f"its charts restart on {ack.effective_day}, the first day not checked yet")
+            label = f"last check before the acknowledgement, under version {self.checked_version}"
+        head += self._lag()
+        before = [r for r in self.reasons if r != held_reason(self.since)]
+        return "\n".join([head, f"  {label} ({self.last_checked_day}): {self.status.upper()} "
+                                 f"since {self.since}", *(f"    - {r}" for r in before)])
 
 
 def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
@@ -92,13 +135,25 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
             latest = last_observed_at(conn, model)
             rows_day = local_day(latest, settings.timezone) if latest else None
             status = _status(model, last, active, last_day)
+            if last is not None:
+                status = replace(
+                    status, pending=tuple(audit.actions(conn, model.id,
+                                                        last.day + timedelta(days=1),
+                                                        settings.timezone)),
+                    checked_version=(active.number if active and active.id == last.version_id
+                                     else version_number(conn, last.version_id)))
             advice = None
-            if active is not None and status.status == Status.OK:
+            if active is not None and status.status == Status.OK \
+                    and not status.acted_since_check():
                 since = (len(days_with_rows(conn, model, active.fit_start))
                          if active.fit_start else 0)
                 advice = sharpen_advice(model.name, active, since)
+            data = model_data_health(conn, model, settings.for_model(model.name).check, active,
+                                     through=last.day if last else None, now=now,
+                                     zone=settings.timezone)
             out.append(replace(status, nightly=nightly, last_rows_day=rows_day,
-                               sharpen=advice, undelivered=trouble or None))
+                               sharpen=advice, undelivered=trouble or None,
+                               data=data if data.stands else None))
     return out
 
 

@@ -59,7 +59,8 @@ class VersionView:
             "dispersion": base.dispersion,
             "cusum": {"k": cal.k if cal else None, "h": cal.h if cal else None,
                       "target_arl": cal.target_arl if cal else None,
-                      "guarantee": cal.guarantee if cal else None,
+                      "guarantee": cal.guarantee if cal and cal.calibrated else None,
+                      "promise": self.promise(),
                       "h_known": cal.h_known if cal else None,
                       "arl_known": cal.arl_known if cal else None,
                       "calibrated": cal.calibrated if cal else None,
@@ -100,17 +101,9 @@ class VersionView:
                          f"{fmt(base.sigma_w2 ** 0.5, 3)}")
         cal = base.calibration
         if cal is not None:
-            if cal.learn_until:
-                promise = (f"self-starting: fitted on fewer than {cal.learn_until} days, the "
-                           "version learns its level from its own in-control days until it "
-                           f"counts {cal.learn_until}, so this limit holds exactly meanwhile; "
-                           "the first refit stops the learning")
-            elif cal.calibrated:
-                promise = f"held with probability {fmt(cal.guarantee, 2)}"
-            else:
-                promise = f"with the fitted values taken as exact: {cal.reason}"
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
-                         f"{fmt(cal.target_arl, 4)} days between false alarms, {promise})")
+                         f"{fmt(cal.target_arl, 4)} days between false alarms, "
+                         f"{self.promise()})")
             if cal.learn_until and base.fit_days:
                 lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
         found = [f for f in self.findings() if f.found]
@@ -120,8 +113,30 @@ class VersionView:
         elif base.diagnosis is not None:
             lines.append("  the fit window shows no persistence, weekday rhythm, spread growing "
                          "with the predictors or excess outliers")
+        if v.note:
+            lines.append(f"  about it: {v.note}")
         lines.extend(f"  note: {note}" for note in v.draft.notes)
         return "\n".join(lines)
+
+    def promise(self) -> str | None:
+        """How far the bias chart's false-alarm spacing can be relied on (text and JSON)."""
+        v = self.version
+        cal = v.baseline.calibration
+        if cal is None:
+            return None
+        if cal.learn_until:
+            return (f"self-starting: fitted on fewer than {cal.learn_until} days, the version "
+                    "learns its level from its own in-control days until it counts "
+                    f"{cal.learn_until}, so this limit holds exactly meanwhile; the first refit "
+                    "stops the learning")
+        if cal.calibrated:
+            return f"held with probability {fmt(cal.guarantee, 2)}"
+        if v.source == VersionSource.IMPORT:
+            return ("but only if the imported coefficients and scatter are exact: the file "
+                    "carries no days of the fit window, so their estimation error is not "
+                    "allowed for (a version fitted here allows for it); if the line was fitted "
+                    "on few rows, false alarms may come sooner")
+        return f"but only if the fitted values are exact ({cal.reason})"
 
     def learning_text(self, fit_days: int, learn_until: int) -> str:
         """How far a self-starting version has learned its level."""
@@ -173,11 +188,22 @@ class ModelLine:
     versions: int
     status: str | None
     last_checked_day: date | None
+    checked_version: int | None = None  # the version the last check scored with
 
     def as_dict(self) -> dict[str, Any]:
         return {"model": self.name, "formula": self.formula,
                 "active_version": self.active_version, "versions": self.versions,
-                "status": self.status, "last_checked_day": self.last_checked_day}
+                "status": self.status, "last_checked_day": self.last_checked_day,
+                "last_check_version": self.checked_version}
+
+    def sentence(self) -> str:
+        active = f"v{self.active_version}" if self.active_version else "no active version"
+        state = "not checked yet"
+        if self.status:
+            under = (f" under v{self.checked_version}"
+                     if self.checked_version != self.active_version else "")
+            state = f"{self.status}{under} (checked through {self.last_checked_day})"
+        return f"{self.name}: {self.formula}; {active} of {self.versions}; {state}"
 
 
 def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
@@ -187,8 +213,11 @@ def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> lis
             versions = list_versions(conn, model.id)
             active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
             last = last_check(conn, model.id)
+            checked = next((v.number for v in versions
+                            if last is not None and v.id == last.version_id), None)
             out.append(ModelLine(model.name,
                                  f"{model.response} ~ {' + '.join(model.predictors)}",
                                  active.number if active else None, len(versions),
-                                 last.status if last else None, last.day if last else None))
+                                 last.status if last else None, last.day if last else None,
+                                 checked))
     return out

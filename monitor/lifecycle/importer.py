@@ -3,8 +3,14 @@
 Required: ``response``, ``predictors``, ``time_column``, ``coefficients`` (a table keyed by
 ``intercept`` and each predictor), ``s`` and ``dof``. Optional: ``id_column``, ``level``,
 ``covariance`` (rows and columns in the order intercept, predictors…), ``n``, ``fit_start``,
-``fit_end``, ``active_from``, ``tau2`` and ``sigma_w2`` (day effects), ``dispersion``, and
-``ranges`` (the fitted predictor ranges, ``{column = [low, high]}``).
+``fit_end``, ``active_from``, ``tau2`` and ``sigma_w2`` (day effects), ``dispersion``,
+``ranges`` (the fitted predictor ranges, ``{column = [low, high]}``) and ``note``. README,
+"The model import file", documents each key with its unit (``tests/test_fit_import.py``
+imports the example there and checks that every key is described).
+
+An imported version has no fit window in the database: its bias chart limit takes the imported
+values as exact, and it gets no slope test or within-day slope chart (both need the fit
+window's day statistics); the import says so.
 """
 
 from __future__ import annotations
@@ -42,6 +48,14 @@ from monitor.store.engine import write_transaction
 from monitor.store.models import create_model, find_model
 from monitor.store.versions import active_version, insert_version
 
+# Said of every imported version (model import, model show): what it cannot do, and the way out.
+NO_SLOPE_TEST = (
+    "no slope test and no within-day slope chart: both compare recent days with the fit "
+    "window's rows day by day (each day's count, means and spread), which a description of the "
+    "line does not carry; the bias chart, the coverage test and the spread test run as usual. "
+    "To have them, fit a version here from stored rows ('fitwatch refit {name} --start DAY', "
+    "or 'fitwatch model fit {name} --data FILE') and promote it")
+FORMAT_DOC = "the README's section 'The model import file' explains each key"
 REQUIRED = ("response", "predictors", "time_column", "coefficients", "s", "dof")
 OPTIONAL = ("id_column", "level", "covariance", "n", "fit_start", "fit_end", "active_from",
             "tau2", "sigma_w2", "dispersion", "ranges", "note")
@@ -52,6 +66,16 @@ class ImportReport:
     model: ModelRecord
     version: Version
     warnings: tuple[str, ...]
+
+    def sentence(self) -> str:
+        v, name = self.version, self.model.name
+        source = f" from {v.draft.imported_from}" if v.draft.imported_from else ""
+        if v.state == VersionState.ACTIVE:
+            state = f"active: it scores days from {v.active_from}"
+        else:
+            state = (f"a candidate: 'fitwatch promote {name} {v.number}' makes it the active "
+                     "version")
+        return f"{name}: version {v.number} imported{source} ({state})"
 
 
 def read_description(path: Path) -> dict[str, Any]:
@@ -71,10 +95,11 @@ def read_description(path: Path) -> dict[str, Any]:
     unknown = sorted(set(data) - set(REQUIRED) - set(OPTIONAL))
     if unknown:
         raise InputError(f"{path}: unknown key '{unknown[0]}'; allowed: "
-                         + ", ".join(REQUIRED + OPTIONAL))
+                         + ", ".join(REQUIRED + OPTIONAL) + f" ({FORMAT_DOC})")
     missing = [k for k in REQUIRED if k not in data]
     if missing:
-        raise InputError(f"{path}: missing key(s) " + ", ".join(f"'{m}'" for m in missing))
+        raise InputError(f"{path}: missing key(s) " + ", ".join(f"'{m}'" for m in missing)
+                         + f" ({FORMAT_DOC})")
     return data
 
 
@@ -137,6 +162,7 @@ def import_model(settings: Settings, name: str, path: Path, *, now: datetime | N
                      "slightly too narrow away from the fitted centre")
     if tau2 is None:
         notes.append("no day-effect variances (tau2, sigma_w2): days are assumed independent")
+    notes.append(NO_SLOPE_TEST.format(name=name))
     fit_start, fit_end = _day(data, "fit_start", path), _day(data, "fit_end", path)
     cs = settings.for_model(name).check
     line = Line(terms=terms, coefficients=coef, s=float(s), dof=int(dof), level=float(level),

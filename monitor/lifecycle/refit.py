@@ -17,6 +17,7 @@ from typing import Any
 from sqlalchemy import Connection, Engine
 
 from monitor.config import Settings
+from monitor.domain.action import Action
 from monitor.domain.check import DayCheck
 from monitor.domain.model import ModelRecord
 from monitor.domain.status import Status
@@ -49,6 +50,10 @@ class Transition:
     previous: int | None  # the version in force before it
     reason: str | None
     actor: str
+    copy_of: int | None = None  # rollback: the earlier version whose line is active again
+    advice: Status | None = None  # ack: the status acknowledged ...
+    advice_since: date | None = None  # ... and the day it was first advised
+    previous_scored: bool = True  # False: rolled back before the previous version scored a day
 
     def as_dict(self) -> dict[str, Any]:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -56,11 +61,21 @@ class Transition:
     def sentence(self) -> str:
         why = f" ({self.reason})" if self.reason else ""
         if self.action == "ack":
-            return (f"{self.model}: advice acknowledged by {self.actor}{why}; the bias chart "
-                    f"restarts on {self.effective_day}")
-        verb = "promoted" if self.action == "promote" else "rolled back to"
-        return (f"{self.model}: version {self.active} {verb} by {self.actor}{why}; it scores days "
-                f"from {self.effective_day} (version {self.previous} scored the days before)")
+            advice = (f"the {self.advice} advice (since {self.advice_since})"
+                      if self.advice and self.advice_since else "the advice")
+            return (f"{self.model}: {advice} acknowledged by {self.actor}{why}; the model stays "
+                    f"on version {self.active} and its charts restart on {self.effective_day}, "
+                    "the first day not checked yet")
+        if self.action == "rollback":
+            return (f"{self.model}: rolled back to version {self.copy_of} by {self.actor}{why}: "
+                    f"its line is active again as version {self.active} (a copy under a new "
+                    "number, because each version scores one unbroken run of days) and scores "
+                    f"days from {self.effective_day}; version {self.previous} "
+                    + ("scored the days before" if self.previous_scored else
+                       "never scored a day (its promotion had not taken effect)"))
+        return (f"{self.model}: version {self.active} promoted by {self.actor}{why}; it scores "
+                f"days from {self.effective_day} (version {self.previous} scored the days "
+                "before)")
 
 
 def refit(settings: Settings, name: str, *, start: date | None = None, end: date | None = None,
@@ -123,7 +138,12 @@ def promote(settings: Settings, name: str, number: int, *, reason: str | None = 
 def rollback(settings: Settings, name: str, *, reason: str | None = None,
              now: datetime | None = None, actor: str | None = None,
              engine: Engine | None = None) -> Transition:
-    """Bring back the version that was active before the current one (as a new number)."""
+    """Bring back the version that was active before the current one, as a new number.
+
+    Each version scores one unbroken run of days (the checks and the audit log replay that
+    history), so the earlier version's record stays as it was and a copy of its line takes
+    over on the next unchecked day, with fresh charts.
+    """
     now, actor = now or datetime.now(UTC), actor or actor_name()
     with database(settings, engine) as db, write_transaction(db) as conn:
         model = get_model(conn, name)
@@ -138,18 +158,30 @@ def rollback(settings: Settings, name: str, *, reason: str | None = None,
         copy = insert_version(conn, model.id, target.copied(f"copy of version {target.number}"),
                               state=VersionState.CANDIDATE,
                               active_from=None, now=now, actor=actor)
+        scored = current.active_from is not None and current.active_from < day
         _hand_over(conn, current, copy, day)
+        for v in earlier:  # a promotion not in force yet left its predecessor scoring past day
+            if v.active_from is not None and v.active_from < day \
+                    and v.active_until is not None and v.active_until >= day:
+                set_state(conn, v, state=v.state, active_from=v.active_from,
+                          active_until=day - timedelta(days=1))
         audit.record(conn, action="rollback", actor=actor, at=now, model_id=model.id,
                      reason=reason, version_id=copy.id, effective_day=day,
                      details={"version": copy.number, "copy_of": target.number,
-                              "previous": current.number})
-    return Transition(name, "rollback", day, copy.number, current.number, reason, actor)
+                              "previous": current.number, "previous_scored": scored})
+    return Transition(name, "rollback", day, copy.number, current.number, reason, actor,
+                      copy_of=target.number, previous_scored=scored)
 
 
 def acknowledge(settings: Settings, name: str, *, reason: str | None = None,
                 now: datetime | None = None, actor: str | None = None,
                 engine: Engine | None = None) -> Transition:
-    """Accept the current advice without a new version: the chart restarts, a refit is released."""
+    """Accept the current advice without a new version: the chart restarts, a refit is released.
+
+    Refused (a :class:`StateError`, nothing recorded) when there is no advice, when the advice
+    was already acknowledged and no day has been checked since, and when a promotion or
+    rollback not yet checked will restart the charts anyway.
+    """
     now, actor = now or datetime.now(UTC), actor or actor_name()
     with database(settings, engine) as db, write_transaction(db) as conn:
         model = get_model(conn, name)
@@ -159,10 +191,29 @@ def acknowledge(settings: Settings, name: str, *, reason: str | None = None,
             state = "not been checked yet" if last is None else f"been ok since {last.status_since}"
             raise StateError(f"'{name}' has {state}: there is no advice to acknowledge")
         day = last.day + timedelta(days=1)
+        _refuse_pending(name, last, audit.actions(conn, model.id, day, settings.timezone))
         audit.record(conn, action="ack", actor=actor, at=now, model_id=model.id, reason=reason,
                      version_id=current.id, effective_day=day,
-                     details={"status": last.status, "since": last.status_since.isoformat()})
-    return Transition(name, "ack", day, current.number, current.number, reason, actor)
+                     details={"status": last.status, "since": last.status_since.isoformat(),
+                              "version": current.number})
+    return Transition(name, "ack", day, current.number, current.number, reason, actor,
+                      advice=last.status, advice_since=last.status_since)
+
+
+def _refuse_pending(name: str, last: DayCheck, pending: list[Action]) -> None:
+    """An acknowledgement changes nothing while an earlier action awaits its first check."""
+    takeover = next((a for a in reversed(pending) if a.takes_over), None)
+    if takeover is not None:
+        raise StateError(
+            f"'{name}': version {takeover.version} takes over on {takeover.effective_day} "
+            f"({takeover.how()}) with fresh charts, so the advice of the days before is "
+            "released already and there is none under it yet; nothing changed")
+    ack = next((a for a in reversed(pending) if a.action == "ack"), None)
+    if ack is not None:
+        raise StateError(
+            f"'{name}': the {last.status} advice (since {last.status_since}) was already "
+            f"{ack.how()}; the charts restart on {ack.effective_day}, the first day not "
+            "checked yet; nothing changed")
 
 
 def _active(conn: Connection, model: ModelRecord) -> Version:

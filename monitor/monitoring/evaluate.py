@@ -25,9 +25,10 @@ from monitor.domain.check import (
     SideRun,
     SlopeChartDay,
     SupFSummary,
+    coverage_span,
 )
 from monitor.domain.days import as_date
-from monitor.domain.phrasing import percent
+from monitor.domain.phrasing import percent, window_span
 from monitor.domain.status import Status
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
 from monitor.monitoring.context import VersionContext
@@ -98,6 +99,9 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     w_cov = sum(c.covered for c in recent_cov)
     cov = (ctx.misses.test([c.rows for c in recent_cov], w_cov, level, ctx.dispersion)
            if w_rows else None)
+    window_first, window_held = coverage_span(data.day, window, carry.fresh_from)
+    window_version = (ctx.version.number if carry.fresh_from is not None
+                      and carry.fresh_from == ctx.version.active_from else None)
     carry = replace(carry, coverage_days=carried,
                     state=replace(carry.state, day_spread=today.spread))
     h = ctx.limit(carry.state)
@@ -112,7 +116,8 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         spread = _spread(ctx, data.recent_days, carried, settings.test_window_days)
 
     if cov is not None and cov.pvalue_high < settings.watch_pvalue:
-        notes.append(_wider_than_needed(ctx, cov.coverage, window))
+        notes.append(_wider_than_needed(ctx, cov.coverage, window_span(
+            window_held, window, window_first, window_version)))
     evidence = Evidence(
         coverage_pvalue_low=cov.pvalue_low if cov else float("nan"),
         coverage_pvalue_high=cov.pvalue_high if cov else float("nan"),
@@ -166,8 +171,10 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
         old_slopes=ctx.version.coefficients[1:], new_slopes=recent_fit,
         predictors=ctx.version.terms[1:], slope=slope, spread=spread, since=since,
         held_since=carry.status_since if verdict.held else None, slope_chart=slope_chart,
-        slope_onset=carry.state.slope_onset,
+        slope_onset=carry.state.slope_onset, window_first=window_first,
+        window_held=window_held, window_version=window_version,
         extrapolated=int(scores.extrapolated.sum()) if scores else 0,
+        typical_x=ctx.version.line.xmean,
     )
     reasons = reasons_for(verdict, figures, words, response)
     if watch_held:
@@ -423,13 +430,13 @@ def _spread(ctx: VersionContext, recent: DayMoments, days: tuple[CoverageDay, ..
                       robust.pvalue, robust.pvalue_narrower, "day spreads")
 
 
-def _wider_than_needed(ctx: VersionContext, coverage: float, window: int) -> str:
+def _wider_than_needed(ctx: VersionContext, coverage: float, span: str) -> str:
     """The notice for a window that covers more often than the in-control law expects."""
     diagnosis = ctx.version.baseline.diagnosis
     own = (f"; the fit window itself covered {percent(diagnosis.fit_coverage)}"
            if diagnosis is not None else "")
-    return (f"intervals are wider than needed: {percent(coverage)} of the last {window} days' "
-            f"rows fell inside{own}. Reported only: it does not change the status (heavy "
+    return (f"intervals are wider than needed: {span} {percent(coverage)} of the rows fell "
+            f"inside{own}. Reported only: it does not change the status (heavy "
             "tails or outliers at fit time make intervals wide for the other rows)")
 
 

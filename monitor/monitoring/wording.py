@@ -11,7 +11,7 @@ from numpy.typing import NDArray
 
 from monitor.config import Wording
 from monitor.domain.check import SlopeChartDay
-from monitor.domain.phrasing import fmt, fmt_p, percent
+from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
@@ -44,6 +44,10 @@ class Figures:
     slope_chart: SlopeChartDay | None = None
     slope_onset: date | None = None  # the within-day slope chart's run began on this day
     extrapolated: int = 0  # rows with a predictor outside the fit window's range
+    typical_x: NDArray[np.float64] | None = None  # the fit window's mean of each predictor
+    window_first: date | None = None  # the coverage window's first day ...
+    window_held: int | None = None  # ... and its days (fewer than window_days after a restart)
+    window_version: int | None = None  # the version whose takeover restarted the window
 
 
 def _amount(value: float, words: Wording, response: str) -> str:
@@ -74,7 +78,9 @@ def _window(f: Figures, words: Wording) -> str:
     w = f.window
     if w is None:
         return ""
-    return (f"over the last {f.window_days} days {percent(w.coverage)} of {w.n} {words.rows} did "
+    span = window_span(f.window_held or f.window_days, f.window_days, f.window_first or f.day,
+                       f.window_version)
+    return (f"{span} {percent(w.coverage)} of {w.n} {words.rows} did "
             f"(plausible range {percent(w.wilson_low)}–{percent(w.wilson_high)})")
 
 
@@ -129,19 +135,79 @@ def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str
     return f"{finding.signal} signal ({finding.level})"
 
 
+def held_reason(since: date | None) -> str:
+    """The first reason of each day a refit stands (``status`` leaves it out once a promotion,
+    rollback or acknowledgement has released it)."""
+    return (f"refit advised since {since.isoformat() if since else '—'}; this stands until a "
+            "new version is promoted or the advice is acknowledged")
+
+
+def plan_terms(verdict: Verdict, f: Figures, words: Wording, response: str) -> str | None:
+    """What the findings mean for plans, in the model's units: for a bias or slope finding, how
+    far a typical row (the fit window's mean of each predictor) now runs from plan, signed,
+    and how much more or less each unit of a predictor adds than planned; for coverage or
+    spread alone, how often rows fall outside their planned range. None without a finding."""
+    signals = {x.signal for x in verdict.findings}
+    if not signals & {"bias", "slope"}:
+        return _range_terms(verdict, f, words)
+    parts = []
+    if math.isfinite(f.cusum_shift) and f.cusum_shift != 0:
+        side = "above" if f.cusum_shift > 0 else "below"
+        at = ""
+        if f.typical_x is not None and len(f.typical_x) == len(f.predictors):
+            at = " (" + ", ".join(f"{name} ≈ {fmt(float(v), 2)}" for name, v in
+                                  zip(f.predictors, f.typical_x, strict=True)) + ")"
+        parts.append(f"a typical {words.row}{at} now runs about "
+                     f"{_amount(f.cusum_shift, words, response)} {side} plan")
+    if f.new_slopes is not None:
+        for name, old, new in zip(f.predictors, f.old_slopes, f.new_slopes, strict=True):
+            if not (math.isfinite(old) and math.isfinite(new)) or new == old:
+                continue
+            more = "more" if new > old else "less"
+            parts.append(f"each {words.x_unit(name)} adds about "
+                         f"{_amount(new - old, words, response)} {more} than planned")
+    if not parts:
+        return None
+    return _capital("in plan terms: " + "; ".join(parts))
+
+
+def _range_terms(verdict: Verdict, f: Figures, words: Wording) -> str | None:
+    """Coverage or spread findings in plan terms: the planned ranges are too narrow or wide."""
+    outside = 1 - f.level
+    for x in verdict.findings:
+        if x.signal == "coverage" and x.kind == "low" and f.window is not None:
+            return _capital(f"in plan terms: {percent(1 - f.window.coverage)} of {words.rows} "
+                            f"now fall outside their planned range, where the plans allow for "
+                            f"{percent(outside)}")
+        if x.signal == "coverage" and x.kind == "high" and f.window is not None:
+            return _capital(f"in plan terms: only {percent(1 - f.window.coverage)} of "
+                            f"{words.rows} fall outside their planned range, where the plans "
+                            f"allow for {percent(outside)}: the ranges carry more slack than "
+                            "needed")
+        if x.signal == "spread" and f.spread is not None:
+            return _capital(f"in plan terms: {words.rows} scatter "
+                            f"{percent(f.spread.ratio - 1)} more around plan than when it was "
+                            "fitted, so the planned ranges are too narrow")
+    return None
+
+
 def reasons_for(verdict: Verdict, f: Figures, words: Wording, response: str) -> list[str]:
-    """The day's reasons, strongest first; an ``ok`` day says what was seen."""
+    """The day's reasons, strongest first, led by what they mean for plans; an ``ok`` day says
+    what was seen. A day's own coverage is a reason only when it supports the finding (below
+    the level, or no rows)."""
     out = []
+    plain = plan_terms(verdict, f, words, response)
+    if plain is not None:
+        out.append(plain)
     if verdict.held:
-        out.append(f"refit advised since {f.held_since.isoformat() if f.held_since else '—'}; "
-                   "this stands until a new version is promoted or the advice is acknowledged")
+        out.append(held_reason(f.held_since))
     out.extend(_capital(_finding(x, f, words, response)) for x in verdict.findings)
     today = _coverage_today(f, words)
     if not verdict.findings:
         chart = (f"the bias chart stands at {fmt(f.cusum_value, 2)} of its limit {fmt(f.h, 2)}"
                  if f.cusum_value > 0 else "the bias chart is at zero")
         out.append(_capital(f"no sign of change: {today}; {chart}"))
-    else:
+    elif f.n == 0 or f.covered / f.n < f.level:
         out.append(_capital(today))
     return out
 

@@ -6,9 +6,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Any
+from zoneinfo import ZoneInfo
 
 from sqlalchemy import Connection, insert, select
 
+from monitor.domain.action import RESTART_ACTIONS, Action
+from monitor.domain.days import local_day
 from monitor.store.schema import audit_log, inserted_id, jsonable, models, versions
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete",
@@ -114,3 +117,17 @@ def detach(conn: Connection, model_id: int, name: str) -> None:
             kept.setdefault("version", number)
         conn.execute(audit_log.update().where(audit_log.c.id == entry_id)
                      .values(model_id=None, version_id=None, details=jsonable(kept)))
+
+
+def actions(conn: Connection, model_id: int, from_day: date,
+            zone: ZoneInfo | None = None) -> list[Action]:
+    """The promotions, rollbacks and acknowledgements taking effect on ``from_day`` or later,
+    in the order they were recorded (``zone``: the local day each was recorded on)."""
+    out = []
+    for e in entries(conn, model_id, RESTART_ACTIONS, from_day=from_day):
+        details = e.details or {}
+        assert e.effective_day is not None  # every restart action has one
+        out.append(Action(e.action, e.effective_day, e.actor, e.reason, details.get("version"),
+                          details.get("previous"), details.get("copy_of"),
+                          local_day(e.at, zone) if zone is not None else None))
+    return out

@@ -94,6 +94,32 @@ def find_batches_by_hash(conn: Connection, model_id: int, file_hash: str) -> lis
     return [_record(row._mapping) for row in rows]
 
 
+def batches_between(conn: Connection, model_id: int, start: datetime,
+                    end: datetime) -> list[BatchRecord]:
+    """Finished batches of the model started from ``start`` through ``end``, oldest first."""
+    rows = conn.execute(select(batches).where(
+        batches.c.model_id == model_id, batches.c.status != "open",
+        batches.c.started_at >= start, batches.c.started_at <= end).order_by(batches.c.id))
+    return [_record(row._mapping) for row in rows]
+
+
+def first_rejected_row(conn: Connection, batch_ids: Sequence[int],
+                       reason: str) -> tuple[int, RejectedRow] | None:
+    """The first row rejected for ``reason`` in the newest of ``batch_ids`` that has one, with
+    that batch's id."""
+    if not batch_ids:
+        return None
+    row = conn.execute(
+        select(rejected_rows.c.batch_id, rejected_rows.c.line, rejected_rows.c.raw,
+               rejected_rows.c.reason, rejected_rows.c.detail)
+        .where(rejected_rows.c.batch_id.in_(list(batch_ids)), rejected_rows.c.reason == reason)
+        .order_by(rejected_rows.c.batch_id.desc(), rejected_rows.c.line, rejected_rows.c.id)
+        .limit(1)).first()
+    if row is None:
+        return None
+    return int(row.batch_id), RejectedRow(int(row.line), row.raw, row.reason, row.detail)
+
+
 def add_rejected_rows(conn: Connection, batch_id: int,
                       rows: Sequence[tuple[int, str, str, str]]) -> None:
     """Record rejected rows as (line, raw text, reason code, detail)."""

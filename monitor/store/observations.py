@@ -191,6 +191,13 @@ def neighbour_days(conn: Connection, model: ModelRecord, day: date
     return before, after
 
 
+def last_day_with_rows(conn: Connection, model: ModelRecord, through: date) -> date | None:
+    """The latest day of ``model`` on or before ``through`` that has stored rows, or None."""
+    return conn.execute(select(func.max(day_stats.c.day)).where(
+        day_stats.c.model_id == model.id, day_stats.c.n > 0,
+        day_stats.c.day <= through)).scalar()
+
+
 def last_observed_at(conn: Connection, model: ModelRecord) -> datetime | None:
     """The latest stored observation time of ``model`` (UTC), or None."""
     last_day = conn.execute(select(func.max(observations.c.day))

@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from datetime import date, datetime
 
-from sqlalchemy import Connection, and_, select
+from sqlalchemy import Connection, and_, func, select
 from sqlalchemy.sql.expression import Join
 
 from monitor.store.schema import day_checks, queued_nights
@@ -46,3 +46,9 @@ def mark_queued(conn: Connection, model_ids: Iterable[int], night: date, now: da
         return
     conn.execute(insert_for(conn, queued_nights).values(values).on_conflict_do_nothing(
         index_elements=[queued_nights.c.model_id, queued_nights.c.day]))
+
+
+def last_queued_at(conn: Connection, model_id: int, before: date) -> datetime | None:
+    """When the model's latest night before ``before`` was queued (None: never)."""
+    return conn.execute(select(func.max(queued_nights.c.queued_at)).where(
+        queued_nights.c.model_id == model_id, queued_nights.c.day < before)).scalar()

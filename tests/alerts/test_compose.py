@@ -10,6 +10,7 @@ reference reader; the PNG signature from the PNG specification (ISO/IEC 15948, Â
 from __future__ import annotations
 
 import re
+from dataclasses import replace
 from datetime import UTC, date, datetime, timedelta
 from email import policy
 from email.message import EmailMessage
@@ -23,9 +24,9 @@ from monitor.alerts.compose import (
     next_command,
     subject,
 )
-from monitor.alerts.news import Digest, model_news
+from monitor.alerts.news import Action, Digest, model_news
 from monitor.config import AlertSettings, Wording
-from monitor.domain.check import CheckDetails
+from monitor.domain.check import CheckDetails, CheckState
 from monitor.report.charts import alert_chart_png
 from tests.support.mail import day_check
 from tests.support.png import PNG_SIGNATURE
@@ -142,7 +143,9 @@ def test_key_figures_and_wording_are_in_the_model_units() -> None:
     assert "365 of 839 loads inside the interval over the last 14 days" in text
     assert "Bias chart: 14.2 vs limit 10.9 (over)" in text
     assert "each pallet: 2.62 min now, 2.09 min in the plan (+25 %)" in text
-    assert "F = 449, p < 0.001, change since about 2026-03-16" in text
+    # no bare test statistic: the p-value says how sure, the figures above say how much
+    assert "slope change test p < 0.001, change since about 2026-03-16" in text
+    assert "F = " not in text
 
 
 def test_subjects_and_next_commands() -> None:
@@ -181,3 +184,51 @@ def test_a_digest_chart_names_the_models_it_shows_and_points_to_the_report_for_t
     left_out = [item.model for item in digest.items[4:]]
     assert f"For {', '.join(left_out)}, see 'fitwatch report'." in composed.text
     assert all(f"{m} (level 95 %)" in composed.html for m in shown)
+
+
+def _restart_text(action: Action, check) -> str:
+    news = model_news("dock_loading", NIGHT, check, None, [action],
+                      AlertSettings(to=(LEAD,)))
+    assert news is not None
+    context = replace(_context(), version=action.version, version_from=NIGHT)
+    msg, _ = _message(Digest(LEAD, NIGHT, (news,)), {"dock_loading": context})
+    return _parse(msg).get_body(("plain",)).get_content()  # type: ignore[union-attr]
+
+
+def test_the_first_mail_after_a_promotion_counts_only_the_days_under_the_new_version() -> None:
+    # Issue 13: the first digest after a promotion said "26 of 26 ... over the last 14 days"
+    # after one day; the coverage window restarts with the new version, so it holds one day.
+    first_day = day_check(NIGHT, "ok", NIGHT, version_id=2, n=26, covered=26, window_n=26,
+                          window_covered=26, window_coverage=1.0,
+                          state=CheckState(fresh_from=NIGHT))
+    text = _restart_text(Action("promote", NIGHT, "lead", "new layout", 2, 1), first_day)
+    assert ("26 of 26 loads inside the interval on the 1 day under version 2 (from "
+            "2026-04-12)") in text
+    assert "over the last 14 days" not in text
+    # a full window again after 14 days under it
+    later = day_check(NIGHT, "ok", NIGHT - timedelta(days=13), version_id=2,
+                      state=CheckState(fresh_from=NIGHT - timedelta(days=13)))
+    assert "948 of 1000 loads inside the interval over the last 14 days" in \
+        _restart_text(Action("promote", NIGHT, "lead", None, 2, 1), later)
+
+
+def test_a_rollback_mail_names_the_version_that_came_back_and_its_new_number() -> None:
+    check = day_check(NIGHT, "ok", NIGHT, version_id=4, state=CheckState(fresh_from=NIGHT))
+    text = _restart_text(Action("rollback", NIGHT, "lead", "wrong window", 4, 3, copy_of=1),
+                         check)
+    assert ("lead rolled back to version 1 (wrong window): its line plans again, as version 4, "
+            "from 2026-04-12") in text
+    assert "on the 1 day under version 4" in text
+
+
+def test_after_an_acknowledgement_the_window_counts_the_days_since() -> None:
+    since = NIGHT - timedelta(days=2)
+    check = day_check(NIGHT, "ok", since, state=CheckState(fresh_from=since))
+    item = model_news("dock_loading", NIGHT, check, None,
+                      [Action("ack", NIGHT, "lead", None, 1, 1)], AlertSettings(to=(LEAD,)))
+    assert item is not None
+    composed = compose(Digest(LEAD, NIGHT, (item,)),
+                       {"dock_loading": replace(_context(), version_from=date(2026, 3, 9))},
+                       key=dedupe_key(LEAD, NIGHT), chart_models=())
+    assert ("inside the interval on the 3 days since the advice was acknowledged (2026-04-10)"
+            in composed.text)

@@ -7,21 +7,25 @@ takes effect, one digest per recipient per night; reminders count from the statu
 
 from __future__ import annotations
 
-from datetime import date, timedelta
+from dataclasses import replace
+from datetime import UTC, date, datetime, timedelta
 
 import pytest
 
 from monitor.alerts.news import (
+    DATA,
     ENTERED,
     REMINDER,
     RESTART,
     SETTLED,
     Action,
+    data_is_news,
     digests,
     mailed_statuses,
     model_news,
 )
 from monitor.config import AlertSettings
+from monitor.domain.data_health import BadFile, DataHealth, RisingRejections, SilentFeed
 from tests.support.mail import day_check
 
 START = date(2026, 3, 9)
@@ -137,3 +141,54 @@ def test_one_digest_per_recipient_with_per_model_recipients() -> None:
         digests([dock, model_news("dock_loading", night + timedelta(days=1),
                                   day_check(night + timedelta(days=1), "watch"), None, [],
                                   ALERTS)])
+
+
+# data health ------------------------------------------------------------------------------------
+def _silent(flagged_on: date) -> SilentFeed:
+    return SilentFeed(START, START + timedelta(days=1), flagged_on, 3, 3.0, 1e-4, 0.001,
+                      flagged_on, "the fit window")
+
+
+def _bad(batch_id: int) -> BadFile:
+    return BadFile(batch_id, "loads.csv", datetime(2026, 3, 10, 3, tzinfo=UTC), 56, 56, True,
+                   (), None)
+
+
+def _rising() -> RisingRejections:
+    return RisingRejections(7, 50, 500, 10, 10_000, 0.001, 1e-20, (), None)
+
+
+def test_a_silent_feed_is_news_when_flagged_and_every_remind_days_after() -> None:
+    flagged = START + timedelta(days=4)
+    data = DataHealth("dock_loading", silent=_silent(flagged))
+    news = {}
+    for i in range(4, 12):
+        night = START + timedelta(days=i)
+        item = model_news("dock_loading", night, day_check(night, "ok", START),
+                          day_check(night - timedelta(days=1), "ok", START), [], ALERTS,
+                          data=replace(data, silent=replace(data.silent, through=night)),
+                          data_before=data)
+        news[i] = item.events if item else None
+    assert news == {4: (DATA,), 5: None, 6: None, 7: (DATA,), 8: None, 9: None, 10: (DATA,),
+                    11: None}
+
+
+def test_a_bad_file_is_news_once_and_a_rising_share_on_entering() -> None:
+    night = START + timedelta(days=2)
+    assert data_is_news(night, DataHealth("m", bad_files=(_bad(3),)), None, 3)
+    assert not data_is_news(night, DataHealth("m", bad_files=(_bad(3),)),
+                            DataHealth("m", bad_files=(_bad(3),)), 3)
+    assert data_is_news(night, DataHealth("m", bad_files=(_bad(3), _bad(4))),
+                        DataHealth("m", bad_files=(_bad(3),)), 3)
+    assert data_is_news(night, DataHealth("m", rising=_rising()), DataHealth("m"), 3)
+    assert not data_is_news(night, DataHealth("m", rising=_rising()),
+                            DataHealth("m", rising=_rising()), 3)
+    assert not data_is_news(night, DataHealth("m"), None, 3)
+
+
+def test_data_news_is_sent_whatever_statuses_are_mailed() -> None:
+    night = START + timedelta(days=2)
+    quiet = AlertSettings(to=(LEAD,), on=())
+    item = model_news("dock_loading", night, day_check(night, "ok", START), None, [], quiet,
+                      data=DataHealth("dock_loading", bad_files=(_bad(3),)))
+    assert item is not None and item.events == (DATA,) and item.data is not None

@@ -96,6 +96,8 @@ def test_slope_change_through_the_nightly_pipeline(engine: Engine, make_settings
     text = _text(restart)
     assert "version 2 was promoted by lead (new dock layout)" in text
     assert "first day, 2026-04-13, came out ok" in text
+    # the coverage window restarted with version 2: one day, not "the last 14 days"
+    assert "inside the interval on the 1 day under version 2 (from 2026-04-13)" in text
     night(date(2026, 4, 14))
     assert date(2026, 4, 14) not in subjects  # all quiet after the promotion
 
@@ -154,8 +156,9 @@ def test_two_models_per_model_recipients_and_eml_files(engine: Engine, make_sett
         parsed[str(msg["To"])] = msg
     assert parsed[LEAD]["Subject"] == "fitwatch: news on 2 models (1 refit, 1 watch)"
     lead_text = _text(parsed[LEAD])
-    assert lead_text.index("== yard_moves: refit ==") < lead_text.index(
-        "== dock_loading: watch ==")
+    # both models' rows stop with their history (8 March): their data need a look as well
+    assert lead_text.index("== yard_moves: refit; data need a look ==") < lead_text.index(
+        "== dock_loading: watch; data need a look ==")
     assert parsed[OFFICE]["Subject"] == "fitwatch: yard_moves needs a refit"
     assert "dock_loading" not in _text(parsed[OFFICE])
     # one chart with a pair of panels per model, most pressing first, and it says so

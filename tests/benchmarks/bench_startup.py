@@ -1,6 +1,6 @@
 """How long do the quick commands take to answer, against the floor of what they must import?
 
-    python tests/benchmarks/bench_startup.py [--repeats 15] [--db PATH]
+    python tests/benchmarks/bench_startup.py [--repeats 15] [--config FILE] [--against DIR]
 
 Builds the demo database once (or uses ``--db``, a fitwatch.toml of an existing one), then times
 ``--help``, ``status``, ``model list`` and ``model show`` as separate processes, each run
@@ -9,6 +9,10 @@ disturbs less than wall time). Baselines measured in the same run: a bare interp
 (``python -c pass``) and the floor every database command pays, the import of numpy and
 SQLAlchemy's engine. Goal (issue 14): each command <= 0.3 s, and <= 0.5 s for any command
 before its work starts.
+
+``--against DIR`` times the fitwatch commands of another checkout too (e.g. an earlier commit,
+``git worktree add /tmp/old COMMIT``), interleaved with this one's, on the same database or, with
+``--against-config``, on a copy at its own schema revision.
 
 The interpreter is called directly (``sys.executable``), not through a version manager's shim,
 and bytecode caching is on (``PYTHONDONTWRITEBYTECODE`` is removed), as in an installed copy.
@@ -29,7 +33,10 @@ from pathlib import Path
 
 
 def timed(argv: list[str], env: dict[str, str], cwd: Path) -> tuple[float, float]:
-    """(wall, cpu) seconds of one run of ``argv``."""
+    """(wall, cpu) seconds of one run of ``argv`` (``PYTHONPATH=DIR`` before it: that env)."""
+    if argv[0].startswith("PYTHONPATH="):
+        env = {**env, "PYTHONPATH": argv[0].split("=", 1)[1]}
+        argv = argv[1:]
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     subprocess.run(argv, env=env, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
@@ -44,6 +51,9 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--repeats", type=int, default=15)
     parser.add_argument("--config", type=Path, help="fitwatch.toml of an existing database")
+    parser.add_argument("--against", type=Path, help="another checkout to time as well")
+    parser.add_argument("--against-config", type=Path,
+                        help="its database's fitwatch.toml (when its schema revision differs)")
     args = parser.parse_args()
     env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
     py = sys.executable
@@ -65,6 +75,12 @@ def main() -> None:
             "fitwatch model show": [py, "-m", "monitor", "--config", str(config),
                                     "model", "show", "dock_loading"],
         }
+        if args.against is not None:
+            older = f"PYTHONPATH={args.against.resolve()}"
+            theirs = str(args.against_config or config)
+            for name in [n for n in cases if n.startswith("fitwatch")]:
+                argv = [theirs if a == str(config) else a for a in cases[name]]
+                cases[f"{name} (against)"] = [older, *argv]
         for argv in cases.values():  # warm the bytecode cache and the file cache
             timed(argv, env, work)
         runs: dict[str, list[tuple[float, float]]] = {name: [] for name in cases}

@@ -114,6 +114,16 @@ def test_1_for_a_cron_the_scheduler_refuses_naming_the_key_and_the_file(
     assert "minute field '99'" in result.stderr
 
 
+def test_options_may_come_before_the_files(cli) -> None:
+    # argparse ends a list of positionals at the first option: "ingest NAME --strict FILE" was
+    # "unrecognized arguments"; the files after the options now join the list
+    later = [str(p) for p in NIGHTS if "2026-04-06" <= p.name[6:16] <= "2026-04-07"]
+    code, out, err = cli("ingest", MODEL, "--strict", *later)
+    assert code == 0 and out.count("stored") == 2, err
+    code, _, err = cli("ingest", MODEL, "--bogus", later[0])
+    assert code == UsageError.exit_code and "unrecognized arguments: --bogus" in err
+
+
 def test_1_for_an_unknown_model(cli) -> None:
     code, _, err = cli("model", "show", "nope")
     assert code == NotFoundError.exit_code == 1 and err.startswith("fitwatch: ") and "nope" in err

@@ -194,7 +194,7 @@ def test_a_file_rejected_whole_says_how_many_good_rows_went_with_it(cli, world: 
     path = world.tmp / "strict.csv"
     path.write_text(good.to_csv(index=False) + BAD_ROW.replace("L260413", "L260414") + "\n")
     code, _, err = cli("ingest", MODEL, str(path), "--strict")
-    assert code == 0, err
+    assert code == 1 and "was rejected whole" in err  # nothing stored: a file to look at
     listed = json.loads(cli("rows", MODEL, "--rejected", "--json")[1])["batches"]
     batch = listed[-1]
     assert (batch["status"], batch["read"], batch["rejected"]) == ("rejected", 3, 3)
