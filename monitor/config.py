@@ -111,6 +111,22 @@ class IngestSettings:
     earliest_day: date = date(1990, 1, 1)
 
 
+# The shortest horizon ``storage.keep_rows_days`` accepts. What needs raw rows: the check of a
+# day (unchecked and stale days are never pruned), ``rows --day``, compare's held-out days (at
+# most 14 days with rows by default) and a fit's window (``refit`` fits from the estimated change
+# day, and the version's diagnosis, spread reference and miss dispersion are computed from rows).
+# 60 days keep a refit from the change day possible for about two months after it (detection
+# takes a median of 7 days) and let corrections up to two months late go in.
+MIN_KEEP_ROWS_DAYS = 60
+
+
+@dataclass(frozen=True)
+class StorageSettings:
+    """Retention of raw observations (SPEC §4)."""
+
+    keep_rows_days: int = 0  # 0: keep every row; else the rows of the last N checked days
+
+
 @dataclass(frozen=True)
 class ReportSettings:
     """The team page the nightly run refreshes (``report --all``), when ``dir`` is set."""
@@ -175,6 +191,7 @@ class Settings:
     alerts: AlertSettings = field(default_factory=AlertSettings)
     ingest: IngestSettings = field(default_factory=IngestSettings)
     report: ReportSettings = field(default_factory=ReportSettings)
+    storage: StorageSettings = field(default_factory=StorageSettings)
     models: Mapping[str, ModelSettings] = field(default_factory=dict)
     source: str | None = None
 
@@ -231,7 +248,7 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     """Validate a parsed TOML document into :class:`Settings`."""
     r = _Reader(source)
     top = r.table(data, "", {"database", "schedule", "check", "alerts", "ingest", "report",
-                             "models"})
+                             "storage", "models"})
     db = r.table(top.get("database", {}), "database", {"url"})
     url = r.string(db, "database.url", Settings.database_url, non_empty=True)
 
@@ -257,6 +274,13 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     report = ReportSettings(dir=r.string(rep, "report.dir", ""),
                             days=r.integer(rep, "report.days", ReportSettings.days, low=1,
                                            high=3660))
+    sto = r.table(top.get("storage", {}), "storage", {"keep_rows_days"})
+    keep = r.integer(sto, "storage.keep_rows_days", 0, low=0)
+    if 0 < keep < MIN_KEEP_ROWS_DAYS:
+        raise r.fail("storage.keep_rows_days",
+                     f"must be 0 (keep every row) or at least {MIN_KEEP_ROWS_DAYS} days (a refit "
+                     f"from the change day and late corrections need the rows); got {keep}")
+    storage = StorageSettings(keep_rows_days=keep)
 
     models: dict[str, ModelSettings] = {}
     for name, section in r.table(top.get("models", {}), "models", None).items():
@@ -283,7 +307,8 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
             else None,
         )
     return Settings(database_url=url, schedule=schedule, check=check, alerts=alerts,
-                    ingest=ingest, report=report, models=models, source=source)
+                    ingest=ingest, report=report, storage=storage, models=models,
+                    source=source)
 
 
 def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> CheckSettings:

@@ -22,6 +22,7 @@ REASONS: dict[str, str] = {
     "dst_ambiguous": "ambiguous local time at a clock change",
     "future_time": "time in the future",
     "too_early": "time before the plausible window",
+    "before_retention": "on a day whose rows were pruned",
     "bad_id": "unusable id",
     "out_of_range": "outside the plausible range",
     "conflict": "conflicts with a stored row",

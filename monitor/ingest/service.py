@@ -60,6 +60,7 @@ from monitor.store.observations import (
     restate_day_stats,
     undo_replacements,
 )
+from monitor.store.retention import kept_from
 
 log = logging.getLogger(__name__)
 
@@ -208,7 +209,7 @@ def _open(model: ModelRecord, path: str | os.PathLike[str], options: IngestOptio
 def _ingest(conn: Connection, model: ModelRecord, source: Source,
             options: IngestOptions) -> IngestSummary:
     rules = Rules(options.timezone, options.ranges, options.now, options.future_tolerance,
-                  options.earliest_day)
+                  options.earliest_day, kept_from(conn, model.id))
     batch_id = start_batch(conn, model.id, source.location, source.content_hash(), source.size,
                            options.strict, options.now)
     tally = Tally()

@@ -43,7 +43,8 @@ _US_UTC = pa.timestamp("us", tz="UTC")
 
 # reason codes in the order the checks run; a row gets the first that applies
 _CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
-          "dst_ambiguous", "bad_id", "out_of_range", "future_time", "too_early")
+          "dst_ambiguous", "bad_id", "out_of_range", "future_time", "too_early",
+          "before_retention")
 _C = {code: i for i, code in enumerate(_CODES)}
 
 
@@ -56,6 +57,7 @@ class Rules:
     now: datetime
     future_tolerance: timedelta
     earliest_day: date = date(1990, 1, 1)  # settings: ingest.earliest_day
+    kept_from: date | None = None  # rows before this day were pruned (retention): refused
 
     @property
     def latest_us(self) -> int:
@@ -66,6 +68,13 @@ class Rules:
     def earliest_us(self) -> int:
         earliest = datetime.combine(self.earliest_day, time(), self.zone).astimezone(UTC)
         return (earliest - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
+
+    @property
+    def kept_from_us(self) -> int | None:
+        if self.kept_from is None:
+            return None
+        start = datetime.combine(self.kept_from, time(), self.zone).astimezone(UTC)
+        return (start - datetime(1970, 1, 1, tzinfo=UTC)) // timedelta(microseconds=1)
 
 
 @dataclass(frozen=True, eq=False)
@@ -132,6 +141,8 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
                 mark((values[:, j] < low) | (values[:, j] > high), "out_of_range", column)
     mark(observed_us > rules.latest_us, "future_time", spec.time_column)
     mark(observed_us < rules.earliest_us, "too_early", spec.time_column)
+    if rules.kept_from_us is not None:  # a pruned day: checking it again would need its rows
+        mark(observed_us < rules.kept_from_us, "before_retention", spec.time_column)
 
     good = code == 0
     rejected = _describe(chunk, np.flatnonzero(~good), code, culprit, columns, values, numeric,
@@ -350,6 +361,10 @@ _DETAILS: dict[str, Callable[[str, Any, Rules], str]] = {
     "too_early": lambda c, v, r: (f"{c} {_when(v)} is before {r.earliest_day.isoformat()}, "
                                   "the earliest plausible day (set ingest.earliest_day earlier "
                                   "if the data really are that old)"),
+    "before_retention": lambda c, v, r: (
+        f"{c} {_when(v)} falls on a day whose rows were pruned (retention keeps rows from "
+        f"{r.kept_from.isoformat() if r.kept_from else '?'}); the day's check cannot take "
+        "rows any more"),
     "future_time": lambda c, v, r: (f"{c} {_when(v)} is later than now "
                                     f"({r.now.astimezone(r.zone):%Y-%m-%d %H:%M %Z}) plus "
                                     f"{r.future_tolerance / timedelta(minutes=1):g} min"),

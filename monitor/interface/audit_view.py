@@ -76,6 +76,15 @@ def what_was_done(e: LogLine) -> str:
                 f" on {len(days)} days, {days[0]} to {days[-1]}" if days else "")
         return (f"corrected {d.get('replaced', '?')} row(s){span} from {d.get('source', '?')} "
                 f"(batch {d.get('batch', '?')}; the replaced values are kept)")
+    if e.action == "prune":
+        first = d.get("first")
+        span = f"{first} to {d.get('through', '?')}" if first else f"through {d.get('through')}"
+        replaced = (f" and {d['replaced_rows']} replaced value(s)" if d.get("replaced_rows")
+                    else "")
+        why = (f"retention keeps {d['keep_rows_days']} days" if d.get("keep_rows_days")
+               else f"before {d.get('before', '?')}")
+        return (f"pruned {d.get('rows', '?')} raw row(s){replaced} on {d.get('days', '?')} "
+                f"day(s), {span} ({why}; day statistics and checks are kept)")
     if e.action == "failure":
         return f"nightly {d.get('stage', 'work')} failed: {d.get('error', '?')}"
     return e.action

@@ -220,6 +220,13 @@ def build_parser() -> argparse.ArgumentParser:
     figures.add_argument("--through", dest="last", metavar="DATE", type=_day,
                          help="last day (default: the last checked day)")
     table_flags(figures)
+    prn = command("prune", "delete raw rows past the retention horizon (storage.keep_rows_days"
+                  "); day statistics, checks, versions and the audit log are kept", _cmd_prune)
+    prn.add_argument("names", metavar="NAME", nargs="*", help="only these models")
+    prn.add_argument("--before", metavar="DATE", type=_day,
+                     help="delete the rows of days before DATE (checked days only)")
+    prn.add_argument("--dry-run", action="store_true", help="say what would go; delete nothing")
+    json_flag(prn)
     page = command("report", "write an HTML page with charts for one model, or for every "
                    "model with a team page linking them (--all)", _cmd_report)
     page.add_argument("name", metavar="NAME", nargs="?")
@@ -543,6 +550,19 @@ def _show(args: argparse.Namespace, csv: Callable[[], str], document: Callable[[
         sys.stdout.write(csv())
     else:
         print(dumps(document()) if args.json else text())
+    return EXIT_OK
+
+
+def _cmd_prune(args: argparse.Namespace, settings: Settings) -> int:
+    from monitor.lifecycle.fit import actor_name
+    from monitor.lifecycle.pruning import prune
+
+    done = prune(settings, args.names or None, before=args.before, dry_run=args.dry_run,
+                 actor=actor_name())
+    if args.json:
+        print(dumps([p.as_dict() for p in done]))
+    else:
+        print("\n".join(p.sentence() for p in done) if done else "no models yet")
     return EXIT_OK
 
 

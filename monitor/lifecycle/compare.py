@@ -3,7 +3,9 @@
 The held-out days are the last days with rows in the candidate's data window (by default a
 quarter of them, at least three, at most fourteen). A candidate fitted on those very days would
 be judged on its own training rows, so for the comparison it is refitted, the same way, on the
-window's days before the hold-out; a candidate whose window ends before the hold-out (or one
+window's days before the hold-out (from their merged day statistics: the same least-squares
+line, so rows pruned by retention are not needed; the held-out days are scored from their rows
+and must be kept); a candidate whose window ends before the hold-out (or one
 imported from elsewhere) is scored as stored. The active version is always scored as stored.
 
 The recommendation is ``promote`` when the candidate's intervals do not cover significantly less
@@ -29,12 +31,18 @@ from monitor.domain.phrasing import fmt, fmt_p, percent
 from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError, UsageError
 from monitor.stats.holdout import HoldoutScore, LossDifference, holdout_score, loss_difference_test
-from monitor.stats.ols import fit_ols
+from monitor.stats.ols import fit_moments
 from monitor.stats.prediction import PredictionModel
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model
-from monitor.store.observations import Observations, days_with_rows, load_observations
+from monitor.store.observations import (
+    Observations,
+    days_with_rows,
+    load_day_stats,
+    load_observations,
+)
+from monitor.store.retention import kept_from
 from monitor.store.versions import active_version, get_version, list_versions
 
 MIN_HOLDOUT_DAYS = 3
@@ -114,13 +122,21 @@ def _compare(conn: Connection, model: ModelRecord, active: Version,
         return Comparison(model, active, candidate, None, "stored", None, None, None, None,
                           Recommendation(WAIT, wait, None), unit)
     holdout = (held[0], held[-1])
+    kept = kept_from(conn, model.id)
+    if kept is not None and holdout[0] < kept:
+        raise StateError(
+            f"the held-out days of '{model.name}' ({holdout[0].isoformat()} to "
+            f"{holdout[1].isoformat()}) start before {kept.isoformat()}, and the rows before "
+            "that day were pruned by retention; compare scores held-out days row by row: hold "
+            f"out fewer days (--holdout-days, at least {MIN_HOLDOUT_DAYS})")
     rows = load_observations(conn, model, *holdout)
     candidate_model, window = candidate.prediction_model(), None
     if refit_needed:
         assert candidate.fit_start is not None
         window = (candidate.fit_start, held[0] - timedelta(days=1))
-        train = load_observations(conn, model, *window)
-        candidate_model = PredictionModel.from_fit(fit_ols(train.x, train.y, model.predictors))
+        # the line from the window's merged day statistics: exact, and pruned rows not needed
+        train = load_day_stats(conn, model, *window).moments.total()
+        candidate_model = PredictionModel.from_fit(fit_moments(train, model.predictors))
     active_model = active.prediction_model()
     a = _score(active, active_model, rows)
     c = _score(candidate, candidate_model, rows)

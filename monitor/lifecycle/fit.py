@@ -41,6 +41,7 @@ from monitor.store.access import database
 from monitor.store.engine import write_transaction
 from monitor.store.models import create_model, delete_model, find_model
 from monitor.store.observations import days_with_rows, load_observations
+from monitor.store.retention import kept_from
 from monitor.store.versions import active_version, insert_version
 
 
@@ -176,10 +177,18 @@ def _fit_created(engine: Engine, settings: Settings, request: FitRequest, model:
         if not stored_days:
             raise StateError(f"model '{model.name}' has no stored observations to fit on; "
                              "give --data FILE")
-        start = request.start or stored_days[0]
+        kept = kept_from(conn, model.id)
+        start = request.start or max(stored_days[0], kept or stored_days[0])
         end = request.end or stored_days[-1]
         if start > end:
             raise InputError(f"--start {start} lies after --end {end}")
+        if kept is not None and start < kept:
+            raise StateError(
+                f"the rows of '{model.name}' before {kept.isoformat()} were pruned by retention, "
+                f"and the fit window starts on {start.isoformat()}: a fit needs the rows of its "
+                "whole window (the line alone would follow from the day statistics, but the "
+                "window's diagnosis, spread reference and miss dispersion come from the rows); "
+                f"fit from --start {kept.isoformat()} or later")
         obs = load_observations(conn, model, start, end)
     if len(obs.y) == 0:
         raise StateError(f"model '{model.name}' has no observations between {start} and {end}")

@@ -27,6 +27,7 @@ from monitor.store.batches import BatchRecord, get_batch
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import DayRows, day_revision, load_day_rows, neighbour_days
+from monitor.store.retention import kept_from, pruned_on
 from monitor.store.versions import active_version, version_by_id
 
 BoolArray = NDArray[np.bool_]
@@ -106,6 +107,14 @@ def score_day(settings: Settings, name: str, day: date, *, only: RowFilter = Row
 
 
 def _no_rows(conn: Connection, model: ModelRecord, day: date) -> str:
+    pruned = pruned_on(conn, model.id, day) if day_revision(conn, model, day) else None
+    if pruned is not None:
+        kept = kept_from(conn, model.id)
+        return (f"the rows of '{model.name}' for {day.isoformat()} were pruned by retention on "
+                f"{pruned.date().isoformat()} (rows are kept from "
+                f"{kept.isoformat() if kept else '?'}); the day's check is kept: "
+                f"'fitwatch days {model.name} --from {day.isoformat()} --through "
+                f"{day.isoformat()}'")
     before, after = neighbour_days(conn, model, day)
     near = [f"{d.isoformat()} ({'before' if d < day else 'after'})"
             for d in (before, after) if d is not None]

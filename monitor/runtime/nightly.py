@@ -1,5 +1,6 @@
 """One nightly run: sweep the inbox, check every unchecked day through yesterday, send alerts,
-and refresh the team page when ``[report] dir`` is set.
+and refresh the team page when ``[report] dir`` is set; prune raw rows past the retention
+horizon (``storage.keep_rows_days``).
 
 The daemon calls :func:`run_night` on its schedule (and once at start, to catch up); ``fitwatch
 daemon --once`` calls it from cron. Everything it needs to know comes from the database's own
@@ -29,6 +30,7 @@ from monitor.errors import ExitCode, Failure, describe
 from monitor.ingest.inbox import Sweep, sweep_inbox
 from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
+from monitor.lifecycle.pruning import NIGHTLY_BATCH_DAYS, ModelPrune, prune_model
 from monitor.monitoring.check import CheckOutcome, ModelCheck, run_checks
 from monitor.store import audit
 from monitor.store.engine import write_transaction
@@ -51,7 +53,8 @@ class NightRun:
     nights: tuple[date, ...]  # nights whose alerts this run queued (checked by it or before)
     alerts: AlertRun | None  # None: the alerts failed (see problems)
     stopped: bool  # a stop request ended the run early
-    problems: tuple[str, ...] = ()  # inbox or SQL source failures (checks still ran)
+    problems: tuple[str, ...] = ()  # inbox, SQL source or prune failures (checks still ran)
+    pruned: tuple[ModelPrune, ...] = ()  # rows retention removed after the checks
 
     @property
     def failures(self) -> list[ModelCheck]:
@@ -83,7 +86,8 @@ class NightRun:
                             for r in self.checks.results],
                 "nights": list(self.nights),
                 "alerts": self.alerts.as_dict() if self.alerts else None,
-                "problems": list(self.problems)}
+                "problems": list(self.problems),
+                "pruned": [p.as_dict() for p in self.pruned]}
 
     def sentence(self) -> str:
         days = len(self.checks.checks)
@@ -95,6 +99,7 @@ class NightRun:
             parts.append("failed: " + "; ".join(f"{r.model} ({r.error})"
                                                 for r in self.failures))
         parts.extend(self.problems)
+        parts.extend(p.sentence() for p in self.pruned)
         if self.alerts is not None:
             parts.append(f"{self.alerts.queued} alert message(s) queued, "
                          f"{self.alerts.sent} sent"
@@ -132,10 +137,35 @@ def run_night(settings: Settings, engine: Engine, *, now: datetime,
         results.extend(outcome.results)
     done = _alert(settings, engine, now, mailer, actor, problems)
     alerts, nights = done if done is not None else (None, ())
+    pruned = () if stopped else _prune(settings, engine, now, actor, problems)
     if settings.report.dir and not stopped:
         _team_page(settings, engine, now, actor, problems)
     return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
-                    nights, alerts, stopped, tuple(problems))
+                    nights, alerts, stopped, tuple(problems), pruned)
+
+
+def _prune(settings: Settings, engine: Engine, now: datetime, actor: str,
+           problems: list[str]) -> tuple[ModelPrune, ...]:
+    """Retention after the checks (``storage.keep_rows_days``), once a week's worth of days is
+    past the horizon; a failure is a problem of the run, never a failed check."""
+    keep = settings.storage.keep_rows_days
+    if not keep:
+        return ()
+    with engine.connect() as conn:
+        models = list_models(conn)
+    done = []
+    for model in models:
+        try:
+            result = prune_model(engine, model.id, model.name, keep_days=keep, now=now,
+                                 actor=actor, at_least_days=NIGHTLY_BATCH_DAYS)
+        except Exception as exc:  # the rows stay; the next run tries again
+            log.exception("pruning the rows of %s failed", model.name)
+            problems.append(f"{model.name} prune: {describe(exc)}")
+            _record_failure(engine, model.name, describe(exc), now, actor, stage="prune")
+            continue
+        if result.rows or result.replaced_rows:
+            done.append(result)
+    return tuple(done)
 
 
 def _alert(settings: Settings, engine: Engine, now: datetime, mailer: Mailer | None,

@@ -1,5 +1,5 @@
 """The audit log: who fitted, imported, promoted, rolled back or acknowledged what, when, why;
-and which nightly work failed (action ``failure``)."""
+which nightly work failed (action ``failure``); and which raw rows retention deleted (``prune``)."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from monitor.domain.days import local_day
 from monitor.store.schema import audit_log, inserted_id, jsonable, models, versions
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete",
-           "correct")
+           "correct", "prune")
 
 
 @dataclass(frozen=True)
