@@ -143,8 +143,8 @@ def build_parser() -> argparse.ArgumentParser:
     json_flag(st)
 
     aud = command("audit", "what was done to the models (fits, promotions, rollbacks, "
-                  "acknowledgements, renames, deletions, failed nights), by whom and why",
-                  _cmd_audit)
+                  "acknowledgements, corrections, prunes, renames, deletions, failed nights), "
+                  "by whom and why", _cmd_audit)
     aud.add_argument("name", metavar="NAME", nargs="?", help="only this model (deleted ones too)")
     aud.add_argument("--since", metavar="DATE", type=_day, help="entries from this day on")
     aud.add_argument("--last", metavar="N", type=int, help="only the latest N entries")
