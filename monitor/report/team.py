@@ -23,6 +23,7 @@ from typing import Any
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.status import Status
 from monitor.errors import FitwatchError, InputError, describe
 from monitor.interface.output import to_jsonable
 from monitor.report.charts import glance_chart
@@ -35,7 +36,6 @@ from monitor.store.models import list_models
 MODELS = "models"
 GLANCE = "glance.png"
 _TEMPLATE = "team.html.j2"
-_ORDER = {"refit": 0, "watch": 1, "ok": 2}  # the most pressing first; never checked last
 
 
 @dataclass(frozen=True)
@@ -102,7 +102,8 @@ def write_team_report(settings: Settings, out_dir: Path, *, engine: Engine | Non
             except FitwatchError as exc:  # e.g. deleted meanwhile, or a file not writable
                 rows.append(TeamRow(name, None, None, None, "", None, None, "",
                                     problem=describe(exc)))
-    rows.sort(key=lambda r: (_ORDER.get(r.status or "", 3), r.model))
+    # the most pressing first (the one status ranking), never checked last
+    rows.sort(key=lambda r: (-Status(r.status).rank if r.status else 1, r.model))
     report = TeamReport(out_dir / PAGE, tuple(rows), written_at)
     html = render(_TEMPLATE, {"rows": report.rows, "models": MODELS,
                               "written_at": written_at.strftime("%Y-%m-%d %H:%M %Z"),
