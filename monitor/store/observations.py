@@ -404,16 +404,18 @@ def restate_day_stats(conn: Connection, model: ModelRecord, days: set[date],
     stored = {row.day: int(row.revision) for row in conn.execute(
         select(day_stats.c.day, day_stats.c.revision).where(
             day_stats.c.model_id == model.id, day_stats.c.day.in_(sorted(days))))}
+    rows = load_observations(conn, model, min(days), max(days))  # one query for them all
+    moments = DayMoments.from_rows(rows.days, np.column_stack([rows.x, rows.y]))
+    index = {d.item(): i for i, d in enumerate(np.asarray(moments.days, dtype="datetime64[D]"))}
     for day in sorted(days):
-        rows = load_observations(conn, model, day, day)
         where = and_(day_stats.c.model_id == model.id, day_stats.c.day == day)
-        if len(rows.y) == 0:
+        if day not in index:
             conn.execute(day_stats.delete().where(where))
             conn.execute(update(day_checks).where(day_checks.c.model_id == model.id,
                                                   day_checks.c.day == day)
                          .values(stats_revision=-1))
             continue
-        part = DayMoments.from_rows(rows.days, np.column_stack([rows.x, rows.y])).day(0)
+        part = moments.day(index[day])
         revision = stored.get(day, 0) + 1
         if day in stored:
             conn.execute(update(day_stats).where(where).values(
