@@ -174,8 +174,9 @@ def test_daemon_once_runs_one_night_and_releases_the_lease(
         state = lease.read(conn)
     assert state.holder is None and state.last_run_status == "ok"
     assert state.last_run_finished_at >= state.last_run_started_at
-    # another holder keeps the lease: --once refuses instead of waiting
-    assert lease.try_acquire(engine, "other", datetime.now(UTC), TTL)
+    # another holder keeps the lease (the database's on SQLite, this host's on PostgreSQL):
+    # --once refuses instead of waiting
+    assert lease.try_acquire(engine, "other", datetime.now(UTC), TTL, lease.nightly_name(engine))
     config = tmp_path / "fitwatch.toml"
     config.write_text(f'[database]\nurl = "{engine.url.render_as_string(hide_password=False)}"\n')
     assert main(["--config", str(config), "daemon", "--once"]) == 1

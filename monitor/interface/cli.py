@@ -266,6 +266,9 @@ def build_parser() -> argparse.ArgumentParser:
                   "current model, then exit)", _cmd_daemon)
     dmn.add_argument("--once", action="store_true",
                      help="one catch-up run (inbox, checks, alerts), then exit")
+    dmn.add_argument("--workers", metavar="N", type=int, default=1,
+                     help="check the night's models in N processes (PostgreSQL only; daemons "
+                     "on several hosts with one database also share the night)")
     json_flag(dmn)
 
     demo = command("demo", "run the sample scenario end to end on an embedded SQLite file",
@@ -614,7 +617,7 @@ def _cmd_alerts(args: argparse.Namespace, settings: Settings) -> int:
 def _cmd_daemon(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.runtime.daemon import run_daemon
 
-    runs = run_daemon(settings, once=args.once)
+    runs = run_daemon(settings, once=args.once, workers=args.workers)
     if args.json:  # in text the log has said each run's sentence already (once, on stderr)
         print(dumps([r.as_dict() for r in runs]))
     if not args.once:

@@ -126,8 +126,8 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
     out = []
     with database(settings, engine) as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
-        held = lease.read(conn)
-        nightly = nightly_state(settings, held, now) if held else None
+        leases = lease.read_all(conn)
+        nightly = nightly_state(settings, leases[0], now, leases[1:]) if leases else None
         trouble = outbox.undelivered(conn)
         for model in models:
             last = last_check(conn, model.id, model=model.name)

@@ -28,6 +28,7 @@ from monitor.errors import StateError
 from monitor.runtime.holder import gone_from_this_host, holder_name
 from monitor.runtime.nightly import NightRun, run_night
 from monitor.runtime.schedule import LATE_GRACE, LEASE_TTL, cron_trigger
+from monitor.runtime.workers import check_workers, run_with_workers
 from monitor.store import lease
 from monitor.store.access import database
 from monitor.store.models import list_models
@@ -43,9 +44,11 @@ class NightlyWorker:
 
     def __init__(self, settings: Settings, engine: Engine, holder: str, *,
                  ttl: timedelta = LEASE_TTL, mailer: Mailer | None = None,
-                 clock: Callable[[], datetime] = lambda: datetime.now(UTC)):
+                 clock: Callable[[], datetime] = lambda: datetime.now(UTC), workers: int = 1):
         self.settings, self.engine, self.holder = settings, engine, holder
         self.ttl, self.mailer, self.clock = ttl, mailer, clock
+        self.workers = workers
+        self.lease = lease.nightly_name(engine)
         self.stop = threading.Event()
         self._one_at_a_time = threading.Lock()
         self.runs: list[NightRun] = []
@@ -55,15 +58,19 @@ class NightlyWorker:
             if self.stop.is_set():
                 return None
             now = self.clock()
-            if not lease.renew(self.engine, self.holder, now, self.ttl):
+            if not lease.renew(self.engine, self.holder, now, self.ttl, self.lease):
                 log.error("the lease was lost (another instance took it); stopping")
                 self.stop.set()
                 return None
-            lease.run_started(self.engine, self.holder, now)
+            lease.run_started(self.engine, self.holder, now, self.lease)
             status = "failed"
             try:
-                result = run_night(self.settings, self.engine, now=now, mailer=self.mailer,
-                                   should_stop=self.stop.is_set)
+                if self.workers > 1:
+                    result = run_with_workers(self.settings, self.engine, self.workers,
+                                              now=now, should_stop=self.stop.is_set)
+                else:
+                    result = run_night(self.settings, self.engine, now=now,
+                                       mailer=self.mailer, should_stop=self.stop.is_set)
                 status = result.status
                 self.runs.append(result)
                 log.info("nightly run: %s", result.sentence())
@@ -72,7 +79,7 @@ class NightlyWorker:
                 log.exception("the nightly run failed")
                 return None
             finally:
-                lease.run_finished(self.engine, self.holder, self.clock(), status)
+                lease.run_finished(self.engine, self.holder, self.clock(), status, self.lease)
 
     def retry_mail(self) -> None:
         """Between nights: send the outbox rows whose retry is due (backoff of minutes to
@@ -88,7 +95,7 @@ class NightlyWorker:
 
     def heartbeat(self) -> None:
         try:
-            alive = lease.renew(self.engine, self.holder, self.clock(), self.ttl)
+            alive = lease.renew(self.engine, self.holder, self.clock(), self.ttl, self.lease)
         except Exception:  # a database hiccup; the next beat tries again
             log.exception("heartbeat failed")
             return
@@ -100,15 +107,20 @@ class NightlyWorker:
 def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool = False,
                holder: str | None = None, ttl: timedelta = LEASE_TTL,
                poll_seconds: float = WAIT_POLL_SECONDS, mailer: Mailer | None = None,
-               install_signals: bool = True,
+               install_signals: bool = True, workers: int = 1,
                started: Callable[[NightlyWorker], None] | None = None) -> list[NightRun]:
-    """Run until stopped (or one catch-up run with ``once``); returns the runs made."""
+    """Run until stopped (or one catch-up run with ``once``); returns the runs made.
+
+    ``workers`` above 1 checks the night's models in that many processes (PostgreSQL only:
+    SQLite takes one writer at a time, so it keeps one worker and says so).
+    """
     holder = holder or holder_name()
     cron_trigger(settings)  # a cron the scheduler refuses stops the daemon before anything else
     with database(settings, engine) as db:
+        check_workers(db, workers)
         with db.connect() as conn:  # a misspelt [models.NAME] stops the daemon before it starts
             check_model_sections(settings, list_models(conn))
-        worker = NightlyWorker(settings, db, holder, ttl=ttl, mailer=mailer)
+        worker = NightlyWorker(settings, db, holder, ttl=ttl, mailer=mailer, workers=workers)
         if install_signals:
             _stop_on_signals(worker.stop)
         if started is not None:
@@ -135,28 +147,30 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
         finally:
             if scheduler.running:
                 scheduler.shutdown(wait=True)
-            lease.release(db, holder)
+            lease.release(db, holder, worker.lease)
             log.info("fitwatch daemon %s stopped and released the lease", holder)
         return worker.runs
 
 
 def _wait_for_lease(worker: NightlyWorker, once: bool, poll_seconds: float) -> bool:
     said = None
-    while not lease.try_acquire(worker.engine, worker.holder, worker.clock(), worker.ttl):
+    while not lease.try_acquire(worker.engine, worker.holder, worker.clock(), worker.ttl,
+                                worker.lease):
         with worker.engine.connect() as conn:
-            state = lease.read(conn)
+            state = lease.read(conn, worker.lease)
         other = state.holder if state else "another instance"
         if state and state.holder and gone_from_this_host(state.holder):
             log.warning("the lease holder %s is no longer running on this host (killed or "
                         "crashed); taking the lease over", state.holder)
             if lease.take_over(worker.engine, state.holder, worker.holder, worker.clock(),
-                               worker.ttl):
+                               worker.ttl, worker.lease):
                 return True
             continue  # someone else was quicker; look again
         expires = (f"{state.expires_at:%Y-%m-%d %H:%M:%S} UTC" if state and state.expires_at
                    else "when it is released")
         if once:
-            raise StateError(f"another fitwatch daemon ({other}) holds this database's lease "
+            scope = "this database's" if worker.lease == lease.NIGHTLY else "this host's"
+            raise StateError(f"another fitwatch daemon ({other}) holds {scope} lease "
                              f"until {expires} and runs the nights; nothing done (stop that "
                              "daemon or let it do the run; a daemon that died on another "
                              "host frees the lease when it expires, one on this host at once)")

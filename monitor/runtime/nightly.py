@@ -14,9 +14,11 @@ catch-up is not lost, nor the news of a run that died after checking and before 
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable
+import threading
+import time
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
-from datetime import date, datetime
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -32,9 +34,13 @@ from monitor.ingest.service import ingest_configured_source
 from monitor.ingest.summary import IngestSummary
 from monitor.lifecycle.pruning import NIGHTLY_BATCH_DAYS, ModelPrune, prune_model
 from monitor.monitoring.check import CheckOutcome, ModelCheck, run_checks
-from monitor.store import audit
+from monitor.runtime.holder import gone_from_this_host, holder_name
+from monitor.store import audit, claims
 from monitor.store.engine import write_transaction
 from monitor.store.models import find_model, list_models
+
+CLAIM_TTL = timedelta(minutes=5)  # a claim not renewed this long is taken over
+CLAIM_POLL_SECONDS = 2.0  # how often a worker with nothing to take looks again
 
 log = logging.getLogger(__name__)
 
@@ -55,6 +61,8 @@ class NightRun:
     stopped: bool  # a stop request ended the run early
     problems: tuple[str, ...] = ()  # inbox, SQL source or prune failures (checks still ran)
     pruned: tuple[ModelPrune, ...] = ()  # rows retention removed after the checks
+    wrapped: bool = True  # this run wrapped the round (alerts, pruning, team page)
+    model_days: int | None = None  # days checked, when ``checks`` was slimmed (``slim``)
 
     @property
     def failures(self) -> list[ModelCheck]:
@@ -89,8 +97,34 @@ class NightRun:
                 "problems": list(self.problems),
                 "pruned": [p.as_dict() for p in self.pruned]}
 
+    @property
+    def days(self) -> int:
+        """Model-days checked."""
+        return len(self.checks.checks) if self.model_days is None else self.model_days
+
+    def slim(self) -> NightRun:
+        """The run without its day checks (kept: each model's latest), small enough to send
+        from a worker process to the daemon."""
+        results = tuple(replace(r, checks=()) for r in self.checks.results)
+        return replace(self, checks=CheckOutcome(results), model_days=self.days)
+
+    @classmethod
+    def combine(cls, sweep: Sweep, runs: Sequence[NightRun],
+                problems: Sequence[str] = ()) -> NightRun:
+        """One run from the shares of several workers (of one daemon, one night)."""
+        first = runs[0]
+        wrapper = next((r for r in runs if r.wrapped), None)
+        return cls(first.started_at, first.through, sweep,
+                   tuple(s for r in runs for s in r.sources),
+                   CheckOutcome(tuple(m for r in runs for m in r.checks.results)),
+                   wrapper.nights if wrapper else (), wrapper.alerts if wrapper else None,
+                   any(r.stopped for r in runs),
+                   tuple(problems) + tuple(p for r in runs for p in r.problems),
+                   wrapper.pruned if wrapper else (), wrapped=wrapper is not None,
+                   model_days=sum(r.days for r in runs))
+
     def sentence(self) -> str:
-        days = len(self.checks.checks)
+        days = self.days
         parts = [self.sweep.sentence()]
         if self.sources:
             parts.append(f"{sum(s.accepted for s in self.sources)} row(s) from SQL sources")
@@ -100,6 +134,8 @@ class NightRun:
                                                 for r in self.failures))
         parts.extend(self.problems)
         parts.extend(p.sentence() for p in self.pruned)
+        if not self.wrapped and not self.stopped:
+            parts.append("the night's alerts go out from the worker that finishes it")
         if self.alerts is not None:
             parts.append(f"{self.alerts.queued} alert message(s) queued, "
                          f"{self.alerts.sent} sent"
@@ -112,36 +148,127 @@ class NightRun:
 
 def run_night(settings: Settings, engine: Engine, *, now: datetime,
               mailer: Mailer | None = None, actor: str = "daemon",
-              should_stop: Callable[[], bool] = lambda: False) -> NightRun:
-    """Sweep, check every model through yesterday, then alert per night not yet queued."""
-    through = yesterday(now, settings.timezone)
-    problems: list[str] = []  # failures outside a model's check (inbox, SQL sources)
+              should_stop: Callable[[], bool] = lambda: False,
+              holder: str | None = None) -> NightRun:
+    """Sweep the inbox, then work the night's round: check every model through yesterday
+    (those no other worker holds), and wrap the round when it is done."""
+    problems: list[str] = []
+    sweep = sweep_once(settings, engine, now, actor, problems, should_stop)
+    run = work_round(settings, engine, now=now, mailer=mailer, actor=actor,
+                     should_stop=should_stop, holder=holder)
+    return replace(run, sweep=sweep, problems=tuple(problems) + run.problems)
+
+
+def sweep_once(settings: Settings, engine: Engine, now: datetime, actor: str,
+               problems: list[str], should_stop: Callable[[], bool]) -> Sweep:
+    """The inbox, before any check: a failure (e.g. a locked database) leaves the files for
+    the next run and is a problem of this one."""
     try:
-        sweep = sweep_inbox(engine, settings, now, should_stop=should_stop)
-    except Exception as exc:  # e.g. the database is locked: the files wait for the next run
+        return sweep_inbox(engine, settings, now, should_stop=should_stop)
+    except Exception as exc:
         log.exception("sweeping the inbox failed")
         problems.append(f"inbox: {describe(exc)}")
         _record_failure(engine, None, describe(exc), now, actor, stage="inbox")
-        sweep = Sweep()
+        return Sweep()
+
+
+def work_round(settings: Settings, engine: Engine, *, now: datetime,
+               mailer: Mailer | None = None, actor: str = "daemon",
+               should_stop: Callable[[], bool] = lambda: False, holder: str | None = None,
+               claim_ttl: timedelta = CLAIM_TTL, poll_seconds: float = CLAIM_POLL_SECONDS,
+               clock: Callable[[], datetime] = lambda: datetime.now(UTC)) -> NightRun:
+    """One worker's share of the night (:mod:`monitor.store.claims`): take a model, pull its
+    SQL source, check it, mark it done; again until none is left to take; wait while other
+    workers finish theirs (taking over the claims of those that died); then, if this worker
+    is the one to wrap the round, queue and send the night's alerts, prune and write the team
+    page. A stop request ends the loop between models and leaves the round to a later run
+    (its digest goes out once, when the round is done).
+    """
+    through = yesterday(now, settings.timezone)
+    holder = holder or holder_name()
+    problems: list[str] = []
     results: list[ModelCheck] = []
-    stopped = False
-    with engine.connect() as conn:
-        names = [m.name for m in list_models(conn)]
     pulled: list[IngestSummary] = []
-    for name in names:
-        if should_stop():
-            stopped = True
-            break
-        pulled.extend(_pull_source(settings, engine, name, now, actor, problems))
-        outcome = _check_one(settings, engine, name, through, now, actor)
-        results.extend(outcome.results)
-    done = _alert(settings, engine, now, mailer, actor, problems)
+    stopped = wrapping = False
+    round_id = claims.join_round(engine, through, holder, clock())
+    with _ClaimHeartbeat(engine, holder, claim_ttl, clock):
+        while True:
+            if should_stop():
+                stopped = True
+                break
+            claim = claims.take(engine, round_id, holder, clock(), claim_ttl)
+            if claim is not None:
+                if claim.takes > 1:
+                    log.warning("taking over model %s (its worker stopped renewing its claim)",
+                                claim.model)
+                pulled.extend(_pull_source(settings, engine, claim.model, now, actor,
+                                           problems))
+                outcome = _check_one(settings, engine, claim.model, through, now, actor)
+                results.extend(outcome.results)
+                failed = any(r.failure for r in outcome.results)
+                claims.finish(engine, claim, holder, clock(), "failed" if failed else "checked")
+                continue
+            state = claims.progress(engine, round_id, clock())
+            if state.unfinished == 0:
+                wrapping = claims.try_wrap(engine, round_id, holder, clock(), claim_ttl)
+                if wrapping or state.wrap_holder is None or \
+                        not gone_from_this_host(state.wrap_holder):
+                    break
+                claims.release_wrap(engine, round_id, state.wrap_holder)
+                continue
+            for other in state.holders:  # killed on this host: free its models at once
+                if gone_from_this_host(other):
+                    log.warning("worker %s is gone; its models are free to take", other)
+                    claims.release_holder(engine, round_id, other)
+            if _wait(should_stop, poll_seconds):
+                stopped = True
+                break
+        done = pruned = None
+        if wrapping:
+            done = _alert(settings, engine, now, mailer, actor, problems)
+            pruned = _prune(settings, engine, now, actor, problems)
+            if settings.report.dir:
+                _team_page(settings, engine, now, actor, problems)
+            claims.wrapped(engine, round_id, holder, clock())
     alerts, nights = done if done is not None else (None, ())
-    pruned = () if stopped else _prune(settings, engine, now, actor, problems)
-    if settings.report.dir and not stopped:
-        _team_page(settings, engine, now, actor, problems)
-    return NightRun(now, through, sweep, tuple(pulled), CheckOutcome(tuple(results)),
-                    nights, alerts, stopped, tuple(problems), pruned)
+    return NightRun(now, through, Sweep(), tuple(pulled), CheckOutcome(tuple(results)),
+                    nights, alerts, stopped, tuple(problems), pruned or (), wrapped=wrapping)
+
+
+def _wait(should_stop: Callable[[], bool], seconds: float) -> bool:
+    """Sleep ``seconds`` in short steps; True as soon as a stop is requested."""
+    end = time.monotonic() + seconds
+    while time.monotonic() < end:
+        if should_stop():
+            return True
+        time.sleep(min(0.1, max(0.0, end - time.monotonic())))
+    return should_stop()
+
+
+class _ClaimHeartbeat:
+    """Renews this worker's claims (and wrap-up) every quarter of their expiry, in a thread,
+    so a long check keeps its model and a dead worker's models expire."""
+
+    def __init__(self, engine: Engine, holder: str, ttl: timedelta,
+                 clock: Callable[[], datetime]):
+        self.engine, self.holder, self.ttl, self.clock = engine, holder, ttl, clock
+        self.stop = threading.Event()
+        self.thread = threading.Thread(target=self._beat, name="claim-heartbeat", daemon=True)
+
+    def __enter__(self) -> _ClaimHeartbeat:
+        self.thread.start()
+        return self
+
+    def __exit__(self, *_exc: object) -> None:
+        self.stop.set()
+        self.thread.join()
+
+    def _beat(self) -> None:
+        while not self.stop.wait(self.ttl.total_seconds() / 4):
+            try:
+                claims.renew(self.engine, self.holder, self.clock(), self.ttl)
+            except Exception:  # a database hiccup; the next beat tries again
+                log.exception("renewing the claims of %s failed", self.holder)
 
 
 def _prune(settings: Settings, engine: Engine, now: datetime, actor: str,

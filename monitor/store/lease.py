@@ -9,8 +9,10 @@ sees the holder's process is gone (:func:`take_over`).
 
 from __future__ import annotations
 
+import socket
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import UTC, datetime, timedelta
+from typing import Any
 
 from sqlalchemy import Connection, Engine, insert, or_, select, update
 from sqlalchemy.exc import IntegrityError
@@ -109,10 +111,38 @@ def run_finished(engine: Engine, holder: str, now: datetime, status: str,
                              heartbeat_at=now))
 
 
-def read(conn: Connection, name: str = NIGHTLY) -> LeaseState | None:
-    row = conn.execute(select(scheduler_lease).where(scheduler_lease.c.name == name)).first()
-    if row is None:
-        return None
+def nightly_name(engine: Engine) -> str:
+    """The lease a daemon takes: the database's one ``nightly`` on SQLite (one worker per
+    database), ``nightly@HOST`` on PostgreSQL, where daemons on several hosts share the nights
+    through claims (``store.claims``) and the lease only keeps one daemon per host."""
+    if engine.dialect.name != "postgresql":
+        return NIGHTLY
+    return f"{NIGHTLY}@{socket.gethostname()}"[:50]
+
+
+def read(conn: Connection, name: str | None = None) -> LeaseState | None:
+    """The lease ``name``; without a name, the nightly lease most recently active."""
+    states = read_all(conn) if name is None else [
+        _state(row) for row in conn.execute(select(scheduler_lease)
+                                            .where(scheduler_lease.c.name == name))]
+    return states[0] if states else None
+
+
+def read_all(conn: Connection) -> list[LeaseState]:
+    """Every nightly lease (one per host on PostgreSQL), the most recently active first."""
+    c = scheduler_lease.c
+    rows = conn.execute(select(scheduler_lease).where(
+        or_(c.name == NIGHTLY, c.name.like(f"{NIGHTLY}@%"))))
+    return sorted((_state(row) for row in rows), key=_activity, reverse=True)
+
+
+def _activity(state: LeaseState) -> datetime:
+    times = [t for t in (state.heartbeat_at, state.last_run_started_at,
+                         state.last_run_finished_at, state.acquired_at) if t is not None]
+    return max(times, default=datetime.min.replace(tzinfo=UTC))
+
+
+def _state(row: Any) -> LeaseState:
     m = row._mapping
     return LeaseState(m["holder"], m["acquired_at"], m["expires_at"], m["heartbeat_at"],
                       m["last_run_started_at"], m["last_run_finished_at"],

@@ -288,6 +288,33 @@ scheduler_lease = Table(
 )
 
 
+# several workers share a night: a round per (night, run), a claim per (round, model)
+night_rounds = Table(
+    "night_rounds", metadata,
+    Column("id", Integer, primary_key=True),
+    Column("through", Date, nullable=False),  # the night: checks run through this day
+    Column("seq", Integer, nullable=False),  # 1 for the night's first round, then 2, ...
+    Column("opened_at", UtcDateTime, nullable=False),
+    Column("opened_by", String(200), nullable=False),
+    Column("wrap_holder", String(200)),  # the worker composing the digest, pruning, ...
+    Column("wrap_expires_at", UtcDateTime),
+    Column("wrapped_at", UtcDateTime),
+    UniqueConstraint("through", "seq", name="uq_night_rounds_through_seq"),
+)
+
+night_claims = Table(
+    "night_claims", metadata,
+    Column("round_id", ForeignKey("night_rounds.id", ondelete="CASCADE"), primary_key=True),
+    Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), primary_key=True),
+    Column("holder", String(200)),  # host:pid:tag of the worker checking it
+    Column("claimed_at", UtcDateTime),
+    Column("expires_at", UtcDateTime),  # renewed by the holder's heartbeat
+    Column("done_at", UtcDateTime),
+    Column("outcome", String(20)),  # checked | failed
+    Column("takes", Integer, nullable=False, default=0),  # 2 or more: taken over
+)
+
+
 def utcnow() -> datetime:
     return datetime.now(UTC)
 
