@@ -99,6 +99,20 @@ def test_a_claim_not_renewed_is_taken_over_and_its_late_holder_cannot_finish_it(
     assert (state.done, state.holders) == (1, ("b",))
 
 
+def test_taking_the_next_model_marks_the_previous_one_done(engine: Engine) -> None:
+    _models(engine, 2)
+    round_id = claims.join_round(engine, NIGHT, "a", T0)
+    first = claims.take(engine, round_id, "a", T0, TTL)
+    assert first is not None
+    second = claims.take(engine, round_id, "a", T0, TTL, done=(first, "failed"))
+    assert second is not None and second.model_id != first.model_id
+    assert claims.take(engine, round_id, "a", T0, TTL, done=(second, "checked")) is None
+    with engine.connect() as conn:
+        outcomes = dict(conn.execute(select(night_claims.c.model_id, night_claims.c.outcome)))
+    assert outcomes == {first.model_id: "failed", second.model_id: "checked"}
+    assert claims.try_wrap(engine, round_id, "a", T0, TTL)
+
+
 def test_the_claims_of_a_dead_holder_are_freed_at_once(engine: Engine) -> None:
     _models(engine, 1)
     round_id = claims.join_round(engine, NIGHT, "a", T0)

@@ -191,12 +191,16 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
     pulled: list[IngestSummary] = []
     stopped = wrapping = False
     round_id = claims.join_round(engine, through, holder, clock())
+    done: tuple[claims.Claim, str] | None = None  # the last model, marked with the next take
     with _ClaimHeartbeat(engine, holder, claim_ttl, clock):
         while True:
             if should_stop():
+                if done is not None:
+                    claims.finish(engine, done[0], holder, clock(), done[1])
                 stopped = True
                 break
-            claim = claims.take(engine, round_id, holder, clock(), claim_ttl)
+            claim = claims.take(engine, round_id, holder, clock(), claim_ttl, done=done)
+            done = None
             if claim is not None:
                 if claim.takes > 1:
                     log.warning("taking over model %s (its worker stopped renewing its claim)",
@@ -206,7 +210,7 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
                 outcome = _check_one(settings, engine, claim.model, through, now, actor)
                 results.extend(outcome.results)
                 failed = any(r.failure for r in outcome.results)
-                claims.finish(engine, claim, holder, clock(), "failed" if failed else "checked")
+                done = (claim, "failed" if failed else "checked")
                 continue
             state = claims.progress(engine, round_id, clock())
             if state.unfinished == 0:
@@ -223,14 +227,14 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
             if _wait(should_stop, poll_seconds):
                 stopped = True
                 break
-        done = pruned = None
+        sent = pruned = None
         if wrapping:
-            done = _alert(settings, engine, now, mailer, actor, problems)
+            sent = _alert(settings, engine, now, mailer, actor, problems)
             pruned = _prune(settings, engine, now, actor, problems)
             if settings.report.dir:
                 _team_page(settings, engine, now, actor, problems)
             claims.wrapped(engine, round_id, holder, clock())
-    alerts, nights = done if done is not None else (None, ())
+    alerts, nights = sent if sent is not None else (None, ())
     return NightRun(now, through, Sweep(), tuple(pulled), CheckOutcome(tuple(results)),
                     nights, alerts, stopped, tuple(problems), pruned or (), wrapped=wrapping)
 

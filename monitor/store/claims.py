@@ -87,36 +87,44 @@ def _add_models(conn: Connection, round_id: int) -> None:
         .where(models.c.id.not_in(present))).on_conflict_do_nothing())
 
 
-def take(engine: Engine, round_id: int, holder: str, now: datetime, ttl: timedelta) -> Claim | None:
-    """Take one unfinished claim that nobody holds (or whose holder's expiry passed);
-    None when there is none to take."""
+def take(engine: Engine, round_id: int, holder: str, now: datetime, ttl: timedelta, *,
+         done: tuple[Claim, str] | None = None) -> Claim | None:
+    """Take one unfinished claim that nobody holds (or whose holder's expiry passed); None
+    when there is none to take. ``done``: our previous claim and its outcome, marked done in
+    the same transaction (one round trip less per model)."""
     c = night_claims.c
     free = or_(c.holder.is_(None), c.expires_at.is_(None), c.expires_at <= now)
     with write_transaction(engine) as conn:
+        if done is not None:
+            _finish(conn, *done, holder, now)
         row = conn.execute(
-            select(c.model_id, c.takes)
+            select(c.model_id, c.takes, models.c.name)
+            .join(models, models.c.id == c.model_id)
             .where(c.round_id == round_id, c.done_at.is_(None), free)
-            .order_by(c.takes, c.model_id).limit(1)
-            .with_for_update(skip_locked=True)).first()
+            .order_by(c.model_id).limit(1)
+            .with_for_update(of=night_claims, skip_locked=True)).first()
         if row is None:
             return None
         takes = int(row.takes) + 1
         conn.execute(update(night_claims)
                      .where(c.round_id == round_id, c.model_id == row.model_id)
                      .values(holder=holder, claimed_at=now, expires_at=now + ttl, takes=takes))
-        name = conn.execute(select(models.c.name).where(models.c.id == row.model_id)).scalar()
-    return Claim(round_id, int(row.model_id), str(name), takes)
+    return Claim(round_id, int(row.model_id), str(row.name), takes)
 
 
 def finish(engine: Engine, claim: Claim, holder: str, now: datetime, outcome: str) -> bool:
     """Mark our claim done; False when it was no longer ours (it expired and was taken over:
     the other worker then checks what is left, which may be nothing)."""
-    c = night_claims.c
     with write_transaction(engine) as conn:
-        done = conn.execute(update(night_claims).where(
-            c.round_id == claim.round_id, c.model_id == claim.model_id, c.holder == holder,
-            c.done_at.is_(None)).values(done_at=now, outcome=outcome))
-        return done.rowcount == 1
+        return _finish(conn, claim, outcome, holder, now)
+
+
+def _finish(conn: Connection, claim: Claim, outcome: str, holder: str, now: datetime) -> bool:
+    c = night_claims.c
+    done = conn.execute(update(night_claims).where(
+        c.round_id == claim.round_id, c.model_id == claim.model_id, c.holder == holder,
+        c.done_at.is_(None)).values(done_at=now, outcome=outcome))
+    return done.rowcount == 1
 
 
 def renew(engine: Engine, holder: str, now: datetime, ttl: timedelta) -> int:

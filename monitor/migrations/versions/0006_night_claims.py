@@ -57,8 +57,12 @@ def upgrade() -> None:
                                 ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("round_id", "model_id", name=op.f("pk_night_claims")),
     )
+    op.create_index("ix_night_claims_open", "night_claims", ["round_id", "model_id"],
+                    postgresql_where=sa.text("done_at IS NULL"),
+                    sqlite_where=sa.text("done_at IS NULL"))
 
 
 def downgrade() -> None:
+    op.drop_index("ix_night_claims_open", table_name="night_claims")
     op.drop_table("night_claims")
     op.drop_table("night_rounds")
