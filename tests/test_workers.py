@@ -108,7 +108,8 @@ def test_taking_the_next_model_marks_the_previous_one_done(engine: Engine) -> No
     assert second is not None and second.model_id != first.model_id
     assert claims.take(engine, round_id, "a", T0, TTL, done=(second, "checked")) is None
     with engine.connect() as conn:
-        outcomes = dict(conn.execute(select(night_claims.c.model_id, night_claims.c.outcome)))
+        outcomes = dict(conn.execute(select(night_claims.c.model_id,
+                                            night_claims.c.outcome)).tuples().all())
     assert outcomes == {first.model_id: "failed", second.model_id: "checked"}
     assert claims.try_wrap(engine, round_id, "a", T0, TTL)
 
