@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import socket
 import subprocess
 import sys
 import threading
@@ -24,6 +25,7 @@ from monitor.config import load_settings
 from monitor.domain.model import ModelSpec
 from monitor.interface.cli import main
 from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.runtime.holder import gone_from_this_host
 from monitor.runtime.schedule import nightly_state
 from monitor.runtime.workers import run_with_workers
 from monitor.store import claims, lease
@@ -108,8 +110,8 @@ def test_taking_the_next_model_marks_the_previous_one_done(engine: Engine) -> No
     assert second is not None and second.model_id != first.model_id
     assert claims.take(engine, round_id, "a", T0, TTL, done=(second, "checked")) is None
     with engine.connect() as conn:
-        outcomes = dict(conn.execute(select(night_claims.c.model_id,
-                                            night_claims.c.outcome)).tuples().all())
+        outcomes = {model: outcome for model, outcome in conn.execute(
+            select(night_claims.c.model_id, night_claims.c.outcome))}
     assert outcomes == {first.model_id: "failed", second.model_id: "checked"}
     assert claims.try_wrap(engine, round_id, "a", T0, TTL)
 
@@ -287,3 +289,18 @@ def test_status_names_the_daemons_of_other_hosts(engine: Engine, make_settings) 
     with engine.connect() as conn:
         states = lease.read_all(conn)
     assert nightly_state(settings, states[0], now, states[1:]).others == ()
+
+
+def test_a_worker_that_ended_unreaped_counts_as_gone() -> None:
+    """A killed child its parent has not collected yet (a zombie) still answers signal 0;
+    its claims must be freed at once all the same."""
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    holder = f"{socket.gethostname()}:{child.pid}:t"
+    deadline = time.monotonic() + 30
+    while not gone_from_this_host(holder):  # ended, not yet waited for: a zombie
+        assert time.monotonic() < deadline
+        time.sleep(0.05)
+    assert Path(f"/proc/{child.pid}").exists()  # it is still in the process table
+    child.wait()
+    assert gone_from_this_host(holder)
+    assert not gone_from_this_host(f"{socket.gethostname()}:{os.getpid()}:t")

@@ -13,6 +13,7 @@ from __future__ import annotations
 import os
 import socket
 import uuid
+from pathlib import Path
 
 
 def holder_name() -> str:
@@ -34,4 +35,14 @@ def gone_from_this_host(holder: str | None) -> bool:
         return True
     except PermissionError:  # it exists, under another user
         return False
-    return False
+    return _zombie(pid)
+
+
+def _zombie(pid: int) -> bool:
+    """A process that ended and waits for its parent to collect it: gone for our purposes
+    (Linux ``/proc``; elsewhere it counts as alive until reaped)."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return False
+    return stat[stat.rfind(")") + 2:][:1] == "Z"  # the state follows "(command) "

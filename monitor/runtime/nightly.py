@@ -41,6 +41,7 @@ from monitor.store.models import find_model, list_models
 
 CLAIM_TTL = timedelta(minutes=5)  # a claim not renewed this long is taken over
 CLAIM_POLL_SECONDS = 2.0  # how often a worker with nothing to take looks again
+GONE_LOOK_SECONDS = 30.0  # how often a busy worker looks for siblings killed on this host
 
 log = logging.getLogger(__name__)
 
@@ -192,6 +193,7 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
     stopped = wrapping = False
     round_id = claims.join_round(engine, through, holder, clock())
     done: tuple[claims.Claim, str] | None = None  # the last model, marked with the next take
+    next_look = time.monotonic() + GONE_LOOK_SECONDS
     with _ClaimHeartbeat(engine, holder, claim_ttl, clock):
         while True:
             if should_stop():
@@ -211,6 +213,10 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
                 results.extend(outcome.results)
                 failed = any(r.failure for r in outcome.results)
                 done = (claim, "failed" if failed else "checked")
+                if time.monotonic() >= next_look:  # a sibling killed meanwhile: free its
+                    next_look = time.monotonic() + GONE_LOOK_SECONDS  # model now, not last
+                    _free_the_gone(engine, round_id, claims.progress(engine, round_id,
+                                                                     clock()).holders)
                 continue
             state = claims.progress(engine, round_id, clock())
             if state.unfinished == 0:
@@ -220,10 +226,7 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
                     break
                 claims.release_wrap(engine, round_id, state.wrap_holder)
                 continue
-            for other in state.holders:  # killed on this host: free its models at once
-                if gone_from_this_host(other):
-                    log.warning("worker %s is gone; its models are free to take", other)
-                    claims.release_holder(engine, round_id, other)
+            _free_the_gone(engine, round_id, state.holders)
             if _wait(should_stop, poll_seconds):
                 stopped = True
                 break
@@ -237,6 +240,14 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
     alerts, nights = sent if sent is not None else (None, ())
     return NightRun(now, through, Sweep(), tuple(pulled), CheckOutcome(tuple(results)),
                     nights, alerts, stopped, tuple(problems), pruned or (), wrapped=wrapping)
+
+
+def _free_the_gone(engine: Engine, round_id: int, holders: Sequence[str]) -> None:
+    """Free the claims of holders whose process is gone from this host (killed), at once."""
+    for other in holders:
+        if gone_from_this_host(other):
+            log.warning("worker %s is gone; its models are free to take", other)
+            claims.release_holder(engine, round_id, other)
 
 
 def _wait(should_stop: Callable[[], bool], seconds: float) -> bool:

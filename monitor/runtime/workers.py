@@ -68,7 +68,9 @@ def run_with_workers(settings: Settings, engine: Engine, workers: int, *, now: d
         try:
             pid, share, error = reports.get(timeout=REPORT_POLL_SECONDS)
         except queue.Empty:
-            if all(not p.is_alive() for p in procs):
+            # every process is asked (not up to the first alive one): asking reaps a worker
+            # that ended, so its siblings see it gone instead of a zombie holding its claim
+            if not any([p.is_alive() for p in procs]):
                 break
         else:
             if error is not None:
