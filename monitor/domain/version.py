@@ -109,6 +109,24 @@ class ChartCalibration:
                 == (k, target_arl, guarantee, learn_until))
 
 
+@dataclass(frozen=True)
+class SlopeLimits:
+    """The within-day slope chart's decision intervals, solved once when the version is
+    fitted (a root search per predictor, the costliest part of building a version's check
+    context) and stored with it for the settings they were solved for."""
+
+    step: float  # check.slope_chart_step
+    target_arl: float  # check.slope_chart_arl_days
+    guarantee: float
+    h: tuple[float | None, ...]  # each predictor's; None: no finite limit (inf)
+
+    def matches(self, step: float, target_arl: float, guarantee: float) -> bool:
+        return (self.step, self.target_arl, self.guarantee) == (step, target_arl, guarantee)
+
+    def array(self) -> FloatArray:
+        return np.array([np.inf if h is None else h for h in self.h], dtype=np.float64)
+
+
 @dataclass(frozen=True, eq=False)
 class Baseline:
     """What the fit window says about the in-control process; the charts are calibrated on it.
@@ -125,6 +143,7 @@ class Baseline:
     calibration: ChartCalibration | None = None
     fit_days: int | None = None  # days with rows in the fit window
     diagnosis: FitDiagnosis | None = None  # the fit window's departures (None: imported)
+    slope_limits: SlopeLimits | None = None  # None: solved when the check context is built
 
     def calibrated(self, calibration: Calibration) -> Baseline:
         return replace(self, calibration=ChartCalibration.of(calibration))

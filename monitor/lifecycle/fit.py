@@ -22,6 +22,7 @@ from monitor.domain.version import (
     Baseline,
     ChartCalibration,
     Line,
+    SlopeLimits,
     Version,
     VersionDraft,
     VersionSource,
@@ -29,6 +30,7 @@ from monitor.domain.version import (
 )
 from monitor.errors import DegenerateDataError, InputError, StateError
 from monitor.ingest.service import IngestSummary, ingest_file, options_for
+from monitor.monitoring.context import slope_chart_of, slope_limits_of
 from monitor.stats.calibration import Calibration, calibrate_chart, chart_design
 from monitor.stats.coverage import miss_dispersion
 from monitor.stats.day_effects import DayEffects, day_effects_of_fit
@@ -57,6 +59,7 @@ class FittedVersion:
     first_day: date
     last_day: date
     diagnosis: FitDiagnosis | None = None
+    slope_limits: SlopeLimits | None = None
 
     def draft(self, level: float) -> VersionDraft:
         """The version this fit makes, ready to store."""
@@ -71,7 +74,8 @@ class FittedVersion:
         baseline = Baseline(tau2=e.tau2, sigma_w2=e.sigma_w2, dispersion=self.dispersion,
                             day_effects=e, reference=self.days,
                             calibration=ChartCalibration.of(self.calibration),
-                            fit_days=len(self.days), diagnosis=self.diagnosis)
+                            fit_days=len(self.days), diagnosis=self.diagnosis,
+                            slope_limits=self.slope_limits)
         return VersionDraft(source=VersionSource.FIT, line=line, baseline=baseline,
                             fit_start=self.first_day, fit_end=self.last_day)
 
@@ -99,9 +103,11 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
     design = chart_design(fit, table, effects, diagnosis)
     calibration = calibrate_chart(design, settings.cusum_k, settings.cusum_arl_days,
                                   settings.guarantee, settings.learn_until_days)
+    limits = slope_limits_of(slope_chart_of(table, diagnosis, settings), settings)
     first = as_date(table.days[0])
     last = as_date(table.days[-1])
-    return FittedVersion(fit, effects, dispersion, calibration, table, first, last, diagnosis)
+    return FittedVersion(fit, effects, dispersion, calibration, table, first, last, diagnosis,
+                         limits)
 
 
 def diagnose_window(fit: OLSFit, table: DayMoments, days: np.ndarray, x: np.ndarray,

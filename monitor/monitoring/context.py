@@ -18,7 +18,7 @@ from scipy import stats
 from monitor.config import CheckSettings
 from monitor.domain.check import CheckState
 from monitor.domain.days import as_date
-from monitor.domain.version import Version, VersionDraft
+from monitor.domain.version import SlopeLimits, Version, VersionDraft
 from monitor.stats.calibration import (
     ChartDesign,
     calibrate_chart,
@@ -28,7 +28,7 @@ from monitor.stats.calibration import (
     shock_persistence,
 )
 from monitor.stats.day_effects import day_residuals
-from monitor.stats.diagnosis import MAX_PERSISTENCE
+from monitor.stats.diagnosis import MAX_PERSISTENCE, FitDiagnosis
 from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
@@ -127,11 +127,7 @@ class VersionContext:
                                            settings.guarantee)
         slope_chart = None
         if base.reference is not None:
-            d = base.diagnosis
-            slope_chart = design_slope_chart(
-                reference, (d.slope_noise_ratio or None) if d else None,
-                settings.slope_chart_step, settings.slope_chart_arl_days, settings.guarantee,
-                row_scale=d.robust_sd if d else None)
+            slope_chart = slope_chart_of(reference, base.diagnosis, settings, base.slope_limits)
         return cls(version=version, model=model, reference_days=reference,
                    design=design, h=float(h),
                    day_effects=bool(effects and effects.present(settings.day_effects_alpha)),
@@ -142,6 +138,30 @@ class VersionContext:
                    first_recent_day=first_recent, slope_chart=slope_chart, rhythm=rhythm,
                    learn_base=learn_base, learn_until=learn_until, k=settings.cusum_k,
                    target_arl=settings.cusum_arl_days, guarantee=settings.guarantee)
+
+
+def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
+                   settings: CheckSettings,
+                   limits: SlopeLimits | None = None) -> SlopeChartDesign | None:
+    """The within-day slope chart of a fit window under ``settings``; its decision intervals
+    from ``limits`` when they were solved for the same settings (a fitted version stores
+    them, :class:`~monitor.domain.version.SlopeLimits`), else solved here."""
+    d = diagnosis
+    stored = (limits.array() if limits is not None and limits.matches(
+        settings.slope_chart_step, settings.slope_chart_arl_days, settings.guarantee) else None)
+    return design_slope_chart(reference, (d.slope_noise_ratio or None) if d else None,
+                              settings.slope_chart_step, settings.slope_chart_arl_days,
+                              settings.guarantee, row_scale=d.robust_sd if d else None,
+                              h=stored)
+
+
+def slope_limits_of(chart: SlopeChartDesign | None,
+                    settings: CheckSettings) -> SlopeLimits | None:
+    """What a version stores of its slope chart (None: the window pins down no slope)."""
+    if chart is None:
+        return None
+    return SlopeLimits(settings.slope_chart_step, settings.slope_chart_arl_days,
+                       settings.guarantee, tuple(float(h) for h in chart.h))
 
 
 def _fit_level(reference: DayMoments, coefficients: FloatArray,

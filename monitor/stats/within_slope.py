@@ -173,13 +173,16 @@ class SlopeStep:
 
 def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: float,
                        target_arl: float, guarantee: float, *,
-                       row_scale: float | None = None) -> SlopeChartDesign | None:
+                       row_scale: float | None = None,
+                       h: FloatArray | None = None) -> SlopeChartDesign | None:
     """The chart of a version fitted on ``days``; None when too few days pin down a slope.
 
     ``inflation`` holds each predictor's ``c_j`` (:func:`monitor.stats.diagnosis.
     slope_noise_ratio`, computed on the fit window's rows with the same clipping as
     :func:`slope_step`), 1 when not known; ``row_scale`` is the robust within-day sd of the
     rows (the clipping unit of :func:`slope_step`; the classical one when not given).
+    ``h``: the decision intervals solved before for these same arguments (stored with the
+    version), instead of solving them again.
     """
     keep = np.asarray(days.n) > 0
     k = days.dim - 1
@@ -206,8 +209,9 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     steps = target / np.sqrt(v)
     full_steps = np.full((len(fit_days), k), np.nan)
     full_steps[found.usable] = steps
-    h = _decision_interval(steps, target, ref_se, tau2, within_var, len(dev), dof, target_arl,
-                           guarantee)
+    if h is None or len(h) != k:
+        h = _decision_interval(steps, target, ref_se, tau2, within_var, len(dev), dof,
+                               target_arl, guarantee)
     scale = row_scale if row_scale is not None and row_scale > 0 else float(np.sqrt(sigma_w2))
     return SlopeChartDesign(slopes=beta, sigma_w2=sigma_w2, row_scale=scale,
                             inflation=c, tau2=tau2,

@@ -20,6 +20,7 @@ from monitor.domain.version import (
     Baseline,
     ChartCalibration,
     Line,
+    SlopeLimits,
     Version,
     VersionDraft,
     VersionSource,
@@ -41,7 +42,7 @@ def _values(draft: VersionDraft) -> dict[str, Any]:
         "day_effects": encode(base.day_effects), "calibration": encode(base.calibration),
         "days": base.fit_days, "tvalues": encode(line.tvalues), "pvalues": encode(line.pvalues),
         "import_notes": list(draft.notes), "imported_from": draft.imported_from,
-        "window": encode(base.diagnosis),
+        "window": encode(base.diagnosis), "slope_limits": encode(base.slope_limits),
     }
     return {
         "source": draft.source.value, "fit_start": draft.fit_start, "fit_end": draft.fit_end,
@@ -74,7 +75,8 @@ def _version(row: Any) -> Version:
         reference=DayMoments.from_dict(m["reference"]) if m["reference"] else None,
         calibration=decode(ChartCalibration | None, diag.get("calibration")),
         fit_days=diag.get("days"),
-        diagnosis=decode(FitDiagnosis | None, diag.get("window")))
+        diagnosis=decode(FitDiagnosis | None, diag.get("window")),
+        slope_limits=decode(SlopeLimits | None, diag.get("slope_limits")))
     draft = VersionDraft(
         source=VersionSource(m["source"]), line=line, baseline=baseline,
         fit_start=m["fit_start"], fit_end=m["fit_end"], note=m["note"],

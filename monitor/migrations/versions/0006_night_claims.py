@@ -57,9 +57,8 @@ def upgrade() -> None:
                                 ondelete="CASCADE"),
         sa.PrimaryKeyConstraint("round_id", "model_id", name=op.f("pk_night_claims")),
     )
-    op.create_index("ix_night_claims_open", "night_claims", ["round_id", "model_id"],
-                    postgresql_where=sa.text("done_at IS NULL"),
-                    sqlite_where=sa.text("done_at IS NULL"))
+    op.create_index("ix_night_claims_open", "night_claims",
+                    ["round_id", "done_at", "model_id"])
 
 
 def downgrade() -> None:

@@ -1,0 +1,55 @@
+"""The slope chart's decision intervals are solved once, at the fit, and stored with the
+version: a check context built from the stored ones equals one that solves them again, and
+other settings than those they were solved for are solved afresh (the root search took about
+90 % of building a version's check context: 42 of 48 ms a model, once per model a night)."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+from sqlalchemy import Engine
+
+from monitor.monitoring.context import VersionContext, slope_chart_of
+from monitor.store.models import get_model
+from monitor.store.versions import active_version
+from tests.support.world import World, settings_for
+
+
+def _version(engine: Engine, make_settings, tmp_path: Path):
+    world = World(engine, settings_for(make_settings, engine), tmp_path, seed=4)
+    with engine.connect() as conn:
+        return world.settings, active_version(conn, get_model(conn, "dock_loading").id)
+
+
+def test_a_fitted_version_stores_the_limits_a_fresh_solve_gives(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    settings, version = _version(engine, make_settings, tmp_path)
+    limits = version.baseline.slope_limits
+    assert limits is not None and limits.matches(settings.check.slope_chart_step,
+                                                 settings.check.slope_chart_arl_days,
+                                                 settings.check.guarantee)
+    fresh = slope_chart_of(version.baseline.reference, version.baseline.diagnosis,
+                           settings.check)  # no stored limits: the root search runs
+    assert fresh is not None and np.isfinite(fresh.h).all()
+    np.testing.assert_array_equal(limits.array(), fresh.h)  # exactly, through JSON and back
+    stored = VersionContext.build(version, settings.check).slope_chart
+    unstored = VersionContext.build(
+        replace(version, draft=replace(version.draft, baseline=replace(
+            version.baseline, slope_limits=None))),
+        settings.check).slope_chart
+    assert stored is not None and unstored is not None
+    for field in ("h", "slopes", "tau2", "target", "reference_se", "inflation"):
+        np.testing.assert_array_equal(getattr(stored, field), getattr(unstored, field))
+
+
+def test_limits_solved_for_other_settings_are_solved_again(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    settings, version = _version(engine, make_settings, tmp_path)
+    wider = replace(settings.check, slope_chart_arl_days=settings.check.slope_chart_arl_days * 4)
+    chart = VersionContext.build(version, wider).slope_chart
+    fresh = slope_chart_of(version.baseline.reference, version.baseline.diagnosis, wider)
+    assert chart is not None and fresh is not None
+    np.testing.assert_array_equal(chart.h, fresh.h)
+    assert (chart.h > version.baseline.slope_limits.array()).all()  # a longer ARL, a wider H
