@@ -22,7 +22,6 @@ from pathlib import Path
 from typing import BinaryIO, cast
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.csv as pacsv
 from numpy.typing import NDArray
@@ -331,6 +330,8 @@ class CsvSource(Source):
                     null_values=[], true_values=[], false_values=[]))
             columns = {c: table.column(f"c{i}").combine_chunks() for c, i in self.index.items()}
         except pa.ArrowInvalid:  # e.g. bytes that are not UTF-8: pandas replaces them
+            import pandas as pd  # only here: importing it costs more than parsing most files
+
             frame = pd.read_csv(
                 io.BytesIO(bytes(payload)), sep=self.delimiter, header=None,
                 names=range(self.fields),

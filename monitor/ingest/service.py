@@ -24,7 +24,8 @@ from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
-import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 from numpy.typing import NDArray
 from sqlalchemy import Connection, Engine
 from tqdm import tqdm
@@ -308,12 +309,11 @@ def _by_line(rejection: Rejection) -> int:
 def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray[np.intp]]:
     """Which rows hold the first occurrence of their key, and for every row that first row."""
     n = len(checked)
-    index = pd.Index(checked.keys)
-    if index.is_unique:
+    if len(set(checked.keys.tolist())) == n:
         return np.ones(n, dtype=bool), np.arange(n)
-    codes, _ = pd.factorize(checked.keys)
-    _, first_rows = np.unique(codes, return_index=True)
-    first = first_rows[codes]
+    codes = pc.dictionary_encode(pa.array(checked.keys, pa.string())).indices  # first seen: 0..
+    _, first_rows = np.unique(codes.to_numpy(), return_index=True)
+    first = first_rows[codes.to_numpy()]
     return first == np.arange(n), first
 
 

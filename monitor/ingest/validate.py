@@ -16,7 +16,6 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 from numpy.typing import NDArray
@@ -40,6 +39,7 @@ _ISO_START = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}"
 _ZONED = r"[0-9]{2}:[0-9]{2}(:[0-9]{2}([.,][0-9]*)?)?\s*([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)$"
 _US = pa.timestamp("us")
 _US_UTC = pa.timestamp("us", tz="UTC")
+_US_PER_DAY = 86_400_000_000
 
 # reason codes in the order the checks run; a row gets the first that applies
 _CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
@@ -159,8 +159,17 @@ def local_days(observed_us: NDArray[np.int64], zone: ZoneInfo) -> NDArray[np.dat
     """The calendar date in ``zone`` of each UTC instant (epoch microseconds)."""
     if len(observed_us) == 0:
         return np.zeros(0, dtype="datetime64[D]")
-    index = pd.DatetimeIndex(observed_us.view("datetime64[us]")).tz_localize(UTC)
-    return index.tz_convert(zone).tz_localize(None).values.astype("datetime64[D]")
+    instants = pa.array(np.asarray(observed_us, dtype=np.int64), pa.int64()).cast(
+        pa.timestamp("us", tz=_zone_name(zone)))
+    wall = _int_array(pc.cast(pc.local_timestamp(instants), pa.int64()))
+    return np.floor_divide(wall, _US_PER_DAY).astype("datetime64[D]")
+
+
+def _zone_name(zone: ZoneInfo) -> str:
+    """The IANA name Arrow's time zone functions look ``zone`` up by."""
+    if not zone.key:
+        raise ValueError("the time zone must be given by its IANA name (ZoneInfo('...'))")
+    return zone.key
 
 
 # columns ----------------------------------------------------------------------------------------
@@ -244,17 +253,28 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
 
 def _localize(naive_us: NDArray[np.int64], code: NDArray[np.int8],
               zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray[np.int8]]:
-    """Wall-clock times in ``zone`` to UTC; times in a DST gap or overlap are refused."""
+    """Wall-clock times in ``zone`` to UTC; times in a DST gap or overlap are refused.
+
+    Arrow resolves each time twice, taking the earlier and then the later reading of a time
+    that is ambiguous or missing: the two agree exactly when the time exists once. Of the
+    others, a time that exists twice reads back as itself; one the clocks skipped does not.
+    """
     code = code.copy()
-    index = pd.DatetimeIndex(naive_us.view("datetime64[us]"))
-    local = index.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-    failed = np.asarray(local.isna()) & (code == 0)
-    us = np.where(np.asarray(local.isna()), 0, local.as_unit("us").asi8)
-    if failed.any():
-        again = index[failed].tz_localize(zone, ambiguous=np.ones(int(failed.sum()), dtype=bool),
-                                          nonexistent="NaT")
-        code[np.flatnonzero(failed)] = np.where(np.asarray(again.isna()), _C["dst_gap"],
-                                                _C["dst_ambiguous"])
+    wall = pa.array(np.asarray(naive_us, dtype=np.int64), pa.int64()).cast(_US)
+    name = _zone_name(zone)
+    early = pc.assume_timezone(wall, timezone=name, ambiguous="earliest",
+                               nonexistent="earliest")
+    late = pc.assume_timezone(wall, timezone=name, ambiguous="latest", nonexistent="latest")
+    us = _int_array(pc.cast(early, pa.int64()))
+    unclear = np.flatnonzero(us != _int_array(pc.cast(late, pa.int64())))
+    if len(unclear):
+        back = _int_array(pc.cast(pc.local_timestamp(early.take(pa.array(unclear))),
+                                  pa.int64()))
+        twice = back == naive_us[unclear]
+        fresh = code[unclear] == 0
+        code[unclear[fresh]] = np.where(twice[fresh], _C["dst_ambiguous"], _C["dst_gap"])
+        us = us.copy()  # Arrow's buffer is read-only
+        us[unclear] = 0
     return us, code
 
 
