@@ -156,20 +156,40 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
 
 
 def local_days(observed_us: NDArray[np.int64], zone: ZoneInfo) -> NDArray[np.datetime64]:
-    """The calendar date in ``zone`` of each UTC instant (epoch microseconds)."""
+    """The calendar date in ``zone`` of each UTC instant (epoch microseconds).
+
+    One offset per UTC day serves every row of the day when the zone's offset is the same at
+    both of its ends; only the rows of a day with a transition are converted one by one.
+    """
     if len(observed_us) == 0:
         return np.zeros(0, dtype="datetime64[D]")
-    instants = pa.array(np.asarray(observed_us, dtype=np.int64), pa.int64()).cast(
-        pa.timestamp("us", tz=_zone_name(zone)))
-    wall = _int_array(pc.cast(pc.local_timestamp(instants), pa.int64()))
+    utc = np.asarray(observed_us, dtype=np.int64)
+    days, inverse = np.unique(np.floor_divide(utc, _US_PER_DAY), return_inverse=True)
+    start = np.array([_offset_at(zone, int(d) * _US_PER_DAY) for d in days], dtype=np.int64)
+    end = np.array([_offset_at(zone, (int(d) + 1) * _US_PER_DAY) for d in days],
+                   dtype=np.int64)
+    wall = utc + start[inverse]
+    for i in np.flatnonzero((start != end)[inverse]):
+        wall[i] = utc[i] + _offset_at(zone, int(utc[i]))
     return np.floor_divide(wall, _US_PER_DAY).astype("datetime64[D]")
 
 
-def _zone_name(zone: ZoneInfo) -> str:
-    """The IANA name Arrow's time zone functions look ``zone`` up by."""
-    if not zone.key:
-        raise ValueError("the time zone must be given by its IANA name (ZoneInfo('...'))")
-    return zone.key
+# Python's datetime spans years 1 to 9999; instants beyond take the offset at the nearest end
+# (such rows are refused as too early or in the future anyway).
+_FIRST_US = -62_135_596_800_000_000 + _US_PER_DAY * 2  # 0001-01-03 UTC
+_LAST_US = 253_402_300_799_000_000 - _US_PER_DAY * 2  # 9999-12-29 UTC
+_EPOCH = datetime(1970, 1, 1)
+
+
+def _offset_at(zone: ZoneInfo, utc_us: int) -> int:
+    """The UTC offset of ``zone`` at an instant, in microseconds."""
+    moment = _EPOCH.replace(tzinfo=UTC) + timedelta(
+        microseconds=min(max(utc_us, _FIRST_US), _LAST_US))
+    return _us(moment.astimezone(zone).utcoffset())
+
+
+def _us(delta: timedelta | None) -> int:
+    return (delta or timedelta()) // timedelta(microseconds=1)
 
 
 # columns ----------------------------------------------------------------------------------------
@@ -255,27 +275,44 @@ def _localize(naive_us: NDArray[np.int64], code: NDArray[np.int8],
               zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray[np.int8]]:
     """Wall-clock times in ``zone`` to UTC; times in a DST gap or overlap are refused.
 
-    Arrow resolves each time twice, taking the earlier and then the later reading of a time
-    that is ambiguous or missing: the two agree exactly when the time exists once. Of the
-    others, a time that exists twice reads back as itself; one the clocks skipped does not.
+    Python's zoneinfo decides (PEP 495): a wall-clock time read with ``fold=0`` and with
+    ``fold=1`` gives one instant when it exists once; two instants that each read back as the
+    time when it exists twice (the clocks were turned back); two that do not when the clocks
+    skipped it. Most days have one offset from midnight to midnight, found at their ends, and
+    all their rows are shifted by it at once; the rows of the few days with a transition are
+    read one by one. That is exact as long as a zone never changes its offset twice within a
+    day and back: no zone of the tz database does (its transitions are months apart, at least
+    two days; checked over every zone's transition list).
     """
     code = code.copy()
-    wall = pa.array(np.asarray(naive_us, dtype=np.int64), pa.int64()).cast(_US)
-    name = _zone_name(zone)
-    early = pc.assume_timezone(wall, timezone=name, ambiguous="earliest",
-                               nonexistent="earliest")
-    late = pc.assume_timezone(wall, timezone=name, ambiguous="latest", nonexistent="latest")
-    us = _int_array(pc.cast(early, pa.int64()))
-    unclear = np.flatnonzero(us != _int_array(pc.cast(late, pa.int64())))
-    if len(unclear):
-        back = _int_array(pc.cast(pc.local_timestamp(early.take(pa.array(unclear))),
-                                  pa.int64()))
-        twice = back == naive_us[unclear]
-        fresh = code[unclear] == 0
-        code[unclear[fresh]] = np.where(twice[fresh], _C["dst_ambiguous"], _C["dst_gap"])
-        us = us.copy()  # Arrow's buffer is read-only
-        us[unclear] = 0
+    wall = np.asarray(naive_us, dtype=np.int64)
+    days, inverse = np.unique(np.floor_divide(wall, _US_PER_DAY), return_inverse=True)
+    bounds = np.unique(np.concatenate([days, days + 1]))
+    folds = np.array([_wall_offsets(zone, int(b) * _US_PER_DAY) for b in bounds],
+                     dtype=np.int64).reshape(-1, 2)
+    start = folds[np.searchsorted(bounds, days)]
+    end = folds[np.searchsorted(bounds, days + 1)]
+    steady = (start[:, 0] == start[:, 1]) & (start[:, 0] == end[:, 0]) \
+        & (end[:, 0] == end[:, 1])
+    us = wall - start[inverse, 0]
+    for i in np.flatnonzero(~steady[inverse]):
+        early, late = _wall_offsets(zone, int(wall[i]))
+        if early == late:
+            us[i] = wall[i] - early
+            continue
+        if code[i] == 0:
+            instant = _EPOCH.replace(tzinfo=UTC) + timedelta(microseconds=int(wall[i]) - early)
+            back = instant.astimezone(zone).replace(tzinfo=None) - _EPOCH
+            code[i] = _C["dst_ambiguous"] if _us(back) == wall[i] else _C["dst_gap"]
+        us[i] = 0
     return us, code
+
+
+def _wall_offsets(zone: ZoneInfo, wall_us: int) -> tuple[int, int]:
+    """The UTC offsets (microseconds) of a wall-clock time in ``zone`` read with fold 0 and 1."""
+    wall = _EPOCH + timedelta(microseconds=min(max(wall_us, _FIRST_US), _LAST_US))
+    return (_us(wall.replace(tzinfo=zone, fold=0).utcoffset()),
+            _us(wall.replace(tzinfo=zone, fold=1).utcoffset()))
 
 
 def _ids(arr: pa.Array) -> tuple[NDArray[np.object_], NDArray[np.bool_]]:
