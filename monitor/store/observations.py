@@ -30,6 +30,7 @@ from sqlalchemy import (
 from sqlalchemy.sql.compiler import SQLCompiler
 
 from monitor.domain.model import ModelRecord
+from monitor.errors import StateError
 from monitor.stats.moments import DayMoments, Moments
 from monitor.store.engine import driver_cursor
 from monitor.store.schema import (
@@ -288,15 +289,14 @@ _STAGE_SQL = (  # per transaction; x1..x8 covers every model (config.MAX_PREDICT
 
 def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
                        rows: PreparedRows) -> InsertResult:
-    """COPY the rows into a temporary table, then one statement stores the new ones and returns
-    what was stored before under the others.
+    """COPY the rows into a temporary table, store the new ones with one INSERT ... ON CONFLICT
+    DO NOTHING that only counts them, and only when some were not new, read what is stored
+    under their keys (one index probe per row; a join that hashed the model's stored rows
+    would read them all for every chunk).
 
-    The INSERT runs in a data-modifying WITH clause and the SELECT beside it reads the snapshot
-    taken before it (PostgreSQL manual, "Data-Modifying Statements in WITH"), so the rows it
-    finds under the chunk's keys are exactly those stored before; it also counts the rows the
-    INSERT stored. When the two do not add up, another transaction stored some of the keys
-    while this statement ran (ON CONFLICT saw its rows, the snapshot did not): those are read
-    again by a statement of their own.
+    The rows found are those of other batches (stored before, or by another transaction that
+    committed meanwhile: ON CONFLICT saw them) and this batch's rows from earlier chunks, told
+    from the ones just stored by their ids, drawn after ``before``.
     """
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
     values = ", ".join(names)
@@ -310,25 +310,28 @@ def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
         with cursor.copy(f"COPY fitwatch_stage (pos, {values}) FROM STDIN "
                          "(FORMAT csv)") as copy:
             copy.write(_csv_block(rows))
-        cursor.execute(
+        before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
+        stored = cursor.execute(
             f"WITH stored AS (INSERT INTO observations (model_id, batch_id, {values}) "
             f"SELECT {mid}, {bid}, {values} FROM fitwatch_stage "
             "ON CONFLICT (model_id, obs_key) DO NOTHING RETURNING 1) "
-            "SELECT (SELECT count(*) FROM stored), (SELECT max(id) FROM observations), "
-            f"found.* FROM (SELECT 1) AS one LEFT JOIN ("
-            f"SELECT s.pos, o.id, o.batch_id, o.observed_at_us, o.y, "
-            f"{', '.join(f'o.{c}' for c in predictor_columns(model.k))} "
-            f"FROM fitwatch_stage AS s JOIN observations AS o "
-            f"ON o.model_id = {mid} AND o.obs_key = s.obs_key) AS found ON true")
-        answer = cursor.fetchall()
-    stored, before = int(answer[0][0]), int(answer[0][1] or 0)
+            "SELECT count(*) FROM stored").fetchone()[0]
+        found = []
+        if stored < len(rows):
+            xs = "".join(f", o.{c}" for c in predictor_columns(model.k))
+            found = cursor.execute(
+                f"SELECT s.pos, o.id, o.batch_id, o.observed_at_us, o.y{xs} "
+                "FROM fitwatch_stage AS s CROSS JOIN LATERAL (SELECT * FROM observations "
+                f"WHERE model_id = {mid} AND obs_key = s.obs_key) AS o "
+                f"WHERE o.batch_id <> {bid} OR o.id <= {int(before)}").fetchall()
     keys = rows.keys
-    found = [(keys[row[2]], *row[3:]) for row in answer if row[2] is not None]
-    if stored + len(found) != len(keys):  # a concurrent writer: read its rows now
-        found = _stored_before(_stored_under(conn, model, keys), bid, before)
+    if stored + len(found) != len(keys):  # a stored row vanished meanwhile (deleted by another
+        raise StateError(  # transaction): a key would be neither stored nor counted
+            f"rows of model '{model.name}' changed while ingesting; try again")
     if not found:
         return _result(np.ones(len(keys), bool), keys, [], model.k)
-    return _result(~_member(keys, {row[0] for row in found}), keys, found, model.k)
+    old = [(keys[row[0]], *row[1:]) for row in found]
+    return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
 
 
 def _csv_block(rows: PreparedRows) -> bytes:

@@ -1,11 +1,12 @@
-"""PostgreSQL's bulk path (COPY into a staging table, one INSERT ... ON CONFLICT that also
-returns what was stored before) counts and stores exactly what SQLite's executemany path does.
+"""PostgreSQL's bulk path (COPY into a staging table, one INSERT ... ON CONFLICT, then a read of
+what was stored before under the keys it skipped) counts and stores exactly what SQLite's
+executemany path does.
 
 The same files go into a fresh SQLite and a fresh PostgreSQL database with small chunks (so a
 key meets itself earlier in the same file, in another chunk, as well as in another file): after
 every file the summaries, the rejected rows with their reasons, the stored rows, the replaced
 rows and the day statistics must be equal, row for row. A last test makes another transaction
-store a key while the PostgreSQL statement runs, the case its count check exists for.
+store a key while the PostgreSQL INSERT runs.
 """
 
 from __future__ import annotations
@@ -209,10 +210,10 @@ def test_many_chunks_of_random_repeats_count_alike(engines: dict[str, Engine],
 
 def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: str,
                                                                 tmp_path: Path) -> None:
-    """Another transaction stores K2 and commits while the merge statement waits for it (ON
-    CONFLICT waits for the other transaction's row): K2 is then neither stored by the
-    statement nor in its snapshot, and must still come out as a duplicate (same time and
-    values), not be lost."""
+    """Another transaction stores K2 and commits while the INSERT waits for it (ON CONFLICT
+    waits for the other transaction's row): K2, skipped by the INSERT and not in the snapshot
+    it started with, must still come out as a duplicate (same time and values), not be lost
+    nor counted as stored by this file."""
     engine = open_engine(postgres_url)
     try:
         upgrade_database(engine)
