@@ -26,6 +26,7 @@ import pyarrow as pa
 import pyarrow.csv as pacsv
 from numpy.typing import NDArray
 
+from monitor.columnar import from_strings
 from monitor.errors import InputError, MissingColumnsError
 from monitor.ingest.reasons import Rejection
 
@@ -311,7 +312,7 @@ class CsvSource(Source):
         payloads Arrow cannot: a CR inside a field, bytes that are not UTF-8.
         """
         if count == 0:
-            return {c: pa.array([], pa.string()) for c in self.index}
+            return {c: from_strings([]) for c in self.index}
         names = [f"c{i}" for i in range(self.fields)]
         wanted = {f"c{i}" for i in self.index.values()}
         try:
@@ -416,7 +417,7 @@ class _LineTap:
 
 def _text_chunk(wanted: list[tuple[str, int]], values: list[list[str]], lines: list[int],
                 raws: list[str], malformed: list[Rejection], progress: int) -> RawChunk:
-    columns = {name: pa.array(v, pa.string()) for (name, _), v in zip(wanted, values,
+    columns = {name: from_strings(v) for (name, _), v in zip(wanted, values,
                                                                       strict=True)}
 
     def texts(rows: NDArray[np.intp], r: list[str] = raws) -> list[str]:

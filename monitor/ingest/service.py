@@ -24,8 +24,6 @@ from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
-import pyarrow as pa
-import pyarrow.compute as pc
 from numpy.typing import NDArray
 from sqlalchemy import Connection, Engine
 from tqdm import tqdm
@@ -311,9 +309,9 @@ def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray
     n = len(checked)
     if len(set(checked.keys.tolist())) == n:
         return np.ones(n, dtype=bool), np.arange(n)
-    codes = pc.dictionary_encode(pa.array(checked.keys, pa.string())).indices  # first seen: 0..
-    _, first_rows = np.unique(codes.to_numpy(), return_index=True)
-    first = first_rows[codes.to_numpy()]
+    _, first_rows, codes = np.unique(checked.keys.astype(str), return_index=True,
+                                     return_inverse=True)  # first_rows: each key's first row
+    first = first_rows[codes.ravel()]
     return first == np.arange(n), first
 
 

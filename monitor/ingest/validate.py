@@ -20,6 +20,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 from numpy.typing import NDArray
 
+from monitor.columnar import from_numpy, to_numpy
 from monitor.domain.model import ModelSpec
 from monitor.ingest.keys import content_keys
 from monitor.ingest.readers import RawChunk
@@ -212,13 +213,13 @@ def _numbers(arr: pa.Array) -> tuple[NDArray[np.float64], NDArray[np.int8]]:
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
                 pass
         text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-        empty = _mask(pc.or_kleene(text.is_null(), pc.equal(text, "")))
+        empty = _mask(text.is_null()) | (_int_array(pc.utf8_length(text)) == 0)
         looks = _mask(pc.match_substring_regex(text, _NUMBER, ignore_case=True)) & ~empty
         values = np.full(n, np.nan)
         ok = np.zeros(n, dtype=bool)
         for part in (np.flatnonzero(looks), np.flatnonzero(~looks & ~empty)):
             if len(part):
-                part_values, part_ok = _lenient(text.take(pa.array(part)), _to_float, np.nan)
+                part_values, part_ok = _lenient(text.take(from_numpy(part)), _to_float, np.nan)
                 values[part] = part_values
                 ok[part] = part_ok
         code[~ok & ~empty] = _C["not_a_number"]
@@ -250,7 +251,7 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             pass
     text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-    empty = _mask(pc.or_kleene(text.is_null(), pc.equal(text, "")))
+    empty = _mask(text.is_null()) | (_int_array(pc.utf8_length(text)) == 0)
     code[empty] = _C["empty_field"]
     zoned = _mask(pc.match_substring_regex(text, _ZONED)) & ~empty
     iso = _mask(pc.match_substring_regex(text, _ISO_START))
@@ -260,7 +261,7 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
                          (np.flatnonzero(zoned & iso), _US_UTC),
                          (np.flatnonzero(~empty & ~iso), _US)):
         if len(part):
-            part_us, part_ok = _lenient(text.take(pa.array(part)), _caster(target), 0)
+            part_us, part_ok = _lenient(text.take(from_numpy(part)), _caster(target), 0)
             (us if target is _US_UTC else naive_us)[part] = part_us
             ok[part] = part_ok
     code[~ok & ~empty] = _C["bad_time"]
@@ -323,9 +324,9 @@ def _ids(arr: pa.Array) -> tuple[NDArray[np.object_], NDArray[np.bool_]]:
         text = pc.if_else(integral, pc.cast(as_int, pa.string()), pc.cast(arr, pa.string()))
     else:
         text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-    text = pc.fill_null(text, "")
-    lengths = _int_array(pc.utf8_length(text))
-    keys = np.asarray(text.to_numpy(zero_copy_only=False), dtype=object)
+    lengths = _int_array(pc.utf8_length(text))  # a null counts as empty
+    keys = np.empty(len(text), dtype=object)
+    keys[:] = [value or "" for value in text.to_pylist()]
     nul = _mask(pc.match_substring(text, "\x00"))  # PostgreSQL text cannot hold it
     return keys, (lengths == 0) | (lengths > KEY_LIMIT) | nul
 
@@ -356,16 +357,15 @@ def _caster(target: pa.DataType) -> Callable[[pa.Array], NDArray[np.int64]]:
 
 
 def _float_array(arr: pa.Array) -> NDArray[np.float64]:
-    return np.asarray(pc.fill_null(arr, np.nan).to_numpy(zero_copy_only=False),
-                      dtype=np.float64)
+    return np.asarray(to_numpy(arr, np.nan), dtype=np.float64)
 
 
 def _int_array(arr: pa.Array) -> NDArray[np.int64]:
-    return np.asarray(pc.fill_null(arr, 0).to_numpy(zero_copy_only=False), dtype=np.int64)
+    return np.asarray(to_numpy(arr, 0), dtype=np.int64)
 
 
 def _mask(arr: pa.Array) -> NDArray[np.bool_]:
-    return np.asarray(pc.fill_null(arr, False).to_numpy(zero_copy_only=False), dtype=bool)
+    return np.asarray(to_numpy(arr, False), dtype=bool)
 
 
 # details ----------------------------------------------------------------------------------------
@@ -378,7 +378,7 @@ def _describe(chunk: RawChunk, bad: NDArray[np.intp], code: NDArray[np.int8],
     texts = chunk.texts(bad)
     shown: dict[str, list[Any]] = {}
     for column in {columns[c] for c in culprit[bad]}:
-        shown[column] = chunk.columns[column].take(pa.array(bad)).to_pylist()
+        shown[column] = chunk.columns[column].take(from_numpy(bad)).to_pylist()
     out = []
     for i, row in enumerate(bad):
         column = columns[culprit[row]]

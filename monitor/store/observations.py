@@ -340,13 +340,15 @@ def _csv_block(rows: PreparedRows) -> bytes:
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
+    from monitor.columnar import from_numpy, from_strings
+
     table = pa.table({
-        "pos": pa.array(np.arange(len(rows), dtype=np.int32)),
-        "obs_key": pa.array(rows.keys, pa.string()),
-        "observed_at_us": pa.array(rows.observed_us, pa.int64()),
-        "day": pa.array(np.asarray(rows.days, dtype="datetime64[D]")),
-        "y": pa.array(rows.y, pa.float64()),
-        **{name: pa.array(np.ascontiguousarray(rows.x[:, j]), pa.float64())
+        "pos": from_numpy(np.arange(len(rows), dtype=np.int32)),
+        "obs_key": from_strings(rows.keys),
+        "observed_at_us": from_numpy(np.asarray(rows.observed_us, dtype=np.int64)),
+        "day": from_numpy(np.asarray(rows.days, dtype="datetime64[D]")),
+        "y": from_numpy(np.asarray(rows.y, dtype=np.float64)),
+        **{name: from_numpy(np.asarray(rows.x[:, j], dtype=np.float64))
            for j, name in enumerate(predictor_columns(rows.x.shape[1]))},
     })
     sink = pa.BufferOutputStream()
