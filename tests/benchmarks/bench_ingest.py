@@ -18,6 +18,9 @@ checkout (or DIR), never from wherever the package happens to be installed.
 Wall seconds include importing fitwatch's ingest modules (the baseline's ``csv`` and ``sqlite3``
 are imported before its clock starts; they cost a few milliseconds); CPU seconds (user + system,
 all threads) are printed too, being less sensitive to other load on the machine.
+Two more kinds split the gap: ``baseline-wal`` is the baseline on a database in WAL mode (as
+fitwatch's), ``baseline-observations`` the baseline's reading and executemany into fitwatch's
+``observations`` table, with its two indexes, and nothing else of fitwatch.
 ``--profile`` then runs one more ingest per backend with the read-ahead thread switched off, so
 that cProfile sees every phase, and prints the time of each phase.
 """
@@ -84,6 +87,32 @@ def baseline(csv_path: Path, db_path: Path) -> None:
         next(reader)
         con.executemany("INSERT INTO loads VALUES (?, ?, ?, ?, ?)",
                         ((a, b, float(c), float(d), e) for a, b, c, d, e in reader))
+    con.close()
+
+
+def baseline_wal(csv_path: Path, db_path: Path) -> None:
+    """The baseline on a database in WAL mode, as fitwatch's (the cost of WAL alone)."""
+    sqlite3.connect(db_path).execute("PRAGMA journal_mode = WAL").connection.close()
+    baseline(csv_path, db_path)
+
+
+def baseline_observations(csv_path: Path, db_path: Path) -> None:
+    """The baseline's reading and executemany, into fitwatch's ``observations`` table (made by
+    the migrations beforehand; WAL, fitwatch's page cache): the cost of the table and its two
+    indexes (the model's unique keys, the model's days) alone, without any of fitwatch's work.
+    The day is the time's first 10 characters, the time a row number."""
+    con = sqlite3.connect(db_path, isolation_level=None)
+    con.execute("PRAGMA cache_size = -65536")
+    con.execute("BEGIN IMMEDIATE")
+    with csv_path.open(newline="") as fh:
+        reader = csv.reader(fh)
+        next(reader)
+        con.executemany("INSERT INTO observations (model_id, batch_id, obs_key, observed_at_us, "
+                        "day, y, x1) VALUES (1, 1, ?, ?, ?, ?, ?) "
+                        "ON CONFLICT (model_id, obs_key) DO NOTHING",
+                        ((a, i, b[:10], float(d), float(c))
+                         for i, (a, b, c, d, _) in enumerate(reader)))
+    con.execute("COMMIT")
     con.close()
 
 
@@ -157,9 +186,18 @@ def print_phases(stats: Any, wall: float) -> None:
 def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
     sys.path.insert(0, os.environ.get(TREE_ENV, str(ROOT)))
     cpu = cpu_seconds()
-    if kind == "baseline":
+    if kind.startswith("baseline"):
+        if kind == "baseline-observations":
+            prepare_fitwatch(f"sqlite:///{db_path}", with_id=True)
+            with sqlite3.connect(db_path) as con:
+                con.execute("INSERT INTO batches (id, model_id, source, strict, status, read, "
+                            "accepted, duplicates, rejected, reasons, started_at) VALUES "
+                            "(1, 1, 'bench', 0, 'complete', 0, 0, 0, 0, '{}', "
+                            "'2026-01-01 00:00:00')")
+            cpu = cpu_seconds()
         began = time.perf_counter()
-        baseline(csv_path, db_path)
+        {"baseline": baseline, "baseline-wal": baseline_wal,
+         "baseline-observations": baseline_observations}[kind](csv_path, db_path)
         extra: dict[str, object] = {}
     elif kind.startswith("fitwatch-postgresql"):
         import psycopg
@@ -265,6 +303,7 @@ def main() -> None:
             kinds.append("fitwatch-postgresql")
         if args.before:
             kinds += [f"{kind}-before" for kind in kinds[1:]]
+        kinds += ["baseline-wal", "baseline-observations"]
         results: dict[str, list[dict[str, float]]] = {kind: [] for kind in kinds}
         for _ in range(args.repeats):  # interleaved, so drifting machine load hits all alike
             for kind in results:
@@ -281,7 +320,9 @@ def main() -> None:
         base = statistics.median(r["seconds"] for r in results["baseline"])
         for kind in kinds[1:]:
             mine = statistics.median(r["seconds"] for r in results[kind])
-            say(f"ratio {kind} / baseline = {mine / base:.2f}")
+            cpu = statistics.median(r["cpu"] for r in results[kind]) / statistics.median(
+                r["cpu"] for r in results["baseline"])
+            say(f"ratio {kind} / baseline = {mine / base:.2f} (cpu {cpu:.2f})")
         for kind in kinds[1:]:
             if f"{kind}-before" in results:
                 mine = statistics.median(r["seconds"] for r in results[kind])
