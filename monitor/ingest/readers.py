@@ -2,7 +2,7 @@
 chunks of rows, each row with its line number and, on demand, its raw text.
 
 CSV files are read in blocks of bytes. Without quote characters every line is one row, so the
-rows of a block are found with array operations and handed to the pandas C parser in one piece
+rows of a block are found with array operations and handed to Arrow's CSV parser in one piece
 (the fast path); files with quotes go through the standard ``csv`` module, which follows quoted
 fields across lines. Either way each row keeps its physical line number, a row with the wrong
 number of fields is set aside (never shifts the others), and memory stays bounded by the block.
