@@ -27,16 +27,20 @@ def to_numpy(arr: pa.Array | pa.ChunkedArray, fill: float | bool = 0) -> NDArray
         arr = arr.combine_chunks()
     kind = arr.type
     n, start = len(arr), arr.offset
+    buffers = arr.buffers()
+    data = buffers[1] if len(buffers) > 1 else None
     if pa.types.is_boolean(kind):
-        values: NDArray[np.generic] = _bits(arr.buffers()[1], start, n)
+        values: NDArray[np.generic] = (_bits(data, start, n) if data is not None and n
+                                       else np.zeros(n, dtype=bool))
     elif pa.types.is_timestamp(kind) or pa.types.is_duration(kind) or kind in _NUMPY:
         dtype = np.dtype(_NUMPY.get(kind, np.int64))
-        values = np.frombuffer(arr.buffers()[1], dtype=dtype, count=n,
-                               offset=start * dtype.itemsize).copy()
+        values = (np.frombuffer(data, dtype=dtype, count=n, offset=start * dtype.itemsize).copy()
+                  if data is not None and n else np.zeros(n, dtype=dtype))
     else:  # anything else: pyarrow's conversion (and its pandas hook)
         values = np.array(arr.fill_null(fill).to_numpy(zero_copy_only=False))
     if arr.null_count:
-        values[~_bits(arr.buffers()[0], start, n)] = fill
+        valid = buffers[0]
+        values[~_bits(valid, start, n) if valid is not None else slice(None)] = fill
     return values
 
 

@@ -34,6 +34,13 @@ def test_to_numpy_matches_pyarrow(arr: pa.Array, fill: float, cut: slice) -> Non
     got[...] = got  # writable: a copy, not Arrow's read-only buffer
 
 
+def test_to_numpy_of_empty_and_all_null_arrays() -> None:
+    assert to_numpy(pa.chunked_array([], pa.float64())).shape == (0,)
+    assert to_numpy(pa.array([], pa.bool_()), False).dtype == np.dtype(bool)
+    np.testing.assert_array_equal(to_numpy(pa.nulls(3, pa.float64()), np.nan), [np.nan] * 3)
+    np.testing.assert_array_equal(to_numpy(pa.nulls(3, pa.bool_()), False), [False] * 3)
+
+
 def test_to_numpy_of_a_chunked_array() -> None:
     chunked = pa.chunked_array([[1.0, 2.0], [None, 4.0]])
     np.testing.assert_array_equal(to_numpy(chunked, -1.0), [1.0, 2.0, -1.0, 4.0])
