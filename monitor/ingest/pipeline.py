@@ -1,6 +1,6 @@
 """Reading ahead: parse and validate the next chunk while the current one is being stored.
 
-Parsing (pandas, Arrow) and SQLite's statement execution release the GIL, so on a machine with
+Parsing (Arrow) and SQLite's statement execution release the GIL, so on a machine with
 two cores reading and writing overlap. At most ``depth`` chunks wait, which keeps memory
 bounded; an error in the reader reaches the consumer unchanged.
 """

@@ -2,7 +2,7 @@
 chunks of rows, each row with its line number and, on demand, its raw text.
 
 CSV files are read in blocks of bytes. Without quote characters every line is one row, so the
-rows of a block are found with array operations and handed to the pandas C parser in one piece
+rows of a block are found with array operations and handed to Arrow's CSV parser in one piece
 (the fast path); files with quotes go through the standard ``csv`` module, which follows quoted
 fields across lines. Either way each row keeps its physical line number, a row with the wrong
 number of fields is set aside (never shifts the others), and memory stays bounded by the block.
@@ -22,11 +22,11 @@ from pathlib import Path
 from typing import BinaryIO, cast
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.csv as pacsv
 from numpy.typing import NDArray
 
+from monitor.columnar import from_strings
 from monitor.errors import InputError, MissingColumnsError
 from monitor.ingest.reasons import Rejection
 
@@ -312,7 +312,7 @@ class CsvSource(Source):
         payloads Arrow cannot: a CR inside a field, bytes that are not UTF-8.
         """
         if count == 0:
-            return {c: pa.array([], pa.string()) for c in self.index}
+            return {c: from_strings([]) for c in self.index}
         names = [f"c{i}" for i in range(self.fields)]
         wanted = {f"c{i}" for i in self.index.values()}
         try:
@@ -331,6 +331,8 @@ class CsvSource(Source):
                     null_values=[], true_values=[], false_values=[]))
             columns = {c: table.column(f"c{i}").combine_chunks() for c, i in self.index.items()}
         except pa.ArrowInvalid:  # e.g. bytes that are not UTF-8: pandas replaces them
+            import pandas as pd  # only here: importing it costs more than parsing most files
+
             frame = pd.read_csv(
                 io.BytesIO(bytes(payload)), sep=self.delimiter, header=None,
                 names=range(self.fields),
@@ -415,7 +417,7 @@ class _LineTap:
 
 def _text_chunk(wanted: list[tuple[str, int]], values: list[list[str]], lines: list[int],
                 raws: list[str], malformed: list[Rejection], progress: int) -> RawChunk:
-    columns = {name: pa.array(v, pa.string()) for (name, _), v in zip(wanted, values,
+    columns = {name: from_strings(v) for (name, _), v in zip(wanted, values,
                                                                       strict=True)}
 
     def texts(rows: NDArray[np.intp], r: list[str] = raws) -> list[str]:

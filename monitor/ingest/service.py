@@ -24,7 +24,6 @@ from typing import cast
 from zoneinfo import ZoneInfo
 
 import numpy as np
-import pandas as pd
 from numpy.typing import NDArray
 from sqlalchemy import Connection, Engine
 from tqdm import tqdm
@@ -308,12 +307,11 @@ def _by_line(rejection: Rejection) -> int:
 def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray[np.intp]]:
     """Which rows hold the first occurrence of their key, and for every row that first row."""
     n = len(checked)
-    index = pd.Index(checked.keys)
-    if index.is_unique:
+    if len(set(checked.keys.tolist())) == n:
         return np.ones(n, dtype=bool), np.arange(n)
-    codes, _ = pd.factorize(checked.keys)
-    _, first_rows = np.unique(codes, return_index=True)
-    first = first_rows[codes]
+    _, first_rows, codes = np.unique(checked.keys.astype(str), return_index=True,
+                                     return_inverse=True)  # first_rows: each key's first row
+    first = first_rows[codes.ravel()]
     return first == np.arange(n), first
 
 

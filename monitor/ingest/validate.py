@@ -16,11 +16,11 @@ from typing import Any
 from zoneinfo import ZoneInfo
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 from numpy.typing import NDArray
 
+from monitor.columnar import from_numpy, to_numpy
 from monitor.domain.model import ModelSpec
 from monitor.ingest.keys import content_keys
 from monitor.ingest.readers import RawChunk
@@ -40,6 +40,7 @@ _ISO_START = r"^[0-9]{4}-[0-9]{2}-[0-9]{2}"
 _ZONED = r"[0-9]{2}:[0-9]{2}(:[0-9]{2}([.,][0-9]*)?)?\s*([Zz]|[+-][0-9]{2}(:?[0-9]{2})?)$"
 _US = pa.timestamp("us")
 _US_UTC = pa.timestamp("us", tz="UTC")
+_US_PER_DAY = 86_400_000_000
 
 # reason codes in the order the checks run; a row gets the first that applies
 _CODES = ("", "empty_field", "not_a_number", "not_finite", "too_large", "bad_time", "dst_gap",
@@ -156,11 +157,40 @@ def check_rows(chunk: RawChunk, spec: ModelSpec, rules: Rules) -> CheckedRows:
 
 
 def local_days(observed_us: NDArray[np.int64], zone: ZoneInfo) -> NDArray[np.datetime64]:
-    """The calendar date in ``zone`` of each UTC instant (epoch microseconds)."""
+    """The calendar date in ``zone`` of each UTC instant (epoch microseconds).
+
+    One offset per UTC day serves every row of the day when the zone's offset is the same at
+    both of its ends; only the rows of a day with a transition are converted one by one.
+    """
     if len(observed_us) == 0:
         return np.zeros(0, dtype="datetime64[D]")
-    index = pd.DatetimeIndex(observed_us.view("datetime64[us]")).tz_localize(UTC)
-    return index.tz_convert(zone).tz_localize(None).values.astype("datetime64[D]")
+    utc = np.asarray(observed_us, dtype=np.int64)
+    days, inverse = np.unique(np.floor_divide(utc, _US_PER_DAY), return_inverse=True)
+    start = np.array([_offset_at(zone, int(d) * _US_PER_DAY) for d in days], dtype=np.int64)
+    end = np.array([_offset_at(zone, (int(d) + 1) * _US_PER_DAY) for d in days],
+                   dtype=np.int64)
+    wall = utc + start[inverse]
+    for i in np.flatnonzero((start != end)[inverse]):
+        wall[i] = utc[i] + _offset_at(zone, int(utc[i]))
+    return np.floor_divide(wall, _US_PER_DAY).astype("datetime64[D]")
+
+
+# Python's datetime spans years 1 to 9999; instants beyond take the offset at the nearest end
+# (such rows are refused as too early or in the future anyway).
+_FIRST_US = -62_135_596_800_000_000 + _US_PER_DAY * 2  # 0001-01-03 UTC
+_LAST_US = 253_402_300_799_000_000 - _US_PER_DAY * 2  # 9999-12-29 UTC
+_EPOCH = datetime(1970, 1, 1)
+
+
+def _offset_at(zone: ZoneInfo, utc_us: int) -> int:
+    """The UTC offset of ``zone`` at an instant, in microseconds."""
+    moment = _EPOCH.replace(tzinfo=UTC) + timedelta(
+        microseconds=min(max(utc_us, _FIRST_US), _LAST_US))
+    return _us(moment.astimezone(zone).utcoffset())
+
+
+def _us(delta: timedelta | None) -> int:
+    return (delta or timedelta()) // timedelta(microseconds=1)
 
 
 # columns ----------------------------------------------------------------------------------------
@@ -183,13 +213,13 @@ def _numbers(arr: pa.Array) -> tuple[NDArray[np.float64], NDArray[np.int8]]:
             except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
                 pass
         text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-        empty = _mask(pc.or_kleene(text.is_null(), pc.equal(text, "")))
+        empty = _mask(text.is_null()) | (_int_array(pc.utf8_length(text)) == 0)
         looks = _mask(pc.match_substring_regex(text, _NUMBER, ignore_case=True)) & ~empty
         values = np.full(n, np.nan)
         ok = np.zeros(n, dtype=bool)
         for part in (np.flatnonzero(looks), np.flatnonzero(~looks & ~empty)):
             if len(part):
-                part_values, part_ok = _lenient(text.take(pa.array(part)), _to_float, np.nan)
+                part_values, part_ok = _lenient(text.take(from_numpy(part)), _to_float, np.nan)
                 values[part] = part_values
                 ok[part] = part_ok
         code[~ok & ~empty] = _C["not_a_number"]
@@ -221,7 +251,7 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
         except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
             pass
     text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-    empty = _mask(pc.or_kleene(text.is_null(), pc.equal(text, "")))
+    empty = _mask(text.is_null()) | (_int_array(pc.utf8_length(text)) == 0)
     code[empty] = _C["empty_field"]
     zoned = _mask(pc.match_substring_regex(text, _ZONED)) & ~empty
     iso = _mask(pc.match_substring_regex(text, _ISO_START))
@@ -231,7 +261,7 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
                          (np.flatnonzero(zoned & iso), _US_UTC),
                          (np.flatnonzero(~empty & ~iso), _US)):
         if len(part):
-            part_us, part_ok = _lenient(text.take(pa.array(part)), _caster(target), 0)
+            part_us, part_ok = _lenient(text.take(from_numpy(part)), _caster(target), 0)
             (us if target is _US_UTC else naive_us)[part] = part_us
             ok[part] = part_ok
     code[~ok & ~empty] = _C["bad_time"]
@@ -244,18 +274,46 @@ def _instants(arr: pa.Array, zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray
 
 def _localize(naive_us: NDArray[np.int64], code: NDArray[np.int8],
               zone: ZoneInfo) -> tuple[NDArray[np.int64], NDArray[np.int8]]:
-    """Wall-clock times in ``zone`` to UTC; times in a DST gap or overlap are refused."""
+    """Wall-clock times in ``zone`` to UTC; times in a DST gap or overlap are refused.
+
+    Python's zoneinfo decides (PEP 495): a wall-clock time read with ``fold=0`` and with
+    ``fold=1`` gives one instant when it exists once; two instants that each read back as the
+    time when it exists twice (the clocks were turned back); two that do not when the clocks
+    skipped it. Most days have one offset from midnight to midnight, found at their ends, and
+    all their rows are shifted by it at once; the rows of the few days with a transition are
+    read one by one. That is exact as long as a zone never changes its offset twice within a
+    day and back: no zone of the tz database does (its transitions are months apart, at least
+    two days; checked over every zone's transition list).
+    """
     code = code.copy()
-    index = pd.DatetimeIndex(naive_us.view("datetime64[us]"))
-    local = index.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-    failed = np.asarray(local.isna()) & (code == 0)
-    us = np.where(np.asarray(local.isna()), 0, local.as_unit("us").asi8)
-    if failed.any():
-        again = index[failed].tz_localize(zone, ambiguous=np.ones(int(failed.sum()), dtype=bool),
-                                          nonexistent="NaT")
-        code[np.flatnonzero(failed)] = np.where(np.asarray(again.isna()), _C["dst_gap"],
-                                                _C["dst_ambiguous"])
+    wall = np.asarray(naive_us, dtype=np.int64)
+    days, inverse = np.unique(np.floor_divide(wall, _US_PER_DAY), return_inverse=True)
+    bounds = np.unique(np.concatenate([days, days + 1]))
+    folds = np.array([_wall_offsets(zone, int(b) * _US_PER_DAY) for b in bounds],
+                     dtype=np.int64).reshape(-1, 2)
+    start = folds[np.searchsorted(bounds, days)]
+    end = folds[np.searchsorted(bounds, days + 1)]
+    steady = (start[:, 0] == start[:, 1]) & (start[:, 0] == end[:, 0]) \
+        & (end[:, 0] == end[:, 1])
+    us = wall - start[inverse, 0]
+    for i in np.flatnonzero(~steady[inverse]):
+        early, late = _wall_offsets(zone, int(wall[i]))
+        if early == late:
+            us[i] = wall[i] - early
+            continue
+        if code[i] == 0:
+            instant = _EPOCH.replace(tzinfo=UTC) + timedelta(microseconds=int(wall[i]) - early)
+            back = instant.astimezone(zone).replace(tzinfo=None) - _EPOCH
+            code[i] = _C["dst_ambiguous"] if _us(back) == wall[i] else _C["dst_gap"]
+        us[i] = 0
     return us, code
+
+
+def _wall_offsets(zone: ZoneInfo, wall_us: int) -> tuple[int, int]:
+    """The UTC offsets (microseconds) of a wall-clock time in ``zone`` read with fold 0 and 1."""
+    wall = _EPOCH + timedelta(microseconds=min(max(wall_us, _FIRST_US), _LAST_US))
+    return (_us(wall.replace(tzinfo=zone, fold=0).utcoffset()),
+            _us(wall.replace(tzinfo=zone, fold=1).utcoffset()))
 
 
 def _ids(arr: pa.Array) -> tuple[NDArray[np.object_], NDArray[np.bool_]]:
@@ -266,9 +324,9 @@ def _ids(arr: pa.Array) -> tuple[NDArray[np.object_], NDArray[np.bool_]]:
         text = pc.if_else(integral, pc.cast(as_int, pa.string()), pc.cast(arr, pa.string()))
     else:
         text = pc.utf8_trim_whitespace(pc.cast(arr, pa.string()))
-    text = pc.fill_null(text, "")
-    lengths = _int_array(pc.utf8_length(text))
-    keys = np.asarray(text.to_numpy(zero_copy_only=False), dtype=object)
+    lengths = _int_array(pc.utf8_length(text))  # a null counts as empty
+    keys = np.empty(len(text), dtype=object)
+    keys[:] = [value or "" for value in text.to_pylist()]
     nul = _mask(pc.match_substring(text, "\x00"))  # PostgreSQL text cannot hold it
     return keys, (lengths == 0) | (lengths > KEY_LIMIT) | nul
 
@@ -299,16 +357,15 @@ def _caster(target: pa.DataType) -> Callable[[pa.Array], NDArray[np.int64]]:
 
 
 def _float_array(arr: pa.Array) -> NDArray[np.float64]:
-    return np.asarray(pc.fill_null(arr, np.nan).to_numpy(zero_copy_only=False),
-                      dtype=np.float64)
+    return np.asarray(to_numpy(arr, np.nan), dtype=np.float64)
 
 
 def _int_array(arr: pa.Array) -> NDArray[np.int64]:
-    return np.asarray(pc.fill_null(arr, 0).to_numpy(zero_copy_only=False), dtype=np.int64)
+    return np.asarray(to_numpy(arr, 0), dtype=np.int64)
 
 
 def _mask(arr: pa.Array) -> NDArray[np.bool_]:
-    return np.asarray(pc.fill_null(arr, False).to_numpy(zero_copy_only=False), dtype=bool)
+    return np.asarray(to_numpy(arr, False), dtype=bool)
 
 
 # details ----------------------------------------------------------------------------------------
@@ -321,7 +378,7 @@ def _describe(chunk: RawChunk, bad: NDArray[np.intp], code: NDArray[np.int8],
     texts = chunk.texts(bad)
     shown: dict[str, list[Any]] = {}
     for column in {columns[c] for c in culprit[bad]}:
-        shown[column] = chunk.columns[column].take(pa.array(bad)).to_pylist()
+        shown[column] = chunk.columns[column].take(from_numpy(bad)).to_pylist()
     out = []
     for i, row in enumerate(bad):
         column = columns[culprit[row]]

@@ -8,27 +8,19 @@ the tuples the driver itself needs.
 from __future__ import annotations
 
 import json
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 from sqlalchemy import (
-    BigInteger,
     ClauseElement,
-    Column,
     Connection,
-    Date,
-    Float,
-    MetaData,
     String,
-    Table,
     and_,
     bindparam,
-    cast,
     func,
     literal,
     literal_column,
@@ -38,6 +30,7 @@ from sqlalchemy import (
 from sqlalchemy.sql.compiler import SQLCompiler
 
 from monitor.domain.model import ModelRecord
+from monitor.errors import StateError
 from monitor.stats.moments import DayMoments, Moments
 from monitor.store.engine import driver_cursor
 from monitor.store.schema import (
@@ -48,7 +41,6 @@ from monitor.store.schema import (
     predictor_columns,
     replaced_rows,
 )
-from monitor.store.upsert import insert_for
 
 _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
@@ -217,31 +209,42 @@ def count_observations(conn: Connection, model: ModelRecord) -> int:
 # writing ----------------------------------------------------------------------------------------
 @dataclass(frozen=True, eq=False)
 class PreparedRows:
-    """Rows ready for the driver: distinct keys and tuples (key, time, day, y, x...).
+    """Rows ready for the driver: distinct keys, their values as arrays and, for executemany,
+    as Python lists (key, time, day, y, x...), one per column.
 
     Built by :func:`prepare_rows` (pure; can run ahead in another thread), stored by
     :func:`insert_observations`.
     """
 
     keys: NDArray[np.object_]
-    tuples: list[tuple[Any, ...]]
+    observed_us: NDArray[np.int64]
+    days: NDArray[np.datetime64]
+    x: NDArray[np.float64]
+    y: NDArray[np.float64]
+    columns: list[list[Any]]
 
     def __len__(self) -> int:
         return len(self.keys)
+
+    def tuples(self) -> Iterator[tuple[Any, ...]]:
+        """One tuple per row, made as the driver takes them (``zip`` reuses a tuple the
+        driver has let go of, so a million rows need not be a million tuples at once)."""
+        return zip(*self.columns, strict=True)
 
 
 def prepare_rows(keys: NDArray[np.object_], observed_us: NDArray[np.int64],
                  days: NDArray[np.datetime64], x: NDArray[np.float64],
                  y: NDArray[np.float64]) -> PreparedRows:
-    """The driver's tuples for these rows (``keys`` must be distinct)."""
+    """The driver's columns for these rows (``keys`` must be distinct)."""
     columns = [keys.tolist(), observed_us.tolist(), _day_strings(days), y.tolist(),
                *(x[:, j].tolist() for j in range(x.shape[1]))]
-    return PreparedRows(keys, list(zip(*columns, strict=True)))
+    return PreparedRows(keys, observed_us, days, x, y, columns)
 
 
 def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
                         rows: PreparedRows) -> InsertResult:
-    """Store rows whose key is new for the model; report what is stored under the other keys.
+    """Store rows whose key is new for the model; report what is stored under the other keys
+    (by other batches, or by this one in an earlier call).
 
     Runs inside the caller's transaction.
     """
@@ -255,69 +258,102 @@ def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
 def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
                    rows: PreparedRows) -> InsertResult:
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
-    stmt = (insert_for(conn, observations)
-            .values(model_id=literal_column(str(int(model.id))),
-                    batch_id=literal_column(str(int(batch_id))),
-                    **{name: bindparam(name) for name in names})
-            .on_conflict_do_nothing(index_elements=["model_id", "obs_key"]))
-    compiled = stmt.compile(dialect=conn.dialect)
-    order = [names.index(p) for p in compiled.positiontup or []]
-    tuples = rows.tuples
-    if order != list(range(len(names))):
-        tuples = [tuple(row[i] for i in order) for row in tuples]
+    sql = (f"INSERT INTO observations (model_id, batch_id, {', '.join(names)}) "
+           f"VALUES ({int(model.id)}, {int(batch_id)}, {', '.join('?' * len(names))}) "
+           "ON CONFLICT (model_id, obs_key) DO NOTHING")
     with driver_cursor(conn) as cursor:
         before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
-        cursor.executemany(str(compiled), tuples)
+        cursor.executemany(sql, rows.tuples())
         stored = cursor.rowcount
     keys = rows.keys
     if stored == len(keys):
         return _result(np.ones(len(keys), bool), keys, [], model.k)
-    found = _stored_under(conn, model, keys)
-    old = [row for row in found if row[1] <= before]  # rows stored before this call
+    old = _stored_before(_stored_under(conn, model, keys), batch_id, before)
     return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
 
 
-@lru_cache(maxsize=1)
-def _stage() -> Table:
-    """The per-transaction staging table of the PostgreSQL bulk path (made on first use: a
-    ``postgresql_*`` option loads that dialect, which SQLite users never need)."""
-    return Table(
-        "fitwatch_stage", MetaData(),
-        Column("obs_key", String(200)), Column("observed_at_us", BigInteger),
-        Column("day", String(10)), Column("y", Float),
-        *(Column(name, Float) for name in predictor_columns(8)),
-        prefixes=["TEMPORARY"], postgresql_on_commit="DROP",
-    )
+def _stored_before(found: list[tuple[Any, ...]], batch_id: int,
+                   before: int) -> list[tuple[Any, ...]]:
+    """Of the rows (key, id, batch_id, ...) found under some keys, those that were stored before
+    the statement that stored this batch's rows with ids above ``before``: other batches' rows
+    and this batch's earlier ones."""
+    return [row for row in found if row[2] != batch_id or row[1] <= before]
+
+
+_STAGE_SQL = (  # per transaction; x1..x8 covers every model (config.MAX_PREDICTORS)
+    "CREATE TEMPORARY TABLE fitwatch_stage (pos integer, obs_key text, observed_at_us bigint, "
+    "day date, y double precision, "
+    + ", ".join(f"{name} double precision" for name in predictor_columns(8))
+    + ") ON COMMIT DROP")
 
 
 def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
                        rows: PreparedRows) -> InsertResult:
+    """COPY the rows into a temporary table, store the new ones with one INSERT ... ON CONFLICT
+    DO NOTHING that only counts them, and only when some were not new, read what is stored
+    under their keys (one index probe per row; a join that hashed the model's stored rows
+    would read them all for every chunk).
+
+    The rows found are those of other batches (stored before, or by another transaction that
+    committed meanwhile: ON CONFLICT saw them) and this batch's rows from earlier chunks, told
+    from the ones just stored by their ids, drawn after ``before``.
+    """
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
-    stage = _stage()
-    exists = conn.exec_driver_sql("SELECT to_regclass('pg_temp.fitwatch_stage')").scalar()
-    if exists is None:
-        stage.create(conn)
-    else:
-        conn.exec_driver_sql("TRUNCATE fitwatch_stage")
-    with driver_cursor(conn) as cursor, \
-            cursor.copy(f"COPY fitwatch_stage ({', '.join(names)}) FROM STDIN") as copy:
-        for row in rows.tuples:
-            copy.write_row(row)
-    source = select(literal_column(str(int(model.id))), literal_column(str(int(batch_id))),
-                    stage.c.obs_key, stage.c.observed_at_us,
-                    cast(stage.c.day, Date), stage.c.y,
-                    *(stage.c[c] for c in names[4:]))
-    stmt = (insert_for(conn, observations)
-            .from_select(["model_id", "batch_id", *names], source)
-            .on_conflict_do_nothing(index_elements=["model_id", "obs_key"])
-            .returning(observations.c.obs_key))
-    new_keys = conn.execute(stmt).scalars().all()
+    values = ", ".join(names)
+    mid, bid = int(model.id), int(batch_id)
+    with driver_cursor(conn) as cursor:
+        cursor.execute("SELECT to_regclass('pg_temp.fitwatch_stage')")
+        if cursor.fetchone()[0] is None:
+            cursor.execute(_STAGE_SQL)
+        else:
+            cursor.execute("TRUNCATE fitwatch_stage")
+        with cursor.copy(f"COPY fitwatch_stage (pos, {values}) FROM STDIN "
+                         "(FORMAT csv)") as copy:
+            copy.write(_csv_block(rows))
+        before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
+        stored = cursor.execute(
+            f"WITH stored AS (INSERT INTO observations (model_id, batch_id, {values}) "
+            f"SELECT {mid}, {bid}, {values} FROM fitwatch_stage "
+            "ON CONFLICT (model_id, obs_key) DO NOTHING RETURNING 1) "
+            "SELECT count(*) FROM stored").fetchone()[0]
+        found = []
+        if stored < len(rows):
+            xs = "".join(f", o.{c}" for c in predictor_columns(model.k))
+            found = cursor.execute(
+                f"SELECT s.pos, o.id, o.batch_id, o.observed_at_us, o.y{xs} "
+                "FROM fitwatch_stage AS s CROSS JOIN LATERAL (SELECT * FROM observations "
+                f"WHERE model_id = {mid} AND obs_key = s.obs_key) AS o "
+                f"WHERE o.batch_id <> {bid} OR o.id <= {int(before)}").fetchall()
     keys = rows.keys
-    if len(new_keys) == len(keys):
+    if stored + len(found) != len(keys):  # a stored row vanished meanwhile (deleted by another
+        raise StateError(  # transaction): a key would be neither stored nor counted
+            f"rows of model '{model.name}' changed while ingesting; try again")
+    if not found:
         return _result(np.ones(len(keys), bool), keys, [], model.k)
-    inserted = _member(keys, set(new_keys))
-    old = _stored_under(conn, model, keys[~inserted])
-    return _result(inserted, keys, old, model.k)
+    old = [(keys[row[0]], *row[1:]) for row in found]
+    return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
+
+
+def _csv_block(rows: PreparedRows) -> bytes:
+    """The rows as CSV for COPY, written by Arrow (whose numbers read back to the same
+    doubles: it writes the shortest text that does), with each row's position first."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    from monitor.columnar import from_numpy, from_strings
+
+    table = pa.table({
+        "pos": from_numpy(np.arange(len(rows), dtype=np.int32)),
+        "obs_key": from_strings(rows.keys),
+        "observed_at_us": from_numpy(np.asarray(rows.observed_us, dtype=np.int64)),
+        "day": from_numpy(np.asarray(rows.days, dtype="datetime64[D]")),
+        "y": from_numpy(np.asarray(rows.y, dtype=np.float64)),
+        **{name: from_numpy(np.asarray(rows.x[:, j], dtype=np.float64))
+           for j, name in enumerate(predictor_columns(rows.x.shape[1]))},
+    })
+    sink = pa.BufferOutputStream()
+    pacsv.write_csv(table, sink, pacsv.WriteOptions(include_header=False))
+    return sink.getvalue().to_pybytes()
 
 
 def _member(keys: NDArray[np.object_], chosen: set[str]) -> NDArray[np.bool_]:
@@ -365,7 +401,7 @@ def replace_observations(conn: Connection, model: ModelRecord, batch_id: int,
         select(observations.c.model_id, literal_column(str(int(batch_id))),
                observations.c.batch_id, *(observations.c[c] for c in kept),
                literal(now, UtcDateTime())).where(match)))
-    values = [dict(zip([f"b_{n}" for n in names], row, strict=True)) for row in rows.tuples]
+    values = [dict(zip([f"b_{n}" for n in names], row, strict=True)) for row in rows.tuples()]
     for item in values:
         item["b_day"] = date.fromisoformat(item["b_day"])
     conn.execute(update(observations)

@@ -15,7 +15,6 @@ from datetime import date, datetime, timedelta
 
 from sqlalchemy import Connection, func, select
 
-from monitor.store.checks import earliest_stale_day, last_check
 from monitor.store.schema import audit_log, observations, replaced_rows
 
 
@@ -37,6 +36,8 @@ def prunable(conn: Connection, model_id: int, *, keep_days: int | None,
     last checked day (the last ``keep_days`` checked days keep their rows), or before
     ``before``; never a day not checked yet, nor one whose check is stale (rows arrived or
     changed after it was checked: the next check scores it again from its rows)."""
+    from monitor.store.checks import earliest_stale_day, last_check  # loads the check domain
+
     last = last_check(conn, model_id)
     if last is None:
         return Prunable(None, why_not="not checked yet")

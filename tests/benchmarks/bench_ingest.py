@@ -1,6 +1,7 @@
 """Ingestion speed and memory against a hand-written baseline, measured in the same run.
 
     python tests/benchmarks/bench_ingest.py [--rows 1000000] [--repeats 3] [--profile]
+        [--postgres URL] [--before DIR] [--out FILE]
 
 The file: ``load_id, docked_at, pallets, load_minutes, door`` rows (generated, like the demo).
 Baseline: the ``csv`` module's reader plus sqlite3 ``executemany`` into one table with a unique
@@ -9,7 +10,19 @@ index on the id, in one transaction, default pragmas; it converts the two number
 beforehand, not timed) with every validation check on every row. Each run is a fresh process, so
 its peak resident memory (VmHWM) is its own. Goal (issue 3): ratio <= 1.0, peak < 500 MB.
 ``--postgres`` adds fitwatch on a PostgreSQL server (for information; the baseline stays
-SQLite).
+SQLite). ``--before DIR`` also times the ``monitor/`` package found in DIR (e.g. an export of an
+earlier commit: ``git archive COMMIT monitor | tar -x -C DIR``) on each backend, interleaved with
+the rest, for a before/after ratio from the same run. The children import ``monitor`` from this
+checkout (or DIR), never from wherever the package happens to be installed.
+
+Wall seconds include importing fitwatch's ingest modules (the baseline's ``csv`` and ``sqlite3``
+are imported before its clock starts; they cost a few milliseconds); CPU seconds (user + system,
+all threads) are printed too, being less sensitive to other load on the machine.
+Two more kinds split the gap: ``baseline-wal`` is the baseline on a database in WAL mode (as
+fitwatch's), ``baseline-observations`` the baseline's reading and executemany into fitwatch's
+``observations`` table, with its two indexes, and nothing else of fitwatch.
+``--profile`` then runs one more ingest per backend with the read-ahead thread switched off, so
+that cProfile sees every phase, and prints the time of each phase.
 """
 
 from __future__ import annotations
@@ -26,8 +39,24 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any
 
 ROOT = Path(__file__).resolve().parents[2]
+TREE_ENV = "FITWATCH_BENCH_TREE"  # the folder whose monitor/ a child imports
+PHASES = (  # (label, function) for the --profile split; cumulative times, serial run
+    ("read: split and parse CSV", "readers.py:_split_block"),
+    ("validate rows", "validate.py:check_rows"),
+    ("  of which times and days", "validate.py:_instants"),
+    ("  of which ids", "validate.py:_ids"),
+    ("first of each key", "service.py:_first_of_each_key"),
+    ("day statistics of chunks", "service.py:_moments"),
+    ("driver tuples", "observations.py:prepare_rows"),
+    ("store rows (insert)", "observations.py:insert_observations"),
+    ("judge duplicates/conflicts", "service.py:_judge"),
+    ("merge day statistics", "observations.py:merge_day_stats"),
+    ("rejected rows", "batches.py:add_rejected_rows"),
+    ("commit", "base.py:commit"),
+)
 
 
 def generate(path: Path, rows: int, seed: int = 1) -> None:
@@ -61,6 +90,32 @@ def baseline(csv_path: Path, db_path: Path) -> None:
     con.close()
 
 
+def baseline_wal(csv_path: Path, db_path: Path) -> None:
+    """The baseline on a database in WAL mode, as fitwatch's (the cost of WAL alone)."""
+    sqlite3.connect(db_path).execute("PRAGMA journal_mode = WAL").connection.close()
+    baseline(csv_path, db_path)
+
+
+def baseline_observations(csv_path: Path, db_path: Path) -> None:
+    """The baseline's reading and executemany, into fitwatch's ``observations`` table (made by
+    the migrations beforehand; WAL, fitwatch's page cache): the cost of the table and its two
+    indexes (the model's unique keys, the model's days) alone, without any of fitwatch's work.
+    The day is the time's first 10 characters, the time a row number."""
+    con = sqlite3.connect(db_path, isolation_level=None)
+    con.execute("PRAGMA cache_size = -65536")
+    con.execute("BEGIN IMMEDIATE")
+    with csv_path.open(newline="") as fh:
+        reader = csv.reader(fh)
+        next(reader)
+        con.executemany("INSERT INTO observations (model_id, batch_id, obs_key, observed_at_us, "
+                        "day, y, x1) VALUES (1, 1, ?, ?, ?, ?, ?) "
+                        "ON CONFLICT (model_id, obs_key) DO NOTHING",
+                        ((a, i, b[:10], float(d), float(c))
+                         for i, (a, b, c, d, _) in enumerate(reader)))
+    con.execute("COMMIT")
+    con.close()
+
+
 def prepare_fitwatch(url: str, with_id: bool) -> None:
     from datetime import UTC, datetime
 
@@ -78,6 +133,7 @@ def prepare_fitwatch(url: str, with_id: bool) -> None:
 
 
 def run_fitwatch(csv_path: Path, url: str, profile: bool) -> dict[str, object]:
+    began = time.perf_counter()
     from datetime import UTC, datetime, timedelta
     from zoneinfo import ZoneInfo
 
@@ -85,6 +141,7 @@ def run_fitwatch(csv_path: Path, url: str, profile: bool) -> dict[str, object]:
     from monitor.store.engine import open_engine
     from monitor.store.models import get_model
 
+    imports = time.perf_counter() - began
     engine = open_engine(url)
     with engine.connect() as conn:
         model = get_model(conn, "loads")
@@ -95,22 +152,54 @@ def run_fitwatch(csv_path: Path, url: str, profile: bool) -> dict[str, object]:
         import cProfile
         import pstats
 
+        import monitor.ingest.service as service
+
+        service.prefetch = lambda items, depth=1: iter(items)  # one thread: cProfile sees all
         profiler = cProfile.Profile()
+        began = time.perf_counter()
         profiler.enable()
     summary = ingest_file(engine, model, csv_path, options)
     if profile:
         profiler.disable()
-        pstats.Stats(profiler, stream=sys.stderr).sort_stats("cumulative").print_stats(30)
+        wall = time.perf_counter() - began
+        stats = pstats.Stats(profiler, stream=sys.stderr)
+        print_phases(stats, wall)
+        stats.sort_stats("tottime").print_stats(25)
     engine.dispose()
-    return {"accepted": summary.accepted, "rejected": summary.rejected}
+    return {"accepted": summary.accepted, "rejected": summary.rejected, "imports": imports}
+
+
+def print_phases(stats: Any, wall: float) -> None:
+    """Cumulative seconds of each phase of a serial ingest (PHASES), from cProfile's table."""
+    table = stats.stats  # {(file, line, name): (cc, nc, tottime, cumtime, callers)}
+    seconds = dict.fromkeys((label for label, _ in PHASES), 0.0)
+    for (file, _, name), (_, _, _, cumulative, _) in table.items():
+        where = f"{Path(file).name}:{name}"
+        for label, function in PHASES:
+            if where == function:
+                seconds[label] += cumulative
+    print(f"serial ingest under cProfile: {wall:.2f} s", file=sys.stderr)
+    for label, value in seconds.items():
+        print(f"  {label:30s} {value:6.2f} s {100 * value / wall:5.1f} %", file=sys.stderr)
 
 
 def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
-    if kind == "baseline":
+    sys.path.insert(0, os.environ.get(TREE_ENV, str(ROOT)))
+    cpu = cpu_seconds()
+    if kind.startswith("baseline"):
+        if kind == "baseline-observations":
+            prepare_fitwatch(f"sqlite:///{db_path}", with_id=True)
+            with sqlite3.connect(db_path) as con:
+                con.execute("INSERT INTO batches (id, model_id, source, strict, status, read, "
+                            "accepted, duplicates, rejected, reasons, started_at) VALUES "
+                            "(1, 1, 'bench', 0, 'complete', 0, 0, 0, 0, '{}', "
+                            "'2026-01-01 00:00:00')")
+            cpu = cpu_seconds()
         began = time.perf_counter()
-        baseline(csv_path, db_path)
+        {"baseline": baseline, "baseline-wal": baseline_wal,
+         "baseline-observations": baseline_observations}[kind](csv_path, db_path)
         extra: dict[str, object] = {}
-    elif kind == "fitwatch-postgresql":
+    elif kind.startswith("fitwatch-postgresql"):
         import psycopg
 
         name = f"fitwatch_bench_{os.getpid()}"
@@ -119,23 +208,33 @@ def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
             try:
                 url = os.environ["FITWATCH_BENCH_PG"].rsplit("/", 1)[0] + "/" + name
                 prepare_fitwatch(url, with_id=True)
+                cpu = cpu_seconds()
                 began = time.perf_counter()
                 extra = run_fitwatch(csv_path, url, profile)
                 seconds = time.perf_counter() - began
+                cpu = cpu_seconds() - cpu
             finally:
                 admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
-        print(json.dumps({"kind": kind, "seconds": seconds, "peak_mb": peak_resident_mb(),
-                          **extra}))
+        print(json.dumps({"kind": kind, "seconds": seconds, "cpu": cpu,
+                          "peak_mb": peak_resident_mb(), **extra}))
         return
     else:
         url = f"sqlite:///{db_path}"
-        prepare_fitwatch(url, with_id=kind == "fitwatch")
+        prepare_fitwatch(url, with_id=not kind.startswith("fitwatch-hashkeys"))
         import gc
         gc.collect()
+        cpu = cpu_seconds()
         began = time.perf_counter()
         extra = run_fitwatch(csv_path, url, profile)
     seconds = time.perf_counter() - began
-    print(json.dumps({"kind": kind, "seconds": seconds, "peak_mb": peak_resident_mb(), **extra}))
+    cpu = cpu_seconds() - cpu
+    print(json.dumps({"kind": kind, "seconds": seconds, "cpu": cpu, "peak_mb": peak_resident_mb(),
+                      **extra}))
+
+
+def cpu_seconds() -> float:
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_utime + usage.ru_stime
 
 
 def peak_resident_mb() -> float:
@@ -150,11 +249,15 @@ def peak_resident_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
 
 
-def measure(kind: str, csv_path: Path, work: Path, profile: bool = False) -> dict[str, float]:
+def measure(kind: str, csv_path: Path, work: Path, profile: bool = False,
+            before: str | None = None) -> dict[str, float]:
     db = work / f"{kind}-{time.monotonic_ns()}.db"
+    tree = before if kind.endswith("-before") and before else str(ROOT)
+    env = {**os.environ, TREE_ENV: tree}
+    env.pop("PYTHONPATH", None)
     out = subprocess.run([sys.executable, __file__, "--child", kind, "--csv", str(csv_path),
                           "--db", str(db)] + (["--profile"] if profile else []),
-                         cwd=ROOT, capture_output=True, text=True, check=True)
+                         cwd=tree, env=env, capture_output=True, text=True, check=True)
     if profile:
         sys.stderr.write(out.stderr)
     for suffix in ("", "-wal", "-shm"):
@@ -171,6 +274,9 @@ def main() -> None:
                         help="also time fitwatch on PostgreSQL: an admin URL such as "
                              "postgresql://postgres@127.0.0.1:5432/test (a scratch database "
                              "is created and dropped)")
+    parser.add_argument("--before", metavar="DIR",
+                        help="also time the monitor/ package in DIR (an earlier commit)")
+    parser.add_argument("--out", metavar="FILE", help="also write the figures to FILE")
     parser.add_argument("--child")
     parser.add_argument("--csv")
     parser.add_argument("--db")
@@ -178,31 +284,56 @@ def main() -> None:
     if args.child:
         child(args.child, Path(args.csv), Path(args.db), args.profile)
         return
+    lines: list[str] = []
+
+    def say(text: str) -> None:
+        print(text, flush=True)
+        lines.append(text)
+
     with tempfile.TemporaryDirectory(prefix="fitwatch-bench-") as tmp:
         work = Path(tmp)
         csv_path = work / "loads.csv"
         generate(csv_path, args.rows)
         size_mb = csv_path.stat().st_size / 1e6
-        print(f"{args.rows:,} rows, {size_mb:.0f} MB CSV, {os.cpu_count()} CPUs")
-        results: dict[str, list[dict[str, float]]] = {"baseline": [], "fitwatch": [],
-                                                      "fitwatch-hashkeys": []}
+        say(f"{args.rows:,} rows, {size_mb:.0f} MB CSV, {os.cpu_count()} CPUs, "
+            f"load {os.getloadavg()[0]:.2f} at the start, {args.repeats} runs each, interleaved")
+        kinds = ["baseline", "fitwatch", "fitwatch-hashkeys"]
         if args.postgres:
             os.environ["FITWATCH_BENCH_PG"] = args.postgres
-            results["fitwatch-postgresql"] = []
+            kinds.append("fitwatch-postgresql")
+        if args.before:
+            kinds += [f"{kind}-before" for kind in kinds[1:]]
+        kinds += ["baseline-wal", "baseline-observations"]
+        results: dict[str, list[dict[str, float]]] = {kind: [] for kind in kinds}
         for _ in range(args.repeats):  # interleaved, so drifting machine load hits all alike
             for kind in results:
-                results[kind].append(measure(kind, csv_path, work))
+                results[kind].append(measure(kind, csv_path, work, before=args.before))
         for kind, runs in results.items():
             seconds = [r["seconds"] for r in runs]
             peak = max(r["peak_mb"] for r in runs)
-            print(f"{kind:18s} median {statistics.median(seconds):6.2f} s "
-                  f"(runs {', '.join(f'{s:.2f}' for s in seconds)}), peak {peak:.0f} MB")
+            cpu = statistics.median(r["cpu"] for r in runs)
+            imports = (f", of which imports {statistics.median(r['imports'] for r in runs):.2f} s"
+                       if "imports" in runs[0] else "")
+            say(f"{kind:28s} median {statistics.median(seconds):6.2f} s "
+                f"(runs {', '.join(f'{s:.2f}' for s in seconds)}){imports}, "
+                f"cpu {cpu:5.2f} s, peak {peak:.0f} MB")
         base = statistics.median(r["seconds"] for r in results["baseline"])
-        for kind in list(results)[1:]:
+        for kind in kinds[1:]:
             mine = statistics.median(r["seconds"] for r in results[kind])
-            print(f"ratio {kind} / baseline = {mine / base:.2f}")
+            cpu = statistics.median(r["cpu"] for r in results[kind]) / statistics.median(
+                r["cpu"] for r in results["baseline"])
+            say(f"ratio {kind} / baseline = {mine / base:.2f} (cpu {cpu:.2f})")
+        for kind in kinds[1:]:
+            if f"{kind}-before" in results:
+                mine = statistics.median(r["seconds"] for r in results[kind])
+                old = statistics.median(r["seconds"] for r in results[f"{kind}-before"])
+                say(f"ratio {kind} / {kind}-before = {mine / old:.2f}")
+        if args.out:
+            Path(args.out).write_text("\n".join(lines) + "\n")
         if args.profile:
-            measure("fitwatch", csv_path, work, profile=True)
+            for kind in kinds[1:2] + (["fitwatch-postgresql"] if args.postgres else []):
+                print(f"--- {kind}, serial, profiled", file=sys.stderr)
+                measure(kind, csv_path, work, profile=True)
 
 
 if __name__ == "__main__":
