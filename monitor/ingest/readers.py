@@ -397,7 +397,8 @@ class CsvSource(Source):
                             target.append(fields[i])
                         lines.append(first)
                         raws.append(raw)
-                if len(lines) + len(malformed) >= self.chunk_rows:
+                if (len(lines) + len(malformed) >= self.chunk_rows
+                        or tap.bytes - done >= BLOCK_LIMIT):  # long rows: bounded by the block
                     yield _text_chunk(wanted, values, lines, raws, malformed, tap.bytes - done)
                     done = tap.bytes
                     values, lines, raws, malformed = [[] for _ in wanted], [], [], []

@@ -23,9 +23,11 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from monitor.ingest.readers import (
+    BLOCK_LIMIT,
     DELIMITERS,
     MAX_RECORD_BYTES,
     QUOTED,
@@ -203,6 +205,21 @@ def test_ingest_counts_balance_around_a_giant(store: Store, giant: Giant) -> Non
     with store.engine.connect() as conn:
         rows = rejected_rows_of(conn, summary.batch_id)
     assert [(r.line, r.reason) for r in rows] == [(4, giant.reason)]
+
+
+def test_long_quoted_rows_come_in_chunks_bounded_by_bytes(tmp_path: Path) -> None:
+    # Before: chunks were bounded by rows only, so 200 000 rows of up to 1 MiB could be held at
+    # once on this path (the unquoted path reads blocks of BLOCK_LIMIT bytes).
+    door = '"' + "z" * 100_000 + '"'
+    path = tmp_path / "long.csv"
+    path.write_text(csv_text(*(f"L{i},2026-03-02 10:00,3,30,{door}" for i in range(60))))
+    source = open_file(path, COLUMNS, 1000)
+    lines, sizes = [], []
+    for chunk in source.chunks():
+        lines += chunk.lines.tolist()
+        sizes.append(sum(map(len, chunk.texts(np.arange(len(chunk.lines))))))
+    assert lines == list(range(2, 62))
+    assert len(sizes) > 1 and max(sizes) <= BLOCK_LIMIT + MAX_RECORD_BYTES
 
 
 # memory of a whole ingest, in a process of its own -------------------------------------------
