@@ -429,7 +429,6 @@ class _LineTap:
         self.delimiter = delimiter
         self.fh = open_text()
         self.taken: list[str] = []  # the current record's pieces, at most ALLOWANCE characters
-        self.size = 0  # characters in ``taken``
         self.count = 0  # physical lines read
         self.bytes = 0  # characters read, for progress
         self.ended = False  # the end of the file was met
@@ -439,21 +438,28 @@ class _LineTap:
         return self
 
     def __next__(self) -> str:
-        if self.size >= ALLOWANCE:  # csv.reader wants more of a record that had its share
+        room = ALLOWANCE - sum(map(len, self.taken)) if self.taken else ALLOWANCE
+        if room <= 0:  # csv.reader wants more of a record that had its share
             raise _TooLong
-        line = self._read(ALLOWANCE - self.size)
-        if not line:
-            self.ended = True
-            raise StopIteration
+        line = self.fh.readline(room)
+        if len(line) == room or self.split_cr or not line:  # the rare cases, in _read
+            line = self._read(room, line)
+            if not line:
+                self.ended = True
+                raise StopIteration
+        else:  # a whole line (or the last one, without its line end)
+            self.count += 1
+            self.bytes += len(line)
         self.taken.append(line)
-        self.size += len(line)
-        if self.size == ALLOWANCE and not _ends_line(line):  # cut by the limit: longer still
+        if len(line) == room and not _ends_line(line):  # cut by the limit: longer still
             raise _TooLong
         return line
 
-    def _read(self, limit: int) -> str:
-        """The current physical line, or at most ``limit`` characters of what is left of it."""
-        line = self.fh.readline(limit)
+    def _read(self, limit: int, line: str | None = None) -> str:
+        """The current physical line, or at most ``limit`` characters of what is left of it
+        (``line``: what ``readline(limit)`` has just given)."""
+        if line is None:
+            line = self.fh.readline(limit)
         if self.split_cr and line == "\n":  # the LF of a CR LF that the limit cut apart
             self.bytes += 1
             line = self.fh.readline(limit)
@@ -491,7 +497,6 @@ class _LineTap:
         """The text held of the current record, which is then forgotten."""
         text = "".join(self.taken)
         self.taken.clear()
-        self.size = 0
         return text
 
     def close(self) -> None:
