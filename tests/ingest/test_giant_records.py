@@ -241,8 +241,11 @@ def test_ingesting_a_300_mb_quoted_line_stays_small(tmp_path: Path) -> None:
     with engine.begin() as conn:
         create_model(conn, LOADS, datetime(2026, 3, 1, tzinfo=UTC))
     engine.dispose()
-    out = subprocess.run([sys.executable, "-m", "tests.ingest.memory_child", url, "loads",
-                          str(path)], cwd=ROOT, capture_output=True, text=True, timeout=120)
+    try:
+        out = subprocess.run([sys.executable, "-m", "tests.ingest.memory_child", url, "loads",
+                              str(path)], cwd=ROOT, capture_output=True, text=True, timeout=120)
+    finally:
+        path.unlink()  # pytest keeps recent tmp folders: not 300 MB each
     assert out.returncode == 0, out.stderr
     result = json.loads(out.stdout)
     assert (result["accepted"], result["reasons"]) == (4, {"row_too_long": 1})
