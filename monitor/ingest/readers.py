@@ -6,10 +6,20 @@ rows of a block are found with array operations and handed to Arrow's CSV parser
 (the fast path); files with quotes go through the standard ``csv`` module, which follows quoted
 fields across lines. Either way each row keeps its physical line number, a row with the wrong
 number of fields is set aside (never shifts the others), and memory stays bounded by the block.
+
+A row longer than MAX_RECORD_BYTES is rejected ("row_too_long", with its first line number and
+its first 4 KiB) without ever being held whole, and reading goes on after it. Where it ends: on
+the fast path at the next newline; on the csv path where csv.reader would end it, at the first
+line end outside quotes, so a quoted field spanning a million lines is one rejected row and its
+lines are not read as rows (csv.reader itself refuses a field over 128 KiB: same reason). A
+quote that is never closed would make the rest of the file one field: instead the line where
+that row starts is rejected ("bad_quoting") and the lines after it are read again, as rows of
+their own, so nothing is lost.
 """
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import gzip
 import hashlib
@@ -349,12 +359,12 @@ class CsvSource(Source):
     # slow path: quoted fields (possibly across lines) through the csv module ----------------
     def _slow_chunks(self) -> Iterator[RawChunk]:
         wanted = list(self.index.items())
-        with io.TextIOWrapper(self._bytes(), encoding="utf-8-sig", errors="replace",
-                              newline="") as fh:
-            tap = _LineTap(fh)
+        tap = _LineTap(lambda: io.TextIOWrapper(self._bytes(), encoding="utf-8-sig",
+                                                errors="replace", newline=""), self.delimiter)
+        with contextlib.closing(tap):
             reader = csv.reader(tap, delimiter=self.delimiter, strict=False)
             next(reader)  # the header, already checked
-            tap.taken.clear()
+            tap.forget()
             values: list[list[str]] = [[] for _ in wanted]
             lines: list[int] = []
             raws: list[str] = []
@@ -362,30 +372,35 @@ class CsvSource(Source):
             done = tap.bytes
             while True:
                 first = tap.count + 1
+                fields: list[str] | None = None
+                problem: Exception | None = None
                 try:
                     fields = next(reader)
+                    closed = not tap.ended  # at the end of the file csv ends even a quoted field
                 except StopIteration:
                     break
-                except csv.Error as exc:
-                    raw = "".join(tap.taken)
-                    code = "row_too_long" if "field larger" in str(exc) else "bad_quoting"
-                    malformed.append(Rejection(first, raw, code, str(exc)))
-                    fields = None
-                raw = "".join(tap.taken)
-                tap.taken.clear()
-                if fields is not None and fields:
+                except (_TooLong, csv.Error) as exc:  # csv.reader starts afresh after either
+                    problem, closed = exc, tap.skip_record()
+                if not closed:  # a quote never closed: set its line aside, read on after it
+                    malformed.append(_unclosed(first, tap.taken[0]))
+                    tap.rewind(first)
+                raw = tap.forget().rstrip("\r\n")
+                if closed and problem is not None:
+                    malformed.append(_unreadable(first, raw, problem))
+                elif closed and fields:
                     if len(raw) > MAX_RECORD_BYTES:
                         malformed.append(_too_long(first, raw[:4096].encode()))
                     elif len(fields) != self.fields:
                         malformed.append(Rejection(
-                            first, raw.rstrip("\r\n"), "wrong_field_count",
+                            first, raw, "wrong_field_count",
                             f"{len(fields)} fields where the header has {self.fields}"))
                     else:
                         for target, (_, i) in zip(values, wanted, strict=True):
                             target.append(fields[i])
                         lines.append(first)
-                        raws.append(raw.rstrip("\r\n"))
-                if len(lines) + len(malformed) >= self.chunk_rows:
+                        raws.append(raw)
+                if (len(lines) + len(malformed) >= self.chunk_rows
+                        or tap.bytes - done >= BLOCK_LIMIT):  # long rows: bounded by the block
                     yield _text_chunk(wanted, values, lines, raws, malformed, tap.bytes - done)
                     done = tap.bytes
                     values, lines, raws, malformed = [[] for _ in wanted], [], [], []
@@ -393,26 +408,129 @@ class CsvSource(Source):
                 yield _text_chunk(wanted, values, lines, raws, malformed, tap.bytes - done)
 
 
-class _LineTap:
-    """Feeds lines to ``csv.reader`` and remembers them, to number rows and keep their text."""
+class _TooLong(Exception):
+    """The record being read has outgrown its allowance."""
 
-    def __init__(self, fh: io.TextIOBase):
-        self.fh = fh
-        self.taken: list[str] = []
-        self.count = 0
-        self.bytes = 0
+
+ALLOWANCE = MAX_RECORD_BYTES + 2  # characters of a record held: the longest row and a CR LF
+START, FIELD, QUOTED = 0, 1, 2  # where csv.reader is in a record (see _quote_state)
+
+
+class _LineTap:
+    """Feeds lines to ``csv.reader`` and keeps those of the current record, to number rows and
+    keep their text.
+
+    It never reads more of a record than its allowance, so a giant line is never held whole:
+    when csv.reader asks for more than that, the tap raises _TooLong, and ``skip_record``
+    reads on to the end of the record keeping nothing more. Physical lines end with LF, CR LF
+    or CR (as ``newline=""`` reads them) and are counted, for row numbers.
+    """
+
+    def __init__(self, open_text: Callable[[], io.TextIOWrapper], delimiter: str):
+        self.open_text = open_text
+        self.delimiter = delimiter
+        self.fh = open_text()
+        self.taken: list[str] = []  # the current record's pieces, at most ALLOWANCE characters
+        self.count = 0  # physical lines read
+        self.bytes = 0  # characters read, for progress
+        self.ended = False  # the end of the file was met
+        self.split_cr = False  # the last piece was cut by the limit right after a CR
 
     def __iter__(self) -> _LineTap:
         return self
 
     def __next__(self) -> str:
-        line = self.fh.readline()
-        if not line:
-            raise StopIteration
+        room = ALLOWANCE - sum(map(len, self.taken)) if self.taken else ALLOWANCE
+        if room <= 0:  # csv.reader wants more of a record that had its share
+            raise _TooLong
+        line = self.fh.readline(room)
+        if len(line) == room or self.split_cr or not line:  # the rare cases, in _read
+            line = self._read(room, line)
+            if not line:
+                self.ended = True
+                raise StopIteration
+        else:  # a whole line (or the last one, without its line end)
+            self.count += 1
+            self.bytes += len(line)
         self.taken.append(line)
-        self.count += 1
-        self.bytes += len(line)
+        if len(line) == room and not _ends_line(line):  # cut by the limit: longer still
+            raise _TooLong
         return line
+
+    def _read(self, limit: int, line: str | None = None) -> str:
+        """The current physical line, or at most ``limit`` characters of what is left of it
+        (``line``: what ``readline(limit)`` has just given)."""
+        if line is None:
+            line = self.fh.readline(limit)
+        if self.split_cr and line == "\n":  # the LF of a CR LF that the limit cut apart
+            self.bytes += 1
+            line = self.fh.readline(limit)
+        self.split_cr = len(line) == limit and line.endswith("\r")
+        self.bytes += len(line)
+        self.count += _ends_line(line)
+        return line
+
+    def skip_record(self) -> bool:
+        """Read on to the end of the current record without keeping it: the first line end
+        outside quotes, found as csv.reader finds it, or the end of the file. False if the
+        file ended inside a quoted field."""
+        state = START
+        for piece in self.taken:
+            state = _quote_state(piece, state, self.delimiter)
+        line = self.taken[-1]
+        while state == QUOTED or not _ends_line(line):
+            line = self._read(BLOCK_LIMIT)
+            if not line:
+                self.ended = True
+                break
+            state = _quote_state(line, state, self.delimiter)
+        return state != QUOTED
+
+    def rewind(self, line: int) -> None:
+        """Go back to the start of physical line ``line + 1`` (reading the file again)."""
+        self.fh.close()
+        self.fh = self.open_text()
+        self.count = self.bytes = 0
+        self.split_cr = self.ended = False
+        while self.count < line and self._read(BLOCK_LIMIT):
+            pass
+
+    def forget(self) -> str:
+        """The text held of the current record, which is then forgotten."""
+        text = "".join(self.taken)
+        self.taken.clear()
+        return text
+
+    def close(self) -> None:
+        self.fh.close()
+
+
+def _ends_line(piece: str) -> bool:
+    return piece.endswith(("\n", "\r"))
+
+
+def _quote_state(text: str, state: int, delimiter: str) -> int:
+    """Where csv.reader (doubled quotes, not strict) is after ``text``, starting in ``state``.
+
+    START: a quote would open a quoted field (at the start of a field, and right after a quoted
+    field closes: csv.reader goes on alike from both); FIELD: in unquoted text, where a quote is
+    an ordinary character; QUOTED: in a quoted field, which a single quote closes (a line end
+    there is part of the field; anywhere else it ends the record, which the caller checks). A
+    doubled quote leaves every state as it was, so the pairs are dropped first and the loop
+    only visits the quotes that open or close a field or stand alone.
+    """
+    text = text.replace('""', "")
+    end = 0
+    at = text.find('"')
+    while at >= 0:
+        if state != QUOTED and at > 0:  # the character before the quote decides
+            state = START if text[at - 1] == delimiter else FIELD
+        state = (QUOTED, FIELD, START)[state]  # START opens, FIELD keeps, QUOTED closes
+        end = at + 1
+        at = text.find('"', end)
+    if state != QUOTED and end < len(text):
+        state = START if text[-1] == delimiter else FIELD
+    return state
 
 
 def _text_chunk(wanted: list[tuple[str, int]], values: list[list[str]], lines: list[int],
@@ -460,6 +578,20 @@ def _quoted_line_end(data: bytes) -> int:
         elif byte == 10 and not inside:
             return i
     return -1
+
+
+def _unreadable(line: int, text: str, problem: Exception) -> Rejection:
+    """A record longer than its allowance, or one that csv.reader gave up on."""
+    if isinstance(problem, _TooLong):
+        return _too_long(line, text[:4096].encode())
+    code = "row_too_long" if "field larger" in str(problem) else "bad_quoting"
+    return Rejection(line, text[:4096], code, str(problem))
+
+
+def _unclosed(line: int, text: str) -> Rejection:
+    return Rejection(line, text[:4096].rstrip("\r\n"), "bad_quoting",
+                     "a quote opened in this row is never closed; the lines after it are read "
+                     "as rows of their own")
 
 
 def _text(raw: bytes) -> str:
