@@ -304,3 +304,31 @@ def test_a_worker_that_ended_unreaped_counts_as_gone() -> None:
     child.wait()
     assert gone_from_this_host(holder)
     assert not gone_from_this_host(f"{socket.gethostname()}:{os.getpid()}:t")
+
+
+def test_a_worker_that_joins_a_round_another_has_just_wrapped_stops(
+        engine: Engine, make_settings, monkeypatch) -> None:
+    """Its wrapper may be a process that has exited since (``daemon --once``): the round is
+    done, not a round whose wrapper died mid-way."""
+    import monitor.runtime.nightly as nightly
+
+    settings = make_settings(engine.url.render_as_string(hide_password=False))
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    gone = f"{socket.gethostname()}:{dead.pid}:t"
+    real_join = claims.join_round
+
+    def join_then_wrapped_by_the_dead(*args, **kwargs):  # the other worker wraps in between
+        round_id = real_join(*args, **kwargs)
+        assert claims.try_wrap(engine, round_id, gone, T0, TTL)
+        claims.wrapped(engine, round_id, gone, T0)
+        return round_id
+    monkeypatch.setattr(nightly.claims, "join_round", join_then_wrapped_by_the_dead)
+    finished = threading.Event()
+    run = []
+    thread = threading.Thread(target=lambda: (run.append(nightly.work_round(
+        settings, engine, now=night_after(NIGHT), poll_seconds=0.05)), finished.set()))
+    thread.daemon = True
+    thread.start()
+    assert finished.wait(30), "the worker kept waiting on a round that was done"
+    assert not run[0].wrapped and not run[0].stopped

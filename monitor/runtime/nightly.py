@@ -220,11 +220,13 @@ def work_round(settings: Settings, engine: Engine, *, now: datetime,
                 continue
             state = claims.progress(engine, round_id, clock())
             if state.unfinished == 0:
+                if state.wrapped:  # another worker wrapped it meanwhile
+                    break
                 wrapping = claims.try_wrap(engine, round_id, holder, clock(), claim_ttl)
                 if wrapping or state.wrap_holder is None or \
                         not gone_from_this_host(state.wrap_holder):
                     break
-                claims.release_wrap(engine, round_id, state.wrap_holder)
+                claims.release_wrap(engine, round_id, state.wrap_holder)  # it died wrapping
                 continue
             _free_the_gone(engine, round_id, state.holders)
             if _wait(should_stop, poll_seconds):
