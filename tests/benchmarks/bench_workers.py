@@ -525,22 +525,21 @@ def part_claims(pg: Pg, args: argparse.Namespace, work: Path, out: list[str]) ->
     edge = min(500, m // 4)
     laps: list[float] = []
     before = load()
-    for _ in range(m):
+    done = None
+    for _ in range(m):  # as a worker does: the next take marks the last claim done
         t0 = time.perf_counter()
-        claim = claims.take(engine, round_id, holder, datetime.now(UTC), ttl)
+        claim = claims.take(engine, round_id, holder, datetime.now(UTC), ttl, done=done)
         assert claim is not None
-        claims.finish(engine, claim, holder, datetime.now(UTC), "checked")
+        done = (claim, "checked")
         laps.append(time.perf_counter() - t0)
-    assert claims.take(engine, round_id, holder, datetime.now(UTC), ttl) is None
+    assert claims.take(engine, round_id, holder, datetime.now(UTC), ttl, done=done) is None
     t0 = time.perf_counter()
     claims.progress(engine, round_id, datetime.now(UTC))
     progress_s = time.perf_counter() - t0
     with engine.connect() as conn:
+        query = claims.next_claim(round_id, datetime.now(UTC)).compile(dialect=conn.dialect)
         plan = "\n".join(r[0] for r in conn.exec_driver_sql(
-            "EXPLAIN (ANALYZE, BUFFERS) SELECT model_id, takes FROM night_claims WHERE "
-            f"round_id = {round_id} AND done_at IS NULL AND (holder IS NULL OR expires_at IS "
-            "NULL OR expires_at <= now()) ORDER BY takes, model_id LIMIT 1 FOR UPDATE SKIP "
-            "LOCKED"))
+            "EXPLAIN (ANALYZE, BUFFERS) " + str(query), query.params))
         size = conn.exec_driver_sql("SELECT pg_total_relation_size('night_claims'), "
                                     "n_dead_tup, n_live_tup FROM pg_stat_user_tables WHERE "
                                     "relname = 'night_claims'").one()
