@@ -7,7 +7,8 @@ hosts on the same database share one night, each model checked once; the worker 
 the round done composes the night's digest. Processes are started fresh (``spawn``): each
 opens its own connections. A stop request (SIGTERM, Ctrl-C) is passed to the workers, which
 finish their current model. A worker that dies (killed, out of memory) leaves its claim; a
-sibling on this host sees the process is gone and takes the model over at once.
+sibling on this host sees the process is gone and takes the model over (within 30 s while it
+is busy with models of its own, at once when it has none left to take).
 """
 
 from __future__ import annotations
