@@ -35,7 +35,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from bench_ingest import generate, peak_resident_mb, prepare_fitwatch
+from bench_ingest import bench_options, generate, peak_resident_mb, prepare_fitwatch
 
 ROOT = Path(__file__).resolve().parents[2]
 KINDS = ("none", "none-quoted", "unquoted", "quoted", "multiline", "quoted-gz", "unclosed")
@@ -76,10 +76,8 @@ def write_file(path: Path, kind: str, rows: int, size: int, work: Path) -> None:
 
 
 def run_child(csv_path: Path, db_path: Path) -> None:
-    from datetime import UTC, datetime, timedelta
-    from zoneinfo import ZoneInfo
 
-    from monitor.ingest.service import IngestOptions, ingest_file
+    from monitor.ingest.service import ingest_file
     from monitor.store.engine import open_engine
     from monitor.store.models import get_model
 
@@ -88,9 +86,7 @@ def run_child(csv_path: Path, db_path: Path) -> None:
     engine = open_engine(url)
     with engine.connect() as conn:
         model = get_model(conn, "loads")
-    options = IngestOptions(ZoneInfo("Europe/Berlin"), {"pallets": (0, 60)}, False,
-                            datetime(2026, 6, 1, tzinfo=UTC), timedelta(minutes=5), 200_000,
-                            False)
+    options = bench_options()
     floor = peak_resident_mb()
     began = time.perf_counter()
     summary = ingest_file(engine, model, csv_path, options)

@@ -39,15 +39,18 @@ START = date(2024, 1, 1)
 FIT_DAYS = 60
 
 
-def frame(rng: np.random.Generator, first: date, days: int, rows: int) -> pd.DataFrame:
-    counts = rng.poisson(rows, days)
+def frame(rng: np.random.Generator, first: date, days: int, rows: int, *,
+          exact: bool = False, tag: str = "") -> pd.DataFrame:
+    """Loading-dock rows, about ``rows`` a day (Poisson; ``exact``: exactly ``rows``), ids
+    prefixed with ``tag``."""
+    counts = np.full(days, rows) if exact else rng.poisson(rows, days)
     day = np.repeat(np.arange(days), counts)
     seconds = rng.integers(5 * 3600, 22 * 3600, day.size)
     stamps = (pd.Timestamp(first) + pd.to_timedelta(day, unit="D")
               + pd.to_timedelta(seconds, unit="s"))
     pallets = np.clip(np.rint(rng.normal(22, 7, day.size)), 4, 33)
     minutes = 9 + 2.1 * pallets + rng.normal(0, 2.5, days)[day] + rng.normal(0, 5, day.size)
-    return pd.DataFrame({"load_id": [f"{first:%y%m%d}-{i}" for i in range(day.size)],
+    return pd.DataFrame({"load_id": [f"{tag}{first:%y%m%d}-{i}" for i in range(day.size)],
                          "docked_at": stamps.strftime("%Y-%m-%d %H:%M:%S"),
                          "pallets": pallets, "load_minutes": np.round(minutes, 1)})
 

@@ -63,6 +63,8 @@ import psycopg
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from bench_night import frame as night_frame  # the script's own folder
+
 from monitor.config import Settings, parse_settings
 from monitor.ingest.service import ingest_file, options_for
 from monitor.lifecycle.fit import FitRequest, fit_model
@@ -83,16 +85,8 @@ FIRST = "dock_00001"  # the model fitted through the product; the others are its
 # data ---------------------------------------------------------------------------------------
 def frame(rng: np.random.Generator, first: date, days: int, rows: int,
           tag: str = "") -> pd.DataFrame:
-    """Loading-dock rows, ``rows`` a day (bench_night.py's generator, exact counts)."""
-    day = np.repeat(np.arange(days), rows)
-    seconds = rng.integers(5 * 3600, 22 * 3600, day.size)
-    stamps = (pd.Timestamp(first) + pd.to_timedelta(day, unit="D")
-              + pd.to_timedelta(seconds, unit="s"))
-    pallets = np.clip(np.rint(rng.normal(22, 7, day.size)), 4, 33)
-    minutes = 9 + 2.1 * pallets + rng.normal(0, 2.5, days)[day] + rng.normal(0, 5, day.size)
-    return pd.DataFrame({"load_id": [f"{tag}{first:%y%m%d}-{i}" for i in range(day.size)],
-                         "docked_at": stamps.strftime("%Y-%m-%d %H:%M:%S"),
-                         "pallets": pallets, "load_minutes": np.round(minutes, 1)})
+    """Loading-dock rows, exactly ``rows`` a day (bench_night.py's generator)."""
+    return night_frame(rng, first, days, rows, exact=True, tag=tag)
 
 
 def at_midnight(day: date) -> datetime:
