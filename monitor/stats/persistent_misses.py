@@ -56,35 +56,42 @@ def persistent_pvalues(law: MissLaw, day_rows: ArrayLike, misses: int,
     if int(rows.sum()) == 0:
         return float("nan"), float("nan")
     p = law.node_probabilities()
-    pi = shock_weights()
-    step = _transition(round(float(phi), 6))
+    step_t = np.ascontiguousarray(_transition(round(float(phi), 6)).T)
     cells = misses + 2  # counts 0..misses exactly, then "more than misses"
-    alpha: FloatArray | None = None
-    for n in rows:
-        day = _capped_binomial(int(n), p, cells)
-        if alpha is None:
-            alpha = pi[:, None] * day
-            continue
-        moved = step.T @ alpha
-        full = scipy.signal.fftconvolve(moved, day, axes=1)
-        alpha = np.concatenate([full[:, :cells - 1], full[:, cells - 1:].sum(axis=1,
-                                                                            keepdims=True)],
+    size = scipy.fft.next_fast_len(2 * cells - 1, real=True)
+    spectra: dict[int, NDArray[np.complex128]] = {}  # a day's law, by its row count
+    alpha = shock_weights()[:, None] * _capped_binomial(int(rows[0]), p, cells)
+    for n in rows[1:].tolist():
+        day = spectra.get(n)
+        if day is None:
+            day = spectra[n] = scipy.fft.rfft(_capped_binomial(n, p, cells), size, axis=1)
+        full = scipy.fft.irfft(scipy.fft.rfft(step_t @ alpha, size, axis=1) * day, size,
                                axis=1)
-        alpha = np.clip(alpha, 0.0, None)
-    assert alpha is not None
+        alpha = np.empty_like(alpha)
+        alpha[:, :cells - 1] = full[:, :cells - 1]
+        alpha[:, cells - 1] = full[:, cells - 1:2 * cells - 1].sum(axis=1)
+        np.clip(alpha, 0.0, None, out=alpha)
     pmf = alpha.sum(axis=0)
     pmf /= pmf.sum()
-    at_most = float(min(pmf[:misses + 1].sum(), 1.0))
-    at_least = float(min(1.0 - pmf[:misses].sum(), 1.0))
-    return max(at_least, 0.0), at_most
+    return float(min(pmf[misses:].sum(), 1.0)), float(min(pmf[:misses + 1].sum(), 1.0))
 
 
 def _capped_binomial(n: int, p: FloatArray, cells: int) -> FloatArray:
-    """Per node: ``Bin(n, p_j)`` at ``0..cells-2`` and its remaining mass in the last cell."""
-    k = np.arange(cells - 1)
-    head = scipy.stats.binom.pmf(k[None, :], n, p[:, None])
-    tail = scipy.stats.binom.sf(cells - 2, n, p)[:, None]
-    return np.concatenate([head, tail], axis=1)
+    """Per node: ``Bin(n, p_j)`` at ``0..cells-2`` and its remaining mass in the last cell.
+
+    Written with the special functions behind ``scipy.stats.binom`` (its ``logpmf`` and
+    ``sf``) rather than through it: the distribution object's argument handling cost about a
+    millisecond a call, a day of every window of every night.
+    """
+    k = np.arange(cells - 1, dtype=np.float64)
+    pj = p[:, None]
+    log_pmf = (scipy.special.gammaln(n + 1.0) - scipy.special.gammaln(k + 1.0)
+               - scipy.special.gammaln(np.maximum(n - k, 0.0) + 1.0)
+               + scipy.special.xlogy(k, pj) + scipy.special.xlog1py(np.maximum(n - k, 0.0), -pj))
+    out = np.empty((p.size, cells), dtype=np.float64)
+    out[:, :cells - 1] = np.exp(np.where(k <= n, log_pmf, -np.inf))
+    out[:, cells - 1] = 0.0 if cells - 2 >= n else scipy.special.bdtrc(cells - 2, n, p)
+    return out
 
 
 @dataclass(frozen=True)

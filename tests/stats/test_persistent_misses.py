@@ -42,3 +42,20 @@ def test_matches_a_monte_carlo_of_ar1_shocks() -> None:
                                                                          abs=4 * se + 2e-5)
     # persistence widens the upper tail well beyond the independent-day law
     assert persistent_pvalues(LAW, ROWS, 140, phi)[0] > 5 * LAW.pvalues(ROWS, 140)[0]
+
+
+@pytest.mark.parametrize("n", [0, 1, 5, 37, 400, 30_000])
+def test_a_days_capped_law_is_scipys_binomial(n: int) -> None:
+    # Reference: scipy.stats.binom pmf and sf (the per-day law is written with the special
+    # functions behind them, for speed); nodes include the edges p = 0 and p = 1.
+    from monitor.stats.persistent_misses import _capped_binomial
+
+    p = np.array([0.0, 1e-6, 0.013, 0.05, 0.4, 0.97, 1.0])
+    cells = 42
+    law = _capped_binomial(n, p, cells)
+    k = np.arange(cells - 1)
+    expected = np.concatenate([stats.binom.pmf(k[None, :], n, p[:, None]),
+                               stats.binom.sf(cells - 2, n, p)[:, None]], axis=1)
+    np.testing.assert_allclose(law, expected, rtol=1e-9, atol=1e-300)
+    np.testing.assert_allclose(law.sum(axis=1), 1.0, rtol=1e-10)
+
