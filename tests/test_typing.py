@@ -6,6 +6,7 @@ The package ships ``py.typed``, so its annotations are a promise to the code tha
 from __future__ import annotations
 
 import importlib.util
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -13,11 +14,15 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
+# mypy's incremental cache outside the checkout, so a fresh clone on a machine that checked the
+# package before rechecks only what changed (mypy's own invalidation: sources, options, its
+# version). A cold run costs about 40 s of one core, a warm one about 1 s.
+CACHE = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "fitwatch-mypy"
 
 
 def test_mypy_finds_nothing() -> None:
     if importlib.util.find_spec("mypy") is None:
         pytest.skip("mypy is not installed (pip install -e '.[test]' brings it and the stubs)")
-    result = subprocess.run([sys.executable, "-m", "mypy", "monitor"], cwd=ROOT,
+    result = subprocess.run([sys.executable, "-m", "mypy", "--cache-dir", str(CACHE), "monitor"], cwd=ROOT,
                             capture_output=True, text=True, check=False, timeout=600)
     assert result.returncode == 0, result.stdout + result.stderr
