@@ -23,6 +23,6 @@ CACHE = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "fitw
 def test_mypy_finds_nothing() -> None:
     if importlib.util.find_spec("mypy") is None:
         pytest.skip("mypy is not installed (pip install -e '.[test]' brings it and the stubs)")
-    result = subprocess.run([sys.executable, "-m", "mypy", "--cache-dir", str(CACHE), "monitor"], cwd=ROOT,
-                            capture_output=True, text=True, check=False, timeout=600)
+    result = subprocess.run([sys.executable, "-m", "mypy", "--cache-dir", str(CACHE), "monitor"],
+                            cwd=ROOT, capture_output=True, text=True, check=False, timeout=600)
     assert result.returncode == 0, result.stdout + result.stderr

@@ -13,12 +13,12 @@ from functools import cached_property
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import stats
 
 from monitor.config import CheckSettings
 from monitor.domain.check import CheckState
 from monitor.domain.days import as_date
 from monitor.domain.version import SlopeLimits, Version, VersionDraft
+from monitor.stats import tails
 from monitor.stats.calibration import (
     ChartDesign,
     calibrate_chart,
@@ -192,7 +192,7 @@ def _guarded_persistence(design: ChartDesign, guarantee: float) -> float:
     if design.phi <= 0 or design.n_days < 3:
         return phi
     se = float(np.sqrt((1 - phi**2) / design.n_days))
-    return float(min(phi + stats.norm.ppf(guarantee) * se, MAX_PERSISTENCE))
+    return float(min(phi + tails.norm_ppf(guarantee) * se, MAX_PERSISTENCE))
 
 
 def imported_design(version: Version | VersionDraft) -> ChartDesign:

@@ -32,10 +32,10 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.errors import DegenerateDataError
+from monitor.stats import tails
 from monitor.stats.arl import cusum_arl, solve_h, solve_h_many
 from monitor.stats.day_effects import DayEffects, net_of_rhythm
 from monitor.stats.diagnosis import MAX_PERSISTENCE, PERSISTENCE_ALPHA, FitDiagnosis
@@ -395,7 +395,7 @@ def _prewhitening(design: ChartDesign, draws: int,
         return np.ones(draws), np.ones(draws)
     g = max(design.n_days, 3)
     star = phi + np.sqrt((1 - phi**2) / g) * rng.standard_normal(draws)
-    cut = float(scipy.stats.norm.ppf(1 - PERSISTENCE_ALPHA / 2)) / np.sqrt(g)
+    cut = float(tails.norm_ppf(1 - PERSISTENCE_ALPHA / 2)) / np.sqrt(g)
     used = np.where(star > cut, np.minimum(star, MAX_PERSISTENCE), 0.0)
     gain = (1 - used) / np.sqrt(1 - used**2)
     lrv = (1 - used) * (1 + phi) / ((1 - phi) * (1 + used))

@@ -30,6 +30,7 @@ import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.errors import DegenerateDataError, DegenerateDataWarning
+from monitor.stats import tails
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.supf_null import NullPvalue, load_table, supf_pvalue
@@ -134,7 +135,7 @@ def _result(name: str, statistic: float, df_num: int, df_den: int,
     if math.isnan(statistic):
         return _undefined(name, df_num, df_den, "the unrestricted model fits exactly (RSS = 0)",
                           n_clusters)
-    p_value = float(scipy.stats.f.sf(statistic, df_num, df_den))
+    p_value = float(tails.f_sf(statistic, df_num, df_den))
     return FTest(name, statistic, p_value, df_num, df_den, n_clusters)
 
 

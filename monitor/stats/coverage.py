@@ -17,6 +17,8 @@ import numpy as np
 import scipy
 from numpy.typing import ArrayLike
 
+from monitor.stats import tails
+
 
 @dataclass(frozen=True)
 class CoverageTest:
@@ -45,7 +47,7 @@ def wilson_interval(covered: float, n: float, level: float = 0.95) -> tuple[floa
     """Wilson (1927) score interval for a proportion; counts may be non-integer (effective)."""
     if n <= 0:
         return float("nan"), float("nan")
-    z = scipy.stats.norm.ppf(0.5 + level / 2)
+    z = tails.norm_ppf(0.5 + level / 2)
     p = covered / n
     centre = (p + z * z / (2 * n)) / (1 + z * z / n)
     half = z * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / (1 + z * z / n)

@@ -16,9 +16,9 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike, NDArray
 
+from monitor.stats import tails
 from monitor.stats.moments import DayMoments
 
 FloatArray = NDArray[np.float64]
@@ -82,7 +82,7 @@ def day_effects(counts: ArrayLike, means: ArrayLike, within_ss: ArrayLike) -> Da
     tau2 = max(0.0, (msb - msw) / n0)
     if msw > 0:
         f = msb / msw
-        p = float(scipy.stats.f.sf(f, groups - 1, total - groups))
+        p = float(tails.f_sf(f, groups - 1, total - groups))
     else:
         f, p = float("inf"), 0.0
     return DayEffects(tau2=tau2, sigma_w2=msw, n_days=groups, n_rows=int(total), n0=n0,

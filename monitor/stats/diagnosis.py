@@ -33,8 +33,9 @@ from dataclasses import dataclass
 from statistics import NormalDist
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike, NDArray
+
+from monitor.stats import tails
 
 FloatArray = NDArray[np.float64]
 TAIL_SDS = 4.0  # rows beyond this many robust sd count as outliers
@@ -126,7 +127,7 @@ def ljung_box(u: ArrayLike, lags: int) -> tuple[FloatArray, StatTest]:
         return np.zeros(lags), StatTest()
     r = np.array([float(c[:-lag] @ c[lag:]) / denom for lag in range(1, lags + 1)])
     q = float(g * (g + 2) * np.sum(r**2 / (g - np.arange(1, lags + 1))))
-    return r, StatTest(q, (float(lags),), float(scipy.stats.chi2.sf(q, lags)))
+    return r, StatTest(q, (float(lags),), float(tails.chi2_sf(q, lags)))
 
 
 def default_lags(days: int) -> int:
@@ -149,7 +150,7 @@ def weekday_anova(u: ArrayLike, weekdays: ArrayLike) -> StatTest:
     if ssw <= 0:
         return StatTest()
     f = float((ssb / df1) / (ssw / df2))
-    return StatTest(f, (float(df1), float(df2)), float(scipy.stats.f.sf(f, df1, df2)))
+    return StatTest(f, (float(df1), float(df2)), float(tails.f_sf(f, df1, df2)))
 
 
 def koenker_breusch_pagan(resid: ArrayLike, x: ArrayLike) -> StatTest:
@@ -168,7 +169,7 @@ def koenker_breusch_pagan(resid: ArrayLike, x: ArrayLike) -> StatTest:
         return StatTest()
     r2 = 1.0 - float(((e2 - fitted) ** 2).sum()) / tss
     lm = n * r2
-    return StatTest(lm, (float(k),), float(scipy.stats.chi2.sf(lm, k)))
+    return StatTest(lm, (float(k),), float(tails.chi2_sf(lm, k)))
 
 
 def day_spread(resid: ArrayLike) -> float | None:
@@ -220,8 +221,8 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
     robust = MAD_TO_SD * float(np.median(np.abs(scaled - np.median(scaled))))
     beyond = int((np.abs(scaled - np.median(scaled)) > TAIL_SDS * robust).sum()) if robust > 0 \
         else 0
-    p_tail = 2.0 * float(scipy.stats.norm.sf(TAIL_SDS))
-    tail_p = float(scipy.stats.binom.sf(beyond - 1, len(r), p_tail)) if len(r) else float("nan")
+    p_tail = 2.0 * float(tails.norm_sf(TAIL_SDS))
+    tail_p = float(tails.binom_sf(beyond - 1, len(r), p_tail)) if len(r) else float("nan")
     order = np.argsort(idx, kind="stable")
     spreads: list[float] = []
     for part in np.split(r[order], np.cumsum(counts.astype(np.int64))[:-1]):
@@ -291,5 +292,5 @@ def robust_spread_test(recent: ArrayLike, reference: ArrayLike) -> RobustSpreadT
     diff = float(a.mean() - b.mean())
     t = diff / (sd * math.sqrt(1 / len(a) + 1 / len(b)))
     df = float(len(b) - 1)
-    return RobustSpreadTest(float(math.exp(diff)), t, df, float(scipy.stats.t.sf(t, df)),
-                            float(scipy.stats.t.cdf(t, df)))
+    return RobustSpreadTest(float(math.exp(diff)), t, df, float(tails.t_sf(t, df)),
+                            float(tails.t_cdf(t, df)))

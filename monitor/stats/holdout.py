@@ -12,9 +12,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike, NDArray
 
+from monitor.stats import tails
 from monitor.stats.coverage import CoverageTest, coverage_test
 from monitor.stats.prediction import PredictionModel
 
@@ -90,4 +90,4 @@ def loss_difference_test(days: ArrayLike, errors_first: ArrayLike,
         statistic = float("inf") if mean > 0 else float("-inf") if mean < 0 else float("nan")
     else:
         statistic = mean / (sd / np.sqrt(m))
-    return LossDifference(float(statistic), float(scipy.stats.t.sf(statistic, m - 1)), m - 1, mean)
+    return LossDifference(float(statistic), float(tails.t_sf(statistic, m - 1)), m - 1, mean)

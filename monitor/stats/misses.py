@@ -41,6 +41,7 @@ import numpy as np
 import scipy
 from numpy.typing import ArrayLike, NDArray
 
+from monitor.stats import tails
 from monitor.stats.coverage import CoverageTest, coverage_test
 from monitor.stats.day_effects import DayEffects
 
@@ -304,8 +305,8 @@ def _miss_probabilities(tau2: float, sigma_w2: float, half_width: float,
     shocks = np.sqrt(2.0) * tau * x
     if sw == 0:
         return (np.abs(shocks) > half_width).astype(np.float64)
-    upper = scipy.stats.norm.sf((half_width - shocks) / sw)
-    lower = scipy.stats.norm.cdf((-half_width - shocks) / sw)
+    upper = tails.norm_sf((half_width - shocks) / sw)
+    lower = tails.norm_cdf((-half_width - shocks) / sw)
     return np.clip(upper + lower, 0.0, 1.0)
 
 
@@ -359,7 +360,7 @@ def guaranteed_scale(log_sd: float, guarantee: float) -> float:
     :func:`spread_uncertainty`; for independent rows ``log_sd = 1 / sqrt(2 dof)``)."""
     if not 0 < guarantee < 1:
         raise ValueError(f"the guarantee is a probability in (0, 1); got {guarantee}")
-    return float(np.exp(scipy.stats.norm.ppf(guarantee) * log_sd))
+    return float(np.exp(tails.norm_ppf(guarantee) * log_sd))
 
 
 def spread_uncertainty(effects: DayEffects) -> float:

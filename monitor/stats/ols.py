@@ -20,6 +20,7 @@ import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.errors import DegenerateDataError
+from monitor.stats import tails
 from monitor.stats.moments import Moments
 
 FloatArray = NDArray[np.float64]
@@ -113,12 +114,12 @@ class OLSFit:
 
     @property
     def pvalues(self) -> FloatArray:
-        return 2.0 * scipy.stats.t.sf(np.abs(self.tvalues), self.dof)
+        return 2.0 * tails.t_sf(np.abs(self.tvalues), self.dof)
 
     def confidence_interval(self, level: float = 0.95) -> FloatArray:
         """Two-sided confidence intervals of the coefficients, shape ``(p, 2)``."""
         _check_level(level)
-        half = scipy.stats.t.ppf(0.5 + level / 2.0, self.dof) * self.std_errors
+        half = tails.t_ppf(0.5 + level / 2.0, self.dof) * self.std_errors
         return np.column_stack([self.coef - half, self.coef + half])
 
     # prediction -------------------------------------------------------------------------

@@ -84,10 +84,11 @@ def _capped_binomial(n: int, p: FloatArray, cells: int) -> FloatArray:
     millisecond a call, a day of every window of every night.
     """
     k = np.arange(cells - 1, dtype=np.float64)
+    rest = np.maximum(n - k, 0.0)
+    log_choose = (scipy.special.gammaln(n + 1.0) - scipy.special.gammaln(k + 1.0)
+                  - scipy.special.gammaln(rest + 1.0))  # one row: it does not depend on p
     pj = p[:, None]
-    log_pmf = (scipy.special.gammaln(n + 1.0) - scipy.special.gammaln(k + 1.0)
-               - scipy.special.gammaln(np.maximum(n - k, 0.0) + 1.0)
-               + scipy.special.xlogy(k, pj) + scipy.special.xlog1py(np.maximum(n - k, 0.0), -pj))
+    log_pmf = log_choose + scipy.special.xlogy(k, pj) + scipy.special.xlog1py(rest, -pj)
     out = np.empty((p.size, cells), dtype=np.float64)
     out[:, :cells - 1] = np.exp(np.where(k <= n, log_pmf, -np.inf))
     out[:, cells - 1] = 0.0 if cells - 2 >= n else scipy.special.bdtrc(cells - 2, n, p)

@@ -13,10 +13,10 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.errors import DegenerateDataError
+from monitor.stats import tails
 from monitor.stats.ols import INTERCEPT, OLSFit, centred_leverage
 
 FloatArray = NDArray[np.float64]
@@ -126,7 +126,7 @@ class PredictionModel:
     def critical_value(self, level: float) -> float:
         if not 0.0 < level < 1.0:
             raise ValueError(f"an interval level must lie strictly between 0 and 1; got {level}")
-        return float(scipy.stats.t.ppf(0.5 + level / 2.0, self.dof))
+        return float(tails.t_ppf(0.5 + level / 2.0, self.dof))
 
     def interval(self, x: ArrayLike, level: float = 0.95) -> tuple[FloatArray, FloatArray]:
         """Prediction interval bounds ``(lower, upper)`` for each row."""

@@ -14,6 +14,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from monitor.stats import tails
+
 RATIO = 2.0  # the recent share must be at least this multiple of the long-run share ...
 MIN_SHARE = 0.01  # ... and at least this share of the recent rows
 MIN_PAST_ROWS = 100  # fewer earlier rows than this: no long run to compare with
@@ -49,9 +51,7 @@ def rejection_rise(recent_rejected: int, recent_read: int, past_rejected: int, p
         raise ValueError("rejected rows must lie between 0 and the rows read")
     if recent_read == 0 or past_read < MIN_PAST_ROWS:
         return None
-    from scipy import stats
-
     share = (past_rejected + 0.5) / (past_read + 1.0)
-    pvalue = float(stats.binom.sf(recent_rejected - 1, recent_read, share))
+    pvalue = float(tails.binom_sf(recent_rejected - 1, recent_read, share))
     return RejectionRise(recent_rejected, recent_read, past_rejected, past_read, share,
                          min(1.0, pvalue), level)

@@ -21,9 +21,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy
 from numpy.typing import ArrayLike
 
+from monitor.stats import tails
 from monitor.stats.moments import Moments
 
 Q_BOUND = 37.5  # |Q| beyond which the tail probability underflows a double (Φ(-37.5) ≈ 5e-308)
@@ -52,9 +52,9 @@ def q_value(level: Moments, value: float) -> float | None:
     # what a double can hold as a tail probability the value is clipped (still far past any
     # chart limit)
     if t > 0:
-        q = float(scipy.stats.norm.isf(scipy.stats.t.sf(t, n - 1)))
+        q = float(tails.norm_isf(tails.t_sf(t, n - 1)))
     else:
-        q = float(scipy.stats.norm.ppf(scipy.stats.t.cdf(t, n - 1)))
+        q = float(tails.norm_ppf(tails.t_cdf(t, n - 1)))
     return float(np.clip(q, -Q_BOUND, Q_BOUND)) if not math.isnan(q) else 0.0
 
 

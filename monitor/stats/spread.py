@@ -15,8 +15,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy
 
+from monitor.stats import tails
 from monitor.stats.day_effects import DayResiduals
 
 MIN_WITHIN_DF = 10
@@ -53,5 +53,5 @@ def spread_test(recent: DayResiduals, s: float, dof: int, sigma_w2: float | None
     else:
         f = float(total_ss / rows / s**2)
         df_num, df_den, method = rows, float(dof), "total"
-    return SpreadTest(ratio, f, df_num, df_den, float(scipy.stats.f.sf(f, df_num, df_den)),
-                      float(scipy.stats.f.cdf(f, df_num, df_den)), method)
+    return SpreadTest(ratio, f, df_num, df_den, float(tails.f_sf(f, df_num, df_den)),
+                      float(tails.f_cdf(f, df_num, df_den)), method)

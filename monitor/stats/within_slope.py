@@ -50,6 +50,7 @@ import numpy as np
 import scipy
 from numpy.typing import ArrayLike, NDArray
 
+from monitor.stats import tails
 from monitor.stats.diagnosis import TAIL_SDS
 from monitor.stats.moments import DayMoments, Moments
 
@@ -283,14 +284,14 @@ def _decision_interval(steps: FloatArray, target: FloatArray, ref_se: FloatArray
     ``target_arl`` under the guaranteed estimation errors (see the module text); inf where no
     ``H`` up to :data:`MAX_H` does (the fit window pins that slope down too loosely)."""
     k = steps.shape[1]
-    q_ref = float(scipy.stats.norm.ppf((1 + guarantee) / 2))
+    q_ref = float(tails.norm_ppf((1 + guarantee) / 2))
     hs = []
     for j in range(k):
         lam = steps[:, j]
         # underestimated variances: the within part on dof, tau² on days - 1 df, each at the
         # guarantee quantile
-        within_hi = float(dof / scipy.stats.chi2.ppf(1 - guarantee, dof)) if dof > 0 else 1.0
-        tau_hi = (float((days - 1) / scipy.stats.chi2.ppf(1 - guarantee, days - 1))
+        within_hi = float(dof / tails.chi2_ppf(1 - guarantee, dof)) if dof > 0 else 1.0
+        tau_hi = (float((days - 1) / tails.chi2_ppf(1 - guarantee, days - 1))
                   if days > 1 else 1.0)
         v = within_var[:, j] + tau2[j]
         sd = np.sqrt((within_var[:, j] * within_hi + tau2[j] * tau_hi) / v)
