@@ -18,6 +18,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
+from monitor.domain.status import ALERTING
 from monitor.errors import ConfigError
 
 if TYPE_CHECKING:
@@ -25,13 +26,12 @@ if TYPE_CHECKING:
 
 DEFAULT_FILE = "fitwatch.toml"
 ENV_VAR = "FITWATCH_CONFIG"
-STATUSES = ("ok", "watch", "refit")
 MAX_PREDICTORS = 8
 
 
 @dataclass(frozen=True)
 class CheckSettings:
-    """How a day check scores and decides (SPEC §3, §11)."""
+    """How a day check scores and decides (README, "What the figures mean")."""
 
     level: float = 0.95
     coverage_window_days: int = 14
@@ -70,7 +70,7 @@ class SmtpSettings:
 class AlertSettings:
     to: tuple[str, ...] = ()
     sender: str = "fitwatch@localhost"
-    on: tuple[str, ...] = ("refit", "watch")
+    on: tuple[str, ...] = tuple(ALERTING)
     remind_every_days: int = 3
     eml_dir: str = "outbox"
     smtp: SmtpSettings | None = None
@@ -80,11 +80,10 @@ class AlertSettings:
 class ScheduleSettings:
     """When the daemon runs: a five-field cron expression read in ``timezone``.
 
-    ``trigger`` is the scheduler's own parse of it (:func:`parse_cron`). It is made on first
-    use, by the commands that run or report the schedule (``daemon``, ``status``, ``init``),
-    not at load: the scheduler library and the asyncio under it stay out of every other
-    command's start-up. A schedule the scheduler refuses is a :class:`ConfigError` naming the
-    key and the file, whichever of those commands meets it first.
+    ``trigger`` is the scheduler's own parse of it (:func:`parse_cron`). A schedule other than
+    the default is parsed when the settings load, so a typo stops every command at once (a
+    :class:`ConfigError` naming the key and the file), not the daemon at night; the default
+    is known good and leaves the scheduler library out of the quick commands' start-up.
     """
 
     cron: str = "30 2 * * *"
@@ -101,7 +100,7 @@ class ScheduleSettings:
 
 @dataclass(frozen=True)
 class IngestSettings:
-    """Row validation and reading (SPEC §5)."""
+    """Row validation and reading (README, "Using it")."""
 
     future_tolerance: timedelta = timedelta(minutes=5)
     chunk_rows: int = 200_000
@@ -122,7 +121,7 @@ MIN_KEEP_ROWS_DAYS = 60
 
 @dataclass(frozen=True)
 class StorageSettings:
-    """Retention of raw observations (SPEC §4)."""
+    """Retention of raw observations (README, "Retention")."""
 
     keep_rows_days: int = 0  # 0: keep every row; else the rows of the last N checked days
 
@@ -256,6 +255,8 @@ def parse_settings(data: Mapping[str, Any], source: str = "<settings>") -> Setti
     cron = r.string(sch, "schedule.cron", ScheduleSettings.cron, non_empty=True)
     zone = r.zone(sch, "schedule.timezone", "UTC")
     schedule = ScheduleSettings(cron=cron, timezone=zone, source=source)
+    if cron != ScheduleSettings.cron:
+        schedule.trigger  # noqa: B018 - parsed now for its errors; cached by parse_cron
 
     check = _check_settings(r, top.get("check", {}), "check", CheckSettings())
     alerts = _alert_settings(r, top.get("alerts", {}), "alerts", AlertSettings())
@@ -400,8 +401,9 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
     sender = r.string(sec, f"{key}.sender", base.sender, non_empty=True)
     on = r.strings(sec, f"{key}.on", base.on)
     for status in on:
-        if status not in ("refit", "watch"):
-            raise ConfigError(f"unknown status {status!r}; use \"refit\" and/or \"watch\"",
+        if status not in ALERTING:
+            raise ConfigError(f"unknown status {status!r}; use "
+                              + " and/or ".join(f'"{s}"' for s in ALERTING),
                               source=r.source, key=f"{key}.on")
     return AlertSettings(
         to=to, sender=sender, on=on,

@@ -151,14 +151,13 @@ def test_bad_settings_name_the_key_and_the_file(tmp_path, text, key, words):
     # in the documentation of CronTrigger.from_crontab): a number could mean either day
     ("30 2 * * 1-5", "write weekdays as names"),
 ])
-def test_a_cron_the_scheduler_refuses_names_the_key_and_the_file_when_first_used(
+def test_a_cron_the_scheduler_refuses_names_the_key_and_the_file_when_the_settings_load(
         tmp_path, cron, words):
-    # parsed on first use (daemon, status, init), so other commands never load the scheduler
+    # parsed at load: a typo stops every command, not the daemon at night
     path = tmp_path / "bad.toml"
     path.write_text(f"[schedule]\ncron = '{cron}'\n")
-    settings = load_settings(path, environ={})
     with pytest.raises(ConfigError) as err:
-        settings.schedule.trigger  # noqa: B018
+        load_settings(path, environ={})
     message = str(err.value)
     assert str(path) in message and "'schedule.cron'" in message and words in message
 

@@ -17,8 +17,8 @@ from monitor.interface.cli import main
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import list_versions
-from tests.report.test_page import Page
 from tests.support.demo import STALE_MAIL, DemoRun
+from tests.support.page import Page
 from tests.support.png import png_size
 from tests.support.world import MODEL
 

@@ -1,4 +1,4 @@
-"""E-mail alerts (SPEC §7): what to tell whom after a night, the outbox, and the mailers."""
+"""E-mail alerts: what to tell whom after a night, the outbox, and the mailers."""
 
 from monitor.alerts.mailer import EmlFolderMailer, Mailer, SmtpMailer, mailer_for
 from monitor.alerts.service import AlertRun, queue_night, send_due, send_night_alerts

@@ -16,7 +16,7 @@ from monitor.monitoring.daily_figures import CheckedDay
 
 
 def day_document(c: DayCheck) -> dict[str, Any]:
-    """One model-day of ``check --json`` (SPEC §6 fields first, then the rest)."""
+    """One model-day of ``check --json`` (the day's status and figures first, then the rest)."""
     return {
         "model": c.model, "day": c.day, "n": c.n, "covered": c.covered,
         "coverage": c.coverage, "status": c.status, "since": c.status_since,

@@ -18,6 +18,7 @@ from typing import Any
 
 from monitor import __version__
 from monitor.config import Settings, load_settings
+from monitor.domain.status import ALERTING
 from monitor.errors import ExitCode, FitwatchError, UsageError, exit_code_for
 from monitor.interface.output import dumps
 from monitor.interface.progress import wants_progress
@@ -134,7 +135,7 @@ def build_parser() -> argparse.ArgumentParser:
     when = chk.add_mutually_exclusive_group()
     when.add_argument("--day", metavar="DATE", type=_day, help="check up to DATE, report DATE")
     when.add_argument("--through", metavar="DATE", type=_day, help="check through DATE")
-    chk.add_argument("--fail-on", choices=("refit", "watch"),
+    chk.add_argument("--fail-on", choices=tuple(ALERTING),
                      help="exit with code 3 when any model reaches this status")
     json_flag(chk)
 

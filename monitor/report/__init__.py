@@ -1,1 +1,1 @@
-"""Charts and the HTML report (SPEC §9)."""
+"""Charts and the HTML report."""

@@ -1,9 +1,9 @@
 """The decision: one day's evidence in, ``ok`` / ``watch`` / ``refit`` with its findings out.
 
-Default policy (SPEC §3.11): ``refit`` when the bias CUSUM or the within-day slope chart
-signals, or the slope test has p < 0.001, or coverage is low at p < 0.001; ``watch`` when any
-signal has p below the watch level or a chart stands above its watch fraction of the limit;
-otherwise ``ok``. Intervals that cover more often than the fit window's
+Default policy (README, "What the figures mean"): ``refit`` when the bias CUSUM or the
+within-day slope chart signals, or the slope test has p < 0.001, or coverage is low at p <
+0.001; ``watch`` when any signal has p below the watch level or a chart stands above its watch
+fraction of the limit; otherwise ``ok``. Intervals that cover more often than the fit window's
 law expects are reported by the caller, not raised to ``watch``: on heavy-tailed or outlying
 rows the classical intervals are wide for the other rows, which is no change of the process.
 A ``refit`` holds until a promotion or an acknowledgement (the caller says whether one is

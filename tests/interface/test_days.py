@@ -103,7 +103,7 @@ def test_json_entries_are_the_check_json_entries_plus_version(cli, world: World)
     entries = json.loads(out)
     assert [e["day"] for e in entries] == ["2026-04-11", "2026-04-12", "2026-04-13"]
     assert [e["version"] for e in entries] == [1, 1, 2]
-    # the same figures 'check --json --day' reports for a checked day (SPEC §6 fields included)
+    # the same figures 'check --json --day' reports for a checked day (status and figures)
     code, out, err = cli("check", MODEL, "--day", "2026-04-12", "--json")
     assert code == 0, err
     (checked,) = json.loads(out)

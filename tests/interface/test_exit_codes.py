@@ -100,11 +100,12 @@ def test_1_for_usage_one_line_and_no_traceback(tmp_path: Path) -> None:
     assert result.stderr.count("\n") == 1 and "invalid choice: 'frobnicate'" in result.stderr
 
 
-@pytest.mark.parametrize("command", [["status"], ["daemon", "--once"], ["init"]])
+@pytest.mark.parametrize("command", [["status"], ["daemon", "--once"], ["init"],
+                                     ["check"], ["model", "list"]])
 def test_1_for_a_cron_the_scheduler_refuses_naming_the_key_and_the_file(
         tmp_path: Path, command: list[str]) -> None:
-    # before the schedule was parsed (at load, now on first use) status and daemon printed a
-    # traceback and exited with 2; init is where a new settings file is tried first
+    # status and daemon once printed a traceback and exited with 2, and check went on with
+    # exit 0; the schedule is now parsed when the settings load, whatever the command
     config = settings_file(tmp_path, f"sqlite:///{tmp_path / 'f.db'}", 'cron = "99 99 * * *"\n')
     result = run_cli("--config", str(config), *command, cwd=tmp_path)
     assert result.returncode == ConfigError.exit_code == 1

@@ -61,7 +61,7 @@ def _version_and_window(world: World, number: int) -> tuple[float, pd.DataFrame]
 def _statsmodels_scores(window: pd.DataFrame, day: pd.DataFrame, level: float) -> pd.DataFrame:
     """Reference: statsmodels OLS(...).fit().get_prediction(...).summary_frame(alpha), the
     obs_ci_* bounds; the standardized residual divides by the prediction's own standard error,
-    sqrt(mean_se² + scale) (SPEC §3.3)."""
+    sqrt(mean_se² + scale) (docs/references.md, prediction intervals)."""
     fit = sm.OLS(window["load_minutes"], sm.add_constant(window[["pallets"]])).fit()
     exog = sm.add_constant(day[["pallets"]].astype(float), has_constant="add")
     frame = fit.get_prediction(exog).summary_frame(alpha=1 - level)

@@ -6,9 +6,10 @@ import cost on the project's 2-core machine (``python -X importtime``, Python 3.
 submodules (stats alone about 0.5 s), pandas (about 0.3 s), matplotlib, Jinja2, pyarrow,
 Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database (about
 30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
-reports the schedule, so it is the one command here that may use APScheduler. Start-up times
-are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy machine would
-make that flaky).
+reports the schedule, so it is the one command here that may use APScheduler with the default
+schedule; a schedule of one's own is parsed by it when the settings load, in every command.
+Start-up times are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy
+machine would make that flaky).
 """
 
 from __future__ import annotations
@@ -55,7 +56,7 @@ def config(demo: DemoRun, tmp_path: Path) -> Path:
     shutil.copyfile(demo.folder / "fitwatch.db", tmp_path / "fitwatch.db")
     path = tmp_path / "fitwatch.toml"
     path.write_text(f'[database]\nurl = "sqlite:///{tmp_path / "fitwatch.db"}"\n'
-                    '[schedule]\ntimezone = "Europe/Berlin"\ncron = "30 2 * * mon-sat"\n')
+                    '[schedule]\ntimezone = "Europe/Berlin"\n')
     return path
 
 
@@ -83,3 +84,11 @@ def test_help_imports_nothing_heavy_not_even_numpy(tmp_path: Path) -> None:
     assert result.returncode == 0, result.stderr
     assert "usage: fitwatch" in result.stdout
     assert result.stdout.splitlines()[-1] == "[]"
+
+
+def test_a_schedule_of_ones_own_is_parsed_when_the_settings_load(config: Path) -> None:
+    # a weekday schedule: only the scheduler library is added, to parse it
+    text = config.read_text().replace("[schedule]\n", '[schedule]\ncron = "30 2 * * mon-sat"\n')
+    config.write_text(text)
+    seen = loaded_by(["--config", str(config), "model", "list"], config.parent)
+    assert seen["code"] == 0 and set(seen["heavy"]) <= {"apscheduler", "asyncio"}, seen

@@ -10,7 +10,6 @@ from __future__ import annotations
 import io
 from dataclasses import replace
 from datetime import date
-from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
@@ -21,39 +20,9 @@ from monitor.report.charts import REPORT_SIZE, SCATTER_SIZE
 from monitor.report.page import load_report_data, render_page, write_report
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
+from tests.support.page import Page
 from tests.support.png import png_size
 from tests.support.world import LAST_DAY, MODEL, World, night_after
-
-
-class Page(HTMLParser):
-    """Tags, image sources, section ids and visible text of a page."""
-
-    def __init__(self, text: str):
-        super().__init__(convert_charrefs=True)
-        self.tags: list[str] = []
-        self.images: list[str] = []
-        self.links: list[str] = []
-        self.ids: list[str] = []
-        self.text: list[str] = []
-        self.feed(text)
-        self.close()
-
-    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
-        self.tags.append(tag)
-        values = dict(attrs)
-        if tag == "img":
-            self.images.append(values["src"] or "")
-        if tag == "a" and values.get("href"):
-            self.links.append(values["href"] or "")
-        if values.get("id"):
-            self.ids.append(values["id"] or "")
-
-    def handle_data(self, data: str) -> None:
-        self.text.append(data)
-
-    @property
-    def words(self) -> str:
-        return " ".join(" ".join(self.text).split())
 
 
 def _report(world: World, folder: Path, **kwargs):

@@ -18,7 +18,7 @@ from monitor.report.charts import Nouns
 from monitor.report.page import load_report_data, report_charts, write_report
 from monitor.report.row_charts import draw_planned, draw_predictor_residuals
 from tests.report.conftest import HOSTILE_COLUMN, LONGLEY, LONGLEY_LAST, Team
-from tests.report.test_page import Page
+from tests.support.page import Page
 from tests.support.world import LAST_DAY, MODEL, World, night_after
 
 

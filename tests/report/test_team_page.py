@@ -38,7 +38,7 @@ from tests.report.conftest import (
     Team,
     longley_frame,
 )
-from tests.report.test_page import Page
+from tests.support.page import Page
 from tests.support.png import png_size
 from tests.support.world import MODEL, World, night_after
 

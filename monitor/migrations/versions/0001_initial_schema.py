@@ -1,4 +1,4 @@
-"""Initial schema: every table of SPEC §4.
+"""Initial schema: every table of the first release.
 
 Revision ID: 0001
 Revises:
