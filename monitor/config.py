@@ -74,6 +74,10 @@ class AlertSettings:
     remind_every_days: int = 3
     eml_dir: str = "outbox"
     smtp: SmtpSettings | None = None
+    # A run that finds more nights checked and not yet mailed (a machine off for a while, or
+    # history checked by hand before the first nightly run) mails only the last this many;
+    # the older ones are recorded as seen and the first digest says so.
+    catch_up_nights: int = 14
 
 
 @dataclass(frozen=True)
@@ -357,7 +361,7 @@ _MODEL_ALERT_KEYS = {"to", "only_to", "on", "remind_every_days"}
 
 
 def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> AlertSettings:
-    allowed = ({"to", "sender", "on", "remind_every_days", "eml_dir", "smtp"}
+    allowed = ({"to", "sender", "on", "remind_every_days", "eml_dir", "smtp", "catch_up_nights"}
                if key == "alerts" else _MODEL_ALERT_KEYS)
     sec = r.table(raw, key, allowed)
     smtp = base.smtp
@@ -409,7 +413,8 @@ def _alert_settings(r: _Reader, raw: Any, key: str, base: AlertSettings) -> Aler
         to=to, sender=sender, on=on,
         remind_every_days=r.integer(sec, f"{key}.remind_every_days", base.remind_every_days,
                                     low=1),
-        eml_dir=r.string(sec, f"{key}.eml_dir", base.eml_dir, non_empty=True), smtp=smtp)
+        eml_dir=r.string(sec, f"{key}.eml_dir", base.eml_dir, non_empty=True), smtp=smtp,
+        catch_up_nights=r.integer(sec, f"{key}.catch_up_nights", base.catch_up_nights, low=1))
 
 
 # RFC 5322 §3.4.1 addr-spec with a dot-atom local part (§3.2.3: atext runs joined by single

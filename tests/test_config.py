@@ -56,10 +56,10 @@ def test_example_file_is_valid_and_documents_every_key():
     for cls in (CheckSettings, SmtpSettings):
         for f in fields(cls):
             assert f"\n{f.name} =" in text, f"{cls.__name__}.{f.name} is not documented"
-    for name in ("to", "sender", "on", "remind_every_days", "eml_dir"):
+    for name in ("to", "sender", "on", "remind_every_days", "eml_dir", "catch_up_nights"):
         assert f"\n{name} =" in text
     assert {f.name for f in fields(AlertSettings)} == {"to", "sender", "on", "remind_every_days",
-                                                      "eml_dir", "smtp"}
+                                                      "eml_dir", "smtp", "catch_up_nights"}
     source = model.source
     assert source is not None and ":since" in source.query
     for f in fields(SqlSourceSettings):
@@ -205,3 +205,15 @@ def test_report_settings_name_the_team_page_folder():
     assert "\n[report]\n" in text
     for f in fields(ReportSettings):
         assert f"\n{f.name} =" in text, f"report.{f.name} is not documented"
+
+
+def test_catch_up_nights_is_global_and_at_least_one(tmp_path):
+    path = tmp_path / "f.toml"
+    path.write_text("[alerts]\ncatch_up_nights = 0\n")
+    with pytest.raises(ConfigError) as err:
+        load_settings(path, environ={})
+    assert "'alerts.catch_up_nights'" in str(err.value)
+    path.write_text("[models.m.alerts]\ncatch_up_nights = 5\n")
+    with pytest.raises(ConfigError) as err:
+        load_settings(path, environ={})
+    assert "catch_up_nights" in str(err.value)

@@ -10,6 +10,7 @@ import signal
 import subprocess
 import sys
 import time
+from dataclasses import replace
 from datetime import UTC, date, datetime, timedelta
 from email import policy
 from pathlib import Path
@@ -104,9 +105,12 @@ def test_a_night_sweeps_the_inbox_checks_and_files_everything_away(
     assert not again.sweep.files and not again.checks.checks
 
 
-def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
+def test_a_machine_off_for_weeks_catches_up_and_reports_each_night_once(
         engine: Engine, make_settings, tmp_path: Path) -> None:
-    world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
+    # four weeks off, inside a catch-up horizon of 31 nights: every night is mailed
+    settings = _settings(make_settings, engine, tmp_path)
+    settings = replace(settings, alerts=replace(settings.alerts, catch_up_nights=31))
+    world = World(engine, settings, tmp_path, scenario=CHANGED, seed=5)
     _drop(world, date(2026, 3, 9), date(2026, 4, 5), 22, "weeks.csv")
     run = run_night(world.settings, engine, now=night_after(date(2026, 4, 5)))
     checked = [c.day for c in run.checks.checks]
@@ -118,6 +122,32 @@ def test_a_machine_off_for_a_week_catches_up_and_reports_each_night_once(
     subjects = [email.message_from_bytes(p.read_bytes(), policy=policy.default)["Subject"]
                 for p in mails]
     assert sum("needs a refit" in s and "reminder" not in s for s in subjects) == 1
+    assert run_night(world.settings, engine, now=night_after(date(2026, 4, 5))).alerts.queued == 0
+
+
+def test_nights_past_the_catch_up_horizon_are_recorded_and_said_once_not_mailed(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    # the same four weeks with the default horizon of 14 nights: the 15 nights before
+    # 2026-03-23 get no message; the refit that began among them is news on the first mailed
+    # night (the lead never heard of it), and that message says what was left out
+    world = _world(engine, make_settings, tmp_path, scenario=CHANGED)
+    assert world.settings.alerts.catch_up_nights == 14
+    _drop(world, date(2026, 3, 9), date(2026, 4, 5), 22, "weeks.csv")
+    run = run_night(world.settings, engine, now=night_after(date(2026, 4, 5)))
+    assert run.status == "ok" and run.nights[0] == date(2026, 3, 23)
+    messages = [email.message_from_bytes(p.read_bytes(), policy=policy.default)
+                for p in sorted((tmp_path / "mail").glob("*.eml"))]
+    assert run.alerts.queued == run.alerts.sent == len(messages)
+    texts = [m.get_body(preferencelist=("plain",)).get_content() for m in messages]
+    nights = sorted(t.splitlines()[0] for t in texts)
+    assert nights[0] == "fitwatch, night of 2026-03-23"  # nothing before the horizon
+    first = next(t for t in texts if t.startswith("fitwatch, night of 2026-03-23"))
+    assert "15 nights (2026-03-08 to 2026-03-22) were stored without a message" in first
+    assert "needs a refit since 2026-03-" in first
+    assert sum("were stored without a message" in t for t in texts) == 1
+    subjects = [m["Subject"] for m in messages]
+    assert sum("needs a refit" in s and "reminder" not in s for s in subjects) == 1
+    # every night is recorded as seen: nothing is left for a later run
     assert run_night(world.settings, engine, now=night_after(date(2026, 4, 5))).alerts.queued == 0
 
 

@@ -122,7 +122,9 @@ def headline(item: ModelNews) -> str:
         acted = "; ".join(_action_phrase(a) for a in item.actions)
         first = f"its first day, {item.night.isoformat()}, came out {c.status}"
         parts.append(f"{m}: {acted}; {first}")
-    if ENTERED in item.events:
+    if ENTERED in item.events and c.status_since < item.night:  # entered in unmailed nights
+        parts.append(f"{m} {_status_phrase(c.status)} since {c.status_since.isoformat()}")
+    elif ENTERED in item.events:
         was = f" (was {item.previous_status})" if item.previous_status else ""
         parts.append(f"{m} {_status_phrase(c.status)} as of {item.night.isoformat()}{was}")
     if REMINDER in item.events:

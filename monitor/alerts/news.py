@@ -98,13 +98,16 @@ def data_is_news(night: date, data: DataHealth | None, before: DataHealth | None
 def model_news(name: str, night: date, check: DayCheck | None, previous: DayCheck | None,
                actions: Sequence[Action], alerts: AlertSettings, *,
                data: DataHealth | None = None,
-               data_before: DataHealth | None = None) -> ModelNews | None:
+               data_before: DataHealth | None = None,
+               unseen_since: date | None = None) -> ModelNews | None:
     """The news of model ``name`` for ``night``, or None when there is nothing to say.
 
     ``check`` is the model's check of the night itself (None: the night was not checked, so
     nothing is said), ``previous`` its latest check before the night, ``actions`` the audit
     entries that took effect on the night; ``data`` the model's data findings as of the night,
-    ``data_before`` those of its previous digest.
+    ``data_before`` those of its previous digest. ``unseen_since``: the first of the nights a
+    catching-up run recorded without a message; a status entered since then was never mailed,
+    so it is news as if entered tonight.
     """
     if check is None or check.day != night:
         return None
@@ -116,7 +119,7 @@ def model_news(name: str, night: date, check: DayCheck | None, previous: DayChec
         events.append(RESTART)
     if check.status in mailed:
         held = (night - check.status_since).days
-        if held == 0:
+        if held == 0 or (unseen_since is not None and check.status_since >= unseen_since):
             events.append(ENTERED)
         elif held > 0 and held % alerts.remind_every_days == 0:
             events.append(REMINDER)

@@ -51,6 +51,7 @@ from monitor.alerts.news import (
 from monitor.config import Settings
 from monitor.domain.check import DayCheck
 from monitor.domain.data_health import DataHealth
+from monitor.domain.days import yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version, VersionState
 from monitor.errors import StateError
@@ -153,9 +154,10 @@ def _data(settings: Settings, conn: Connection, model: ModelRecord, check: DayCh
 
 
 def night_news(settings: Settings, conn: Connection, night: date, *, now: datetime,
-               only: set[int] | None = None) -> tuple[list[ModelNews], dict[str, ModelContext]]:
+               only: set[int] | None = None, unseen_since: date | None = None
+               ) -> tuple[list[ModelNews], dict[str, ModelContext]]:
     """Every model's news for ``night`` (or only that of the models ``only``), queued at
-    ``now``, and what composing it needs."""
+    ``now``, and what composing it needs (``unseen_since``: see :func:`model_news`)."""
     news, contexts = [], {}
     for model in list_models(conn):
         if only is not None and model.id not in only:
@@ -167,7 +169,8 @@ def night_news(settings: Settings, conn: Connection, night: date, *, now: dateti
         versions = list_versions(conn, model.id)
         data, before = _data(settings, conn, model, checks[0], versions, night, now)
         item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
-                          settings.for_model(model.name).alerts, data=data, data_before=before)
+                          settings.for_model(model.name).alerts, data=data, data_before=before,
+                          unseen_since=unseen_since)
         if item is None:
             continue
         news.append(item)
@@ -195,7 +198,8 @@ def _late_key(recipient: str, night: date, models: Sequence[str]) -> str:
 
 
 def queue_night(settings: Settings, night: date, *, now: datetime,
-                engine: Engine | None = None) -> int:
+                engine: Engine | None = None, note: str | None = None,
+                unseen_since: date | None = None) -> int:
     """Queue ``night``'s digests in the outbox (one transaction); returns how many are new.
 
     Only the models whose check of ``night`` is not yet queued (``queued_nights``) are news;
@@ -207,7 +211,8 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
             waiting = queued_nights.pending_models(conn, night)
             if not waiting:
                 return 0
-            news, contexts = night_news(settings, conn, night, now=now, only=waiting)
+            news, contexts = night_news(settings, conn, night, now=now, only=waiting,
+                                        unseen_since=unseen_since)
             wanted: dict[str, Digest] = {}
             for d in digests(news):
                 wanted[dedupe_key(d.recipient, night, KIND_NIGHT)] = d
@@ -218,7 +223,8 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
                                  [i.model for i in digest.items])] = digest
             known = box.existing_keys(conn, list(wanted))
             trouble = box.undelivered(conn)
-            notice = trouble.sentence() if trouble else None
+            notice = ". ".join(n for n in (trouble.sentence() if trouble else None, note) if n
+                               ) or None
             charts: dict[tuple[str, ...], bytes] = {}
             panels: dict[str, ChartPanel] = {}
             messages = []
@@ -245,10 +251,27 @@ def queue_night(settings: Settings, night: date, *, now: datetime,
 
 @dataclass(frozen=True)
 class QueueRun:
-    """What :func:`queue_pending` did: the nights it queued, oldest first, and new messages."""
+    """What :func:`queue_pending` did: the nights it queued, oldest first, new messages, and
+    the nights past the catch-up horizon recorded as seen without a message."""
 
     nights: tuple[date, ...]
     queued: int
+    skipped: tuple[date, ...] = ()
+
+
+def catch_up_start(settings: Settings, now: datetime) -> date:
+    """The oldest night a run at ``now`` still mails (``[alerts] catch_up_nights``)."""
+    return yesterday(now, settings.timezone) - timedelta(
+        days=settings.alerts.catch_up_nights - 1)
+
+
+def _skipped_note(skipped: Sequence[date], start: date) -> str:
+    first, last = skipped[0], skipped[-1]
+    span = (f"the night of {first}" if first == last
+            else f"{len(skipped)} nights ({first} to {last})")
+    return (f"The checks of {span} were stored without a message: a run that catches up mails "
+            f"the nights from {start} on ([alerts] catch_up_nights); 'fitwatch days --csv' "
+            "lists every checked day")
 
 
 def queue_pending(settings: Settings, *, now: datetime, engine: Engine | None = None,
@@ -258,12 +281,32 @@ def queue_pending(settings: Settings, *, now: datetime, engine: Engine | None = 
     What to queue comes from the database (checked and not yet in ``queued_nights``), not from
     what one process checked: a run killed after its checks committed and before this step
     leaves the nights pending, and the next run (or ``alerts``) queues them, once each.
+
+    Nights before the catch-up horizon (:func:`catch_up_start`) get no message of their own:
+    a machine off for a month, or a year of history checked by hand before the first nightly
+    run, would otherwise send the planning lead a digest for every one of those nights. They
+    are recorded as seen in the same way, and the first message of the run says so.
     """
     with database(settings, engine) as db:
         with db.connect() as conn:
             nights = queued_nights.pending_nights(conn, through)
-        queued = sum(queue_night(settings, night, now=now, engine=db) for night in nights)
-    return QueueRun(tuple(nights), queued)
+        start = catch_up_start(settings, now)
+        skipped = tuple(n for n in nights if n < start)
+        if skipped:
+            with write_transaction(db) as conn:
+                queued_nights.mark_older_queued(conn, start, now)
+            log.info("%d night(s) before %s were checked and not yet mailed: recorded without "
+                     "a message (catch_up_nights)", len(skipped), start)
+        note = _skipped_note(skipped, start) if skipped else None
+        queued = 0
+        recent = tuple(n for n in nights if n >= start)
+        for i, night in enumerate(recent):
+            new = queue_night(settings, night, now=now, engine=db, note=note,
+                              unseen_since=skipped[0] if skipped and i == 0 else None)
+            queued += new
+            if new:
+                note = None  # said once, in the first message of the run
+    return QueueRun(recent, queued, skipped)
 
 
 # sending --------------------------------------------------------------------------------------

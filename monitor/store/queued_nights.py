@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from datetime import date, datetime
 
-from sqlalchemy import Connection, and_, func, select
+from sqlalchemy import Connection, and_, func, literal, select
 from sqlalchemy.sql.expression import Join
 
 from monitor.store.schema import day_checks, queued_nights
@@ -46,6 +46,18 @@ def mark_queued(conn: Connection, model_ids: Iterable[int], night: date, now: da
         return
     conn.execute(insert_for(conn, queued_nights).values(values).on_conflict_do_nothing(
         index_elements=[queued_nights.c.model_id, queued_nights.c.day]))
+
+
+def mark_older_queued(conn: Connection, before: date, now: datetime) -> int:
+    """Record every check of a night before ``before`` not yet queued as queued (without a
+    message: past the catch-up horizon); returns how many checks that was."""
+    unqueued = (select(day_checks.c.model_id, day_checks.c.day, literal(now))
+                .select_from(_unqueued())
+                .where(queued_nights.c.day.is_(None), day_checks.c.day < before))
+    result = conn.execute(insert_for(conn, queued_nights).from_select(
+        ["model_id", "day", "queued_at"], unqueued).on_conflict_do_nothing(
+        index_elements=[queued_nights.c.model_id, queued_nights.c.day]))
+    return int(result.rowcount or 0)
 
 
 def last_queued_at(conn: Connection, model_id: int, before: date) -> datetime | None:

@@ -30,7 +30,10 @@ def night_config(tmp: Path, url: str, *, smtp_port: int | None = None) -> Path:
         f'[database]\nurl = "{url}"\n'
         '[schedule]\ntimezone = "Europe/Berlin"\n'
         f'[ingest]\ninbox = "{tmp / "inbox"}"\n'
+        # every night of these worlds is mailed (they span four weeks; the catch-up horizon
+        # has its own test in tests/test_daemon.py)
         f'[alerts]\nto = ["planning.lead@example.com"]\neml_dir = "{tmp / "mail"}"\n'
+        'catch_up_nights = 60\n'
         + transport +
         '[models.dock_loading.words]\nrow = "load"\nrows = "loads"\ny_unit = "min"\n'
         '[models.dock_loading.words.x_units]\npallets = "pallet"\n')
