@@ -220,6 +220,27 @@ def test_a_failed_fit_leaves_no_model_behind(cli, engine: Engine) -> None:
     assert code == 0, err
 
 
+def test_a_fit_on_a_file_whose_rows_were_all_rejected_says_why(cli, tmp_path: Path) -> None:
+    # before: "has no stored observations to fit on; give --data FILE", the FILE just given
+    semi = tmp_path / "history_de.csv"  # saved by a spreadsheet in a German locale
+    frame = pd.read_csv(HISTORY)
+    frame.to_csv(semi, sep=";", decimal=",", index=False)
+    minutes = f"{frame['load_minutes'].iloc[0]:.1f}".replace(".", ",")
+    code, out, err = cli(*FIT, "--data", str(semi))
+    assert code == 1 and out == ""
+    assert f"every row of {semi} was rejected, so nothing of it can be fitted on" in err
+    assert f"{len(frame):,} not a number (lines 2, 3, 4" in err
+    assert f"e.g. line 2: load_minutes is '{minutes}', not a number" in err
+    assert "no stored observations" not in err
+    assert json.loads(cli("model", "list", "--json")[1]) == []  # nothing left behind
+    # a model that has rows is not refitted on them as if the file had been read
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, _, err = cli(*FIT, "--data", str(semi))
+    assert code == 1 and "was rejected, so nothing of it can be fitted on" in err
+    (listed,) = json.loads(cli("model", "list", "--json")[1])
+    assert listed["versions"] == 1  # no candidate fitted on the stored rows alone
+
+
 def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine) -> None:
     from monitor.store import audit
     from monitor.store.schema import audit_log

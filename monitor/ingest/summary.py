@@ -112,6 +112,10 @@ class IngestSummary:
             text += f"; day {first}" if first == last else f"; days {first} to {last}"
         return text + "."
 
+    def why(self) -> str:
+        """The commonest reasons for rejection, and an example of the first ('' if none)."""
+        return self._worst() + self._example()
+
     def _example(self) -> str:
         """The first shown row of the commonest reason, as '; e.g. line 2: why'."""
         for code, _ in ranked(self.reasons)[:1]:
