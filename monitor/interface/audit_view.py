@@ -38,7 +38,7 @@ def audit_listing(settings: Settings, name: str | None = None, *, since: date | 
     """The audit log (of one model, when named; it may have been deleted since)."""
     zone = settings.timezone
     start = datetime.combine(since, datetime.min.time(), zone) if since else None
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         lines = log_lines(conn, name, start, last)
         if name is not None and not lines:
             get_model(conn, name)  # never heard of: say so (NotFoundError)

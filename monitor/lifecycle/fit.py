@@ -145,7 +145,7 @@ def fit_model(settings: Settings, request: FitRequest, *, now: datetime | None =
               actor: str | None = None, progress: bool = False,
               engine: Engine | None = None) -> FitReport:
     """``model fit``: create the model if new, store the file's rows, fit, store the version."""
-    with database(settings, engine) as db:
+    with database(settings, engine, sections="warn", creating=request.name) as db:
         return _fit_model(db, settings, request, now or datetime.now(UTC),
                           actor or actor_name(), progress)
 

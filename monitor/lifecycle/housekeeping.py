@@ -34,7 +34,7 @@ def delete(settings: Settings, name: str, *, confirmed: bool, actor: str,
         raise UsageError(f"deleting '{name}' removes its observations, versions and checks for "
                          "good; add --yes to confirm")
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, write_transaction(db) as conn:
+    with database(settings, engine, sections="warn") as db, write_transaction(db) as conn:
         model = get_model(conn, name)
         counts = delete_model(conn, model)
         audit.record(conn, action="delete", actor=actor, at=now, model_id=None,
@@ -46,7 +46,8 @@ def rename(settings: Settings, name: str, new_name: str, *, actor: str,
            now: datetime | None = None, engine: Engine | None = None) -> str:
     """``model rename NAME NEW``; returns the sentence to print."""
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, write_transaction(db) as conn:
+    with database(settings, engine, sections="warn",
+                  creating=new_name) as db, write_transaction(db) as conn:
         model = get_model(conn, name)
         replace(model.spec, name=new_name)  # the rules of a model name (InputError otherwise)
         rename_model(conn, model, new_name)

@@ -80,7 +80,7 @@ def data_health(settings: Settings, names: Sequence[str] | None = None, *,
                 now: datetime | None = None, engine: Engine | None = None) -> list[DataHealth]:
     """Every (or the named) model's data findings now, through its last checked day."""
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
         out = []
         for model in models:
