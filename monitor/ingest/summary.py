@@ -97,7 +97,7 @@ class IngestSummary:
             rows = counts.removesuffix(" read")
             if bad < self.read:
                 return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
-                        f"{rows} are bad — {self._worst()}.")
+                        f"{rows} {'is' if bad == 1 else 'are'} bad — {self._worst()}.")
             every = "the 1 row is" if self.read == 1 else f"all {rows} are"
             return (f"{self.source}: rejected whole, nothing stored: {every} bad — "
                     f"{self._worst()}{self._example()}.")

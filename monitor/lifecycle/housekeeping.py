@@ -8,6 +8,7 @@ from datetime import UTC, datetime
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.phrasing import counted
 from monitor.errors import UsageError
 from monitor.store import audit
 from monitor.store.access import database
@@ -22,9 +23,9 @@ class Removed:
 
     def sentence(self) -> str:
         c = self.counts
-        return (f"model '{self.model}' deleted with its {c['observations']} observation(s), "
-                f"{c['versions']} version(s) and {c['day_checks']} day check(s); the audit log "
-                "keeps what was done to it")
+        return (f"model '{self.model}' deleted with its {counted(c['observations'], 'observation')}"
+                f", {counted(c['versions'], 'version')} and "
+                f"{counted(c['day_checks'], 'day check')}; the audit log keeps what was done to it")
 
 
 def delete(settings: Settings, name: str, *, confirmed: bool, actor: str,
