@@ -10,6 +10,7 @@ from pathlib import Path
 import pytest
 
 from monitor.config import (
+    _MODEL_ALERT_KEYS,
     AlertSettings,
     CheckSettings,
     ReportSettings,
@@ -42,6 +43,15 @@ def test_a_models_recipients_add_to_the_global_ones_unless_it_says_only():
         parse_settings({"models": {"a": {"alerts": {"only_to": ["nobody"]}}}})
     with pytest.raises(ConfigError, match=r"'alerts\.only_to': unknown key"):  # global: to is it
         parse_settings({"alerts": {"only_to": ["lead@example.com"]}})
+
+
+def test_the_readme_says_a_models_to_adds_and_only_to_replaces():
+    # before: the README named neither, so a reader could only guess from the example file
+    readme = " ".join((EXAMPLE.parents[1] / "README.md").read_text().split())
+    for key in sorted(_MODEL_ALERT_KEYS):
+        assert f"`{key}`" in readme, key
+    assert "`to`, which adds to them" in readme
+    assert "`only_to`, which replaces them for that model" in readme
 
 
 def test_example_file_is_valid_and_documents_every_key():

@@ -15,13 +15,24 @@ from datetime import date, timedelta
 from email.message import EmailMessage
 from pathlib import Path
 
+import pytest
 from sqlalchemy import Engine
 
 from monitor.alerts.service import send_night_alerts
 from monitor.interface.status import model_statuses
+from monitor.lifecycle.fit import FitRequest, fit_model
+from monitor.lifecycle.refit import promote
 from monitor.monitoring.data_health import data_health
 from tests.support.mail import RecordingMailer
-from tests.support.world import CALM, MODEL, WORDS, World, loads_between, night_after
+from tests.support.world import (
+    CALM,
+    MODEL,
+    WORDS,
+    World,
+    loads_between,
+    night_after,
+    write_csv,
+)
 
 LEAD = "planning.lead@example.com"
 DEMO_NIGHTS = Path(__file__).resolve().parents[1] / "demo_data" / "nights"
@@ -112,6 +123,68 @@ def test_a_steady_feed_with_closed_sundays_is_never_flagged(engine: Engine, make
     # third silent working day, Wednesday the 25th
     assert [d for d, f in found.items() if f] == [date(2026, 3, 25)]
     assert [_night(key) for key, _ in mailer.sent] == [date(2026, 3, 25)]
+
+
+def _silent_days(world: World, first: date, last: date) -> dict[date, bool]:
+    """Check night by night; which nights had a silent-feed finding."""
+    found = {}
+    for day in _days(first, last):
+        world.check(day)
+        (health,) = data_health(world.settings, now=night_after(day), engine=world.engine)
+        found[day] = health.silent is not None
+    return found
+
+
+def test_a_short_fit_window_judges_a_pause_by_the_models_stored_days(
+        engine: Engine, make_settings, tmp_path: Path, cli) -> None:
+    # before: a version fitted on 11 days had no calendar at all, so a feed that stopped was
+    # never flagged (the demo's version 4: 186 silent nights, no finding, --fail-on exited 0)
+    world = _world(engine, make_settings, tmp_path)
+    world.add_days(date(2026, 3, 9), date(2026, 3, 21), 45, "two_weeks.csv")  # to a Saturday
+    world.check(date(2026, 3, 21))
+    fit_model(world.settings, FitRequest(MODEL, start=date(2026, 3, 11), end=date(2026, 3, 21)),
+              now=night_after(date(2026, 3, 21)), engine=engine, actor="test")
+    promote(world.settings, MODEL, 2, now=night_after(date(2026, 3, 21)), actor="test",
+            engine=engine)
+    # the stored days, 5 January to 21 March (11 weeks, Monday to Saturday), are the calendar:
+    # the third silent working day is the first implausible one, a Sunday never counts
+    found = _silent_days(world, date(2026, 3, 22), date(2026, 3, 26))
+    assert [d for d, f in found.items() if f] == [date(2026, 3, 25), date(2026, 3, 26)]
+    code, _, err = cli("check", "--through", "2026-03-26", "--fail-on", "watch")
+    assert code == 3 and f"fitwatch: {MODEL}: data: no rows since 2026-03-21\n" in err
+    silent = json.loads(cli("status", "--json")[1])[0]["data_health"]["silent"]
+    assert silent["calendar"] == "the model's days with rows (2026-01-05 to 2026-03-21)"
+    assert silent["flagged_on"] == "2026-03-25"
+
+
+def test_a_history_under_two_weeks_is_stretched_and_judged_cautiously(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    # nine stored days in all (Monday 9 to Tuesday 17 March, Sunday closed), fitted on all of
+    # them: the calendar is stretched to 4-17 March, the five days before the first row counted
+    # as days without rows, so Wednesday to Saturday had rows on 1 of 2 days (chance of a silent
+    # one 1.5 / 3) and Monday and Tuesday on 2 of 2 (0.5 / 3). The pause from Wednesday the
+    # 18th reaches 0.001 only on its seventh working day, Wednesday the 25th (the 9 days
+    # unstretched would flag it on Monday the 23rd, its fifth)
+    settings = make_settings(engine.url.render_as_string(hide_password=False), models=WORDS)
+    world = World(engine, settings, tmp_path, fit=False)
+    history = write_csv(loads_between(CALM, date(2026, 3, 9), date(2026, 3, 17), 51),
+                        tmp_path / "short.csv")
+    fit_model(world.settings, FitRequest(MODEL, history, "load_minutes", ("pallets",),
+                                         "docked_at", "load_id"),
+              now=night_after(date(2026, 3, 17)), engine=engine, actor="test")
+    found = _silent_days(world, date(2026, 3, 18), date(2026, 3, 26))
+    assert [d for d, f in found.items() if f] == [date(2026, 3, 25), date(2026, 3, 26)]
+    (health,) = data_health(world.settings, now=night_after(date(2026, 3, 26)),
+                            engine=engine)
+    silent = health.silent
+    assert silent is not None and silent.flagged_on == date(2026, 3, 25)
+    assert silent.calendar == (
+        "the model's days with rows (2026-03-09 to 2026-03-17), stretched to 14 days from "
+        "2026-03-04, the earlier ones counted as days without rows")
+    # Wednesday 18 to Thursday 26: Wed-Sat, a closed Sunday (2.5 / 3), Monday, Tuesday, then
+    # the second Wednesday and Thursday (2.5 / 4 each)
+    assert silent.chance == pytest.approx((1.5 / 3) ** 4 * (2.5 / 3) * (0.5 / 3) ** 2
+                                          * (2.5 / 4) ** 2, rel=1e-12)
 
 
 # files rejected whole or mostly -----------------------------------------------------------------

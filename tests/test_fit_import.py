@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import logging
 import re
 from pathlib import Path
 
@@ -220,6 +221,27 @@ def test_a_failed_fit_leaves_no_model_behind(cli, engine: Engine) -> None:
     assert code == 0, err
 
 
+def test_a_fit_on_a_file_whose_rows_were_all_rejected_says_why(cli, tmp_path: Path) -> None:
+    # before: "has no stored observations to fit on; give --data FILE", the FILE just given
+    semi = tmp_path / "history_de.csv"  # saved by a spreadsheet in a German locale
+    frame = pd.read_csv(HISTORY)
+    frame.to_csv(semi, sep=";", decimal=",", index=False)
+    minutes = f"{frame['load_minutes'].iloc[0]:.1f}".replace(".", ",")
+    code, out, err = cli(*FIT, "--data", str(semi))
+    assert code == 1 and out == ""
+    assert f"every row of {semi} was rejected, so nothing of it can be fitted on" in err
+    assert f"{len(frame):,} not a number (lines 2, 3, 4" in err
+    assert f"e.g. line 2: load_minutes is '{minutes}', not a number" in err
+    assert "no stored observations" not in err
+    assert json.loads(cli("model", "list", "--json")[1]) == []  # nothing left behind
+    # a model that has rows is not refitted on them as if the file had been read
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, _, err = cli(*FIT, "--data", str(semi))
+    assert code == 1 and "was rejected, so nothing of it can be fitted on" in err
+    (listed,) = json.loads(cli("model", "list", "--json")[1])
+    assert listed["versions"] == 1  # no candidate fitted on the stored rows alone
+
+
 def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine) -> None:
     from monitor.store import audit
     from monitor.store.schema import audit_log
@@ -232,7 +254,10 @@ def test_rename_and_delete_are_audited_and_delete_needs_yes(cli, engine: Engine)
     code, _, err = cli("model", "delete", "dock_east")
     assert code != 0 and "--yes" in err
     code, out, _ = cli("model", "delete", "dock_east", "--yes")
-    assert code == 0 and "deleted with its" in out
+    stored = len(pd.read_csv(HISTORY))
+    assert stored > 999  # before: "deleted with its 3873 observation(s)", elsewhere "3,873"
+    assert code == 0
+    assert f"deleted with its {stored:,} observations, 1 version and 0 day checks" in out
     with database(_settings(cli.config), engine) as db, db.connect() as conn:
         rows = conn.execute(audit_log.select().order_by(audit_log.c.id)).all()
     actions = [r.action for r in rows]
@@ -285,3 +310,41 @@ def test_a_misspelt_model_section_or_column_is_named(cli, tmp_path: Path) -> Non
     assert "its columns are pallets, load_minutes" in err
     code, _, err = cli("check", "--through", "2026-03-10")
     assert code == 1 and "'palets'" in err
+
+
+def test_a_misspelt_model_section_stops_every_command_that_acts_and_is_shown_by_views(
+        cli, tmp_path: Path, caplog: pytest.LogCaptureFixture) -> None:
+    # Before, only `check` of all models and the daemon caught [models.dock_loadng]: `check
+    # dock_loading`, `ingest dock_loading` and `status` exited 0 without a word. Commands that
+    # store, check, mail or change versions now refuse; views say it on stderr and go on.
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    _config_with(cli, '\n[models.dock_loadng.ranges]\npallets = [1, 40]\n')
+    message = "[models.dock_loadng] names no model in the database (models: dock_loading)"
+    night = tmp_path / "night.csv"
+    night.write_text("load_id,docked_at,pallets,load_minutes,door\n"
+                     "N1,2026-03-09 06:00:00,4,20.0,D01\n")
+    for argv in (("check", "dock_loading", "--through", "2026-03-10"),
+                 ("ingest", "dock_loading", str(night)),
+                 ("ack", "dock_loading"),
+                 ("refit", "dock_loading")):
+        code, out, err = cli(*argv)
+        assert code == 1 and out == "", argv
+        assert message in err and str(cli.config) in err, argv
+    for argv in (("status",), ("status", "--json"), ("model", "list"),
+                 ("model", "show", "dock_loading"), ("audit",)):
+        caplog.clear()
+        with caplog.at_level(logging.WARNING, logger="monitor"):
+            code, out, _ = cli(*argv)
+        assert code == 0 and out, argv
+        warned = [r.getMessage() for r in caplog.records if r.levelno == logging.WARNING]
+        assert len(warned) == 1 and message in warned[0] and str(cli.config) in warned[0], argv
+    # a section written before its model is created is no typo for the fit that creates it
+    _config_with(cli, '\n[models.dock_west.ranges]\npallets = [1, 40]\n')
+    cli.config.write_text(cli.config.read_text().replace("dock_loadng", "dock_loading"))
+    caplog.clear()
+    with caplog.at_level(logging.WARNING, logger="monitor"):
+        code, _, err = cli("model", "fit", "dock_west", "--y", "load_minutes", "--x", "pallets",
+                           "--time", "docked_at", "--id", "load_id", "--data", str(HISTORY))
+    assert code == 0, err
+    assert not [r for r in caplog.records if r.levelno == logging.WARNING]
+    assert cli("check", "dock_loading", "--through", "2026-03-10")[0] == 0

@@ -403,7 +403,7 @@ def retry_failed(settings: Settings, *, now: datetime, engine: Engine | None = N
 
 def undelivered(settings: Settings, *, engine: Engine | None = None) -> box.Undelivered:
     """Messages given up on or waiting for another attempt."""
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         return box.undelivered(conn)
 
 

@@ -109,7 +109,7 @@ def run_demo(directory: Path, out: TextIO, seed: int = DEFAULT_SEED) -> DemoResu
     say("fitwatch demo: dock-door planning at a regional distribution centre\n")
     say(f"(invented data from a seeded generator; everything lives in {directory})\n\n")
     init_database(settings)
-    with database(settings) as engine:
+    with database(settings, creating=MODEL) as engine:
         played = _play(engine, settings, files, scenario, zone, say)
         team = _team_page(engine, settings, directory, played)
     _closing(say, config, played, scenario, team)

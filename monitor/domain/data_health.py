@@ -83,7 +83,7 @@ class BadFile:
                     else f"was rejected whole: all {self.read:,} rows are bad")
         elif self.whole:
             what = (f"was rejected whole (--strict): {self.bad:,} of its {self.read:,} rows "
-                    "are bad")
+                    f"{'is' if self.bad == 1 else 'are'} bad")
         else:
             what = (f"lost most of its rows: {self.bad:,} of {self.read:,} rejected "
                     f"({percent(self.bad / self.read)})")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime
 
@@ -87,16 +88,27 @@ def check_model_section(settings: Settings, model: ModelSpec) -> None:
                 f"{', '.join(allowed)}", source=settings.source)
 
 
+def unknown_sections(settings: Settings, names: Iterable[str], *,
+                     creating: str | None = None) -> ConfigError | None:
+    """The error for ``[models.NAME]`` sections naming none of the models ``names`` (None: all
+    sections name one). ``creating`` is a model a command is about to create: its section may
+    come first."""
+    known = set(names)
+    unknown = sorted(set(settings.models) - known - {creating})
+    if not unknown:
+        return None
+    listed = ", ".join(sorted(known)) or "none yet"
+    return ConfigError(
+        f"{', '.join(f'[models.{u}]' for u in unknown)} names no model in the database "
+        f"(models: {listed}); fix the name, or add the section once 'fitwatch model fit' "
+        "has created the model", source=settings.source)
+
+
 def check_model_sections(settings: Settings, models: list[ModelRecord]) -> None:
     """Refuse ``[models.NAME]`` sections for models the database does not hold (a misspelt
     name would otherwise leave the real model without its settings), and check the others."""
-    names = {m.name for m in models}
-    unknown = sorted(set(settings.models) - names)
-    if unknown:
-        known = ", ".join(sorted(names)) or "none yet"
-        raise ConfigError(
-            f"{', '.join(f'[models.{u}]' for u in unknown)} names no model in the database "
-            f"(models: {known}); fix the name, or add the section once 'fitwatch model fit' "
-            "has created the model", source=settings.source)
+    error = unknown_sections(settings, (m.name for m in models))
+    if error is not None:
+        raise error
     for model in models:
         check_model_section(settings, model)

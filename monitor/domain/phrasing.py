@@ -26,6 +26,11 @@ def fmt_p(p: float | None) -> str:
     return f"p = {p:.3f}"
 
 
+def counted(count: int, noun: str) -> str:
+    """'1 row', '3,873 rows': a count with its noun, thousands separated."""
+    return f"{count:,} {noun}" + ("" if count == 1 else "s")
+
+
 def percent(value: float | None, decimals: int = 0) -> str:
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "—"

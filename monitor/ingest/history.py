@@ -58,7 +58,7 @@ class BatchList:
 
 
 def model_batches(settings: Settings, name: str, *, engine: Engine | None = None) -> BatchList:
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         return BatchList(model, tuple(list_batches(conn, model.id)))
 
@@ -68,7 +68,7 @@ def rejected_rows(settings: Settings, name: str, *, batch: int | None = None,
     """The rows rejected by batch ``batch``, or by the batches ingested on ``day``."""
     if (batch is None) == (day is None):
         raise ValueError("give exactly one of batch and day")
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         if batch is not None:
             try:

@@ -97,7 +97,7 @@ class IngestSummary:
             rows = counts.removesuffix(" read")
             if bad < self.read:
                 return (f"{self.source}: rejected whole (--strict), nothing stored: {bad:,} of "
-                        f"{rows} are bad — {self._worst()}.")
+                        f"{rows} {'is' if bad == 1 else 'are'} bad — {self._worst()}.")
             every = "the 1 row is" if self.read == 1 else f"all {rows} are"
             return (f"{self.source}: rejected whole, nothing stored: {every} bad — "
                     f"{self._worst()}{self._example()}.")
@@ -111,6 +111,10 @@ class IngestSummary:
             first, last = self.first_day.isoformat(), _iso(self.last_day)
             text += f"; day {first}" if first == last else f"; days {first} to {last}"
         return text + "."
+
+    def why(self) -> str:
+        """The commonest reasons for rejection, and an example of the first ('' if none)."""
+        return self._worst() + self._example()
 
     def _example(self) -> str:
         """The first shown row of the commonest reason, as '; e.g. line 2: why'."""

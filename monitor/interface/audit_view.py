@@ -11,6 +11,7 @@ from sqlalchemy import Engine
 
 from monitor.config import Settings
 from monitor.domain.days import local_time
+from monitor.domain.phrasing import counted
 from monitor.store.access import database
 from monitor.store.audit import LogLine, log_lines
 from monitor.store.models import get_model
@@ -38,7 +39,7 @@ def audit_listing(settings: Settings, name: str | None = None, *, since: date | 
     """The audit log (of one model, when named; it may have been deleted since)."""
     zone = settings.timezone
     start = datetime.combine(since, datetime.min.time(), zone) if since else None
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         lines = log_lines(conn, name, start, last)
         if name is not None and not lines:
             get_model(conn, name)  # never heard of: say so (NotFoundError)
@@ -67,9 +68,9 @@ def what_was_done(e: LogLine) -> str:
     if e.action == "rename":
         return f"renamed from '{d.get('from', '?')}' to '{d.get('to', '?')}'"
     if e.action == "delete":
-        return (f"deleted with its {d.get('observations', '?')} observation(s), "
-                f"{d.get('versions', '?')} version(s) and {d.get('day_checks', '?')} day "
-                "check(s)")
+        return (f"deleted with its {_counted(d, 'observations', 'observation')}, "
+                f"{_counted(d, 'versions', 'version')} and "
+                f"{_counted(d, 'day_checks', 'day check')}")
     if e.action == "correct":
         days = d.get("days") or []
         span = (f" on {days[0]}" if len(days) == 1 else
@@ -88,6 +89,11 @@ def what_was_done(e: LogLine) -> str:
     if e.action == "failure":
         return f"nightly {d.get('stage', 'work')} failed: {d.get('error', '?')}"
     return e.action
+
+
+def _counted(details: dict[str, Any], key: str, noun: str) -> str:
+    value = details.get(key)
+    return counted(value, noun) if isinstance(value, int) else f"? {noun}s"
 
 
 def _line(e: LogLine, zone: ZoneInfo) -> str:

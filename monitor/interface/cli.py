@@ -478,7 +478,7 @@ def _cmd_predict(args: argparse.Namespace, settings: Settings) -> int:
         from monitor.store.access import database
         from monitor.store.models import get_model
 
-        with database(settings) as db, db.connect() as conn:
+        with database(settings, sections="warn") as db, db.connect() as conn:
             predictors = get_model(conn, args.name).predictors
         jobs = read_jobs(Path(args.file), predictors)
     result = plan(settings, args.name, jobs, at=args.at, version=args.version, level=args.level)

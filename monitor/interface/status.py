@@ -124,7 +124,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
     last_day = yesterday(now, settings.timezone)
     cron_trigger(settings)  # status reports the schedule: a cron it cannot read is said first
     out = []
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
         leases = lease.read_all(conn)
         nightly = nightly_state(settings, leases[0], now, leases[1:]) if leases else None

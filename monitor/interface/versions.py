@@ -160,7 +160,7 @@ class VersionView:
 
 def show_version(settings: Settings, name: str, number: int | None = None, *,
                  engine: Engine | None = None) -> VersionView:
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         if number is None:
             version = active_version(conn, model.id)
@@ -208,7 +208,7 @@ class ModelLine:
 
 def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
     out = []
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         for model in list_models(conn):
             versions = list_versions(conn, model.id)
             active = next((v for v in versions if v.state == VersionState.ACTIVE), None)

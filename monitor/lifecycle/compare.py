@@ -82,7 +82,7 @@ def compare(settings: Settings, name: str, *, candidate: int | None = None,
     """``compare``: the active version against a candidate (default: the newest one)."""
     if holdout_days is not None and holdout_days < 1:
         raise UsageError(f"--holdout-days must be at least 1; got {holdout_days}")
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         active = active_version(conn, model.id)
         if active is None:

@@ -145,7 +145,7 @@ def fit_model(settings: Settings, request: FitRequest, *, now: datetime | None =
               actor: str | None = None, progress: bool = False,
               engine: Engine | None = None) -> FitReport:
     """``model fit``: create the model if new, store the file's rows, fit, store the version."""
-    with database(settings, engine) as db:
+    with database(settings, engine, sections="warn", creating=request.name) as db:
         return _fit_model(db, settings, request, now or datetime.now(UTC),
                           actor or actor_name(), progress)
 
@@ -177,6 +177,10 @@ def _fit_created(engine: Engine, settings: Settings, request: FitRequest, model:
     if request.data is not None:
         options = options_for(settings, request.name, strict=False, progress=progress, now=now)
         summary = ingest_file(engine, model, request.data, options)
+        if summary.rejected_whole:
+            raise InputError(f"model '{model.name}': every row of {request.data} was rejected, "
+                             f"so nothing of it can be fitted on — {summary.why()}; fix the "
+                             "file and fit again")
     level = request.level or model_settings.check.level
     with engine.connect() as conn:
         stored_days = days_with_rows(conn, model)

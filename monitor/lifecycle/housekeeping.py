@@ -8,6 +8,7 @@ from datetime import UTC, datetime
 from sqlalchemy import Engine
 
 from monitor.config import Settings
+from monitor.domain.phrasing import counted
 from monitor.errors import UsageError
 from monitor.store import audit
 from monitor.store.access import database
@@ -22,9 +23,9 @@ class Removed:
 
     def sentence(self) -> str:
         c = self.counts
-        return (f"model '{self.model}' deleted with its {c['observations']} observation(s), "
-                f"{c['versions']} version(s) and {c['day_checks']} day check(s); the audit log "
-                "keeps what was done to it")
+        return (f"model '{self.model}' deleted with its {counted(c['observations'], 'observation')}"
+                f", {counted(c['versions'], 'version')} and "
+                f"{counted(c['day_checks'], 'day check')}; the audit log keeps what was done to it")
 
 
 def delete(settings: Settings, name: str, *, confirmed: bool, actor: str,
@@ -34,7 +35,7 @@ def delete(settings: Settings, name: str, *, confirmed: bool, actor: str,
         raise UsageError(f"deleting '{name}' removes its observations, versions and checks for "
                          "good; add --yes to confirm")
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, write_transaction(db) as conn:
+    with database(settings, engine, sections="warn") as db, write_transaction(db) as conn:
         model = get_model(conn, name)
         counts = delete_model(conn, model)
         audit.record(conn, action="delete", actor=actor, at=now, model_id=None,
@@ -46,7 +47,8 @@ def rename(settings: Settings, name: str, new_name: str, *, actor: str,
            now: datetime | None = None, engine: Engine | None = None) -> str:
     """``model rename NAME NEW``; returns the sentence to print."""
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, write_transaction(db) as conn:
+    with database(settings, engine, sections="warn",
+                  creating=new_name) as db, write_transaction(db) as conn:
         model = get_model(conn, name)
         replace(model.spec, name=new_name)  # the rules of a model name (InputError otherwise)
         rename_model(conn, model, new_name)

@@ -178,7 +178,8 @@ def import_model(settings: Settings, name: str, path: Path, *, now: datetime | N
     calibration = calibrate_h(imported_design(draft), k=cs.cusum_k,
                               target_arl=cs.cusum_arl_days, guarantee=cs.guarantee)
     draft = replace(draft, baseline=baseline.calibrated(calibration))
-    with database(settings, engine) as db, write_transaction(db) as conn:
+    with (database(settings, engine, sections="warn", creating=name) as db,
+          write_transaction(db) as conn):
         model = find_model(conn, name)
         spec = ModelSpec(name, data["response"], tuple(predictors), data["time_column"],
                          data.get("id_column"))

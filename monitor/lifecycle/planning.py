@@ -53,7 +53,7 @@ class Plan:
 
 def _version(settings: Settings, name: str, number: int | None,
              engine: Engine | None) -> tuple[ModelRecord, Version]:
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         if number is not None:
             return model, get_version(conn, model.id, number, model_name=model.name)

@@ -36,7 +36,7 @@ def daily_figures(settings: Settings, names: Sequence[str] | None = None, *,
     if first is not None and last is not None and first > last:
         raise InputError(f"the first day {first} is after the last day {last}")
     out: list[CheckedDay] = []
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         models = ([get_model(conn, n) for n in dict.fromkeys(names)] if names
                   else list_models(conn))
         for model in sorted(models, key=lambda m: m.name):

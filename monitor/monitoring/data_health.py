@@ -5,8 +5,12 @@ in ``monitor.domain.data_health``. What counts, as of a day ``through`` (the las
 the night of a digest) and an instant ``now``:
 
 - **a silent feed**: the days after the latest day with rows, through ``through``, judged against
-  the weekday calendar of the version's fit window (an imported version, whose window is not in
-  the database, uses its own days from its first active day, up to half a year);
+  the weekday calendar of the version's fit window; a fit window under :data:`MIN_CALENDAR_DAYS`
+  uses the model's stored days with rows up to the pause instead, and an imported version, whose
+  window is not in the database, its own days from its first active day (either up to half a
+  year). A calendar still under :data:`MIN_CALENDAR_DAYS` is stretched back to that many days,
+  the earlier ones counted as days without rows: that can only make a pause more plausible, so
+  the flag errs on the side of silence;
 - **bad files**: files and SQL source runs ingested in the :data:`RECENT_DAYS` before ``now``
   that were rejected whole, or with more than ``check.rejected_file_share`` of their rows bad,
   unless a later one of the same name was stored cleanly;
@@ -43,13 +47,13 @@ from monitor.store.access import database
 from monitor.store.batches import BatchRecord, batches_between, first_rejected_row
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
-from monitor.store.observations import days_with_rows, last_day_with_rows
+from monitor.store.observations import days_with_rows, first_day_with_rows, last_day_with_rows
 from monitor.store.versions import active_version
 
 RECENT_DAYS = 7  # bad files are shown this long; the recent window of the rejection share
 LONG_RUN_DAYS = 365  # the long run the recent rejection share is compared with
 OWN_CALENDAR_DAYS = 182  # an imported version's calendar: at most this many of its own days
-MIN_CALENDAR_DAYS = 14  # a shorter calendar says too little about a week to judge a pause
+MIN_CALENDAR_DAYS = 14  # a shorter calendar says too little about a week: stretched to this
 REASONS_SHOWN = 3
 STRICT_ONLY = "file_rejected"  # rows rejected only because a --strict file was
 
@@ -76,7 +80,7 @@ def data_health(settings: Settings, names: Sequence[str] | None = None, *,
                 now: datetime | None = None, engine: Engine | None = None) -> list[DataHealth]:
     """Every (or the named) model's data findings now, through its last checked day."""
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
         out = []
         for model in models:
@@ -109,17 +113,31 @@ def _silent_feed(conn: Connection, model: ModelRecord, check: CheckSettings, ver
 def _calendar(conn: Connection, model: ModelRecord, version: Version,
               last_rows: date | None) -> tuple[WeekdayCalendar, str] | None:
     """The weekday calendar the version's days are judged by, and how to name it."""
-    if version.fit_start is not None and version.fit_end is not None:
+    fitted = version.fit_start is not None and version.fit_end is not None
+    if (version.fit_start is not None and version.fit_end is not None
+            and (version.fit_end - version.fit_start).days + 1 >= MIN_CALENDAR_DAYS):
         first, last = version.fit_start, version.fit_end
         described = f"the fit window ({first} to {last})"
-    elif version.active_from is not None and last_rows is not None:
+    elif last_rows is None:
+        return None
+    elif fitted:  # a short fit window: the model's stored days up to the pause
+        stored = first_day_with_rows(conn, model) or last_rows
+        first = max(stored, last_rows - timedelta(days=OWN_CALENDAR_DAYS - 1))
+        last = last_rows
+        described = f"the model's days with rows ({first} to {last})"
+    elif version.active_from is not None:
         first = max(version.active_from, last_rows - timedelta(days=OWN_CALENDAR_DAYS - 1))
         last = last_rows
         described = f"version {version.number}'s days so far ({first} to {last})"
     else:
         return None
     if (last - first).days + 1 < MIN_CALENDAR_DAYS:
-        return None
+        # Too few days to say much about a week: stretch the calendar back, counting the days
+        # before them as days without rows. A weekday's chance of a silent day can only rise,
+        # so the chance of a pause is overstated, never understated.
+        first = last - timedelta(days=MIN_CALENDAR_DAYS - 1)
+        described += (f", stretched to {MIN_CALENDAR_DAYS} days from {first}, the earlier "
+                      "ones counted as days without rows")
     return WeekdayCalendar.of(first, last, days_with_rows(conn, model, first, last)), described
 
 

@@ -87,7 +87,7 @@ class ScoredDay:
 def score_day(settings: Settings, name: str, day: date, *, only: RowFilter = RowFilter(),
               engine: Engine | None = None) -> ScoredDay:
     """The stored rows of model ``name`` on ``day``, scored; ``only`` picks the rows shown."""
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
         rows = load_day_rows(conn, model, day)
         if len(rows) == 0:

@@ -127,7 +127,7 @@ def _model(settings: Settings, name: str, columns: ModelSpec | None) -> ModelSpe
     if columns is not None:
         return columns
     try:
-        with database(settings) as engine, engine.connect() as conn:
+        with database(settings, sections="warn") as engine, engine.connect() as conn:
             stored = find_model(conn, name)
     except (DatabaseError, SQLAlchemyError) as exc:
         raise StateError(f"cannot read model '{name}' from the database ({exc}); give its "

@@ -116,7 +116,7 @@ def write_report(settings: Settings, name: str, out_dir: Path, *, engine: Engine
     out_dir = Path(out_dir)
     unusable(out_dir, PAGE)
     now = now or datetime.now(UTC)
-    with database(settings, engine) as db, db.connect() as conn:
+    with database(settings, engine, sections="warn") as db, db.connect() as conn:
         data = load_report_data(conn, settings, name, now, days)
     return write_model_page(data, folder_for(out_dir, PAGE), now.astimezone(settings.timezone))
 

@@ -89,7 +89,7 @@ def write_team_report(settings: Settings, out_dir: Path, *, engine: Engine | Non
     unusable(out_dir, PAGE)
     now = now or datetime.now(UTC)
     written_at = now.astimezone(settings.timezone)
-    with database(settings, engine) as db:
+    with database(settings, engine, sections="warn") as db:
         with db.connect() as conn:
             names = [m.name for m in list_models(conn)]
         folder_for(out_dir, PAGE)

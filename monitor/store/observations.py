@@ -183,6 +183,12 @@ def neighbour_days(conn: Connection, model: ModelRecord, day: date
     return before, after
 
 
+def first_day_with_rows(conn: Connection, model: ModelRecord) -> date | None:
+    """The earliest day of ``model`` that has stored rows, or None."""
+    return conn.execute(select(func.min(day_stats.c.day)).where(
+        day_stats.c.model_id == model.id, day_stats.c.n > 0)).scalar()
+
+
 def last_day_with_rows(conn: Connection, model: ModelRecord, through: date) -> date | None:
     """The latest day of ``model`` on or before ``through`` that has stored rows, or None."""
     return conn.execute(select(func.max(day_stats.c.day)).where(

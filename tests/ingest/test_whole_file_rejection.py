@@ -19,6 +19,7 @@ import pytest
 
 from monitor.ingest.inbox import sweep_inbox
 from monitor.ingest.service import ingest_paths
+from monitor.monitoring.data_health import data_health
 from monitor.store.batches import list_batches, rejected_rows_of
 from monitor.store.observations import count_observations
 from tests.support.ingest import HEADER, NOW, Store, csv_text
@@ -79,6 +80,21 @@ def test_ingest_exits_1_when_nothing_of_a_file_is_stored(
     if not stderr:
         assert err == ""
     _balanced(store)
+
+
+@pytest.mark.parametrize("rows, phrase", [((GOOD[0], BAD[1]), "1 of 2 rows is bad"),
+                                           ((GOOD[0], *BAD[1:3]), "2 of 3 rows are bad")])
+def test_a_strict_rejection_counts_its_bad_rows_in_good_grammar(store: Store, rows: tuple[str],
+                                                                 phrase: str) -> None:
+    # before: "1 of 2 rows are bad"
+    path = store.write("strict.csv", csv_text(*rows))
+    (summary,) = ingest_paths(store.settings, "loads", [path], strict=True, now=NOW)
+    assert summary.rejected_whole
+    assert f"rejected whole (--strict), nothing stored: {phrase} — " in summary.sentence()
+    (health,) = data_health(store.settings, ["loads"], now=NOW, engine=store.engine)
+    (bad,) = health.bad_files
+    assert f"was rejected whole (--strict): {phrase.replace(' of ', ' of its ')}" in (
+        bad.sentence())
 
 
 def test_a_header_without_rows_is_an_empty_night(store: Store,

@@ -52,10 +52,9 @@ def test_the_audit_log_tells_a_models_history_through_rename_and_deletion(
                                                              "rename", "delete"]
     assert {e["model"] for e in entries} == {"employment"}
     assert [e["version"] for e in entries[:4]] == [1, 2, 2, 3]
-    assert entries[-1]["what"] == ("deleted with its 16 observation(s), 3 version(s) and 0 day "
-                                   "check(s)")
+    assert entries[-1]["what"] == "deleted with its 16 observations, 3 versions and 0 day checks"
     assert cli("audit", "longley", "--last", "1")[1].splitlines()[0].endswith(
-        "deleted with its 16 observation(s), 3 version(s) and 0 day check(s)")
+        "deleted with its 16 observations, 3 versions and 0 day checks")
 
 
 def test_audit_errors_are_one_line(cli) -> None:
