@@ -109,7 +109,9 @@ def build_parser() -> argparse.ArgumentParser:
                      "format", _cmd_model_export, msub)
     export.add_argument("name", metavar="NAME")
     export.add_argument("--version", metavar="N", type=int)
-    export.add_argument("--out", metavar="FILE", type=Path, help="write here (JSON)")
+    export.add_argument("--out", metavar="FILE", type=Path,
+                        help="write here: TOML for a .toml file, JSON for .json (without "
+                        "--out: JSON on standard output)")
     show = command("show", "show a model's active (or given) version", _cmd_model_show, msub)
     show.add_argument("name", metavar="NAME")
     show.add_argument("--version", metavar="N", type=int)

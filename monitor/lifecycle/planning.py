@@ -24,6 +24,7 @@ from monitor.config import Settings
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version
 from monitor.errors import InputError, StateError
+from monitor.lifecycle.toml_text import toml_text
 from monitor.stats.ols import INTERCEPT
 from monitor.store.access import database
 from monitor.store.models import get_model
@@ -31,6 +32,7 @@ from monitor.store.versions import active_version, get_version
 
 PLAN_COLUMNS = ("planned", "lower", "upper", "extrapolated", "version", "reason")
 READABLE = (".csv", ".parquet")
+DESCRIPTION_FORMATS = (".toml", ".json")
 
 
 @dataclass(frozen=True, eq=False)
@@ -200,8 +202,14 @@ def export_description(settings: Settings, name: str, *, version: int | None = N
 
 
 def write_description(doc: dict[str, Any], path: Path | None) -> str:
-    """The description as JSON (to ``path`` when given); returns the text."""
-    text = json.dumps(doc, indent=2) + "\n"
+    """The description as ``model import`` reads it from ``path``: TOML for a ``.toml`` file,
+    JSON for ``.json`` (JSON when there is no path, for standard output); returns the text.
+    Floats are written in their shortest exact form, so an import plans exactly alike."""
+    suffix = path.suffix.lower() if path is not None else ".json"
+    if suffix not in DESCRIPTION_FORMATS:
+        raise InputError(f"--out {path}: 'model import' reads .toml or .json files; "
+                         "name the file with one of these extensions")
+    text = toml_text(doc) if suffix == ".toml" else json.dumps(doc, indent=2) + "\n"
     if path is not None:
         try:
             path.write_text(text, encoding="utf-8")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -53,22 +54,42 @@ def test_planned_rows_match_statsmodels_prediction_intervals(cli, tmp_path: Path
     assert (plan["version"] == 1).all() and plan.loc[~good, "planned"].isna().all()
 
 
-def test_export_import_round_trip_plans_the_same(cli, tmp_path: Path) -> None:
+@pytest.mark.parametrize("suffix", [".toml", ".json"])
+def test_export_import_round_trip_plans_the_same(cli, tmp_path: Path, suffix: str) -> None:
     _, path = _longley(tmp_path)
     assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
                "--x", "POP", "--time", "at")[0] == 0
-    described = tmp_path / "longley.json"
+    described = tmp_path / f"longley{suffix}"
     code, _, err = cli("model", "export", "longley", "--out", str(described))
     assert code == 0, err
-    assert cli("model", "import", "copy", str(described))[0] == 0, "import of the export"
+    # written in the format 'model import' reads for that name (README, "The model import file")
+    if suffix == ".toml":
+        assert tomllib.loads(described.read_text())["predictors"] == ["GNP", "POP"]
+    else:
+        assert json.loads(described.read_text())["predictors"] == ["GNP", "POP"]
+    code, _, err = cli("model", "import", "copy", str(described))
+    assert code == 0, f"import of the export: {err}"
     plans = []
     for name in ("longley", "copy"):
         code, out, err = cli("predict", name, "--at", "GNP=444500.5", "--at", "POP=117200",
                              "--json")
         assert code == 0, err
         plans.append(json.loads(out)["rows"][0])
+    # the floats are written in their shortest exact form, so the copy plans bit for bit alike
     for key in ("planned", "lower", "upper"):
-        assert plans[1][key] == pytest.approx(plans[0][key], rel=1e-10)
+        assert plans[1][key] == plans[0][key]
+
+
+def test_export_refuses_a_format_it_does_not_write(cli, tmp_path: Path) -> None:
+    _, path = _longley(tmp_path)
+    assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
+               "--x", "POP", "--time", "at")[0] == 0
+    target = tmp_path / "longley.yaml"
+    code, out, err = cli("model", "export", "longley", "--out", str(target))
+    assert code != 0 and not target.exists()
+    assert ".toml" in err and ".json" in err and len(err.strip().splitlines()) == 1
+    code, out, err = cli("model", "export", "longley")  # no --out: JSON on stdout, as before
+    assert code == 0 and json.loads(out)["response"] == "TOTEMP"
 
 
 def test_predict_says_what_is_wrong(cli, tmp_path: Path) -> None:
