@@ -191,7 +191,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "force: one job (--at) or a file of planned jobs", _cmd_predict)
     pred.add_argument("name", metavar="NAME")
     pred.add_argument("file", metavar="FILE", nargs="?",
-                      help="CSV or Parquet file of planned jobs (one per row)")
+                      help="CSV or Parquet file of planned jobs (one per row); a CSV column "
+                      "is written back as numbers when every filled cell is one, else as read")
     pred.add_argument("--at", metavar="COL=VALUE", action="append", default=[],
                       help="a predictor's value for one job; repeat for each predictor")
     pred.add_argument("--version", metavar="N", type=int, help="plan with this version")
