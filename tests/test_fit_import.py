@@ -13,6 +13,7 @@ import pytest
 import statsmodels.api as sm
 from sqlalchemy import Engine
 
+from monitor.domain.phrasing import fmt
 from monitor.lifecycle.importer import NO_SLOPE_TEST, OPTIONAL, REQUIRED
 from monitor.store.access import database
 from monitor.store.models import get_model
@@ -45,6 +46,20 @@ def test_fit_creates_the_model_and_agrees_with_statsmodels(cli) -> None:
     days = pd.to_datetime(frame["docked_at"]).dt.date.nunique()
     assert days >= 40 and doc["cusum"]["learn_until_days"] == 0
     assert doc["cusum"]["h"] > doc["cusum"]["h_known"]
+
+
+def test_model_show_words_the_fit_as_the_page_does(cli) -> None:
+    # one wording for the fit summary, here and on the model's page (tests/report/test_page.py),
+    # in the model's own nouns and unit
+    with cli.config.open("a") as fh:
+        fh.write('[models.dock_loading.words]\nrow = "load"\nrows = "loads"\ny_unit = "min"\n')
+    assert cli(*FIT, "--data", str(HISTORY))[0] == 0
+    code, text, _ = cli("model", "show", "dock_loading")
+    doc = json.loads(cli("model", "show", "dock_loading", "--json")[1])
+    assert code == 0
+    assert (f"  typical scatter around the line {fmt(doc['s'], 4)} min from {doc['n']:,} loads, "
+            f"explains {100 * doc['r_squared']:.1f} % of the variation\n") in text
+    assert "degrees of freedom" not in text
 
 
 def test_a_second_fit_is_a_candidate_and_windows_select_rows(cli) -> None:

@@ -4,6 +4,10 @@ from __future__ import annotations
 
 import math
 from datetime import date
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:  # only for the annotation: phrasing loads nothing heavy (numpy, the stats)
+    from monitor.domain.version import Line
 
 
 def fmt(value: float | None, digits: int = 3) -> str:
@@ -48,3 +52,15 @@ def window_span(days: int, window_days: int, first: date, version: int | None) -
     if version is not None:
         return f"on {span} under version {version} (from {first.isoformat()})"
     return f"on {span} since the advice was acknowledged ({first.isoformat()})"
+
+
+def fit_summary(line: Line, rows: str = "rows", unit: str = "") -> str:
+    """How well a fitted line fits, in plain words (``model show`` and the model's page):
+    'typical scatter around the line 5.824 min from 3,873 loads, explains 76.4 % of the
+    variation'. The scatter is ``s``, the residual standard deviation; the share explained is
+    R². Parts a version does not know (an imported one may lack ``n`` or R²) are left out."""
+    unit = f" {unit}" if unit else ""
+    counted = f" from {line.n:,} {rows}" if line.n else ""
+    explained = (f", explains {percent(line.r_squared, 1)} of the variation"
+                 if line.r_squared is not None else "")
+    return f"typical scatter around the line {fmt(line.s, 4)}{unit}{counted}{explained}"

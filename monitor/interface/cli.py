@@ -110,7 +110,9 @@ def build_parser() -> argparse.ArgumentParser:
                      "format", _cmd_model_export, msub)
     export.add_argument("name", metavar="NAME")
     export.add_argument("--version", metavar="N", type=int)
-    export.add_argument("--out", metavar="FILE", type=Path, help="write here (JSON)")
+    export.add_argument("--out", metavar="FILE", type=Path,
+                        help="write here: TOML for a .toml file, JSON for .json (without "
+                        "--out: JSON on standard output)")
     show = command("show", "show a model's active (or given) version", _cmd_model_show, msub)
     show.add_argument("name", metavar="NAME")
     show.add_argument("--version", metavar="N", type=int)
@@ -190,7 +192,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "force: one job (--at) or a file of planned jobs", _cmd_predict)
     pred.add_argument("name", metavar="NAME")
     pred.add_argument("file", metavar="FILE", nargs="?",
-                      help="CSV or Parquet file of planned jobs (one per row)")
+                      help="CSV or Parquet file of planned jobs (one per row); a CSV column "
+                      "is written back as numbers when every filled cell is one, else as read")
     pred.add_argument("--at", metavar="COL=VALUE", action="append", default=[],
                       help="a predictor's value for one job; repeat for each predictor")
     pred.add_argument("--version", metavar="N", type=int, help="plan with this version")

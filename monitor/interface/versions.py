@@ -12,7 +12,7 @@ from sqlalchemy import Engine
 from monitor.config import Settings, Wording
 from monitor.domain.codec import encode
 from monitor.domain.model import ModelSpec
-from monitor.domain.phrasing import fmt, percent
+from monitor.domain.phrasing import fit_summary, fmt
 from monitor.domain.version import Version, VersionSource, VersionState
 from monitor.errors import StateError
 from monitor.monitoring.wording import WindowFinding, window_findings
@@ -87,10 +87,7 @@ class VersionView:
         if d["std_errors"]:
             lines.append("  standard errors: " + ", ".join(
                 f"{t} {fmt(se, 3)}" for t, se in d["std_errors"].items()))
-        rows = f" from {line.n:,} rows" if line.n else ""
-        fit = f", explains {percent(line.r_squared, 1)} of the variation" \
-            if line.r_squared is not None else ""
-        lines.append(f"  typical scatter around the line {fmt(line.s, 4)}{rows}{fit}")
+        lines.append("  " + fit_summary(line, self.words.rows, self.words.y_unit))
         if v.fit_start:
             lines.append(f"  fit window {v.fit_start} .. {v.fit_end}")
         if v.active_from:

@@ -24,13 +24,18 @@ from monitor.config import Settings
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version
 from monitor.errors import InputError, StateError
+from monitor.lifecycle.toml_text import toml_text
 from monitor.stats.ols import INTERCEPT
 from monitor.store.access import database
 from monitor.store.models import get_model
 from monitor.store.versions import active_version, get_version
 
+_WHOLE = r"[+-]?\d+"
+_LEADING_ZERO = r"[+-]?0\d"
+_EXACT_WHOLE = 2**53  # every whole number below this is exactly a float64 (IEEE 754)
 PLAN_COLUMNS = ("planned", "lower", "upper", "extrapolated", "version", "reason")
 READABLE = (".csv", ".parquet")
+DESCRIPTION_FORMATS = (".toml", ".json")
 
 
 @dataclass(frozen=True, eq=False)
@@ -76,7 +81,7 @@ def parse_at(items: list[str], predictors: tuple[str, ...]) -> pd.DataFrame:
     if unknown:
         raise InputError(f"--at names {', '.join(unknown)}, which the model does not use; its "
                          f"predictors are {', '.join(predictors)}")
-    return pd.DataFrame([{p: values.get(p, "") for p in predictors}])
+    return typed(pd.DataFrame([{p: values.get(p, "") for p in predictors}]))
 
 
 def read_jobs(path: Path, predictors: tuple[str, ...]) -> pd.DataFrame:
@@ -99,7 +104,35 @@ def read_jobs(path: Path, predictors: tuple[str, ...]) -> pd.DataFrame:
     if clash:
         raise InputError(f"{path} already has the column(s) {', '.join(clash)} that the plan "
                          "writes; rename them")
-    return frame
+    return frame if suffix == ".parquet" else typed(frame)
+
+
+def typed(text: pd.DataFrame) -> pd.DataFrame:
+    """Columns read as text (a CSV file, ``--at``) as the numbers they hold, so that the plan
+    writes them back as numbers: a column whose every filled cell is a finite number becomes
+    numbers (whole numbers as integers, empty cells missing); any other column keeps its text
+    exactly, so a value that cannot be planned ('abc') is written back as it was read. Whole
+    numbers with a leading zero ('007') or from 2**53 on are identifiers rather than amounts
+    and keep the column as text too."""
+    out = text.copy()
+    for column in text.columns:
+        cells = text[column].astype("string").str.strip()
+        filled = (cells.notna() & (cells != "")).to_numpy()
+        if not filled.any():
+            continue
+        values = pd.to_numeric(cells.where(filled), errors="coerce").astype("Float64")
+        numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
+        if not np.isfinite(numbers[filled]).all():
+            continue
+        if cells[filled].str.match(_LEADING_ZERO).to_numpy(dtype=bool).any():
+            continue
+        if cells[filled].str.fullmatch(_WHOLE).to_numpy(dtype=bool).all():
+            if (np.abs(numbers[filled]) >= _EXACT_WHOLE).any():
+                continue
+            out[column] = values.astype("Int64")
+        else:
+            out[column] = numbers
+    return out
 
 
 def plan(settings: Settings, name: str, jobs: pd.DataFrame | None = None, *,
@@ -200,8 +233,14 @@ def export_description(settings: Settings, name: str, *, version: int | None = N
 
 
 def write_description(doc: dict[str, Any], path: Path | None) -> str:
-    """The description as JSON (to ``path`` when given); returns the text."""
-    text = json.dumps(doc, indent=2) + "\n"
+    """The description as ``model import`` reads it from ``path``: TOML for a ``.toml`` file,
+    JSON for ``.json`` (JSON when there is no path, for standard output); returns the text.
+    Floats are written in their shortest exact form, so an import plans exactly alike."""
+    suffix = path.suffix.lower() if path is not None else ".json"
+    if suffix not in DESCRIPTION_FORMATS:
+        raise InputError(f"--out {path}: 'model import' reads .toml or .json files; "
+                         "name the file with one of these extensions")
+    text = toml_text(doc) if suffix == ".toml" else json.dumps(doc, indent=2) + "\n"
     if path is not None:
         try:
             path.write_text(text, encoding="utf-8")

@@ -16,11 +16,11 @@ from typing import Any
 import numpy as np
 from sqlalchemy import Connection, Engine
 
-from monitor.config import ModelSettings, Settings
+from monitor.config import ModelSettings, Settings, Wording
 from monitor.domain.check import DayCheck
 from monitor.domain.days import local_day, yesterday
 from monitor.domain.model import ModelRecord
-from monitor.domain.phrasing import fmt
+from monitor.domain.phrasing import fit_summary, fmt
 from monitor.domain.version import Version, VersionState
 from monitor.errors import InputError
 from monitor.interface.output import to_jsonable
@@ -195,16 +195,15 @@ def _plus_minus(version: Version, i: int) -> str:
     return f"{value} ± {fmt(float(version.line.std_errors[i]), 3)}"
 
 
-def _version_view(version: Version | None) -> dict[str, Any] | None:
+def _version_view(version: Version | None, words: Wording) -> dict[str, Any] | None:
     if version is None:
         return None
     return {
         "number": version.number, "state": version.state,
         "coefficients": [{"term": t, "value": _plus_minus(version, i)}
                          for i, t in enumerate(version.terms)],
-        "s": fmt(version.line.s, 4), "dof": version.line.dof, "n": version.line.n,
+        "fit": fit_summary(version.line, words.rows, words.y_unit), "n": version.line.n,
         "level": f"{version.level * 100:g} %",
-        "r_squared": fmt(version.line.r_squared, 4),
         "fit_window": (f"{version.fit_start} .. {version.fit_end}"
                        if version.fit_start else "not recorded"),
         "active_from": version.active_from,
@@ -245,7 +244,7 @@ def _comparison(active: Version | None,
         c = (_plus_minus(candidate, candidate.terms.index(term))
              if term in candidate.terms else "—")
         rows.append({"term": term, "active": a, "candidate": c})
-    rows.append({"term": "s", "active": fmt(active.line.s, 4),
+    rows.append({"term": "typical scatter", "active": fmt(active.line.s, 4),
                  "candidate": fmt(candidate.line.s, 4)})
     return rows
 
@@ -269,10 +268,10 @@ def render_page(data: ReportData, written_at: datetime,
         "last_checked_day": last.day if last else None,
         "first_day": data.first_day, "last_day": data.last_day,
         "checked_days": len(data.checks),
-        "active": _version_view(data.active),
+        "active": _version_view(data.active, words),
         "window_findings": _window_findings(data),
         "learning": _learning(data),
-        "candidate": _version_view(data.candidate),
+        "candidate": _version_view(data.candidate, words),
         "candidate_drawn": data.candidate is not None and data.candidate.number in drawn,
         "comparison": _comparison(data.active, data.candidate),
         "marks": data.marks,

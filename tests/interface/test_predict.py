@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import tomllib
 from pathlib import Path
 
 import numpy as np
@@ -53,22 +54,95 @@ def test_planned_rows_match_statsmodels_prediction_intervals(cli, tmp_path: Path
     assert (plan["version"] == 1).all() and plan.loc[~good, "planned"].isna().all()
 
 
-def test_export_import_round_trip_plans_the_same(cli, tmp_path: Path) -> None:
+@pytest.mark.parametrize("suffix", [".toml", ".json"])
+def test_export_import_round_trip_plans_the_same(cli, tmp_path: Path, suffix: str) -> None:
     _, path = _longley(tmp_path)
     assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
                "--x", "POP", "--time", "at")[0] == 0
-    described = tmp_path / "longley.json"
+    described = tmp_path / f"longley{suffix}"
     code, _, err = cli("model", "export", "longley", "--out", str(described))
     assert code == 0, err
-    assert cli("model", "import", "copy", str(described))[0] == 0, "import of the export"
+    # written in the format 'model import' reads for that name (README, "The model import file")
+    if suffix == ".toml":
+        assert tomllib.loads(described.read_text())["predictors"] == ["GNP", "POP"]
+    else:
+        assert json.loads(described.read_text())["predictors"] == ["GNP", "POP"]
+    code, _, err = cli("model", "import", "copy", str(described))
+    assert code == 0, f"import of the export: {err}"
     plans = []
     for name in ("longley", "copy"):
         code, out, err = cli("predict", name, "--at", "GNP=444500.5", "--at", "POP=117200",
                              "--json")
         assert code == 0, err
         plans.append(json.loads(out)["rows"][0])
+    # the floats are written in their shortest exact form, so the copy plans bit for bit alike
     for key in ("planned", "lower", "upper"):
-        assert plans[1][key] == pytest.approx(plans[0][key], rel=1e-10)
+        assert plans[1][key] == plans[0][key]
+
+
+def test_export_refuses_a_format_it_does_not_write(cli, tmp_path: Path) -> None:
+    _, path = _longley(tmp_path)
+    assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
+               "--x", "POP", "--time", "at")[0] == 0
+    target = tmp_path / "longley.yaml"
+    code, out, err = cli("model", "export", "longley", "--out", str(target))
+    assert code != 0 and not target.exists()
+    assert ".toml" in err and ".json" in err and len(err.strip().splitlines()) == 1
+    code, out, err = cli("model", "export", "longley")  # no --out: JSON on stdout, as before
+    assert code == 0 and json.loads(out)["response"] == "TOTEMP"
+
+
+def test_planned_file_keeps_numbers_as_numbers(cli, tmp_path: Path) -> None:
+    # a CSV is read as text; what goes back out is typed: a column whose every filled cell is a
+    # finite number becomes numbers (whole numbers as integers), any other column keeps its text
+    _, path = _longley(tmp_path)
+    assert cli("model", "fit", "longley", "--data", str(path), "--y", "TOTEMP", "--x", "GNP",
+               "--x", "POP", "--time", "at")[0] == 0
+    jobs = tmp_path / "jobs.csv"
+    jobs.write_text("job,crew,code,GNP,POP\n"
+                    "J-1,3,007,444500.5,117200\n"
+                    "J-2,,010,0.1,abc\n"
+                    "J-3,12,011,,118000\n")
+    out = tmp_path / "plan.parquet"
+    code, _, err = cli("predict", "longley", str(jobs), "--out", str(out))
+    assert code == 0, err
+    plan = pd.read_parquet(out)
+    assert plan["job"].tolist() == ["J-1", "J-2", "J-3"]  # text stays text
+    assert plan["crew"].dtype == "Int64" and plan["crew"].tolist() == [3, pd.NA, 12]
+    assert plan["code"].tolist() == ["007", "010", "011"]  # leading zeros: an identifier
+    assert plan["GNP"].dtype == np.float64 and plan["GNP"].iloc[:2].tolist() == [444500.5, 0.1]
+    assert np.isnan(plan["GNP"].iloc[2])  # empty: missing, and the row says so
+    assert plan["POP"].tolist() == ["117200", "abc", "118000"]  # 'abc' cannot be a number
+    assert plan["reason"].isna().tolist() == [True, False, False]
+    assert plan["reason"].iloc[1:].tolist() == ["POP is 'abc', not a number", "GNP is missing"]
+    code, text, err = cli("predict", "longley", str(jobs), "--json")
+    assert code == 0, err
+    rows = json.loads(text)["rows"]
+    assert [r["crew"] for r in rows] == [3, None, 12]
+    assert [r["GNP"] for r in rows] == [444500.5, 0.1, None]
+    assert [r["POP"] for r in rows] == ["117200", "abc", "118000"]
+    assert rows[0]["code"] == "007" and rows[0]["planned"] == plan["planned"].iloc[0]
+    # one job from --at: its values are numbers too
+    code, text, err = cli("predict", "longley", "--at", "GNP=444500.5", "--at", "POP=117200",
+                          "--json")
+    assert code == 0, err
+    assert json.loads(text)["rows"][0]["GNP"] == 444500.5
+
+
+def test_text_columns_become_numbers_only_when_every_cell_is_one() -> None:
+    from monitor.lifecycle.planning import typed
+
+    text = pd.DataFrame({"whole": ["+5", " 3 ", "-2"], "real": ["1e3", "2.50", ""],
+                         "odd": ["1", "inf", "2"], "empty": ["", "", ""],
+                         "huge": ["9007199254740993", "1", "2"], "zero": ["0", "0.5", "-0"]},
+                        dtype=str)
+    out = typed(text)
+    assert out["whole"].dtype == "Int64" and out["whole"].tolist() == [5, 3, -2]
+    assert out["real"].iloc[:2].tolist() == [1000.0, 2.5] and np.isnan(out["real"].iloc[2])
+    assert out["odd"].tolist() == ["1", "inf", "2"]  # not finite: kept as text, a reason
+    assert out["empty"].tolist() == ["", "", ""]
+    assert out["huge"].tolist() == text["huge"].tolist()  # 2**53 + 1: a float loses the 1
+    assert out["zero"].tolist() == [0.0, 0.5, 0.0]  # a lone 0 is no leading zero
 
 
 def test_predict_says_what_is_wrong(cli, tmp_path: Path) -> None:
