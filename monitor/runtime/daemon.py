@@ -116,8 +116,8 @@ def run_daemon(settings: Settings, *, engine: Engine | None = None, once: bool =
     """
     holder = holder or holder_name()
     cron_trigger(settings)  # a cron the scheduler refuses stops the daemon before anything else
-    with database(settings, engine) as db:
-        check_workers(db, workers)
+    with database(settings, engine, sections="own") as db:
+        check_workers(db, workers)  # the command line's own mistake is named first
         with db.connect() as conn:  # a misspelt [models.NAME] stops the daemon before it starts
             check_model_sections(settings, list_models(conn))
         worker = NightlyWorker(settings, db, holder, ttl=ttl, mailer=mailer, workers=workers)

@@ -20,8 +20,9 @@ log = logging.getLogger(__name__)
 # database: "refuse" (a ConfigError, exit 1) for commands that store, check, mail, prune or change
 # versions, whose work the misspelt section was meant to shape; "warn" (logged on stderr) for
 # views and for the commands that change which models exist (fit, import, rename, delete), which
-# are also the way to make the names meet.
-SectionPolicy = Literal["refuse", "warn"]
+# are also the way to make the names meet; "own" for a caller that compares them itself, at its
+# own moment (the daemon: after the checks of its command line).
+SectionPolicy = Literal["refuse", "warn", "own"]
 
 
 @contextmanager
@@ -47,7 +48,7 @@ def database(settings: Settings, engine: Engine | None = None, *,
 
 def _meet(engine: Engine, settings: Settings, sections: SectionPolicy,
           creating: str | None) -> None:
-    if not settings.models:
+    if not settings.models or sections == "own":
         return
     with engine.connect() as conn:
         error = unknown_sections(settings, (m.name for m in list_models(conn)),
