@@ -136,3 +136,25 @@ def test_two_inits_at_once_on_a_fresh_postgresql_database(postgres_url: str) -> 
         finally:
             with psycopg.connect(admin_url, autocommit=True) as admin:
                 admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+
+
+def test_an_init_that_saw_no_revision_before_another_init_committed_reports_ready(
+        engine: Engine, make_settings, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The window the race above can hit: this init read no revision, then the other init
+    committed its tables and revision together, so the tables are there when this one looks.
+    It must find the record now, not take the tables for a lost revision and stamp them."""
+    import monitor.store.migrate as migrate
+
+    real = migrate.current_revision
+    reads: list[str | None] = []
+
+    def first_read_before_the_other_commit(eng: Engine) -> str | None:
+        reads.append(None if not reads else real(eng))
+        return reads[-1]
+
+    monkeypatch.setattr(migrate, "current_revision", first_read_before_the_other_commit)
+    monkeypatch.setattr(migrate, "_record_lost_revision", lambda eng: pytest.fail("stamped"))
+    settings = make_settings(engine.url.render_as_string(hide_password=False))
+    result = migrate.init_database(settings)
+    assert reads == [None, head_revision()]
+    assert result.sentence().startswith(f"database ready at revision {head_revision()}")

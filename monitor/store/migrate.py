@@ -152,6 +152,11 @@ def init_database(settings: Settings) -> InitResult:
         warn_if_shared(engine)
         previous = current_revision(engine)
         if previous is None and _has_our_tables(engine):
+            # Another init may have committed its tables and their revision (one transaction)
+            # between the two reads: then the record is there now and nothing is lost.
+            now_at = current_revision(engine)
+            if now_at is not None:
+                return InitResult(now_at, now_at, describe_url(engine.url))
             return _record_lost_revision(engine)
         revision = upgrade_database(engine)
         return InitResult(revision, previous, describe_url(engine.url))
