@@ -53,8 +53,8 @@ from monitor.domain.check import DayCheck
 from monitor.domain.data_health import DataHealth
 from monitor.domain.days import yesterday
 from monitor.domain.model import ModelRecord
-from monitor.domain.version import Version, VersionState
-from monitor.errors import StateError
+from monitor.domain.version import Version
+from monitor.errors import NotFoundError, StateError
 from monitor.monitoring.data_health import model_data_health
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.report.marks import load_marks
@@ -64,7 +64,7 @@ from monitor.store.access import database
 from monitor.store.checks import last_check, load_checks, models_checked_on
 from monitor.store.engine import write_transaction
 from monitor.store.models import list_models
-from monitor.store.versions import list_versions
+from monitor.store.versions import candidate_numbers, version_by_id
 
 log = logging.getLogger(__name__)
 
@@ -123,11 +123,17 @@ def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
     return [a for a in audit.actions(conn, model.id, night) if a.effective_day == night]
 
 
-def _context(settings: Settings, model: ModelRecord, check: DayCheck,
-             versions: Sequence[Version]) -> ModelContext:
+def _scoring(conn: Connection, check: DayCheck) -> Version | None:
+    """The version that scored ``check`` (None once it is gone with its model)."""
+    try:
+        return version_by_id(conn, check.version_id)
+    except NotFoundError:
+        return None
+
+
+def _context(settings: Settings, model: ModelRecord, scoring: Version | None,
+             candidates: Sequence[int]) -> ModelContext:
     ms = settings.for_model(model.name)
-    scoring = next((v for v in versions if v.id == check.version_id), None)
-    candidates = [v.number for v in versions if v.state == VersionState.CANDIDATE]
     return ModelContext(
         model=model.name, response=model.response, predictors=model.predictors,
         words=ms.words, level=scoring.level if scoring else ms.check.level,
@@ -138,14 +144,15 @@ def _context(settings: Settings, model: ModelRecord, check: DayCheck,
         version_from=scoring.active_from if scoring else None)
 
 
-def _data(settings: Settings, conn: Connection, model: ModelRecord, check: DayCheck,
-          versions: Sequence[Version], night: date,
-          now: datetime) -> tuple[DataHealth, DataHealth | None]:
-    """The model's data findings as of the night (at ``now``) and as of its previous digest."""
-    scoring = next((v for v in versions if v.id == check.version_id), None)
+def _data(settings: Settings, conn: Connection, model: ModelRecord, scoring: Version | None,
+          night: date, now: datetime) -> tuple[DataHealth, DataHealth | None]:
+    """The model's data findings as of the night (at ``now``) and, when any stand (only then
+    are they compared, :func:`data_is_news`), as of its previous digest."""
     ms = settings.for_model(model.name)
     data = model_data_health(conn, model, ms.check, scoring, through=night, now=now,
                              zone=settings.timezone)
+    if not data.stands:
+        return data, None
     since = queued_nights.last_queued_at(conn, model.id, night)
     before = None if since is None else model_data_health(
         conn, model, ms.check, scoring, through=night - timedelta(days=1), now=since,
@@ -166,15 +173,16 @@ def night_news(settings: Settings, conn: Connection, night: date, *, now: dateti
         if not checks:
             continue
         previous = last_check(conn, model.id, before=night, model=model.name)
-        versions = list_versions(conn, model.id)
-        data, before = _data(settings, conn, model, checks[0], versions, night, now)
+        scoring = _scoring(conn, checks[0])
+        data, before = _data(settings, conn, model, scoring, night, now)
         item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
                           settings.for_model(model.name).alerts, data=data, data_before=before,
                           unseen_since=unseen_since)
         if item is None:
             continue
         news.append(item)
-        contexts[model.name] = _context(settings, model, checks[0], versions)
+        contexts[model.name] = _context(settings, model, scoring,
+                                        candidate_numbers(conn, model.id))
     return news, contexts
 
 

@@ -126,6 +126,13 @@ def list_versions(conn: Connection, model_id: int) -> list[Version]:
     return [_version(r) for r in rows]
 
 
+def candidate_numbers(conn: Connection, model_id: int) -> list[int]:
+    """The numbers of the model's candidate versions, oldest first (one column each)."""
+    return list(conn.execute(select(versions.c.number).where(
+        versions.c.model_id == model_id, versions.c.state == VersionState.CANDIDATE.value)
+        .order_by(versions.c.number)).scalars())
+
+
 def version_number(conn: Connection, version_id: int) -> int | None:
     """The number of the version with this id (one column: views that only name it)."""
     return conn.execute(select(versions.c.number).where(versions.c.id == version_id)
