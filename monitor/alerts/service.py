@@ -49,22 +49,26 @@ from monitor.alerts.news import (
     model_news,
 )
 from monitor.config import Settings
-from monitor.domain.check import DayCheck
 from monitor.domain.data_health import DataHealth
 from monitor.domain.days import yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version
-from monitor.errors import NotFoundError, StateError
+from monitor.errors import StateError
 from monitor.monitoring.data_health import model_data_health
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.report.marks import load_marks
 from monitor.store import audit, queued_nights
 from monitor.store import outbox as box
 from monitor.store.access import database
-from monitor.store.checks import last_check, load_checks, models_checked_on
+from monitor.store.checks import (
+    checks_on,
+    last_checks_before,
+    load_checks,
+    models_checked_on,
+)
 from monitor.store.engine import write_transaction
 from monitor.store.models import list_models
-from monitor.store.versions import candidate_numbers, version_by_id
+from monitor.store.versions import candidates_by_model, versions_by_id
 
 log = logging.getLogger(__name__)
 
@@ -123,14 +127,6 @@ def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
     return [a for a in audit.actions(conn, model.id, night) if a.effective_day == night]
 
 
-def _scoring(conn: Connection, check: DayCheck) -> Version | None:
-    """The version that scored ``check`` (None once it is gone with its model)."""
-    try:
-        return version_by_id(conn, check.version_id)
-    except NotFoundError:
-        return None
-
-
 def _context(settings: Settings, model: ModelRecord, scoring: Version | None,
              candidates: Sequence[int]) -> ModelContext:
     ms = settings.for_model(model.name)
@@ -164,25 +160,33 @@ def night_news(settings: Settings, conn: Connection, night: date, *, now: dateti
                only: set[int] | None = None, unseen_since: date | None = None
                ) -> tuple[list[ModelNews], dict[str, ModelContext]]:
     """Every model's news for ``night`` (or only that of the models ``only``), queued at
-    ``now``, and what composing it needs (``unseen_since``: see :func:`model_news`)."""
+    ``now``, and what composing it needs (``unseen_since``: see :func:`model_news`).
+
+    The night's checks, the checks before them, the versions that scored them and the
+    candidates are read for all the models at once (a night of thousands of models is wrapped
+    up by one worker); the data findings and the actions, model by model.
+    """
+    models = [m for m in list_models(conn) if only is None or m.id in only]
+    names = {m.id: m.name for m in models}
+    tonight = checks_on(conn, night, names)
+    earlier = last_checks_before(conn, night, {i: names[i] for i in tonight})
+    scoring = versions_by_id(conn, (c.version_id for c in tonight.values()))
+    candidates = candidates_by_model(conn, tonight)
     news, contexts = [], {}
-    for model in list_models(conn):
-        if only is not None and model.id not in only:
+    for model in models:
+        check = tonight.get(model.id)
+        if check is None:
             continue
-        checks = load_checks(conn, model.id, night, night, model=model.name)
-        if not checks:
-            continue
-        previous = last_check(conn, model.id, before=night, model=model.name)
-        scoring = _scoring(conn, checks[0])
-        data, before = _data(settings, conn, model, scoring, night, now)
-        item = model_news(model.name, night, checks[0], previous, _actions(conn, model, night),
-                          settings.for_model(model.name).alerts, data=data, data_before=before,
-                          unseen_since=unseen_since)
+        version = scoring.get(check.version_id)  # None once it is gone with its model
+        data, before = _data(settings, conn, model, version, night, now)
+        item = model_news(model.name, night, check, earlier.get(model.id),
+                          _actions(conn, model, night), settings.for_model(model.name).alerts,
+                          data=data, data_before=before, unseen_since=unseen_since)
         if item is None:
             continue
         news.append(item)
-        contexts[model.name] = _context(settings, model, scoring,
-                                        candidate_numbers(conn, model.id))
+        contexts[model.name] = _context(settings, model, version,
+                                        candidates.get(model.id, []))
     return news, contexts
 
 

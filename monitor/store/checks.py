@@ -8,6 +8,7 @@ documents written and read with :mod:`monitor.domain.codec`.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import fields
 from datetime import date
 from typing import Any
@@ -72,6 +73,37 @@ def last_check(conn: Connection, model_id: int, before: date | None = None,
         query = query.where(day_checks.c.day < before)
     row = conn.execute(query.order_by(day_checks.c.day.desc()).limit(1)).first()
     return _check(row, model) if row is not None else None
+
+
+_IN_CHUNK = 5000  # ids per IN list: well inside SQLite's and PostgreSQL's parameter limits
+
+
+def checks_on(conn: Connection, day: date, names: Mapping[int, str]) -> dict[int, DayCheck]:
+    """The check of ``day`` of each model in ``names`` (id -> name) that has one, by id."""
+    ids = sorted(names)
+    out: dict[int, DayCheck] = {}
+    for i in range(0, len(ids), _IN_CHUNK):
+        rows = conn.execute(select(day_checks).where(
+            day_checks.c.day == day, day_checks.c.model_id.in_(ids[i:i + _IN_CHUNK])))
+        out.update((r.model_id, _check(r, names[r.model_id])) for r in rows)
+    return out
+
+
+def last_checks_before(conn: Connection, day: date,
+                       names: Mapping[int, str]) -> dict[int, DayCheck]:
+    """Each model's latest check before ``day`` (what :func:`last_check` gives one model), by
+    id, for the models in ``names`` that have one: one query per chunk of models."""
+    ids = sorted(names)
+    out: dict[int, DayCheck] = {}
+    for i in range(0, len(ids), _IN_CHUNK):
+        latest = (select(day_checks.c.model_id, func.max(day_checks.c.day).label("day"))
+                  .where(day_checks.c.day < day,
+                         day_checks.c.model_id.in_(ids[i:i + _IN_CHUNK]))
+                  .group_by(day_checks.c.model_id).subquery())
+        rows = conn.execute(select(day_checks).join(latest, and_(
+            day_checks.c.model_id == latest.c.model_id, day_checks.c.day == latest.c.day)))
+        out.update((r.model_id, _check(r, names[r.model_id])) for r in rows)
+    return out
 
 
 def models_checked_on(conn: Connection, day: date) -> int:

@@ -8,6 +8,7 @@ written and read with :mod:`monitor.domain.codec`.
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import replace
 from datetime import date, datetime
 from typing import Any
@@ -126,11 +127,27 @@ def list_versions(conn: Connection, model_id: int) -> list[Version]:
     return [_version(r) for r in rows]
 
 
-def candidate_numbers(conn: Connection, model_id: int) -> list[int]:
-    """The numbers of the model's candidate versions, oldest first (one column each)."""
-    return list(conn.execute(select(versions.c.number).where(
-        versions.c.model_id == model_id, versions.c.state == VersionState.CANDIDATE.value)
-        .order_by(versions.c.number)).scalars())
+def versions_by_id(conn: Connection, ids: Iterable[int]) -> dict[int, Version]:
+    """The stored versions with these ids, by id (ids no longer stored are left out)."""
+    wanted = sorted(set(ids))
+    out: dict[int, Version] = {}
+    for i in range(0, len(wanted), 5000):
+        rows = conn.execute(select(versions).where(versions.c.id.in_(wanted[i:i + 5000])))
+        out.update((r.id, _version(r)) for r in rows)
+    return out
+
+
+def candidates_by_model(conn: Connection, model_ids: Iterable[int]) -> dict[int, list[int]]:
+    """Each model's candidate version numbers, oldest first (models without any left out)."""
+    wanted = sorted(set(model_ids))
+    out: dict[int, list[int]] = {}
+    for i in range(0, len(wanted), 5000):
+        rows = conn.execute(select(versions.c.model_id, versions.c.number).where(
+            versions.c.model_id.in_(wanted[i:i + 5000]),
+            versions.c.state == VersionState.CANDIDATE.value).order_by(versions.c.number))
+        for model_id, number in rows:
+            out.setdefault(model_id, []).append(number)
+    return out
 
 
 def version_number(conn: Connection, version_id: int) -> int | None:
