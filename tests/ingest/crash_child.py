@@ -11,13 +11,10 @@ from __future__ import annotations
 
 import sys
 import time
-from datetime import UTC, datetime, timedelta
-from zoneinfo import ZoneInfo
 
 import monitor.ingest.service as service
-from monitor.ingest.service import IngestOptions, ingest_file
-from monitor.store.engine import open_engine
-from monitor.store.models import get_model
+from monitor.ingest.service import ingest_file
+from tests.support.ingest import child_model, child_options
 
 
 def _ready(wait: bool) -> None:
@@ -47,12 +44,8 @@ def main() -> None:
              "day_stats": ("merge_day_stats", 1), "finish": ("finish_batch", 1)}
     if point in stops:
         _stop_after(*stops[point])
-    engine = open_engine(url)
-    with engine.connect() as conn:
-        model = get_model(conn, name)
-    options = IngestOptions(ZoneInfo("Europe/Berlin"), {"pallets": (0.0, 60.0)}, False,
-                            datetime(2026, 4, 1, 12, tzinfo=UTC), timedelta(minutes=5),
-                            500, False)
+    engine, model = child_model(url, name)
+    options = child_options(500)
     if point == "start":
         _ready(False)
     ingest_file(engine, model, path, options)

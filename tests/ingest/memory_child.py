@@ -10,13 +10,10 @@ from __future__ import annotations
 
 import json
 import sys
-from datetime import UTC, datetime, timedelta
 from pathlib import Path
-from zoneinfo import ZoneInfo
 
-from monitor.ingest.service import IngestOptions, ingest_file
-from monitor.store.engine import open_engine
-from monitor.store.models import get_model
+from monitor.ingest.service import ingest_file
+from tests.support.ingest import child_model, child_options
 
 
 def peak_mb() -> float:
@@ -28,12 +25,8 @@ def peak_mb() -> float:
 
 def main() -> None:
     url, name, path = sys.argv[1:4]
-    engine = open_engine(url)
-    with engine.connect() as conn:
-        model = get_model(conn, name)
-    options = IngestOptions(ZoneInfo("Europe/Berlin"), {"pallets": (0.0, 60.0)}, False,
-                            datetime(2026, 4, 1, 12, tzinfo=UTC), timedelta(minutes=5),
-                            200_000, False)
+    engine, model = child_model(url, name)
+    options = child_options(200_000)
     start = peak_mb()
     summary = ingest_file(engine, model, path, options)
     engine.dispose()
