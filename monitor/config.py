@@ -47,6 +47,8 @@ class CheckSettings:
     day_effects_alpha: float = 0.05
     min_fit_days: int = 5
     slope_chart_step: float = 0.10  # the within-day slope chart is tuned to this share of a slope
+    slope_chart_small_step: float = 0.05  # ... and its second lane to this one (0: no such lane)
+    slope_chart_reference: str = "learning"  # learns from in-control days, or "fixed"
     slope_chart_arl_days: float = 5000.0  # its in-control run length (false refits add up)
     learn_until_days: int = 40  # a version fitted on fewer days learns its level until then
     # data health (monitor.monitoring.data_health): a silent feed, bad files, rising rejections
@@ -325,6 +327,8 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
         full = f"{key}.{name}"
         if name == "cusum_unit":
             values[name] = r.choice(sec, full, default, ("day", "observation"))
+        elif name == "slope_chart_reference":
+            values[name] = r.choice(sec, full, default, ("learning", "fixed"))
         elif isinstance(default, int) and not isinstance(default, bool):
             values[name] = r.integer(sec, full, default, low=1)
         else:
@@ -345,6 +349,10 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
         raise ConfigError(f"must lie in (0, 10] (a share of the slope); got "
                           f"{out.slope_chart_step}", source=r.source,
                           key=f"{key}.slope_chart_step")
+    if not out.slope_chart_small_step < out.slope_chart_step:
+        raise ConfigError(f"must be below slope_chart_step ({out.slope_chart_step}), or 0 for "
+                          f"no second lane; got {out.slope_chart_small_step}", source=r.source,
+                          key=f"{key}.slope_chart_small_step")
     if out.refit_pvalue > out.watch_pvalue:
         raise ConfigError("refit_pvalue must not exceed watch_pvalue (refit is the stronger "
                           "verdict)", source=r.source, key=f"{key}.refit_pvalue")

@@ -29,7 +29,9 @@ def test_a_fitted_version_stores_the_limits_a_fresh_solve_gives(
     limits = version.baseline.slope_limits
     assert limits is not None and limits.matches(settings.check.slope_chart_step,
                                                  settings.check.slope_chart_arl_days,
-                                                 settings.check.guarantee)
+                                                 settings.check.guarantee,
+                                                 settings.check.slope_chart_small_step,
+                                                 settings.check.slope_chart_reference)
     fresh = slope_chart_of(version.baseline.reference, version.baseline.diagnosis,
                            settings.check)  # no stored limits: the root search runs
     assert fresh is not None and np.isfinite(fresh.h).all()

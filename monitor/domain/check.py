@@ -44,7 +44,7 @@ class CheckState:
     last_u: float | None = None  # the latest standardized day mean (the chart prewhitens by it)
     day_spread: float | None = None  # this day's log day spread (the robust spread test's unit)
     clean_days: int = 0  # days in a row without a finding, up to this one
-    slope_upper: tuple[float, ...] = ()  # within-day slope chart, one value per predictor
+    slope_upper: tuple[float, ...] = ()  # within-day slope chart, one value per lane
     slope_lower: tuple[float, ...] = ()
     slope_onset: date | None = None  # the day the leading slope side last left zero
     advised_change: date | None = None  # the change day estimated when the standing refit began
@@ -108,7 +108,9 @@ class Carry:
         """
         if not same_version:
             return Carry(CheckState(fresh_from=day), Status.OK, None, ())
-        learned = Learning(self.state.learning.level)
+        was = self.state.learning
+        learned = Learning(was.level, slope_weight=was.slope_weight, slope_sum=was.slope_sum,
+                           slope_days=was.slope_days)
         return Carry(CheckState(fresh_from=day, last_u=self.state.last_u, learning=learned),
                      Status.OK, None, ())
 

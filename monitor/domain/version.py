@@ -118,10 +118,14 @@ class SlopeLimits:
     step: float  # check.slope_chart_step
     target_arl: float  # check.slope_chart_arl_days
     guarantee: float
-    h: tuple[float | None, ...]  # each predictor's; None: no finite limit (inf)
+    h: tuple[float | None, ...]  # each lane's; None: no finite limit (inf)
+    small_step: float = 0.0  # check.slope_chart_small_step (0: versions fitted before lanes)
+    reference: str = "fixed"  # check.slope_chart_reference
 
-    def matches(self, step: float, target_arl: float, guarantee: float) -> bool:
-        return (self.step, self.target_arl, self.guarantee) == (step, target_arl, guarantee)
+    def matches(self, step: float, target_arl: float, guarantee: float,
+                small_step: float, reference: str) -> bool:
+        return ((self.step, self.target_arl, self.guarantee, self.small_step, self.reference)
+                == (step, target_arl, guarantee, small_step, reference))
 
     def array(self) -> FloatArray:
         return np.array([np.inf if h is None else h for h in self.h], dtype=np.float64)

@@ -12,7 +12,7 @@ from sqlalchemy import Engine
 from monitor.config import Settings, Wording
 from monitor.domain.codec import encode
 from monitor.domain.model import ModelSpec
-from monitor.domain.phrasing import fit_summary, fmt
+from monitor.domain.phrasing import fit_summary, fmt, percent
 from monitor.domain.version import Version, VersionSource, VersionState
 from monitor.errors import StateError
 from monitor.monitoring.wording import WindowFinding, window_findings
@@ -33,7 +33,7 @@ class VersionView:
     model: ModelSpec
     version: Version
     words: Wording = field(default_factory=Wording)
-    learned: Learning | None = None  # a self-starting version's learning, at its last check
+    learned: Learning | None = None  # what the version learned, at its last check
 
     def as_dict(self) -> dict[str, Any]:
         v, m = self.version, self.model
@@ -66,7 +66,9 @@ class VersionView:
                       "calibrated": cal.calibrated if cal else None,
                       "learn_until_days": cal.learn_until if cal else None,
                       "learned_days": (self.learned.level.n
-                                       if self.learned is not None else None)},
+                                       if self.learned is not None and cal and cal.learn_until
+                                       else None)},
+            "slope_chart": self.slope_chart(),
             "fit_window_findings": [
                 {"topic": f.topic, "found": f.found, "text": f.text}
                 for f in self.findings()],
@@ -103,6 +105,14 @@ class VersionView:
                          f"{self.promise()})")
             if cal.learn_until and base.fit_days:
                 lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
+        chart = d["slope_chart"]
+        if chart is not None:
+            lanes = ", ".join(f"{fmt(h, 3) if h is not None else 'none'} (tuned to "
+                              f"{percent(step)})" for h, step in zip(
+                                  chart["h"], chart["lane_steps"], strict=True))
+            lines.append(f"  within-day slope chart limits {lanes}; at least "
+                         f"{fmt(chart['target_arl'], 4)} days between false alarms")
+            lines.append("  " + self.slope_learning_text(chart))
         found = [f for f in self.findings() if f.found]
         if found:
             lines.append("  the fit window shows:")
@@ -148,6 +158,37 @@ class VersionView:
         return (f"learned so far: {days} of {learn_until} days ({fit_days} fit days and "
                 f"{self.learned.level.n} checked days); {state}")
 
+    def slope_chart(self) -> dict[str, Any] | None:
+        """The within-day slope chart's limits and its reference's learning (JSON)."""
+        limits = self.version.baseline.slope_limits
+        if limits is None:
+            return None
+        k = len(self.model.predictors)
+        steps = [limits.step] * k + ([limits.small_step] * k if len(limits.h) > k else [])
+        learned = self.learned
+        return {"h": list(limits.h), "lane_steps": steps,
+                "lane_predictors": [self.model.predictors[i % k] for i in range(len(limits.h))],
+                "target_arl": limits.target_arl, "reference": limits.reference,
+                "learned_days": (learned.slope_days if learned is not None
+                                 and limits.reference == "learning" else None),
+                "learning_stopped": (learned.stopped if learned is not None
+                                     and limits.reference == "learning" else None)}
+
+    @staticmethod
+    def slope_learning_text(chart: dict[str, Any]) -> str:
+        """How the slope chart's reference stands."""
+        if chart["reference"] != "learning":
+            return ("its reference is the fit window's slope, and the limits allow for that "
+                    "slope's estimation error")
+        days = chart["learned_days"]
+        if days is None:
+            return ("its reference learns from the version's own in-control days (none "
+                    "checked yet)")
+        state = ("stopped by a refit until it is acknowledged or replaced"
+                 if chart["learning_stopped"] else "learning")
+        return (f"its reference has learned the slopes of {days} checked day(s) on top of the "
+                f"fit window's; {state}")
+
     def findings(self) -> list[WindowFinding]:
         d = self.version.baseline.diagnosis
         if d is None:
@@ -170,9 +211,7 @@ def show_version(settings: Settings, name: str, number: int | None = None, *,
             version = get_version(conn, model.id, number, model_name=name)
         last = last_check(conn, model.id)
     learned = None
-    cal = version.baseline.calibration
-    if cal is not None and cal.learn_until and last is not None \
-            and last.version_id == version.id:
+    if last is not None and last.version_id == version.id:
         learned = last.state.learning
     return VersionView(model, version, settings.for_model(name).words, learned)
 

@@ -148,11 +148,13 @@ def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
     them, :class:`~monitor.domain.version.SlopeLimits`), else solved here."""
     d = diagnosis
     stored = (limits.array() if limits is not None and limits.matches(
-        settings.slope_chart_step, settings.slope_chart_arl_days, settings.guarantee) else None)
+        settings.slope_chart_step, settings.slope_chart_arl_days, settings.guarantee,
+        settings.slope_chart_small_step, settings.slope_chart_reference) else None)
     return design_slope_chart(reference, (d.slope_noise_ratio or None) if d else None,
                               settings.slope_chart_step, settings.slope_chart_arl_days,
                               settings.guarantee, row_scale=d.robust_sd if d else None,
-                              h=stored)
+                              h=stored, small_shift=settings.slope_chart_small_step,
+                              learns=settings.slope_chart_reference == "learning")
 
 
 def slope_limits_of(chart: SlopeChartDesign | None,
@@ -161,7 +163,8 @@ def slope_limits_of(chart: SlopeChartDesign | None,
     if chart is None:
         return None
     return SlopeLimits(settings.slope_chart_step, settings.slope_chart_arl_days,
-                       settings.guarantee, tuple(float(h) for h in chart.h))
+                       settings.guarantee, tuple(float(h) for h in chart.h),
+                       settings.slope_chart_small_step, settings.slope_chart_reference)
 
 
 def _fit_level(reference: DayMoments, coefficients: FloatArray,

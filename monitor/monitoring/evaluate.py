@@ -52,7 +52,7 @@ from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.self_start import learned, q_value
 from monitor.stats.spread import SpreadTest, spread_test
-from monitor.stats.within_slope import advance, slope_step
+from monitor.stats.within_slope import SlopeStep, advance, learn_slopes, slope_step
 
 FloatArray = NDArray[np.float64]
 MIN_SPREAD_DAYS = 5  # fit days with a day spread below which the classical spread test is kept
@@ -106,7 +106,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
                     state=replace(carry.state, day_spread=today.spread))
     h = ctx.limit(carry.state)
     cusum_u, carry = _step_cusum(ctx, carry, data, residuals, settings)
-    slope_chart, carry = _step_slope_chart(ctx, carry, data)
+    slope_chart, slope_step_today, carry = _step_slope_chart(ctx, carry, data)
     state = carry.state.cusum
     lead = _Leading.of(carry.state, settings.cusum_k)
 
@@ -136,6 +136,8 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     carry = replace(carry, state=replace(carry.state, clean_days=clean))
     if settings.cusum_unit == "day":
         carry = _learn(ctx, carry, data, residuals, verdict, settings.watch_cusum_fraction)
+    carry = _learn_slopes(ctx, carry, slope_step_today, verdict,
+                          settings.watch_cusum_fraction)
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
@@ -296,18 +298,40 @@ def _learn(ctx: VersionContext, carry: Carry, data: DayInput, residuals: FloatAr
     return replace(carry, state=replace(carry.state, learning=learning))
 
 
+def _learn_slopes(ctx: VersionContext, carry: Carry, step: SlopeStep | None,
+                  verdict: Verdict, watch_fraction: float) -> Carry:
+    """A learning slope reference takes in today's slopes when every lane of the chart stands
+    below the watch line after the day and the day is no ``refit`` (a sign of change pauses the
+    learning, so a change is not learned); a ``refit`` stops it until it is acknowledged."""
+    design = ctx.slope_chart
+    learning = carry.state.learning
+    if design is None or not design.learns or step is None or learning.stopped:
+        return carry
+    if verdict.status == Status.REFIT:
+        learning = replace(learning, stopped=True)
+    else:
+        sides = np.maximum(carry.state.slope_upper, carry.state.slope_lower)
+        if (sides > watch_fraction * np.asarray(design.h)).any():
+            return carry
+        weight, total = learn_slopes(learning.slope_weight, learning.slope_sum, step)
+        learning = replace(learning, slope_weight=weight, slope_sum=total,
+                           slope_days=learning.slope_days + 1)
+    return replace(carry, state=replace(carry.state, learning=learning))
+
+
 def _step_slope_chart(ctx: VersionContext, carry: Carry, data: DayInput
-                      ) -> tuple[SlopeChartDay | None, Carry]:
+                      ) -> tuple[SlopeChartDay | None, SlopeStep | None, Carry]:
     """Move the within-day slope chart by this day's own slopes (a day without a usable slope
     leaves it where it stands); the leading side over its limit, and its onset day."""
     design = ctx.slope_chart
     if design is None:
-        return None, carry
-    k = design.k
+        return None, None, carry
+    k, lanes = design.k, design.lanes
     before = carry.state
-    up0 = before.slope_upper if len(before.slope_upper) == k else (0.0,) * k
-    lo0 = before.slope_lower if len(before.slope_lower) == k else (0.0,) * k
-    step = slope_step(design, data.x, data.y)
+    up0 = before.slope_upper if len(before.slope_upper) == lanes else (0.0,) * lanes
+    lo0 = before.slope_lower if len(before.slope_lower) == lanes else (0.0,) * lanes
+    learned = before.learning
+    step = slope_step(design, data.x, data.y, learned.slope_weight, learned.slope_sum)
     up, lo = advance(up0, lo0, step)
     h = np.asarray(design.h)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -320,9 +344,10 @@ def _step_slope_chart(ctx: VersionContext, carry: Carry, data: DayInput
     state = replace(before, slope_upper=up, slope_lower=lo, slope_onset=onset)
     nan = (float("nan"),) * k
     day = SlopeChartDay(z=step.z if step else nan, deviation=step.deviation if step else nan,
-                        value=float(value), h=float(h[j]), predictor=int(j),
+                        value=float(value), h=float(h[j]),
+                        predictor=int(design.lane_predictor[j]),
                         upward=bool(side == 0))
-    return day, replace(carry, state=state)
+    return day, step, replace(carry, state=state)
 
 
 def _run_update(run: SideRun, before: int, after: int, steps: int, day: date, total: float,

@@ -64,3 +64,8 @@ class Learning:
 
     level: Moments = field(default_factory=lambda: Moments.empty(1))
     stopped: bool = False  # a refit stopped the learning (until a restart)
+    # the within-day slope chart's learning reference (monitor.stats.within_slope): per
+    # predictor, Σ w_d and Σ w_d (b_d - beta_0) of the learned days, and how many days
+    slope_weight: tuple[float, ...] = ()
+    slope_sum: tuple[float, ...] = ()
+    slope_days: int = 0

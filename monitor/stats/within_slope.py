@@ -32,14 +32,42 @@ below :data:`MIN_STEP` does not step the chart at all. ``z`` is clipped to
 winsorized CUSUM in the spirit of Lucas & Crosier 1982, *Technometrics* 24; clipping shortens
 the in-control excursions, so the run lengths below are lower bounds).
 
+A chart can run in two *lanes* per predictor, each its own pair of sides with its own step:
+the main lane tuned to ``delta`` (a 10 % step by default) and a second lane tuned to a smaller
+step (5 % by default). A likelihood-ratio CUSUM is most sensitive to the step it is tuned to
+(Moustakides 1986, *Annals of Statistics* 14, 1379-1387): the main lane flags a 10-20 % step in a
+day or two, the small lane accumulates evidence of a step of a few per cent, or a slow drift, that
+stays below the main lane's reference value ``lambda/2`` day after day. The false-alarm budget is
+shared: each of the ``L`` two-sided lane charts gets ``L`` times the target ARL (Bonferroni on
+the rates; the lanes watch the same days and move together, so the union's ARL is longer).
+
+**A reference that learns.** By default the reference slope is not frozen at the fit window's
+estimate: it keeps learning from the version's own in-control days, the fit window's slope
+``beta_0`` (variance ``se_0²``) and each learned day's slope combined with inverse-variance
+weights,
+
+    beta_t = (W_0 beta_0 + Σ w_d b_d) / (W_0 + Σ w_d),   W_0 = 1/se_0²,  w_d = 1/v_d,
+
+and each new day is standardized against the reference as it stood the day before,
+``z = (b_d - beta_t) / sqrt(v_d + 1/(W_0 + Σ w_d))``. These are the recursive residuals of a
+precision-weighted mean (Brown, Durbin & Evans 1975, *JRSS B* 37, 149-192, for the regression
+case): with normal day slopes of known variance they are independent and exactly standard
+normal, whatever the fit window's length, so the chart has the run lengths of a known
+reference and its limit need not pay for the reference's estimation error (the self-starting
+idea of Hawkins 1987 for the mean). A day is learned only while every lane stands below the
+watch line, and learning stops at a ``refit`` (until it is acknowledged), so a change is not
+learned into the reference. With ``fixed`` the reference is the fit window's slope for good
+and the limit is guarded as below.
+
 The decision interval ``H`` is found from the exact in-control run length of this chart
 (Page's integral equation with the mixture of the fit days' step laws as the kernel, solved by
 Nyström's method as in :mod:`monitor.stats.arl`), with the estimation error of the reference
 counted as the bias chart counts it (Gandy & Kvaløy 2013): the chart must keep its in-control
 ARL when the reference slope is off by the ``(1 + guarantee)/2`` quantile of its sampling law and
-the variances are underestimated by their ``guarantee`` quantile. With ``k`` predictors each of
-the ``k`` two-sided charts gets ``k`` times the target ARL, so their false alarms add up to the
-target's.
+the variances are underestimated by their ``guarantee`` quantile (a learning reference drops
+the first of these, for the reason above). With ``k`` predictors and ``m``
+lanes each of the ``L = m k`` two-sided charts gets ``L`` times the target ARL, so their false
+alarms add up to at most the target's.
 """
 
 from __future__ import annotations
@@ -146,17 +174,34 @@ class SlopeChartDesign:
     row_scale: float  # a robust sd of the rows around their day's line (the clipping unit)
     inflation: FloatArray  # c_j, White's meat over the classical one (>= 1)
     tau2: FloatArray  # between-day variance of each day slope
-    target: FloatArray  # delta_j: the step the chart is tuned to (response units per unit x)
+    target: FloatArray  # each lane's step (response units per unit x of its predictor)
     reference_se: FloatArray  # sd of the reference slopes' estimation error
-    h: FloatArray  # each predictor's decision interval (log-likelihood-ratio units; inf: none)
+    h: FloatArray  # each lane's decision interval (log-likelihood-ratio units; inf: none)
     target_arl: float
     guarantee: float
     fit_days: int
-    fit_steps: FloatArray = field(repr=False)  # lambda of the fit days (days, k), NaN if unused
+    fit_steps: FloatArray = field(repr=False)  # lambda of the fit days (days, L), NaN if unused
+    lane_predictor: NDArray[np.intp] = field(  # each lane's predictor (0-based)
+        default_factory=lambda: np.zeros(0, dtype=np.intp))
+    learns: bool = False  # the reference learns from in-control days (recursive residuals)
+
+    def __post_init__(self) -> None:
+        if len(self.lane_predictor) == 0:  # one lane per predictor
+            object.__setattr__(self, "lane_predictor", np.arange(len(self.slopes)))
 
     @property
     def k(self) -> int:
         return len(self.slopes)
+
+    @property
+    def lanes(self) -> int:
+        return len(self.lane_predictor)
+
+    @property
+    def reference_weight(self) -> FloatArray:
+        """``W_0``: the fit window's reference slopes' precision."""
+        with np.errstate(divide="ignore"):
+            return 1.0 / self.reference_se**2
 
     def variance(self, unit: FloatArray) -> FloatArray:
         """``v_dj`` for days with unit variances ``unit`` (``(G, k)``)."""
@@ -165,18 +210,30 @@ class SlopeChartDesign:
 
 @dataclass(frozen=True)
 class SlopeStep:
-    """One day's step of the within-day slope chart, per predictor (NaN where it did not step)."""
+    """One day's step of the within-day slope chart (NaN where it did not step)."""
 
-    z: tuple[float, ...]  # standardized deviation of the day's slope
-    step: tuple[float, ...]  # lambda, the day's standardized target step
-    deviation: tuple[float, ...]  # b_dj - beta_j, response units per unit x
+    z: tuple[float, ...]  # standardized deviation of the day's slope, per predictor
+    step: tuple[float, ...]  # lambda, the day's standardized target step, per lane
+    deviation: tuple[float, ...]  # b_dj - beta_j, response units per unit x, per predictor
+    lanes: tuple[int, ...] = ()  # each lane's predictor (empty: one lane per predictor)
+    variance: tuple[float, ...] = ()  # v_dj, the deviation's variance, per predictor
+
+    def predictor(self, lane: int) -> int:
+        return self.lanes[lane] if self.lanes else lane
 
 
 def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: float,
                        target_arl: float, guarantee: float, *,
                        row_scale: float | None = None,
-                       h: FloatArray | None = None) -> SlopeChartDesign | None:
+                       h: FloatArray | None = None,
+                       small_shift: float = 0.0,
+                       learns: bool = False) -> SlopeChartDesign | None:
     """The chart of a version fitted on ``days``; None when too few days pin down a slope.
+
+    ``shift`` is the main lane's step as a share of each slope; ``small_shift`` (below
+    ``shift``; 0 for none) adds a second lane per predictor tuned to that smaller share.
+    ``learns``: the reference learns from in-control days (the limits then count no reference
+    error; see the module text).
 
     ``inflation`` holds each predictor's ``c_j`` (:func:`monitor.stats.diagnosis.
     slope_noise_ratio`, computed on the fit window's rows with the same clipping as
@@ -206,24 +263,36 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     # approximation for several)
     sxx = 1.0 / unit
     ref_se = np.sqrt(np.sum(sxx**2 * v, axis=0)) / np.sum(sxx, axis=0)
-    target = np.maximum(shift * np.abs(beta), 3.0 * ref_se)
-    steps = target / np.sqrt(v)
-    full_steps = np.full((len(fit_days), k), np.nan)
+    main = np.maximum(shift * np.abs(beta), 3.0 * ref_se)
+    small = np.maximum(small_shift * np.abs(beta), 3.0 * ref_se)
+    two_lanes = 0.0 < small_shift < shift and bool(np.any(small < main))
+    lane_predictor = np.tile(np.arange(k), 2 if two_lanes else 1)
+    target = np.concatenate([main, small]) if two_lanes else main
+    steps = target / np.sqrt(v[:, lane_predictor])
+    full_steps = np.full((len(fit_days), len(target)), np.nan)
     full_steps[found.usable] = steps
-    if h is None or len(h) != k:
-        h = _decision_interval(steps, target, ref_se, tau2, within_var, len(dev), dof,
-                               target_arl, guarantee)
+    if h is None or len(h) != len(target):
+        h = _decision_interval(steps, ref_se[lane_predictor], tau2[lane_predictor],
+                               within_var[:, lane_predictor], len(dev), dof,
+                               target_arl, guarantee, learns)
     scale = row_scale if row_scale is not None and row_scale > 0 else float(np.sqrt(sigma_w2))
     return SlopeChartDesign(slopes=beta, sigma_w2=sigma_w2, row_scale=scale,
                             inflation=c, tau2=tau2,
                             target=target, reference_se=ref_se, h=h,
                             target_arl=float(target_arl), guarantee=float(guarantee),
-                            fit_days=len(dev), fit_steps=full_steps)
+                            fit_days=len(dev), fit_steps=full_steps,
+                            lane_predictor=lane_predictor, learns=learns)
 
 
-def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike) -> SlopeStep | None:
+def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike,
+               learned_weight: tuple[float, ...] = (),
+               learned_sum: tuple[float, ...] = ()) -> SlopeStep | None:
     """Today's standardized slope deviations and steps from the day's rows ``x`` (``(n, k)``)
     and ``y``; None when the day gives no slope.
+
+    A learning design standardizes against its reference as learned so far:
+    ``learned_weight`` holds ``Σ w_d`` and ``learned_sum`` ``Σ w_d (b_d - beta_0)`` of the
+    learned days, per predictor (empty: none learned yet).
 
     Each row's residual around the day's own line with the reference slopes (through the day's
     median level, which one wild row cannot move) is first clipped to
@@ -248,13 +317,41 @@ def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike) -> SlopeSte
         return None
     v = design.variance(found.unit)[0]
     dev = found.deviation[0]
-    lam = design.target / np.sqrt(v)
-    z = dev / np.sqrt(v)
+    against, spread = dev, v
+    if design.learns:
+        weight = design.reference_weight + (np.asarray(learned_weight)
+                                            if len(learned_weight) == k else 0.0)
+        total = np.asarray(learned_sum) if len(learned_sum) == k else np.zeros(k)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            against = np.where(np.isfinite(weight), dev - total / weight, dev)
+            spread = v + 1.0 / weight
+    lanes = design.lane_predictor
+    lam = design.target / np.sqrt(spread[lanes])
     live = lam >= MIN_STEP
-    z = np.where(live, z, np.nan)
+    any_live = np.zeros(k, dtype=bool)
+    any_live[lanes[live]] = True
+    z = np.where(any_live, against / np.sqrt(spread), np.nan)
     return SlopeStep(tuple(map(float, z)), tuple(float(s) if live[j] else float("nan")
                                               for j, s in enumerate(lam)),
-                     tuple(float(d) for d in dev[:k]))
+                     tuple(float(d) for d in dev[:k]),
+                     tuple(int(p) for p in lanes) if design.lanes != k else (),
+                     tuple(float(s) for s in v[:k]))
+
+
+def learn_slopes(weight: tuple[float, ...], total: tuple[float, ...], step: SlopeStep
+                 ) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """The learned ``Σ w_d`` and ``Σ w_d (b_d - beta_0)`` with one more day's slopes (a
+    predictor without a finite slope today is left as it was)."""
+    k = len(step.deviation)
+    w0 = np.asarray(weight, dtype=np.float64) if len(weight) == k else np.zeros(k)
+    s0 = np.asarray(total, dtype=np.float64) if len(total) == k else np.zeros(k)
+    v = np.asarray(step.variance, dtype=np.float64)
+    dev = np.asarray(step.deviation, dtype=np.float64)
+    ok = np.isfinite(v) & (v > 0) & np.isfinite(dev)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        w = np.where(ok, 1.0 / v, 0.0)
+        s = np.where(ok, dev * w, 0.0)
+    return tuple(map(float, w0 + w)), tuple(map(float, s0 + s))
 
 
 def advance(upper: tuple[float, ...], lower: tuple[float, ...], step: SlopeStep | None
@@ -263,7 +360,8 @@ def advance(upper: tuple[float, ...], lower: tuple[float, ...], step: SlopeStep 
     if step is None:
         return upper, lower
     new_up, new_lo = [], []
-    for j, (z, lam) in enumerate(zip(step.z, step.step, strict=True)):
+    for j, lam in enumerate(step.step):
+        z = step.z[step.predictor(j)]
         up = upper[j] if j < len(upper) else 0.0
         lo = lower[j] if j < len(lower) else 0.0
         if np.isfinite(z) and np.isfinite(lam):
@@ -277,16 +375,18 @@ def advance(upper: tuple[float, ...], lower: tuple[float, ...], step: SlopeStep 
 
 
 # decision interval -------------------------------------------------------------------------
-def _decision_interval(steps: FloatArray, target: FloatArray, ref_se: FloatArray,
-                       tau2: FloatArray, within_var: FloatArray, days: int, dof: int,
-                       target_arl: float, guarantee: float) -> FloatArray:
-    """Each predictor's ``H`` that keeps its two-sided chart's ARL at ``k`` times
-    ``target_arl`` under the guaranteed estimation errors (see the module text); inf where no
-    ``H`` up to :data:`MAX_H` does (the fit window pins that slope down too loosely)."""
-    k = steps.shape[1]
+def _decision_interval(steps: FloatArray, ref_se: FloatArray, tau2: FloatArray,
+                       within_var: FloatArray, days: int, dof: int,
+                       target_arl: float, guarantee: float, learns: bool = False) -> FloatArray:
+    """Each lane's ``H`` that keeps its two-sided chart's ARL at ``L`` (the number of lanes)
+    times ``target_arl`` under the guaranteed estimation errors (see the module text); inf
+    where no ``H`` up to :data:`MAX_H` does (the fit window pins that slope down too loosely).
+    Every argument but the counts is given per lane (its predictor's figures). A learning
+    reference (``learns``) counts no reference error: its recursive residuals are exact."""
+    lanes = steps.shape[1]
     q_ref = float(tails.norm_ppf((1 + guarantee) / 2))
     hs = []
-    for j in range(k):
+    for j in range(lanes):
         lam = steps[:, j]
         # underestimated variances: the within part on dof, tau² on days - 1 df, each at the
         # guarantee quantile
@@ -295,9 +395,10 @@ def _decision_interval(steps: FloatArray, target: FloatArray, ref_se: FloatArray
                   if days > 1 else 1.0)
         v = within_var[:, j] + tau2[j]
         sd = np.sqrt((within_var[:, j] * within_hi + tau2[j] * tau_hi) / v)
-        shift = q_ref * ref_se[j] / np.sqrt(v)  # the reference's error, in day sd units
+        # the reference's error, in day sd units (none for recursive residuals)
+        shift = (0.0 if learns else q_ref) * ref_se[j] / np.sqrt(v)
         lam_q, sd_q, shift_q = _representative(lam, sd, shift)
-        hs.append(_solve_h(lam_q, sd_q, shift_q, k * target_arl))
+        hs.append(_solve_h(lam_q, sd_q, shift_q, lanes * target_arl))
     return np.array(hs)
 
 

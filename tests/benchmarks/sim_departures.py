@@ -38,7 +38,7 @@ import platform
 import subprocess
 import time
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime, timedelta
 from multiprocessing import Pool
 from pathlib import Path
@@ -50,7 +50,7 @@ ROOT = Path(__file__).resolve().parents[2]
 if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
-from monitor.config import ModelSettings, Settings  # noqa: E402
+from monitor.config import CheckSettings, ModelSettings, Settings  # noqa: E402
 from monitor.domain.check import Carry, DayCheck  # noqa: E402
 from monitor.domain.model import ModelSpec  # noqa: E402
 from monitor.domain.status import Status  # noqa: E402
@@ -84,6 +84,7 @@ class Job:
     days: int  # monitored days in control (at least as many as precede any change)
     changes: tuple[Change, ...]
     change_days: int  # monitored days after a change, at most
+    check: tuple[tuple[str, float], ...] = ()  # CheckSettings overrides (--check KEY=VALUE)
 
 
 @dataclass(frozen=True)
@@ -122,6 +123,8 @@ def run_job(job: Job) -> Walked:
     world = world.from_day(FIT_DAYS - case.fit_days)  # the fit window's first day on
     calm = world.through(job.days)
     settings = Settings().for_model("dock")
+    if job.check:
+        settings = replace(settings, check=replace(settings.check, **dict(job.check)))
     spec = spec_for(case)
     fitted, version, checks = replay_arrays(spec, settings, calm.days, calm.x, calm.y,
                                             calm.fit_end, acknowledge_refits=True, now=NOW)
@@ -258,7 +261,8 @@ def table(results: dict[str, dict[str, object]], meta: dict[str, object]) -> str
              f"In control: {meta['days']} monitored days after a {meta['fit_days']}-day fit "
              f"window, {meta['models']} models per case"
              + "".join(f" ({k}: {v})" for k, v in meta["models_for"].items())
-             + "; default settings; every refit acknowledged the next day.",
+             + "; " + (", ".join(f"{k} = {v}" for k, v in meta.get("check", {}).items())
+                       or "default settings") + "; every refit acknowledged the next day.",
              "", f"{'case':15s} {'model-days':>10s}  {'false refits/1000 [95% CI]':27s} "
              f"{'models':>7s} {'watch':>6s} {'entries/1000':>12s}  false refits started by"]
     for name, r in results.items():
@@ -345,6 +349,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", type=Path, help="results path without suffix (overrides "
                         "--label)")
     parser.add_argument("--processes", type=int, default=2)
+    parser.add_argument("--check", action="append", default=[], metavar="KEY=VALUE",
+                        help="a check setting other than its default, e.g. "
+                        "slope_chart_step=0.05 (to compare tunings)")
     parser.add_argument("--combine", nargs="+", type=Path, metavar="JSON",
                         help="combine the results of runs of different cases into one "
                         "(written as --label / --out)")
@@ -362,6 +369,16 @@ def main(argv: list[str] | None = None) -> int:
         if name not in CASES or not count.isdigit():
             parser.error(f"--models-for wants CASE=N with a case of: {', '.join(CASES)}")
         per_case[name] = int(count)
+    check = []
+    for item in args.check:
+        name, _, value = item.partition("=")
+        if name not in CheckSettings.__dataclass_fields__:
+            parser.error(f"--check: no check setting {name!r}")
+        default = getattr(CheckSettings(), name)
+        try:
+            check.append((name, type(default)(value)))
+        except ValueError:
+            parser.error(f"--check {name}: not a {type(default).__name__}: {value!r}")
     label = args.label or ("quick" if args.quick else "full")
     out = args.out or RESULTS / f"departures_{label}"
     if args.combine:
@@ -370,7 +387,7 @@ def main(argv: list[str] | None = None) -> int:
 
     if changes and days < max(CHANGES[c].after for c in changes):
         parser.error("--days must cover the in-control days before a change")
-    jobs = [Job(case, m, days, tuple(CHANGES[c] for c in changes), change_days)
+    jobs = [Job(case, m, days, tuple(CHANGES[c] for c in changes), change_days, tuple(check))
             for case in cases for m in range(per_case.get(case, models))]
     began = time.perf_counter()
     walks: list[Walked] = []
@@ -394,7 +411,8 @@ def main(argv: list[str] | None = None) -> int:
             "models": models, "models_for": {c: n for c, n in per_case.items() if c in cases},
             "days": days, "change_days": change_days, "fit_days": FIT_DAYS,
             "cases": {c: CASES[c].description for c in cases}, "changes": list(changes),
-            "seconds": seconds, "cpu_seconds_by_case": timing, "processes": args.processes,
+            "check": dict(check), "seconds": seconds, "cpu_seconds_by_case": timing,
+            "processes": args.processes,
             "machine": f"{platform.machine()}, Python {platform.python_version()}"}
     return _write(results, meta, out)
 
@@ -420,11 +438,11 @@ def combine(paths: list[Path], label: str) -> tuple[dict[str, dict[str, object]]
     design and have run on the same ``monitor/`` tree (without uncommitted changes).
     """
     parts = [json.loads(Path(p).read_text()) for p in paths]
-    design = ("models", "days", "change_days", "fit_days", "changes")
+    design = ("models", "days", "change_days", "fit_days", "changes", "check")
     first = parts[0]["meta"]
     for path, part in zip(paths, parts, strict=True):
         meta = part["meta"]
-        differ = [k for k in design if meta[k] != first[k]]
+        differ = [k for k in design if meta.get(k, {}) != first.get(k, {})]
         if differ:
             raise SystemExit(f"{path}: {', '.join(differ)} differ from {paths[0]}")
     trees = {_monitor_tree(p["meta"]["commit"]) for p in parts}
@@ -432,7 +450,7 @@ def combine(paths: list[Path], label: str) -> tuple[dict[str, dict[str, object]]
         raise SystemExit("the parts ran on different (or uncommitted) monitor/ code: "
                          + ", ".join(p["meta"]["commit"] for p in parts))
     results: dict[str, dict[str, object]] = {}
-    meta = {k: first[k] for k in design}
+    meta = {k: first.get(k, {}) for k in design}
     meta |= {"label": label, "commit": ", ".join(dict.fromkeys(p["meta"]["commit"]
                                                                 for p in parts)),
              "date": max(p["meta"]["date"] for p in parts), "models_for": {}, "cases": {},

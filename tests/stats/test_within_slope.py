@@ -17,6 +17,7 @@ from monitor.stats.within_slope import (
     between_day_variance,
     day_slopes,
     design_slope_chart,
+    learn_slopes,
     mixture_arl,
     slope_step,
     two_sided_arl,
@@ -215,3 +216,118 @@ def test_advance_clips_a_wild_day() -> None:
     # one day at z = 50 moves the chart as far as z = max(4, lambda + 3) would (winsorizing)
     up, _ = advance((0.0,), (0.0,), SlopeStep(z=(50.0,), step=(0.5,), deviation=(1.0,)))
     assert up[0] == pytest.approx(0.5 * (4.0 - 0.25))
+
+
+def test_a_second_lane_shares_the_budget_and_catches_a_five_percent_step_sooner() -> None:
+    # Two lanes per predictor: each lane's two-sided chart at its own h keeps twice the target
+    # ARL under the guaranteed errors (Bonferroni on the rates, common practice, no source), the
+    # small lane is tuned to the 5 % step (Page 1954: the step enters lambda), and on the same
+    # days a +5 % slope is flagged sooner than by the 10 % lane alone (Moustakides 1986: a
+    # likelihood-ratio CUSUM is optimal for the step it is tuned to).
+    rng = np.random.default_rng(21)
+    fit = _moments(_days(rng, 60))
+    one = design_slope_chart(fit, None, 0.10, 5000.0, 0.95)
+    two = design_slope_chart(fit, None, 0.10, 5000.0, 0.95, small_shift=0.05)
+    assert one is not None and two is not None
+    assert one.lanes == 1 and two.lanes == 2
+    np.testing.assert_array_equal(two.lane_predictor, [0, 0])
+    np.testing.assert_allclose(two.target, [0.10 * abs(two.slopes[0]), 0.05 * abs(two.slopes[0])])
+    assert two.h[0] > one.h[0]  # the main lane pays for sharing the budget
+    for lane in range(2):
+        steps = two.fit_steps[:, lane]
+        steps = steps[np.isfinite(steps)]
+        nominal = two_sided_arl(steps, np.ones_like(steps), np.zeros_like(steps), two.h[lane])
+        assert nominal > 2 * 5000.0
+
+    delays = {1: [], 2: []}
+    for _ in range(40):
+        days = _days(rng, 80, slope=2.0 * 1.05)
+        for design in (one, two):
+            delays[design.lanes].append(_first_signal(design, days))
+    assert np.median(delays[2]) < np.median(delays[1])
+
+
+def _first_signal(design, days: list[tuple[np.ndarray, np.ndarray]]) -> int:
+    """The first day (1-based) some lane of the chart stands over its limit; len + 1: none."""
+    up, lo = (0.0,) * design.lanes, (0.0,) * design.lanes
+    for day, (x, y) in enumerate(days, 1):
+        up, lo = advance(up, lo, slope_step(design, x, y))
+        if (np.maximum(up, lo) > design.h).any():
+            return day
+    return len(days) + 1
+
+
+def test_lanes_of_two_predictors_step_on_their_own_predictor() -> None:
+    # lane j of L = 2k follows predictor j mod k: a day whose second slope is far off moves the
+    # second predictor's lanes only
+    step = SlopeStep(z=(0.0, 3.0), step=(1.0, 2.0, 0.5, 1.0), deviation=(0.0, 1.0),
+                     lanes=(0, 1, 0, 1))
+    up, lo = advance((0.0,) * 4, (0.0,) * 4, step)
+    assert up == pytest.approx((0.0, 2.0 * (3.0 - 1.0), 0.0, 1.0 * (3.0 - 0.5)))
+    assert lo == pytest.approx((0.0, 0.0, 0.0, 0.0))
+
+
+def test_a_learning_reference_is_the_precision_weighted_mean_of_wls() -> None:
+    # The learned reference beta_0 + Σ w (b - beta_0) / (W_0 + Σ w) is the inverse-variance
+    # weighted mean of the fit window's slope and the learned days' slopes: statsmodels' WLS of
+    # the slopes on a constant with weights 1/variance gives the same number (outside reference).
+    rng = np.random.default_rng(8)
+    design = design_slope_chart(_moments(_days(rng, 14)), None, 0.10, 5000.0, 0.95,
+                                learns=True)
+    assert design is not None and design.learns
+    weight, total = (), ()
+    slopes, variances = [design.slopes[0]], [design.reference_se[0] ** 2]
+    for x, y in _days(rng, 25):
+        step = slope_step(design, x, y, weight, total)
+        assert step is not None
+        weight, total = learn_slopes(weight, total, step)
+        slopes.append(design.slopes[0] + step.deviation[0])
+        variances.append(step.variance[0])
+    wls = sm.WLS(np.array(slopes), np.ones(len(slopes)), weights=1 / np.array(variances)).fit()
+    learned = design.slopes[0] + total[0] / (design.reference_weight[0] + weight[0])
+    assert learned == pytest.approx(wls.params[0], rel=1e-12)
+    assert 1 / (design.reference_weight[0] + weight[0]) == pytest.approx(
+        wls.cov_params(scale=1.0)[0, 0], rel=1e-12)
+
+
+def test_learning_makes_the_days_independent_whatever_the_fit_windows_error() -> None:
+    # Recursive residuals (Brown, Durbin & Evans 1975): against a reference that learns every
+    # day, a version fitted on 14 days gives day values that are independent standard normal, so
+    # the mean of 30 of them has variance 1/30 across fit windows. Against the fixed fit-window
+    # slope the 30 share its estimation error and the mean's variance is well above 1/30.
+    # Checked with the chi-square interval of a variance (scipy.stats.chi2, 99 %).
+    from scipy.stats import chi2
+
+    rng = np.random.default_rng(17)
+    means = {True: [], False: []}
+    for _ in range(120):
+        fit = _moments(_days(rng, 14, tau=0.0))
+        later = _days(rng, 30, tau=0.0)
+        for learns in (True, False):
+            # the limit plays no part in the day values: a given one spares the root search
+            design = design_slope_chart(fit, None, 0.10, 5000.0, 0.95, learns=learns,
+                                        h=np.array([5.0]))
+            assert design is not None
+            weight, total, zs = (), (), []
+            for x, y in later:
+                step = slope_step(design, x, y, weight, total)
+                assert step is not None
+                zs.append(step.z[0])
+                if learns:
+                    weight, total = learn_slopes(weight, total, step)
+            means[learns].append(np.mean(zs))
+    n = len(means[True])
+    low, high = chi2.ppf([0.005, 0.995], n - 1) / (n - 1) / 30
+    assert low < np.var(means[True], ddof=1) < high
+    assert np.var(means[False], ddof=1) > high
+
+
+def test_a_learning_reference_drops_the_reference_error_from_the_limit() -> None:
+    # the same 14 fit days: the learning chart's limit is the one of an exactly known reference
+    # (only the variances are guarded), well below the fixed reference's guarded limit
+    fit = _moments(_days(np.random.default_rng(2), 14))
+    fixed = design_slope_chart(fit, None, 0.10, 5000.0, 0.95, small_shift=0.05)
+    learning = design_slope_chart(fit, None, 0.10, 5000.0, 0.95, small_shift=0.05, learns=True)
+    assert fixed is not None and learning is not None
+    assert (learning.h < fixed.h).all()
+    np.testing.assert_array_equal(learning.target, fixed.target)

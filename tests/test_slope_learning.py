@@ -1,0 +1,64 @@
+"""The within-day slope chart's reference learns from in-control days and stops at a change.
+
+Runs the production day loop (``replay_arrays``: fit, then the nights' ``walk``) on rows drawn
+for this test: 14 fit days, 40 in-control days, then the slope 20 % steeper. What is checked is
+the learning rule of :mod:`monitor.monitoring.evaluate` (common practice, no source: a
+self-starting chart must not learn a change into its reference).
+"""
+
+from __future__ import annotations
+
+from datetime import UTC, date, datetime, timedelta
+
+import numpy as np
+
+from monitor.config import Settings
+from monitor.domain.model import ModelSpec
+from monitor.domain.status import Status
+from monitor.monitoring.replay import replay_arrays
+
+START = date(2025, 3, 3)
+SPEC = ModelSpec("dock", "load_minutes", ("pallets",), "docked_at")
+
+
+def _rows(rng: np.random.Generator, days: int, change_from: int
+          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    stamps, xs, ys = [], [], []
+    for d in range(days):
+        n = 90
+        x = rng.uniform(4, 30, n)
+        slope = 2.1 * (1.2 if d >= change_from else 1.0)
+        y = 9 + slope * x + 2.5 * rng.standard_normal() + 5 * rng.standard_normal(n)
+        stamps.append(np.full(n, np.datetime64(START + timedelta(days=d), "D")))
+        xs.append(x)
+        ys.append(y)
+    return np.concatenate(stamps), np.concatenate(xs)[:, None], np.concatenate(ys)
+
+
+def test_the_reference_learns_in_control_days_and_stops_at_the_refit() -> None:
+    rng = np.random.default_rng(12)
+    fit_days, calm, changed = 14, 40, 20
+    days, x, y = _rows(rng, fit_days + calm + changed, change_from=fit_days + calm)
+    settings = Settings().for_model("dock")
+    assert settings.check.slope_chart_reference == "learning"
+    _, version, checks = replay_arrays(SPEC, settings, days, x, y,
+                                       START + timedelta(days=fit_days - 1),
+                                       now=datetime(2030, 1, 1, tzinfo=UTC))
+    assert version.baseline.slope_limits is not None
+    h = np.asarray(version.baseline.slope_limits.array())
+    watch = settings.check.watch_cusum_fraction
+    learned = [c.state.learning.slope_days for c in checks]
+    for before, check, after in zip([0, *learned], checks, learned, strict=False):
+        high = (np.maximum(check.state.slope_upper, check.state.slope_lower) > watch * h).any()
+        if check.status == Status.REFIT or high:  # a sign of change is never learned
+            assert after == before, check.day
+    change_day = START + timedelta(days=fit_days + calm)
+    in_control = [c for c in checks if c.day < change_day]
+    assert all(c.status != Status.REFIT for c in in_control)
+    assert in_control[-1].state.learning.slope_days >= calm - 5  # nearly every calm day
+    first_refit = next(c for c in checks if c.status == Status.REFIT)
+    assert first_refit.day >= change_day and first_refit.state.learning.stopped
+    later = [c.state.learning.slope_days for c in checks if c.day >= first_refit.day]
+    assert len(set(later)) == 1  # no day learned after the refit (none acknowledged here)
+    assert later[0] <= in_control[-1].state.learning.slope_days + (first_refit.day
+                                                                   - change_day).days
