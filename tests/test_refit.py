@@ -427,6 +427,15 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
     assert (f"learned so far: {fit_days + learned[-1]} of 40 days ({fit_days} fit days and "
             f"{learned[-1]} checked days); learning") in view.text()
     assert view.as_dict()["cusum"]["learned_days"] == learned[-1]
+    # ... and so does the within-day slope chart's reference, which learns from the same
+    # in-control days (each check records how many)
+    slope_days = [c.state.learning.slope_days for c in checks]
+    assert slope_days == sorted(slope_days) and 0 < slope_days[-1] <= len(with_rows)
+    chart = view.as_dict()["slope_chart"]
+    assert chart["reference"] == "learning" and chart["learned_days"] == slope_days[-1]
+    assert len(chart["h"]) == 2 and chart["lane_steps"] == [0.10, 0.05]
+    assert (f"its reference has learned the slopes of {slope_days[-1]} checked day(s) on top "
+            "of the fit window's; learning") in view.text()
 
 
 @pytest.mark.slow

@@ -211,16 +211,24 @@ def _version_view(version: Version | None, words: Wording) -> dict[str, Any] | N
 
 
 def _learning(data: ReportData) -> str | None:
-    """How far a self-starting active version has learned its level (as ``model show``)."""
+    """What the active version has learned from its own days (as ``model show``): the level
+    of a self-starting version, and the within-day slope chart's reference."""
     active, last = data.active, data.last
-    cal = active.baseline.calibration if active is not None else None
-    if active is None or cal is None or not cal.learn_until or not active.baseline.fit_days:
+    if active is None:
         return None
+    cal = active.baseline.calibration
     learned = last.state.learning if last is not None and last.version_id == active.id \
         else None
     view = VersionView(data.model.spec, active, data.settings.words, learned)
-    return ("Self-starting: it keeps learning its level from its own in-control days; "
-            + view.learning_text(active.baseline.fit_days, cal.learn_until) + ".")
+    said = []
+    if cal is not None and cal.learn_until and active.baseline.fit_days:
+        said.append("Self-starting: it keeps learning its level from its own in-control days; "
+                    + view.learning_text(active.baseline.fit_days, cal.learn_until) + ".")
+    chart = view.slope_chart()
+    if chart is not None and chart["reference"] == "learning":
+        text = view.slope_learning_text(chart)
+        said.append("The within-day slope chart: " + text + ".")
+    return " ".join(said) or None
 
 
 def _window_findings(data: ReportData) -> list[WindowFinding]:

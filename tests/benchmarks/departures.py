@@ -114,7 +114,13 @@ CHANGES: dict[str, Change] = {c.name: c for c in (
     Change("step_10", step=0.10),
     Change("step_20", step=0.20),
     Change("drift_0.05", drift_per_day=0.0005),
+    # soon after the version took over (with short_fit: a candidate fitted on two weeks and
+    # promoted, then the slope moves again ten days later)
+    Change("step_5_at_10", step=0.05, after=10),
+    Change("step_10_at_10", step=0.10, after=10),
 )}
+# the changes a run walks unless told otherwise
+DEFAULT_CHANGES = ("step_5", "step_10", "step_20", "drift_0.05")
 
 
 @dataclass(frozen=True, eq=False)

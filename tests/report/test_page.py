@@ -82,6 +82,9 @@ def test_no_candidate_section_without_a_candidate(calm: World, tmp_path: Path) -
     assert "fit-window-findings" in page.ids
     assert "What its fit window shows" in page.words
     assert "day shocks" in page.words and "weekday rhythm" in page.words
+    # what the version learned from its own days, as `model show` says it
+    assert "learning" in page.ids
+    assert "The within-day slope chart: its reference has learned the slopes of" in page.words
 
 
 def test_reasons_are_escaped(calm: World) -> None:
