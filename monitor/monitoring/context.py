@@ -154,6 +154,7 @@ def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
                               settings.slope_chart_step, settings.slope_chart_arl_days,
                               settings.guarantee, row_scale=d.robust_sd if d else None,
                               h=stored, small_shift=settings.slope_chart_small_step,
+                              raw_inflation=(d.slope_noise_ratio_raw or None) if d else None,
                               learns=settings.slope_chart_reference == "learning")
 
 

@@ -77,6 +77,7 @@ class FitDiagnosis:
     day_spreads: tuple[float, ...]  # log day spread of each fit day with >= 2 rows
     slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows clipped) over the classical
     weekday_days: tuple[int, ...] = ()  # Mon..Sun: fit days with rows on that weekday
+    slope_noise_ratio_raw: tuple[float, ...] = ()  # the same for the rows as they are
 
     def rhythm(self, alpha: float = RHYTHM_ALPHA) -> tuple[float, ...] | None:
         """Mon..Sun offsets of the day mean residual (0 for a weekday without fit days) when the
@@ -241,7 +242,8 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
         fit_coverage=covered_share, day_spreads=tuple(spreads),
         weekday_days=tuple(per_weekday),
         slope_noise_ratio=slope_noise_ratio(centred_x, within, sigma_w2,
-                                            TAIL_SDS * robust if robust > 0 else np.inf))
+                                            TAIL_SDS * robust if robust > 0 else np.inf),
+        slope_noise_ratio_raw=slope_noise_ratio(centred_x, within, sigma_w2, np.inf))
 
 
 def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,

@@ -16,7 +16,9 @@ for predictor ``j``: ``sigma_w²`` the within-day residual variance of the fit w
 "meat" (of rows winsorized as below) to the classical one in the fit window (1 for normal rows
 whose scatter does not change with the predictors), and ``tau_j²`` the between-day variance
 of the day slopes, estimated from the fit window by the moment estimator of DerSimonian & Laird
-(1986, *Controlled Clinical Trials* 7, 177-188), for days whose slope wanders around the line.
+(1986, *Controlled Clinical Trials* 7, 177-188), for days whose slope wanders around the line
+(the fit window's day slopes are of the rows as they are, so ``tau_j²`` is estimated with the
+raw rows' White ratio, not the winsorized one; see :func:`design_slope_chart`).
 
 The chart is the log-likelihood-ratio CUSUM of Page (1954) for a step ``delta_j`` (a share of
 the slope, 10 % by default) in each direction, on the day's standardized deviation
@@ -227,13 +229,24 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
                        row_scale: float | None = None,
                        h: FloatArray | None = None,
                        small_shift: float = 0.0,
-                       learns: bool = False) -> SlopeChartDesign | None:
+                       learns: bool = False,
+                       raw_inflation: ArrayLike | None = None) -> SlopeChartDesign | None:
     """The chart of a version fitted on ``days``; None when too few days pin down a slope.
 
     ``shift`` is the main lane's step as a share of each slope; ``small_shift`` (below
     ``shift``; 0 for none) adds a second lane per predictor tuned to that smaller share.
     ``learns``: the reference learns from in-control days (the limits then count no reference
     error; see the module text).
+
+    ``raw_inflation``: White's ratio of the fit window's rows as they are, unclipped. The fit
+    window's day slopes (from day statistics) and the pooled reference are computed from the
+    rows as they are, while the chart's days are winsorized; so the between-day variance
+    ``tau²`` is estimated, and the reference's error measured, with the raw rows' variance
+    ``c_raw sigma_w² (Sxx_d⁻¹)_jj``, and the days are then charted with the clipped one. Without
+    it, the clipped variance serves for both: on rows with outliers the raw day slopes then
+    scatter more than it says and the excess is taken for ``tau²``, which widens every day's
+    variance and slows the chart (common practice, no source: estimate each variance
+    component with the variance of the data it is computed from).
 
     ``inflation`` holds each predictor's ``c_j`` (:func:`monitor.stats.diagnosis.
     slope_noise_ratio`, computed on the fit window's rows with the same clipping as
@@ -256,13 +269,17 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     dev = found.deviation[found.usable] - beta
     unit = found.unit[found.usable]
     within_var = c * sigma_w2 * unit
-    tau2 = np.array([between_day_variance(dev[:, j], within_var[:, j]) for j in range(k)])
+    c_raw = (c if raw_inflation is None or len(np.ravel(raw_inflation)) != k
+             else np.maximum(np.asarray(raw_inflation, dtype=np.float64).ravel(),
+                             MIN_INFLATION))
+    raw_var = c_raw * sigma_w2 * unit
+    tau2 = np.array([between_day_variance(dev[:, j], raw_var[:, j]) for j in range(k)])
     v = within_var + tau2
     # the pooled within estimator's variance under the same model: Σ Sxx_d² v_d / (Σ Sxx_d)²
     # per predictor, with Sxx_d,jj = 1 / unit (exact for one predictor, the usual
-    # approximation for several)
+    # approximation for several), v_d of the raw rows it is computed from
     sxx = 1.0 / unit
-    ref_se = np.sqrt(np.sum(sxx**2 * v, axis=0)) / np.sum(sxx, axis=0)
+    ref_se = np.sqrt(np.sum(sxx**2 * (raw_var + tau2), axis=0)) / np.sum(sxx, axis=0)
     main = np.maximum(shift * np.abs(beta), 3.0 * ref_se)
     small = np.maximum(small_shift * np.abs(beta), 3.0 * ref_se)
     two_lanes = 0.0 < small_shift < shift and bool(np.any(small < main))

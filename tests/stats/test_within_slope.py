@@ -331,3 +331,36 @@ def test_a_learning_reference_drops_the_reference_error_from_the_limit() -> None
     assert fixed is not None and learning is not None
     assert (learning.h < fixed.h).all()
     np.testing.assert_array_equal(learning.target, fixed.target)
+
+
+def test_tau2_is_estimated_with_the_variance_of_the_raw_rows_it_is_computed_from() -> None:
+    # The fit window's day slopes come from the rows as they are; with 3 % of rows a breakdown
+    # (+40) their scatter is the raw rows' variance, not the winsorized one the chart uses for
+    # its days (the days' own slopes vary with sd 0.06 here, tau² = 0.0036). tau² is
+    # statsmodels' DerSimonian-Laird (combine_effects, method_re="dl") on the day slopes with
+    # the raw variances c_raw sigma_w² (Sxx_d⁻¹), and it is far smaller than what the clipped
+    # variance alone leaves over (the excess is no day-to-day slope).
+    rng = np.random.default_rng(30)
+    days = []
+    for _ in range(60):
+        x = rng.uniform(4, 30, 100)
+        slope = 2.0 + 0.06 * rng.standard_normal()  # the days' slopes do vary a little
+        y = 9 + slope * x + 2.5 * rng.standard_normal() + 5 * rng.standard_normal(100)
+        y += 40.0 * (rng.uniform(size=100) < 0.03)
+        days.append((x[:, None], y))
+    fit = _moments(days)
+    clipped, raw = np.array([0.6]), np.array([1.0])
+    both = design_slope_chart(fit, clipped, 0.10, 5000.0, 0.95, raw_inflation=raw,
+                              h=np.array([9.0, 9.0]), small_shift=0.05)
+    clipped_only = design_slope_chart(fit, clipped, 0.10, 5000.0, 0.95,
+                                      h=np.array([9.0, 9.0]), small_shift=0.05)
+    assert both is not None and clipped_only is not None
+    _, sigma_w2, _ = within_fit(fit)
+    found = day_slopes(fit.comoment, fit.n, both.slopes)
+    dl = combine_effects(found.deviation[:, 0], raw[0] * sigma_w2 * found.unit[:, 0],
+                         method_re="dl")
+    assert dl.tau2 > 0 and both.tau2[0] == pytest.approx(dl.tau2, rel=1e-9)
+    assert both.tau2[0] < 0.5 * clipped_only.tau2[0]
+    # the chart's days use the clipped variance plus tau²
+    np.testing.assert_allclose(both.variance(found.unit[:1]),
+                               0.6 * sigma_w2 * found.unit[:1] + both.tau2)
