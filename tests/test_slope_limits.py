@@ -6,14 +6,16 @@ other settings than those they were solved for are solved afresh (the root searc
 from __future__ import annotations
 
 from dataclasses import replace
+from datetime import timedelta
 from pathlib import Path
 
 import numpy as np
 from sqlalchemy import Engine
 
+from monitor.domain.version import SlopeLimits
 from monitor.monitoring.context import VersionContext, slope_chart_of
 from monitor.store.models import get_model
-from monitor.store.versions import active_version
+from monitor.store.versions import active_version, store_slope_limits
 from tests.support.world import World, settings_for
 
 
@@ -55,3 +57,30 @@ def test_limits_solved_for_other_settings_are_solved_again(
     assert chart is not None and fresh is not None
     np.testing.assert_array_equal(chart.h, fresh.h)
     assert (chart.h > version.baseline.slope_limits.array()).all()  # a longer ARL, a wider H
+
+
+def test_limits_stored_for_other_settings_are_replaced_by_the_first_check(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    # A version fitted before the chart had two lanes stores one limit for a fixed reference;
+    # the first night solves the limits for the settings in force and keeps them with the
+    # version, so later nights do not solve them again.
+    world = World(engine, settings_for(make_settings, engine), tmp_path, seed=4)
+    with engine.connect() as conn:
+        model = get_model(conn, "dock_loading")
+        version = active_version(conn, model.id)
+    assert version is not None and version.baseline.slope_limits is not None
+    old = SlopeLimits(0.10, 5000.0, 0.95, version.baseline.slope_limits.h[:1])
+    with engine.begin() as conn:
+        store_slope_limits(conn, version.id, old)
+    with engine.connect() as conn:
+        assert active_version(conn, model.id).baseline.slope_limits == old
+    first = version.active_from
+    world.add_days(first, first + timedelta(days=1), 41, "night.csv")
+    world.check(first + timedelta(days=1))
+    with engine.connect() as conn:
+        now = active_version(conn, model.id).baseline.slope_limits
+    check = world.settings.check
+    assert now is not None and now.matches(check.slope_chart_step, check.slope_chart_arl_days,
+                                           check.guarantee, check.slope_chart_small_step,
+                                           check.slope_chart_reference)
+    np.testing.assert_array_equal(now.array(), version.baseline.slope_limits.array())

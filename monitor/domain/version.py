@@ -239,6 +239,11 @@ class Version:
             return False
         return self.active_until is None or day <= self.active_until
 
+    def with_slope_limits(self, limits: SlopeLimits) -> Version:
+        """This version with other stored slope-chart limits (solved for other settings)."""
+        return replace(self, draft=replace(self.draft, baseline=replace(
+            self.baseline, slope_limits=limits)))
+
     def copied(self, note: str) -> VersionDraft:
         """This version's fit as a new draft (a rollback stores such a copy)."""
         return replace(self.draft, note=note)

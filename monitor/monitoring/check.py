@@ -25,6 +25,7 @@ from monitor.domain.status import Status, worst
 from monitor.domain.version import Version
 from monitor.errors import Failure, FitwatchError, InputError
 from monitor.interface.progress import progress_bar
+from monitor.monitoring.context import VersionContext, slope_limits_of
 from monitor.monitoring.walk import HISTORY_DAYS, Subject, Timeline, walk
 from monitor.store import audit
 from monitor.store.access import database
@@ -39,7 +40,7 @@ from monitor.store.engine import write_transaction
 from monitor.store.model_lock import model_lock
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import load_day_stats, load_observations
-from monitor.store.versions import scoring_versions
+from monitor.store.versions import scoring_versions, store_slope_limits
 
 log = logging.getLogger(__name__)
 BLOCK_DAYS = 31
@@ -194,8 +195,28 @@ def _check_block(conn: Connection, model: ModelRecord, settings: ModelSettings,
                                                                 from_day=first)
                        if e.effective_day is not None and e.effective_day <= last)
     subject = Subject(model.id, model.name, model.response, settings)
-    checks, _ = walk(subject, versions, timeline, first, last, carry, now=now, resets=resets)
+    contexts: dict[int, VersionContext] = {}
+    checks, _ = walk(subject, versions, timeline, first, last, carry, now=now, resets=resets,
+                     contexts=contexts)
+    _keep_solved_limits(conn, versions, contexts, cs)
     return checks
+
+
+def _keep_solved_limits(conn: Connection, versions: list[Version],
+                        contexts: dict[int, VersionContext], cs: CheckSettings) -> None:
+    """Slope-chart limits solved tonight because those stored with a version were for other
+    settings (a version fitted before an upgrade, or a changed setting) are stored with it, so
+    the root search runs once per version and settings rather than every night. ``versions``
+    is updated in place for the blocks still to come."""
+    for i, version in enumerate(versions):
+        ctx = contexts.get(version.id)
+        if ctx is None or ctx.slope_chart is None:
+            continue
+        limits = slope_limits_of(ctx.slope_chart, cs)
+        if limits is None or version.baseline.slope_limits == limits:
+            continue
+        store_slope_limits(conn, version.id, limits)
+        versions[i] = version.with_slope_limits(limits)
 
 
 def carried_days(settings: CheckSettings) -> int:

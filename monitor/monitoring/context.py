@@ -164,7 +164,8 @@ def slope_limits_of(chart: SlopeChartDesign | None,
     if chart is None:
         return None
     return SlopeLimits(settings.slope_chart_step, settings.slope_chart_arl_days,
-                       settings.guarantee, tuple(float(h) for h in chart.h),
+                       settings.guarantee,
+                       tuple(float(h) if np.isfinite(h) else None for h in chart.h),
                        settings.slope_chart_small_step, settings.slope_chart_reference)
 
 

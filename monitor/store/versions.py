@@ -102,6 +102,19 @@ def insert_version(conn: Connection, model_id: int, draft: VersionDraft, *,
                    created_by=actor)
 
 
+def store_slope_limits(conn: Connection, version_id: int, limits: SlopeLimits) -> None:
+    """Keep slope-chart limits solved for the settings now in force with the version (they
+    are derived from its fit window and the settings alone; nothing of the fit changes)."""
+    row = conn.execute(select(versions.c.diagnostics)
+                       .where(versions.c.id == version_id)).first()
+    if row is None:
+        return
+    diagnostics = dict(row.diagnostics or {})
+    diagnostics["slope_limits"] = encode(limits)
+    conn.execute(update(versions).where(versions.c.id == version_id)
+                 .values(diagnostics=diagnostics))
+
+
 def get_version(conn: Connection, model_id: int, number: int, *,
                 model_name: str = "") -> Version:
     row = conn.execute(select(versions).where(versions.c.model_id == model_id,
