@@ -19,10 +19,13 @@ import pytest
 from sqlalchemy import Engine
 
 from monitor.alerts.service import send_night_alerts
+from monitor.domain.data_health import DataHealth
 from monitor.interface.status import model_statuses
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import promote
-from monitor.monitoring.data_health import data_health
+from monitor.monitoring.data_health import data_health, model_data_health, prefetch
+from monitor.store.models import get_model
+from monitor.store.versions import active_version
 from tests.support.mail import RecordingMailer
 from tests.support.world import (
     CALM,
@@ -70,6 +73,26 @@ def _nights(world: World, first: date, last: date, mailer: RecordingMailer) -> d
     return found
 
 
+def _read_first_agrees(world: World, day: date) -> DataHealth:
+    """The findings as of ``day`` read for the model alone, and read first for a whole night
+    as the digest reads them (with a model id that has nothing stored), are the same."""
+    now = night_after(day)
+    with world.engine.connect() as conn:
+        model = get_model(conn, MODEL)
+        version = active_version(conn, model.id)
+        check = world.settings.for_model(MODEL).check
+        zone = world.settings.timezone
+        alone = model_data_health(conn, model, check, version, through=day, now=now, zone=zone)
+        reads = prefetch(conn, [model.id, 987_654], through=day, now=now)
+        first = model_data_health(conn, model, check, version, through=day, now=now, zone=zone,
+                                  prefetched=reads)
+        with pytest.raises(ValueError, match="another day"):
+            model_data_health(conn, model, check, version, through=day - timedelta(days=1),
+                              now=now, zone=zone, prefetched=reads)
+    assert repr(first) == repr(alone)
+    return first
+
+
 # a feed that stops ------------------------------------------------------------------------------
 def test_a_feed_that_stops_is_flagged_mailed_and_reminded(engine: Engine, make_settings,
                                                           tmp_path: Path) -> None:
@@ -94,6 +117,7 @@ def test_a_feed_that_stops_is_flagged_mailed_and_reminded(engine: Engine, make_s
     (status,) = model_statuses(world.settings, now=night_after(date(2026, 3, 23)),
                                engine=engine)
     assert status.status == "ok" and status.data is not None and status.data.silent is not None
+    assert _read_first_agrees(world, date(2026, 3, 23)).silent is not None
     assert "the status judges the days through 2026-03-10, the last with rows" in (
         status.sentence())
     assert status.as_dict()["data_health"]["silent"]["flagged_on"] == date(2026, 3, 13)
@@ -222,6 +246,7 @@ def test_a_file_rejected_whole_reaches_status_the_digest_and_fail_on(
     assert "rejected whole" in status.sentence()
     (health,) = data_health(world.settings, now=night_after(date(2026, 3, 16)), engine=engine)
     assert health.stands
+    assert _read_first_agrees(world, date(2026, 3, 16)).stands
     # the corrected file under the same name clears the finding
     loads.to_csv(semi, index=False)
     world.ingest(semi, date(2026, 3, 16))
@@ -272,12 +297,13 @@ def test_a_rising_rejection_share_is_a_finding(engine: Engine, make_settings,
     for i, day in enumerate(_days(date(2026, 3, 9), date(2026, 3, 28))):  # 2 rows every other day
         _with_bad_rows(world, day, 0.025 if i % 2 else 0.0, 60 + i)
     (quiet,) = data_health(world.settings, now=night_after(date(2026, 3, 28)), engine=engine)
-    assert not quiet.stands
+    assert not quiet.stands and not _read_first_agrees(world, date(2026, 3, 28)).stands
     for i, day in enumerate(_days(date(2026, 3, 30), date(2026, 4, 4))):  # then 1 in 10
         _with_bad_rows(world, day, 0.10, 90 + i)
     (health,) = data_health(world.settings, now=night_after(date(2026, 4, 4)), engine=engine)
     rising = health.rising
     assert rising is not None and not health.bad_files and health.silent is None
+    assert _read_first_agrees(world, date(2026, 4, 4)).rising is not None
     assert 0.08 < rising.recent_share < 0.11 and 0.002 < rising.past_share < 0.01
     assert rising.pvalue < 1e-10
     assert rising.reasons[0].code == "not_a_number"

@@ -42,7 +42,6 @@ from monitor.alerts.compose import (
 )
 from monitor.alerts.mailer import DeliveryError, Mailer, mailer_for
 from monitor.alerts.news import (
-    Action,
     Digest,
     ModelNews,
     digests,
@@ -54,7 +53,7 @@ from monitor.domain.days import yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.version import Version
 from monitor.errors import StateError
-from monitor.monitoring.data_health import model_data_health
+from monitor.monitoring.data_health import Prefetched, model_data_health, prefetch
 from monitor.report.charts import ChartPanel, digest_chart_png
 from monitor.report.marks import load_marks
 from monitor.store import audit, queued_nights
@@ -123,10 +122,6 @@ class _Delivery:
 
 
 # deciding and queueing ------------------------------------------------------------------------
-def _actions(conn: Connection, model: ModelRecord, night: date) -> list[Action]:
-    return [a for a in audit.actions(conn, model.id, night) if a.effective_day == night]
-
-
 def _context(settings: Settings, model: ModelRecord, scoring: Version | None,
              candidates: Sequence[int]) -> ModelContext:
     ms = settings.for_model(model.name)
@@ -141,12 +136,13 @@ def _context(settings: Settings, model: ModelRecord, scoring: Version | None,
 
 
 def _data(settings: Settings, conn: Connection, model: ModelRecord, scoring: Version | None,
-          night: date, now: datetime) -> tuple[DataHealth, DataHealth | None]:
-    """The model's data findings as of the night (at ``now``) and, when any stand (only then
-    are they compared, :func:`data_is_news`), as of its previous digest."""
+          night: date, now: datetime, reads: Prefetched) -> tuple[DataHealth, DataHealth | None]:
+    """The model's data findings as of the night (at ``now``, read first for every model:
+    ``reads``) and, when any stand (only then are they compared, :func:`data_is_news`), as of
+    its previous digest."""
     ms = settings.for_model(model.name)
     data = model_data_health(conn, model, ms.check, scoring, through=night, now=now,
-                             zone=settings.timezone)
+                             zone=settings.timezone, prefetched=reads)
     if not data.stands:
         return data, None
     since = queued_nights.last_queued_at(conn, model.id, night)
@@ -172,15 +168,18 @@ def night_news(settings: Settings, conn: Connection, night: date, *, now: dateti
     earlier = last_checks_before(conn, night, {i: names[i] for i in tonight})
     scoring = versions_by_id(conn, (c.version_id for c in tonight.values()))
     candidates = candidates_by_model(conn, tonight)
+    taking_effect = audit.actions_on(conn, tonight, night)
+    reads = prefetch(conn, tonight, through=night, now=now)
     news, contexts = [], {}
     for model in models:
         check = tonight.get(model.id)
         if check is None:
             continue
         version = scoring.get(check.version_id)  # None once it is gone with its model
-        data, before = _data(settings, conn, model, version, night, now)
+        data, before = _data(settings, conn, model, version, night, now, reads)
         item = model_news(model.name, night, check, earlier.get(model.id),
-                          _actions(conn, model, night), settings.for_model(model.name).alerts,
+                          taking_effect.get(model.id, []),
+                          settings.for_model(model.name).alerts,
                           data=data, data_before=before, unseen_since=unseen_since)
         if item is None:
             continue

@@ -22,7 +22,8 @@ A few small queries per model (the batches of a year are one row per file); noth
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
 from zoneinfo import ZoneInfo
 
@@ -44,10 +45,20 @@ from monitor.ingest.reasons import REASONS, ranked
 from monitor.stats.rejection_rise import rejection_rise
 from monitor.stats.silence import WeekdayCalendar, silent_run
 from monitor.store.access import database
-from monitor.store.batches import BatchRecord, batches_between, first_rejected_row
+from monitor.store.batches import (
+    BatchRecord,
+    batches_between,
+    batches_between_for,
+    first_rejected_row,
+)
 from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
-from monitor.store.observations import days_with_rows, first_day_with_rows, last_day_with_rows
+from monitor.store.observations import (
+    days_with_rows,
+    first_day_with_rows,
+    last_day_with_rows,
+    last_days_with_rows,
+)
 from monitor.store.versions import active_version
 
 RECENT_DAYS = 7  # bad files are shown this long; the recent window of the rejection share
@@ -58,19 +69,47 @@ REASONS_SHOWN = 3
 STRICT_ONLY = "file_rejected"  # rows rejected only because a --strict file was
 
 
+@dataclass(frozen=True)
+class Prefetched:
+    """What the data findings of many models as of one ``through`` and ``now`` read first, for
+    all of them at once (a night's digest covers every model): the latest day with rows and
+    the batches of the last :data:`RECENT_DAYS`."""
+
+    through: date
+    now: datetime
+    last_rows: Mapping[int, date]
+    recent: Mapping[int, Sequence[BatchRecord]]
+
+
+def prefetch(conn: Connection, model_ids: Iterable[int], *, through: date,
+             now: datetime) -> Prefetched:
+    ids = list(model_ids)
+    return Prefetched(through, now, last_days_with_rows(conn, ids, through),
+                      batches_between_for(conn, ids, now - timedelta(days=RECENT_DAYS), now))
+
+
 def model_data_health(conn: Connection, model: ModelRecord, check: CheckSettings,
                       version: Version | None, *, through: date | None, now: datetime,
-                      zone: ZoneInfo) -> DataHealth:
-    """The data findings of ``model`` as of the day ``through`` and the instant ``now``."""
-    silent = (_silent_feed(conn, model, check, version, through)
-              if version is not None and through is not None else None)
-    recent = batches_between(conn, model.id, now - timedelta(days=RECENT_DAYS), now)
+                      zone: ZoneInfo, prefetched: Prefetched | None = None) -> DataHealth:
+    """The data findings of ``model`` as of the day ``through`` and the instant ``now``
+    (``prefetched``: read before for these same ``through`` and ``now``)."""
+    if prefetched is not None and (prefetched.through, prefetched.now) != (through, now):
+        raise ValueError("data read for another day or instant")
+    silent = None
+    if version is not None and through is not None:
+        last_rows = (prefetched.last_rows.get(model.id) if prefetched is not None
+                     else last_day_with_rows(conn, model, through))
+        silent = _silent_feed(conn, model, check, version, through, last_rows)
+    recent = (list(prefetched.recent.get(model.id, ())) if prefetched is not None
+              else batches_between(conn, model.id, now - timedelta(days=RECENT_DAYS), now))
     bad = [b for b in recent if _is_bad(b, check)]
     bad_ids = {b.id for b in bad}
-    past = batches_between(conn, model.id, now - timedelta(days=LONG_RUN_DAYS),
-                           now - timedelta(days=RECENT_DAYS))
-    rising = _rising(conn, [b for b in recent if b.id not in bad_ids],
-                     [b for b in past if not _is_bad(b, check)], check)
+    others = [b for b in recent if b.id not in bad_ids]
+    rising = None
+    if any(_bad_rows(b) > 0 for b in others):  # no rejected row recently: nothing can rise
+        past = batches_between(conn, model.id, now - timedelta(days=LONG_RUN_DAYS),
+                               now - timedelta(days=RECENT_DAYS))
+        rising = _rising(conn, others, [b for b in past if not _is_bad(b, check)], check)
     standing = [b for b in bad if not _corrected(b, recent, check)]
     return DataHealth(model.name, silent, tuple(_bad_file(conn, b, zone) for b in standing),
                       rising)
@@ -94,8 +133,7 @@ def data_health(settings: Settings, names: Sequence[str] | None = None, *,
 
 # a silent feed ----------------------------------------------------------------------------------
 def _silent_feed(conn: Connection, model: ModelRecord, check: CheckSettings, version: Version,
-                 through: date) -> SilentFeed | None:
-    last_rows = last_day_with_rows(conn, model, through)
+                 through: date, last_rows: date | None) -> SilentFeed | None:
     first = last_rows + timedelta(days=1) if last_rows else version.active_from
     if first is None or first > through:
         return None

@@ -3,6 +3,7 @@ which nightly work failed (action ``failure``); and which raw rows retention del
 
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Any
@@ -12,6 +13,7 @@ from sqlalchemy import Connection, insert, select
 
 from monitor.domain.action import RESTART_ACTIONS, Action
 from monitor.domain.days import local_day
+from monitor.store.engine import id_chunks
 from monitor.store.schema import audit_log, inserted_id, jsonable, models, versions
 
 ACTIONS = ("fit", "import", "promote", "rollback", "ack", "failure", "rename", "delete",
@@ -123,11 +125,28 @@ def actions(conn: Connection, model_id: int, from_day: date,
             zone: ZoneInfo | None = None) -> list[Action]:
     """The promotions, rollbacks and acknowledgements taking effect on ``from_day`` or later,
     in the order they were recorded (``zone``: the local day each was recorded on)."""
-    out = []
-    for e in entries(conn, model_id, RESTART_ACTIONS, from_day=from_day):
-        details = e.details or {}
-        assert e.effective_day is not None  # every restart action has one
-        out.append(Action(e.action, e.effective_day, e.actor, e.reason, details.get("version"),
-                          details.get("previous"), details.get("copy_of"),
-                          local_day(e.at, zone) if zone is not None else None))
+    return [_action(e, zone) for e in entries(conn, model_id, RESTART_ACTIONS,
+                                              from_day=from_day)]
+
+
+def actions_on(conn: Connection, model_ids: Iterable[int], day: date) -> dict[int, list[Action]]:
+    """The promotions, rollbacks and acknowledgements taking effect on ``day``, of many models
+    at once, by model id in the order they were recorded (models without any left out)."""
+    out: dict[int, list[Action]] = {}
+    for ids in id_chunks(model_ids):
+        rows = conn.execute(select(audit_log).where(
+            audit_log.c.model_id.in_(ids), audit_log.c.action.in_(list(RESTART_ACTIONS)),
+            audit_log.c.effective_day == day).order_by(audit_log.c.at, audit_log.c.id))
+        for r in rows:
+            entry = AuditEntry(**{k: r._mapping[k] for k in AuditEntry.__dataclass_fields__})
+            assert entry.model_id is not None
+            out.setdefault(entry.model_id, []).append(_action(entry, None))
     return out
+
+
+def _action(e: AuditEntry, zone: ZoneInfo | None) -> Action:
+    details = e.details or {}
+    assert e.effective_day is not None  # every restart action has one
+    return Action(e.action, e.effective_day, e.actor, e.reason, details.get("version"),
+                  details.get("previous"), details.get("copy_of"),
+                  local_day(e.at, zone) if zone is not None else None)

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from datetime import date, datetime
 
 from sqlalchemy import Connection, RowMapping, bindparam, literal_column, select
 
 from monitor.errors import NotFoundError
-from monitor.store.engine import driver_cursor
+from monitor.store.engine import driver_cursor, id_chunks
 from monitor.store.schema import batches, inserted_id, rejected_rows
 
 
@@ -101,6 +101,21 @@ def batches_between(conn: Connection, model_id: int, start: datetime,
         batches.c.model_id == model_id, batches.c.status != "open",
         batches.c.started_at >= start, batches.c.started_at <= end).order_by(batches.c.id))
     return [_record(row._mapping) for row in rows]
+
+
+def batches_between_for(conn: Connection, model_ids: Iterable[int], start: datetime,
+                        end: datetime) -> dict[int, list[BatchRecord]]:
+    """:func:`batches_between` of many models at once, by model id (models without any left
+    out)."""
+    out: dict[int, list[BatchRecord]] = {}
+    for ids in id_chunks(model_ids):
+        rows = conn.execute(select(batches).where(
+            batches.c.model_id.in_(ids), batches.c.status != "open",
+            batches.c.started_at >= start, batches.c.started_at <= end).order_by(batches.c.id))
+        for row in rows:
+            record = _record(row._mapping)
+            out.setdefault(int(row.model_id), []).append(record)
+    return out
 
 
 def first_rejected_row(conn: Connection, batch_ids: Sequence[int],

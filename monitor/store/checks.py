@@ -18,6 +18,7 @@ from sqlalchemy import Connection, and_, delete, func, insert, select
 from monitor.domain.check import CheckDetails, CheckState, DayCheck
 from monitor.domain.codec import decode, encode
 from monitor.domain.status import Status
+from monitor.store.engine import id_chunks
 from monitor.store.schema import day_checks, day_stats
 
 _COLUMNS = tuple(f.name for f in fields(DayCheck) if f.name != "model")
@@ -75,16 +76,12 @@ def last_check(conn: Connection, model_id: int, before: date | None = None,
     return _check(row, model) if row is not None else None
 
 
-_IN_CHUNK = 5000  # ids per IN list: well inside SQLite's and PostgreSQL's parameter limits
-
-
 def checks_on(conn: Connection, day: date, names: Mapping[int, str]) -> dict[int, DayCheck]:
     """The check of ``day`` of each model in ``names`` (id -> name) that has one, by id."""
-    ids = sorted(names)
     out: dict[int, DayCheck] = {}
-    for i in range(0, len(ids), _IN_CHUNK):
+    for ids in id_chunks(names):
         rows = conn.execute(select(day_checks).where(
-            day_checks.c.day == day, day_checks.c.model_id.in_(ids[i:i + _IN_CHUNK])))
+            day_checks.c.day == day, day_checks.c.model_id.in_(ids)))
         out.update((r.model_id, _check(r, names[r.model_id])) for r in rows)
     return out
 
@@ -93,12 +90,10 @@ def last_checks_before(conn: Connection, day: date,
                        names: Mapping[int, str]) -> dict[int, DayCheck]:
     """Each model's latest check before ``day`` (what :func:`last_check` gives one model), by
     id, for the models in ``names`` that have one: one query per chunk of models."""
-    ids = sorted(names)
     out: dict[int, DayCheck] = {}
-    for i in range(0, len(ids), _IN_CHUNK):
+    for ids in id_chunks(names):
         latest = (select(day_checks.c.model_id, func.max(day_checks.c.day).label("day"))
-                  .where(day_checks.c.day < day,
-                         day_checks.c.model_id.in_(ids[i:i + _IN_CHUNK]))
+                  .where(day_checks.c.day < day, day_checks.c.model_id.in_(ids))
                   .group_by(day_checks.c.model_id).subquery())
         rows = conn.execute(select(day_checks).join(latest, and_(
             day_checks.c.model_id == latest.c.model_id, day_checks.c.day == latest.c.day)))

@@ -15,7 +15,7 @@ from __future__ import annotations
 import logging
 import os
 import sqlite3
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -330,3 +330,13 @@ def _first_line(exc: BaseException) -> str:
 def db_error(engine: Engine, exc: SQLAlchemyError) -> DatabaseError:
     cause = getattr(exc, "orig", None) or exc
     return DatabaseError(f"database error ({describe_url(engine.url)}): {_first_line(cause)}")
+
+
+IN_CHUNK = 5000  # ids per IN list: well inside SQLite's and PostgreSQL's parameter limits
+
+
+def id_chunks(ids: Iterable[int]) -> Iterator[list[int]]:
+    """The distinct ``ids``, sorted, in lists of at most :data:`IN_CHUNK` (an IN list each)."""
+    wanted = sorted(set(ids))
+    for i in range(0, len(wanted), IN_CHUNK):
+        yield wanted[i:i + IN_CHUNK]

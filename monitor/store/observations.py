@@ -8,7 +8,7 @@ the tuples the driver itself needs.
 from __future__ import annotations
 
 import json
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
 from typing import Any
@@ -32,7 +32,7 @@ from sqlalchemy.sql.compiler import SQLCompiler
 from monitor.domain.model import ModelRecord
 from monitor.errors import StateError
 from monitor.stats.moments import DayMoments, Moments
-from monitor.store.engine import driver_cursor
+from monitor.store.engine import driver_cursor, id_chunks
 from monitor.store.schema import (
     UtcDateTime,
     day_checks,
@@ -194,6 +194,19 @@ def last_day_with_rows(conn: Connection, model: ModelRecord, through: date) -> d
     return conn.execute(select(func.max(day_stats.c.day)).where(
         day_stats.c.model_id == model.id, day_stats.c.n > 0,
         day_stats.c.day <= through)).scalar()
+
+
+def last_days_with_rows(conn: Connection, model_ids: Iterable[int],
+                        through: date) -> dict[int, date]:
+    """:func:`last_day_with_rows` of many models at once, by id (models without one left
+    out)."""
+    out: dict[int, date] = {}
+    for ids in id_chunks(model_ids):
+        rows = conn.execute(select(day_stats.c.model_id, func.max(day_stats.c.day)).where(
+            day_stats.c.model_id.in_(ids), day_stats.c.n > 0, day_stats.c.day <= through)
+            .group_by(day_stats.c.model_id))
+        out.update((int(model_id), day) for model_id, day in rows)
+    return out
 
 
 def last_observed_at(conn: Connection, model: ModelRecord) -> datetime | None:

@@ -31,6 +31,7 @@ from monitor.errors import NotFoundError
 from monitor.stats.day_effects import DayEffects
 from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
+from monitor.store.engine import id_chunks
 from monitor.store.schema import inserted_id, versions
 
 _ARRAYS = ("coefficients", "std_errors", "covariance", "xmean", "slope_inverse", "x_min", "x_max")
@@ -142,21 +143,19 @@ def list_versions(conn: Connection, model_id: int) -> list[Version]:
 
 def versions_by_id(conn: Connection, ids: Iterable[int]) -> dict[int, Version]:
     """The stored versions with these ids, by id (ids no longer stored are left out)."""
-    wanted = sorted(set(ids))
     out: dict[int, Version] = {}
-    for i in range(0, len(wanted), 5000):
-        rows = conn.execute(select(versions).where(versions.c.id.in_(wanted[i:i + 5000])))
+    for chunk in id_chunks(ids):
+        rows = conn.execute(select(versions).where(versions.c.id.in_(chunk)))
         out.update((r.id, _version(r)) for r in rows)
     return out
 
 
 def candidates_by_model(conn: Connection, model_ids: Iterable[int]) -> dict[int, list[int]]:
     """Each model's candidate version numbers, oldest first (models without any left out)."""
-    wanted = sorted(set(model_ids))
     out: dict[int, list[int]] = {}
-    for i in range(0, len(wanted), 5000):
+    for chunk in id_chunks(model_ids):
         rows = conn.execute(select(versions.c.model_id, versions.c.number).where(
-            versions.c.model_id.in_(wanted[i:i + 5000]),
+            versions.c.model_id.in_(chunk),
             versions.c.state == VersionState.CANDIDATE.value).order_by(versions.c.number))
         for model_id, number in rows:
             out.setdefault(model_id, []).append(number)

@@ -1,22 +1,26 @@
 """The reads that serve many models at once agree with the one-model reads they replace.
 
 Reference: the one-model functions of the same modules (``load_checks``, ``last_check``,
-``version_by_id``, ``list_versions``), on both backends; an id with nothing stored is left out.
+``version_by_id``, ``list_versions``, ``last_day_with_rows``, ``batches_between``,
+``audit.actions``), on both backends; an id with nothing stored is left out.
 Records are compared by ``repr``: they hold NaN figures and numpy arrays, which ``==`` does not
 take as equal to themselves.
 """
 
 from __future__ import annotations
 
-from datetime import date, timedelta
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 
 import pytest
 from sqlalchemy import Engine
 
 from monitor.domain.version import VersionState
+from monitor.store import audit
+from monitor.store.batches import batches_between, batches_between_for
 from monitor.store.checks import checks_on, last_check, last_checks_before, load_checks
 from monitor.store.models import get_model
+from monitor.store.observations import last_day_with_rows, last_days_with_rows
 from monitor.store.versions import (
     candidates_by_model,
     list_versions,
@@ -71,3 +75,33 @@ def test_versions_by_id_and_candidates_agree_with_one_model_reads(world: World) 
         candidates = candidates_by_model(conn, [model.id, NOBODY])
         assert candidates == {model.id: [v.number for v in versions
                                          if v.state == VersionState.CANDIDATE]}
+
+
+def test_days_with_rows_batches_and_actions_agree_with_one_model_reads(world: World) -> None:
+    with world.engine.connect() as conn:
+        model = get_model(conn, MODEL)
+        ids = [model.id, NOBODY]
+        for day in (date(2026, 1, 4), date(2026, 3, 8), date(2026, 3, 15), LAST_DAY):
+            one = last_day_with_rows(conn, model, day)
+            assert last_days_with_rows(conn, ids, day) == ({model.id: one} if one else {})
+        for start, end in ((datetime(2026, 1, 1, tzinfo=UTC), datetime(2026, 5, 1, tzinfo=UTC)),
+                           (datetime(2026, 3, 10, tzinfo=UTC), datetime(2026, 3, 20, tzinfo=UTC)),
+                           (datetime(2027, 1, 1, tzinfo=UTC), datetime(2027, 2, 1, tzinfo=UTC))):
+            one_model = batches_between(conn, model.id, start, end)
+            many = batches_between_for(conn, ids, start, end)
+            assert repr(many) == repr({model.id: one_model} if one_model else {})
+        # a promotion and an acknowledgement, recorded and rolled back
+        conn.rollback()  # end the reads' implicit transaction
+        trans = conn.begin()
+        at = datetime(2026, 4, 12, 20, tzinfo=UTC)
+        for action, day in (("promote", LAST_DAY), ("ack", LAST_DAY),
+                            ("ack", LAST_DAY + timedelta(days=1))):
+            audit.record(conn, action=action, actor="test", at=at, model_id=model.id,
+                         effective_day=day, details={"version": 2})
+        for day in (LAST_DAY, LAST_DAY + timedelta(days=1), LAST_DAY + timedelta(days=2)):
+            expected = [a for a in audit.actions(conn, model.id, day) if a.effective_day == day]
+            found = audit.actions_on(conn, ids, day)
+            assert found == ({model.id: expected} if expected else {})
+        assert [a.action for a in audit.actions_on(conn, ids, LAST_DAY)[model.id]] == [
+            "promote", "ack"]
+        trans.rollback()
