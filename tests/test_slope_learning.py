@@ -62,3 +62,34 @@ def test_the_reference_learns_in_control_days_and_stops_at_the_refit() -> None:
     assert len(set(later)) == 1  # no day learned after the refit (none acknowledged here)
     assert later[0] <= in_control[-1].state.learning.slope_days + (first_refit.day
                                                                    - change_day).days
+
+
+def test_two_predictors_chart_four_lanes_and_name_the_one_that_moved() -> None:
+    """Two predictors and two lanes each: the chart steps on four lanes, and a 20 % steeper
+    second slope is what leads it when the refit comes (the first stays as fitted)."""
+    rng = np.random.default_rng(0)
+    spec = ModelSpec("dock", "load_minutes", ("pallets", "crates"), "docked_at")
+    fit_days, calm, changed, n = 30, 20, 30, 120
+    stamps, xs, ys = [], [], []
+    for d in range(fit_days + calm + changed):
+        x = np.column_stack([rng.uniform(4, 30, n), rng.uniform(0, 40, n)])
+        second = 0.8 * (1.2 if d >= fit_days + calm else 1.0)
+        y = 9 + 2.1 * x[:, 0] + second * x[:, 1] + 2.5 * rng.standard_normal() \
+            + 5 * rng.standard_normal(n)
+        stamps.append(np.full(n, np.datetime64(START + timedelta(days=d), "D")))
+        xs.append(x)
+        ys.append(y)
+    settings = Settings().for_model("dock")
+    _, version, checks = replay_arrays(spec, settings, np.concatenate(stamps),
+                                       np.concatenate(xs), np.concatenate(ys),
+                                       START + timedelta(days=fit_days - 1),
+                                       now=datetime(2030, 1, 1, tzinfo=UTC))
+    assert version.baseline.slope_limits is not None
+    assert len(version.baseline.slope_limits.array()) == 4  # 2 predictors x 2 lanes
+    change_day = START + timedelta(days=fit_days + calm)
+    assert all(c.status != Status.REFIT for c in checks if c.day < change_day)
+    first_refit = next(c for c in checks if c.status == Status.REFIT)
+    assert first_refit.day >= change_day
+    chart = first_refit.details.slope_chart
+    assert chart is not None and chart.predictor == 1 and chart.upward
+    assert chart.value > chart.h

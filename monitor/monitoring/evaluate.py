@@ -335,7 +335,7 @@ def _step_slope_chart(ctx: VersionContext, carry: Carry, data: DayInput
     up, lo = advance(up0, lo0, step)
     h = np.asarray(design.h)
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratios = np.where(np.isfinite(h), np.column_stack([up, lo]) / h[:, None], 0.0)
+        ratios = np.where(np.isfinite(h)[:, None], np.column_stack([up, lo]) / h[:, None], 0.0)
     j, side = np.unravel_index(int(np.argmax(ratios)), ratios.shape)
     value = (up, lo)[side][j]
     was = (up0, lo0)[side][j]
