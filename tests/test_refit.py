@@ -434,6 +434,7 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
     chart = view.as_dict()["slope_chart"]
     assert chart["reference"] == "learning" and chart["learned_days"] == slope_days[-1]
     assert len(chart["h"]) == 2 and chart["lane_steps"] == [0.10, 0.05]
+    assert "(tuned to 10 %), " in view.text() and "(tuned to 5 %);" in view.text()
     assert (f"its reference has learned the slopes of {slope_days[-1]} checked day(s) on top "
             "of the fit window's; learning") in view.text()
 

@@ -107,9 +107,11 @@ class VersionView:
                 lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
         chart = d["slope_chart"]
         if chart is not None:
-            lanes = ", ".join(f"{fmt(h, 3) if h is not None else 'none'} (tuned to "
-                              f"{percent(step)})" for h, step in zip(
-                                  chart["h"], chart["lane_steps"], strict=True))
+            several = len(set(chart["lane_predictors"])) > 1
+            lanes = ", ".join(f"{fmt(h, 3) if h is not None else 'none'} ("
+                              f"{name + ', ' if several else ''}tuned to {percent(step)})"
+                              for h, step, name in zip(chart["h"], chart["lane_steps"],
+                                                       chart["lane_predictors"], strict=True))
             lines.append(f"  within-day slope chart limits {lanes}; at least "
                          f"{fmt(chart['target_arl'], 4)} days between false alarms")
             lines.append("  " + self.slope_learning_text(chart))
