@@ -80,13 +80,11 @@ def glr_path(z: np.ndarray, r: float, window: int) -> np.ndarray:
 
 
 def cusum_path(z: np.ndarray, r: float) -> np.ndarray:
-    """W_t of the rule for a known step (``a_j = r``): Page's CUSUM of ``r z - r²/2``."""
-    out = np.empty(len(z))
-    w = 0.0
-    for t, inc in enumerate((r * z - 0.5 * r * r).tolist()):
-        w = max(w, 0.0) + inc
-        out[t] = w
-    return out
+    """W_t of the rule for a known step (``a_j = r``): Page's CUSUM of ``r z - r²/2``,
+    ``W_t = max(W_{t-1}, 0) + inc_t``, written without a loop as ``C_t - min_{s<t} C_s`` over
+    the partial sums ``C`` (with ``C_0 = 0``)."""
+    c = np.concatenate([[0.0], np.cumsum(r * z - 0.5 * r * r)])
+    return c[1:] - np.minimum.accumulate(c)[:-1]
 
 
 def path(z: np.ndarray, r: float, step: bool) -> np.ndarray:
