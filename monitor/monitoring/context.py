@@ -27,14 +27,14 @@ from monitor.stats.calibration import (
     self_starts,
     shock_persistence,
 )
-from monitor.stats.day_effects import day_residuals
+from monitor.stats.day_effects import DayEffects, day_residuals
 from monitor.stats.diagnosis import MAX_PERSISTENCE, FitDiagnosis
-from monitor.stats.misses import GuardedMissLaw, spread_uncertainty
+from monitor.stats.misses import GuardedMissLaw, chi2_scales, spread_scales
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.persistent_misses import PersistentMissLaw
 from monitor.stats.prediction import PredictionModel
-from monitor.stats.self_start import level_of
+from monitor.stats.self_start import learned_effects, level_of
 from monitor.stats.within_slope import SlopeChartDesign, design_slope_chart
 
 FloatArray = NDArray[np.float64]
@@ -59,6 +59,7 @@ class VersionContext:
     rhythm: tuple[float, ...] | None = None  # Mon..Sun offsets the bias chart subtracts
     learn_base: Moments | None = None  # self-starting: the fit window's day mean residuals
     learn_until: int = 0  # self-starting: learn until the level counts this many days
+    effects: DayEffects | None = None  # the fit window's day effects (the coverage law's spread)
     k: float = 0.5
     target_arl: float = 1000.0
     guarantee: float = 0.95
@@ -79,6 +80,23 @@ class VersionContext:
         if days < self.learn_until:  # learning, or paused by a refit that stands
             return self.h
         return frozen_limit(self.k, self.target_arl, self.guarantee, days)
+
+    def miss_law(self, state: CheckState) -> PersistentMissLaw:
+        """The coverage law on a day that starts from ``state``: the fit window's, except for a
+        self-starting version that has learned days. Two weeks pin the day-to-day spread down
+        loosely, and a fit that happened to underestimate it would make the coverage test cry
+        wolf for as long as the version stands; such a version re-estimates the spread with the
+        days it learned (:func:`monitor.stats.self_start.learned_effects`), and the guaranteed
+        bound narrows with them. It learns only what the level learns: in-control days, up to
+        ``learn_until``, none after a sign of change."""
+        learned = state.learning.level
+        if self.learn_base is None or self.effects is None or learned.n == 0:
+            return self.misses
+        effects = learned_effects(self.effects, self.learn_base, learned)
+        law = GuardedMissLaw.around(effects.tau2, effects.sigma_w2,
+                                    self.misses.base.wide.half_width,
+                                    spread_scales(effects, self.guarantee, self.misses.phi))
+        return PersistentMissLaw(law, self.misses.phi)
 
     @classmethod
     def build(cls, version: Version, settings: CheckSettings) -> VersionContext:
@@ -113,18 +131,12 @@ class VersionContext:
         half_width = model.critical_value(version.level) * model.s
         phi_a = shock_persistence(_guarded_persistence(design, settings.guarantee), design.tau2,
                                   design.sigma_w2, design.counts)
-        if effects is not None:
-            # persistent shocks make the spread's estimate less certain: the variance of a
-            # sample variance of an AR(1) series is (1 + phi²)/(1 - phi²) times larger
-            # (Bartlett 1946, from memory)
-            inflate = np.sqrt((1 + phi_a**2) / (1 - phi_a**2))
+        if effects is not None:  # persistent shocks leave fewer independent days to learn from
             misses = GuardedMissLaw.around(effects.tau2, effects.sigma_w2, half_width,
-                                           spread_uncertainty(effects) * inflate,
-                                           settings.guarantee)
+                                           spread_scales(effects, settings.guarantee, phi_a))
         else:  # fitted elsewhere: the day effects given at import, else none
             misses = GuardedMissLaw.around(design.tau2, design.sigma_w2, half_width,
-                                           1.0 / np.sqrt(2.0 * version.line.dof),
-                                           settings.guarantee)
+                                           chi2_scales(version.line.dof, settings.guarantee))
         slope_chart = None
         if base.reference is not None:
             slope_chart = slope_chart_of(reference, base.diagnosis, settings, base.slope_limits)
@@ -136,7 +148,8 @@ class VersionContext:
                    dispersion=base.dispersion or 1.0,
                    misses=PersistentMissLaw(misses, phi_a),
                    first_recent_day=first_recent, slope_chart=slope_chart, rhythm=rhythm,
-                   learn_base=learn_base, learn_until=learn_until, k=settings.cusum_k,
+                   learn_base=learn_base, learn_until=learn_until, effects=effects,
+                   k=settings.cusum_k,
                    target_arl=settings.cusum_arl_days, guarantee=settings.guarantee)
 
 

@@ -97,8 +97,8 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     recent_cov = tuple(c for c in carried if (data.day - c.day).days < window)
     w_rows = sum(c.rows for c in recent_cov)
     w_cov = sum(c.covered for c in recent_cov)
-    cov = (ctx.misses.test([c.rows for c in recent_cov], w_cov, level, ctx.dispersion)
-           if w_rows else None)
+    law = ctx.miss_law(carry.state)
+    cov = law.test([c.rows for c in recent_cov], w_cov, level, ctx.dispersion) if w_rows else None
     window_first, window_held = coverage_span(data.day, window, carry.fresh_from)
     window_version = (ctx.version.number if carry.fresh_from is not None
                       and carry.fresh_from == ctx.version.active_from else None)

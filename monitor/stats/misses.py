@@ -5,12 +5,12 @@ shared by the day's rows, the row's own noise ``w ~ N(0, sigma_w²)`` and the in
 ``c = t · s``. Given the shock, a day's misses are binomial; over shocks they are a mixture,
 computed with Gauss–Hermite quadrature (Abramowitz & Stegun 25.4.46); a window's misses are the
 convolution of its days. The parameters come from the fit window and are themselves estimates:
-the true spread may be a factor ``r`` off, ``log r ~ N(0, sd²)`` with ``sd`` from
-:func:`spread_uncertainty`. As for the bias chart's limit (Gandy & Kvaløy 2013), the law is
-taken at ``r = exp(z_g · sd)``, the ``g`` quantile (``guaranteed_scale``): a test built on it
-holds its level for at least a share ``g`` of the fit windows one could have drawn, rather than
-only on average over them (with ``r = 1`` a fit that happened to underestimate the day-to-day
-spread would make the coverage test cry wolf for as long as it stays active).
+the true spread may be a factor ``r`` off. As for the bias chart's limit (Gandy & Kvaløy
+2013), the law is taken at ``r``'s one-sided ``g`` confidence bound (:func:`spread_scales`): a
+test built on it holds its level for at least a share ``g`` of the fit windows one could have
+drawn, rather than only on average over them (with ``r = 1`` a fit that happened to
+underestimate the day-to-day spread would make the coverage test cry wolf for as long as it
+stays active).
 
 Why not the quasi-binomial tail alone: with day effects the window's miss count is skewed, and
 at the 0.1 % level the quasi-binomial test rejects about 3.5 times too often even with exact
@@ -341,11 +341,13 @@ class GuardedMissLaw:
     narrow: MissLaw
 
     @classmethod
-    def around(cls, tau2: float, sigma_w2: float, half_width: float, log_sd: float,
-               guarantee: float) -> GuardedMissLaw:
-        scale = guaranteed_scale(log_sd, guarantee)
-        return cls(MissLaw(tau2, sigma_w2, half_width, scale),
-                   MissLaw(tau2, sigma_w2, half_width, 1.0 / scale))
+    def around(cls, tau2: float, sigma_w2: float, half_width: float,
+               scales: tuple[float, float]) -> GuardedMissLaw:
+        """The law at the spread scales ``(wide, narrow)`` of :func:`spread_scales` (or
+        :func:`chi2_scales`)."""
+        wide, narrow = scales
+        return cls(MissLaw(tau2, sigma_w2, half_width, wide),
+                   MissLaw(tau2, sigma_w2, half_width, narrow))
 
     def test(self, day_rows: ArrayLike, covered: int, target: float, dispersion: float = 1.0,
              level: float = 0.95) -> CoverageTest:
@@ -354,28 +356,53 @@ class GuardedMissLaw:
         return replace(low, pvalue_high=high.pvalue_high)
 
 
-def guaranteed_scale(log_sd: float, guarantee: float) -> float:
-    """``r`` such that the true spread is at most ``r`` times the estimate with probability
-    ``guarantee``, when ``log(true / estimate) ~ N(0, log_sd²)`` (see
-    :func:`spread_uncertainty`; for independent rows ``log_sd = 1 / sqrt(2 dof)``)."""
+MIN_NARROW = 0.05  # the narrow scale's floor (a lower bound of zero spread tests nothing)
+
+
+def spread_scales(effects: DayEffects, guarantee: float, persistence: float = 0.0
+                  ) -> tuple[float, float]:
+    """``(wide, narrow)``: the true total spread ``sqrt(tau² + sigma_w²)`` is at most ``wide``
+    times its estimate, and at least ``narrow`` times it, each with probability ``guarantee``.
+
+    The total variance is a positive combination of the ANOVA mean squares,
+    ``theta = E[MSB]/n0 + (1 - 1/n0) E[MSW]``, with ``MSB`` on ``G - 1`` and ``MSW`` on ``N - G``
+    degrees of freedom. Its one-sided bounds are the modified large-sample bounds of Graybill &
+    Wang (1980, *JASA* 75, 869-873; Burdick & Graybill 1992, *Confidence Intervals on Variance
+    Components*, §3.2; from memory): with ``c = (1/n0, 1 - 1/n0)``, ``S = (MSB, MSW)``,
+
+        U = theta_hat + sqrt(Σ (c_q S_q H_q)²),   H_q = df_q / χ²_{1-g}(df_q) - 1,
+        L = theta_hat - sqrt(Σ (c_q S_q G_q)²),   G_q = 1 - df_q / χ²_{g}(df_q),
+
+    exact for a single mean square and close to the nominal level otherwise (checked by
+    simulation in tests/stats/test_misses.py). A bound computed from a normal law of the log of
+    the estimate, with its sd itself estimated, held only about 88 % instead of 95 % for two
+    weeks of days: an underestimated day-to-day spread also underestimates its own
+    uncertainty. ``persistence``: the lag-1 correlation of the day shocks, which leaves fewer
+    independent days behind ``MSB`` (``df (1 - phi²)/(1 + phi²)``, Bartlett 1946, from memory).
+    """
     if not 0 < guarantee < 1:
         raise ValueError(f"the guarantee is a probability in (0, 1); got {guarantee}")
-    return float(np.exp(tails.norm_ppf(guarantee) * log_sd))
-
-
-def spread_uncertainty(effects: DayEffects) -> float:
-    """Standard deviation of ``log`` of the estimated total spread ``sqrt(tau² + sigma_w²)``.
-
-    From the ANOVA estimators' sampling laws under normality (Searle, Casella & McCulloch
-    1992, §3.5): ``MSW ~ sigma_w² χ²(N-G)/(N-G)``, ``MSB ~ (sigma_w² + n0 tau²) χ²(G-1)/(G-1)``
-    and ``tau² + sigma_w² = MSB/n0 + MSW (1 - 1/n0)``; delta method for the logarithm.
-    """
     g, n = effects.n_days, effects.n_rows
-    total = effects.tau2 + effects.sigma_w2
-    if g < 2 or n <= g or total <= 0:
-        return 0.0
+    theta = effects.tau2 + effects.sigma_w2
+    if g < 2 or n <= g or theta <= 0:
+        return 1.0, 1.0
     n0 = effects.n0
-    msb = effects.sigma_w2 + n0 * effects.tau2
-    var = (2 * msb**2 / ((g - 1) * n0**2)
-           + (1 - 1 / n0) ** 2 * 2 * effects.sigma_w2**2 / (n - g))
-    return float(np.sqrt(var) / (2 * total))
+    phi2 = min(max(persistence, 0.0), 0.99) ** 2
+    df = np.array([(g - 1) * (1 - phi2) / (1 + phi2), float(n - g)])
+    parts = np.array([effects.ms_between / n0, (1 - 1 / n0) * effects.ms_within])
+    high = df / tails.chi2_ppf(1 - guarantee, df) - 1
+    low = 1 - df / tails.chi2_ppf(guarantee, df)
+    upper = theta + float(np.sqrt(np.sum((parts * high) ** 2)))
+    lower = theta - float(np.sqrt(np.sum((parts * low) ** 2)))
+    return float(np.sqrt(upper / theta)), float(np.sqrt(max(lower / theta, MIN_NARROW**2)))
+
+
+def chi2_scales(dof: float, guarantee: float) -> tuple[float, float]:
+    """``(wide, narrow)`` of :func:`spread_scales` for a spread estimated from ``dof``
+    independent rows alone: the chi-square bounds of a variance (``s² dof / σ² ~ χ²(dof)``)."""
+    if not 0 < guarantee < 1:
+        raise ValueError(f"the guarantee is a probability in (0, 1); got {guarantee}")
+    if not dof > 0:
+        return 1.0, 1.0
+    return (float(np.sqrt(dof / tails.chi2_ppf(1 - guarantee, dof))),
+            float(np.sqrt(dof / tails.chi2_ppf(guarantee, dof))))

@@ -18,12 +18,13 @@ reaches the configured window.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from monitor.stats import tails
+from monitor.stats.day_effects import DayEffects
 from monitor.stats.moments import Moments
 
 Q_BOUND = 37.5  # |Q| beyond which the tail probability underflows a double (Φ(-37.5) ≈ 5e-308)
@@ -56,6 +57,38 @@ def q_value(level: Moments, value: float) -> float | None:
     else:
         q = float(tails.norm_ppf(tails.t_cdf(t, n - 1)))
     return float(np.clip(q, -Q_BOUND, Q_BOUND)) if not math.isnan(q) else 0.0
+
+
+def learned_effects(effects: DayEffects, base: Moments, level: Moments) -> DayEffects:
+    """The fit window's day effects with the day-to-day spread re-estimated from the learned days.
+
+    A day's mean residual varies by ``tau² + sigma_w²/n_d`` around the level, so the variance of
+    the day means grows by the same amount as ``tau²`` when days are added. The fit window's
+    between-day mean square is moved by ``n0`` times the change in that variance when the
+    learned day means (``level``) join the fit window's (``base``):
+
+        MSB_new = MSB_fit + n0 (var(base ∪ level) - var(base)),
+        tau²_new = max(0, (MSB_new - MSW_fit) / n0),
+
+    on ``G_fit + G_learned - 1`` degrees of freedom. With no learned day this is the fit window's
+    ANOVA; with equally many rows every day it is the ANOVA of all the days but for the
+    within-day mean square, which stays the fit window's (its rows pin it down well, and the
+    spread test watches it). As learned days outnumber fit days, the fit window's own sampling
+    error cancels (``MSB_fit/n0 - var(base)`` is about ``-MSW/n0``, nearly free of its shocks).
+    Rows are counted at the fit window's rows per day (one-way random-effects ANOVA, Searle,
+    Casella & McCulloch 1992, §3.5; the update is common practice, no source).
+    """
+    if level.n == 0 or base.n < 2:
+        return effects
+    both = base.merge(level)
+    var_base = float(base.comoment[0, 0]) / (base.n - 1)
+    var_both = float(both.comoment[0, 0]) / (both.n - 1)
+    msb = max(effects.ms_between + effects.n0 * (var_both - var_base), 0.0)
+    rows_per_day = effects.n_rows / effects.n_days if effects.n_days else 1.0
+    days = effects.n_days + level.n
+    return replace(effects, tau2=max(0.0, (msb - effects.ms_within) / effects.n0),
+                   ms_between=msb, n_days=days,
+                   n_rows=max(round(rows_per_day * days), days + 1))
 
 
 @dataclass(frozen=True, eq=False)

@@ -58,3 +58,76 @@ def test_q_values_of_normal_data_are_standard_normal_from_the_first_day() -> Non
         assert stats.kstest(qs[:, j], "norm").pvalue > 0.01
     lag1 = np.corrcoef(qs[:, :-1].ravel(), qs[:, 1:].ravel())[0, 1]
     assert abs(lag1) < 4 / np.sqrt(qs.size)
+
+
+def _days(rng: np.random.Generator, days: int, rows: int, tau: float, sigma: float
+          ) -> tuple[np.ndarray, np.ndarray]:
+    """Residuals of ``days`` days of ``rows`` rows sharing a day shock (one-way random effects)."""
+    shocks = tau * rng.standard_normal(days)
+    values = shocks[:, None] + sigma * rng.standard_normal((days, rows))
+    return values, np.repeat(np.arange(days), rows)
+
+
+def test_learned_spread_is_the_anova_estimate_of_all_days_with_the_fit_within_variance() -> None:
+    # Reference: statsmodels' one-way ANOVA (anova_lm of OLS on the day as a factor) over the
+    # fit days and the learned days together. With equal rows per day the ANOVA estimate is
+    # tau² = (MSB - MSW)/n (Searle, Casella & McCulloch 1992, §3.5); the learned estimate keeps
+    # the fit window's MSW, so it must equal (MSB_all - MSW_fit)/n exactly.
+    import pandas as pd
+
+    from monitor.stats.day_effects import day_effects
+    from monitor.stats.self_start import learned_effects
+
+    rng = np.random.default_rng(7)
+    fit, learned_days, rows = 14, 26, 40
+    values, day = _days(rng, fit + learned_days, rows, tau=1.5, sigma=3.0)
+    means = values.mean(axis=1)
+    within = ((values - means[:, None]) ** 2).sum(axis=1)
+    effects = day_effects(np.full(fit, rows), means[:fit], within[:fit])
+    base = level_of(means[:fit])
+    level = level_of([])
+    for m in means[fit:]:
+        level = learned(level, float(m))
+    new = learned_effects(effects, base, level)
+
+    frame = pd.DataFrame({"r": values.ravel(), "day": day.astype(str)})
+    table = sm.stats.anova_lm(sm.OLS.from_formula("r ~ C(day)", frame).fit())
+    msb = table.loc["C(day)", "mean_sq"]
+    assert new.tau2 == pytest.approx((msb - effects.sigma_w2) / rows, rel=1e-9)
+    assert new.sigma_w2 == effects.sigma_w2
+    assert (new.n_days, new.n_rows) == (fit + learned_days, (fit + learned_days) * rows)
+    # nothing learned: the fit window's own estimate, unchanged
+    assert learned_effects(effects, base, level_of([])) is effects
+
+
+def test_learned_spread_holds_the_guarantee_and_comes_closer_to_the_truth() -> None:
+    # The bounds of monitor.stats.misses.spread_scales must hold for at least a share g of the
+    # windows (their definition) also when the spread is re-estimated with learned days:
+    # P(true total spread <= wide x estimate) >= g. Checked by simulation, 1500 windows of 14
+    # fit days and 26 learned days, 60 rows a day, day shocks a third of the total variance; 4
+    # binomial sd of slack. The learned estimate must also be closer to the truth (its log
+    # error's sd at most 3/4 of the fit window's; sqrt(14/40) = 0.59 in theory).
+    from monitor.stats.day_effects import day_effects
+    from monitor.stats.misses import spread_scales
+    from monitor.stats.self_start import learned_effects
+
+    rng = np.random.default_rng(11)
+    fit, more, rows, tau, sigma, g = 14, 26, 60, 2.0, np.sqrt(8.0), 0.95
+    truth = np.hypot(tau, sigma)
+    runs = 1500
+    held = {"fit": 0, "learned": 0}
+    errors: dict[str, list[float]] = {"fit": [], "learned": []}
+    for _ in range(runs):
+        values, _ = _days(rng, fit + more, rows, tau, sigma)
+        means = values.mean(axis=1)
+        within = ((values - means[:, None]) ** 2).sum(axis=1)
+        effects = day_effects(np.full(fit, rows), means[:fit], within[:fit])
+        new = learned_effects(effects, level_of(means[:fit]), level_of(means[fit:]))
+        for name, e in (("fit", effects), ("learned", new)):
+            estimate = np.sqrt(e.tau2 + e.sigma_w2)
+            held[name] += truth <= spread_scales(e, g)[0] * estimate
+            errors[name].append(float(np.log(estimate / truth)))
+    slack = 4 * np.sqrt(g * (1 - g) / runs)
+    assert held["learned"] / runs >= g - slack
+    assert held["fit"] / runs >= g - slack
+    assert np.std(errors["learned"]) < 0.75 * np.std(errors["fit"])
