@@ -15,6 +15,7 @@ from enum import StrEnum
 import numpy as np
 from numpy.typing import NDArray
 
+from monitor.domain.version_state import VersionState
 from monitor.stats.calibration import Calibration
 from monitor.stats.day_effects import DayEffects
 from monitor.stats.diagnosis import FitDiagnosis
@@ -22,12 +23,6 @@ from monitor.stats.moments import DayMoments
 from monitor.stats.prediction import PredictionModel
 
 FloatArray = NDArray[np.float64]
-
-
-class VersionState(StrEnum):
-    ACTIVE = "active"  # scores the model's days now
-    CANDIDATE = "candidate"  # fitted by refit (or a later fit), not promoted
-    RETIRED = "retired"  # scored an earlier run of days
 
 
 class VersionSource(StrEnum):
