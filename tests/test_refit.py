@@ -27,7 +27,7 @@ from monitor.store import audit
 from monitor.store.checks import last_check, load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
-from monitor.store.standing import Verdict, last_verdict, version_numbers
+from monitor.store.standing import LastStatus, last_status, version_numbers
 from monitor.store.versions import list_versions
 from tests.support.snapshots import Step, WorldCache
 from tests.support.world import (
@@ -198,7 +198,7 @@ def test_status_after_a_promotion_says_what_happened_and_what_comes_next(
         assert [(v.id, v.number, v.state) for v in version_numbers(conn, model_id)] \
             == [(v.id, v.number, v.state) for v in list_versions(conn, model_id)]
         last = last_check(conn, model_id)
-        assert last is not None and last_verdict(conn, model_id) == Verdict(
+        assert last is not None and last_status(conn, model_id) == LastStatus(
             last.day, last.status, last.status_since, last.reasons, last.version_id)
     # once a day is checked under version 2, status speaks of version 2 again
     changed.add_days(date(2026, 4, 13), date(2026, 4, 13), 79, "first.csv")

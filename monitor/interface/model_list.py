@@ -1,6 +1,6 @@
 """The ``model list`` view: each model's formula, versions and last status, one line each.
 
-It reads version numbers and the last verdict from their columns (``monitor.store.standing``),
+It reads version numbers and the last status from their columns (``monitor.store.standing``),
 never whole versions or checks, so it needs neither numpy nor the statistics modules.
 """
 
@@ -16,7 +16,7 @@ from monitor.config import Settings
 from monitor.domain.version_state import VersionState
 from monitor.store.access import database
 from monitor.store.models import list_models
-from monitor.store.standing import last_verdict, version_numbers
+from monitor.store.standing import last_status, version_numbers
 
 
 @dataclass(frozen=True)
@@ -51,7 +51,7 @@ def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> lis
         for model in list_models(conn):
             versions = version_numbers(conn, model.id)
             active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
-            last = last_verdict(conn, model.id)
+            last = last_status(conn, model.id)
             checked = next((v.number for v in versions
                             if last is not None and v.id == last.version_id), None)
             out.append(ModelLine(model.name,

@@ -1,4 +1,4 @@
-"""Where a model stands, read from plain columns: its versions' numbers and the last verdict.
+"""Where a model stands, read from plain columns: its versions' numbers and the last status.
 
 The views that only name versions or say a status (``model list``, ``status``) read these
 instead of whole versions and day checks: decoding those builds the fitted arrays, the
@@ -28,7 +28,7 @@ class VersionNumber:
 
 
 @dataclass(frozen=True)
-class Verdict:
+class LastStatus:
     """The latest day check of a model: its day, status and reasons, and the scoring version."""
 
     day: date
@@ -45,13 +45,13 @@ def version_numbers(conn: Connection, model_id: int) -> list[VersionNumber]:
     return [VersionNumber(r.id, r.number, VersionState(r.state)) for r in rows]
 
 
-def last_verdict(conn: Connection, model_id: int) -> Verdict | None:
-    """The verdict of the model's latest check (None: never checked)."""
+def last_status(conn: Connection, model_id: int) -> LastStatus | None:
+    """The status of the model's latest check (None: never checked)."""
     row = conn.execute(select(day_checks.c.day, day_checks.c.status, day_checks.c.status_since,
                               day_checks.c.reasons, day_checks.c.version_id)
                        .where(day_checks.c.model_id == model_id)
                        .order_by(day_checks.c.day.desc()).limit(1)).first()
     if row is None:
         return None
-    return Verdict(row.day, Status(row.status), row.status_since, tuple(row.reasons),
-                   row.version_id)
+    return LastStatus(row.day, Status(row.status), row.status_since, tuple(row.reasons),
+                      row.version_id)
