@@ -17,15 +17,17 @@ from monitor.domain.data_health import DataHealth, SilentFeed
 from monitor.domain.status import Status
 from monitor.errors import StateError, UsageError
 from monitor.interface.cli import main
+from monitor.interface.model_list import list_model_lines
 from monitor.interface.status import ModelStatus, model_statuses
-from monitor.interface.versions import list_model_lines, show_version
+from monitor.interface.versions import show_version
 from monitor.lifecycle.compare import compare
 from monitor.lifecycle.fit import FitRequest, fit_model
 from monitor.lifecycle.refit import acknowledge, promote, refit, rollback
 from monitor.store import audit
-from monitor.store.checks import load_checks
+from monitor.store.checks import last_check, load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
+from monitor.store.standing import LastStatus, last_status, version_numbers
 from monitor.store.versions import list_versions
 from tests.support.snapshots import Step, WorldCache
 from tests.support.world import (
@@ -191,6 +193,13 @@ def test_status_after_a_promotion_says_what_happened_and_what_comes_next(
         == [("promote", 2, date(2026, 4, 13))]
     (line,) = list_model_lines(changed.settings, engine=changed.engine)
     assert line.sentence().endswith("; v2 of 2; refit under v1 (checked through 2026-04-12)")
+    with changed.engine.connect() as conn:  # the listing's column reads match whole rows
+        model_id = get_model(conn, MODEL).id
+        assert [(v.id, v.number, v.state) for v in version_numbers(conn, model_id)] \
+            == [(v.id, v.number, v.state) for v in list_versions(conn, model_id)]
+        last = last_check(conn, model_id)
+        assert last is not None and last_status(conn, model_id) == LastStatus(
+            last.day, last.status, last.status_since, last.reasons, last.version_id)
     # once a day is checked under version 2, status speaks of version 2 again
     changed.add_days(date(2026, 4, 13), date(2026, 4, 13), 79, "first.csv")
     changed.check(date(2026, 4, 13))

@@ -10,8 +10,6 @@ from datetime import date, datetime, timedelta
 from typing import Any
 from zoneinfo import ZoneInfo
 
-import numpy as np
-
 
 def as_date(value: Any) -> date:
     """A ``datetime.date`` from a ``date``, a ``numpy.datetime64`` or an ISO string."""
@@ -19,6 +17,9 @@ def as_date(value: Any) -> date:
         raise TypeError("an instant is not a day; use local_day(instant, zone)")
     if isinstance(value, date):
         return value
+    # numpy is imported here, not with the module: the quick commands deal in dates alone
+    import numpy as np
+
     return date.fromisoformat(str(np.datetime64(value, "D")))
 
 

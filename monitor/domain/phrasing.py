@@ -1,4 +1,5 @@
-"""Numbers as they read in sentences: significant digits, percentages, p-values."""
+"""Numbers as they read in sentences (significant digits, percentages, p-values), and the
+phrases that more than one view must word alike."""
 
 from __future__ import annotations
 
@@ -52,6 +53,13 @@ def window_span(days: int, window_days: int, first: date, version: int | None) -
     if version is not None:
         return f"on {span} under version {version} (from {first.isoformat()})"
     return f"on {span} since the advice was acknowledged ({first.isoformat()})"
+
+
+def held_reason(since: date | None) -> str:
+    """The first reason of each day a refit stands (``status`` leaves it out once a promotion,
+    rollback or acknowledgement has released it)."""
+    return (f"refit advised since {since.isoformat() if since else '—'}; this stands until a "
+            "new version is promoted or the advice is acknowledged")
 
 
 def fit_summary(line: Line, rows: str = "rows", unit: str = "") -> str:

@@ -11,23 +11,21 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from datetime import date, datetime
 from enum import StrEnum
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import NDArray
 
-from monitor.stats.calibration import Calibration
+from monitor.domain.version_state import VersionState
 from monitor.stats.day_effects import DayEffects
 from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
-from monitor.stats.prediction import PredictionModel
+
+if TYPE_CHECKING:  # the views that read versions (status, model show) load neither module
+    from monitor.stats.calibration import Calibration
+    from monitor.stats.prediction import PredictionModel
 
 FloatArray = NDArray[np.float64]
-
-
-class VersionState(StrEnum):
-    ACTIVE = "active"  # scores the model's days now
-    CANDIDATE = "candidate"  # fitted by refit (or a later fit), not promoted
-    RETIRED = "retired"  # scored an earlier run of days
 
 
 class VersionSource(StrEnum):
@@ -62,6 +60,8 @@ class Line:
         return len(self.terms) - 1
 
     def prediction_model(self) -> PredictionModel:
+        from monitor.stats.prediction import PredictionModel  # where a day is scored
+
         k = self.k
         lo = self.x_min if self.x_min is not None else np.full(k, -np.inf)
         hi = self.x_max if self.x_max is not None else np.full(k, np.inf)

@@ -359,7 +359,7 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _cmd_model_list(args: argparse.Namespace, settings: Settings) -> int:
-    from monitor.interface.versions import list_model_lines
+    from monitor.interface.model_list import list_model_lines
 
     lines = list_model_lines(settings)
     if args.json:

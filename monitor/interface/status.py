@@ -11,22 +11,20 @@ from sqlalchemy import Engine
 
 from monitor.config import Settings
 from monitor.domain.action import Action
-from monitor.domain.check import DayCheck
 from monitor.domain.data_health import DataHealth
 from monitor.domain.days import local_day, yesterday
 from monitor.domain.model import ModelRecord
-from monitor.domain.phrasing import fmt
+from monitor.domain.phrasing import fmt, held_reason
 from monitor.domain.status import Status
 from monitor.domain.version import Version
 from monitor.monitoring.data_health import model_data_health
-from monitor.monitoring.wording import held_reason
 from monitor.runtime.schedule import NightlyState, cron_trigger, nightly_state
 from monitor.store import audit, lease, outbox
 from monitor.store.access import database
-from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import days_with_rows, last_observed_at
 from monitor.store.outbox import Undelivered
+from monitor.store.standing import LastStatus, last_status
 from monitor.store.versions import active_version, version_number
 
 SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
@@ -130,7 +128,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
         nightly = nightly_state(settings, leases[0], now, leases[1:]) if leases else None
         trouble = outbox.undelivered(conn)
         for model in models:
-            last = last_check(conn, model.id, model=model.name)
+            last = last_status(conn, model.id)
             active = active_version(conn, model.id)
             latest = last_observed_at(conn, model)
             rows_day = local_day(latest, settings.timezone) if latest else None
@@ -201,7 +199,7 @@ def sharpen_advice(name: str, version: Version,
                       calibration.h_known, days_since_fit_start, version.fit_start)
 
 
-def _status(model: ModelRecord, last: DayCheck | None, active: Version | None,
+def _status(model: ModelRecord, last: LastStatus | None, active: Version | None,
             last_day: date) -> ModelStatus:
     number = active.number if active else None
     if last is None:
@@ -209,5 +207,5 @@ def _status(model: ModelRecord, last: DayCheck | None, active: Version | None,
         if active is not None and active.active_from is not None:
             behind = max(0, (last_day - active.active_from).days + 1)
         return ModelStatus(model.name, None, None, None, (), number, behind)
-    return ModelStatus(model.name, last.status, last.status_since, last.day,
+    return ModelStatus(model.name, last.status, last.since, last.day,
                        tuple(last.reasons), number, max(0, (last_day - last.day).days))

@@ -4,7 +4,6 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import date
 from typing import Any
 
 from sqlalchemy import Engine
@@ -13,13 +12,13 @@ from monitor.config import Settings, Wording
 from monitor.domain.codec import encode
 from monitor.domain.model import ModelSpec
 from monitor.domain.phrasing import fit_summary, fmt, percent
-from monitor.domain.version import Version, VersionSource, VersionState
+from monitor.domain.version import Version, VersionSource
 from monitor.errors import StateError
 from monitor.monitoring.wording import WindowFinding, window_findings
 from monitor.stats.self_start import Learning
 from monitor.store.access import database
 from monitor.store.checks import last_check
-from monitor.store.models import get_model, list_models
+from monitor.store.models import get_model
 from monitor.store.versions import active_version, get_version, list_versions
 
 
@@ -216,46 +215,3 @@ def show_version(settings: Settings, name: str, number: int | None = None, *,
     if last is not None and last.version_id == version.id:
         learned = last.state.learning
     return VersionView(model, version, settings.for_model(name).words, learned)
-
-
-@dataclass(frozen=True)
-class ModelLine:
-    name: str
-    formula: str
-    active_version: int | None
-    versions: int
-    status: str | None
-    last_checked_day: date | None
-    checked_version: int | None = None  # the version the last check scored with
-
-    def as_dict(self) -> dict[str, Any]:
-        return {"model": self.name, "formula": self.formula,
-                "active_version": self.active_version, "versions": self.versions,
-                "status": self.status, "last_checked_day": self.last_checked_day,
-                "last_check_version": self.checked_version}
-
-    def sentence(self) -> str:
-        active = f"v{self.active_version}" if self.active_version else "no active version"
-        state = "not checked yet"
-        if self.status:
-            under = (f" under v{self.checked_version}"
-                     if self.checked_version != self.active_version else "")
-            state = f"{self.status}{under} (checked through {self.last_checked_day})"
-        return f"{self.name}: {self.formula}; {active} of {self.versions}; {state}"
-
-
-def list_model_lines(settings: Settings, *, engine: Engine | None = None) -> list[ModelLine]:
-    out = []
-    with database(settings, engine, sections="warn") as db, db.connect() as conn:
-        for model in list_models(conn):
-            versions = list_versions(conn, model.id)
-            active = next((v for v in versions if v.state == VersionState.ACTIVE), None)
-            last = last_check(conn, model.id)
-            checked = next((v.number for v in versions
-                            if last is not None and v.id == last.version_id), None)
-            out.append(ModelLine(model.name,
-                                 f"{model.response} ~ {' + '.join(model.predictors)}",
-                                 active.number if active else None, len(versions),
-                                 last.status if last else None, last.day if last else None,
-                                 checked))
-    return out

@@ -51,7 +51,6 @@ from monitor.store.batches import (
     batches_between_for,
     first_rejected_row,
 )
-from monitor.store.checks import last_check
 from monitor.store.models import get_model, list_models
 from monitor.store.observations import (
     days_with_rows,
@@ -59,6 +58,7 @@ from monitor.store.observations import (
     last_day_with_rows,
     last_days_with_rows,
 )
+from monitor.store.standing import last_status
 from monitor.store.versions import active_version
 
 RECENT_DAYS = 7  # bad files are shown this long; the recent window of the rejection share
@@ -123,7 +123,7 @@ def data_health(settings: Settings, names: Sequence[str] | None = None, *,
         models = [get_model(conn, n) for n in names] if names else list_models(conn)
         out = []
         for model in models:
-            last = last_check(conn, model.id, model=model.name)
+            last = last_status(conn, model.id)
             out.append(model_data_health(
                 conn, model, settings.for_model(model.name).check,
                 active_version(conn, model.id), through=last.day if last else None, now=now,

@@ -11,7 +11,7 @@ from numpy.typing import NDArray
 
 from monitor.config import Wording
 from monitor.domain.check import SlopeChartDay
-from monitor.domain.phrasing import fmt, fmt_p, percent, window_span
+from monitor.domain.phrasing import fmt, fmt_p, held_reason, percent, window_span
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
@@ -133,13 +133,6 @@ def _finding(finding: Finding, f: Figures, words: Wording, response: str) -> str
         return (f"the scatter around the line is {percent(f.spread.ratio - 1)} wider than at the "
                 f"fit ({fmt_p(f.spread.pvalue)})")
     return f"{finding.signal} signal ({finding.level})"
-
-
-def held_reason(since: date | None) -> str:
-    """The first reason of each day a refit stands (``status`` leaves it out once a promotion,
-    rollback or acknowledgement has released it)."""
-    return (f"refit advised since {since.isoformat() if since else '—'}; this stands until a "
-            "new version is promoted or the advice is acknowledged")
 
 
 def plan_terms(verdict: Verdict, f: Figures, words: Wording, response: str) -> str | None:

@@ -8,6 +8,10 @@ Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database
 30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
 reports the schedule, so it is the one command here that may use APScheduler with the default
 schedule; a schedule of one's own is parsed by it when the settings load, in every command.
+``model list`` goes further: it reads version numbers and the last status from their columns,
+so it loads neither numpy (about 0.06 s on that machine) nor scipy nor any statistics module;
+``status`` reads the same columns and the active version, so the day check's types and the
+charts' statistics stay out of it.
 Start-up times are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy
 machine would make that flaky).
 """
@@ -38,7 +42,8 @@ from monitor.interface.cli import main
 with redirect_stdout(io.StringIO()) as out:
     code = main(sys.argv[1:])
 heavy = sorted(m for m in {heavy!r} if m in sys.modules)
-print(json.dumps({{"code": code, "heavy": heavy, "printed": len(out.getvalue())}}))
+ours = sorted(m for m in sys.modules if m in ("numpy", "scipy") or m.startswith("monitor."))
+print(json.dumps({{"code": code, "heavy": heavy, "ours": ours, "printed": len(out.getvalue())}}))
 """
 
 
@@ -72,6 +77,30 @@ def test_quick_commands_leave_the_heavy_libraries_alone(config: Path, argv: list
     seen = loaded_by(["--config", str(config), *argv], config.parent)
     assert seen["code"] == 0 and seen["printed"], seen  # it did its work
     assert set(seen["heavy"]) <= allowed, f"{argv} imported {seen['heavy']}"
+
+
+@pytest.mark.parametrize("argv", [["model", "list"], ["model", "list", "--json"]])
+def test_the_model_listing_needs_no_numpy(config: Path, argv: list[str]) -> None:
+    seen = loaded_by(["--config", str(config), *argv], config.parent)
+    assert seen["code"] == 0 and seen["printed"], seen
+    numeric = [m for m in seen["ours"] if m in ("numpy", "scipy") or m.startswith("monitor.stats")]
+    assert numeric == [], f"{argv} imported {numeric}"
+
+
+# what a day check is made of: status reads the last status from its columns and the active
+# version's stored figures, so none of it loads (the statistics of the data findings do)
+CHECK_MACHINERY = ("monitor.domain.check", "monitor.monitoring.wording", "monitor.store.checks",
+                   "monitor.stats.change", "monitor.stats.cusum", "monitor.stats.decision",
+                   "monitor.stats.calibration", "monitor.stats.arl", "monitor.stats.ols",
+                   "monitor.stats.prediction", "monitor.stats.coverage")
+
+
+@pytest.mark.parametrize("argv", [["status"], ["status", "--json"]])
+def test_status_leaves_the_check_machinery_alone(config: Path, argv: list[str]) -> None:
+    seen = loaded_by(["--config", str(config), *argv], config.parent)
+    assert seen["code"] == 0 and seen["printed"], seen
+    loaded = [m for m in CHECK_MACHINERY if m in seen["ours"]]
+    assert loaded == [], f"{argv} imported {loaded}"
 
 
 def test_help_imports_nothing_heavy_not_even_numpy(tmp_path: Path) -> None:
