@@ -250,6 +250,19 @@ class PreparedRows:
         driver has let go of, so a million rows need not be a million tuples at once)."""
         return zip(*self.columns, strict=True)
 
+    def groups(self, size: int) -> Iterator[tuple[int, list[list[Any]]]]:
+        """The rows as parameter lists of ``size`` rows each, row after row (for an INSERT of
+        ``size`` rows at a time), then the rest as one list: (rows per list, the lists)."""
+        n, width = len(self), len(self.columns)
+        table = np.empty((n, width), dtype=object)
+        for j, column in enumerate(self.columns):
+            table[:, j] = column
+        whole = n - n % size
+        if whole:
+            yield size, table[:whole].reshape(-1, size * width).tolist()
+        if whole < n:
+            yield n - whole, [table[whole:].reshape(-1).tolist()]
+
 
 def prepare_rows(keys: NDArray[np.object_], observed_us: NDArray[np.int64],
                  days: NDArray[np.datetime64], x: NDArray[np.float64],
@@ -274,16 +287,28 @@ def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
     return _insert_sqlite(conn, model, batch_id, rows)
 
 
+# Parameters of one SQLite statement: 999 is the smallest limit any SQLite build has
+# (SQLITE_MAX_VARIABLE_NUMBER before 3.32), so a statement fits whatever the build
+_SQLITE_PARAMETERS = 999
+
+
 def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
                    rows: PreparedRows) -> InsertResult:
+    """Many rows per INSERT (``VALUES (...), (...), ...``): one statement run keeps its cursors
+    on the table and both indexes open across the rows, where ``executemany`` of a one-row
+    INSERT resets the statement and seeks every B-tree from its root again for each row (the
+    rows cost about half as much; tests/benchmarks/results/ingest.txt)."""
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
-    sql = (f"INSERT INTO observations (model_id, batch_id, {', '.join(names)}) "
-           f"VALUES ({int(model.id)}, {int(batch_id)}, {', '.join('?' * len(names))}) "
-           "ON CONFLICT (model_id, obs_key) DO NOTHING")
+    row = f"({int(model.id)}, {int(batch_id)}, {', '.join('?' * len(names))})"
+    stored = 0
     with driver_cursor(conn) as cursor:
         before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
-        cursor.executemany(sql, rows.tuples())
-        stored = cursor.rowcount
+        for size, params in rows.groups(_SQLITE_PARAMETERS // len(names)):
+            cursor.executemany(
+                f"INSERT INTO observations (model_id, batch_id, {', '.join(names)}) "
+                f"VALUES {', '.join([row] * size)} ON CONFLICT (model_id, obs_key) DO NOTHING",
+                params)
+            stored += cursor.rowcount
     keys = rows.keys
     if stored == len(keys):
         return _result(np.ones(len(keys), bool), keys, [], model.k)

@@ -146,3 +146,33 @@ def test_all_predictor_widths(engine, k: int) -> None:
     order = np.argsort(us, kind="stable")
     np.testing.assert_array_equal(obs.x, x[order])
     np.testing.assert_array_equal(obs.y, y[order])
+
+
+@pytest.mark.parametrize("k", [1, 8])
+def test_many_rows_per_statement_store_and_report_every_key(engine, k: int) -> None:
+    """SQLite stores rows many to an INSERT (up to 999 parameters a statement: 199 rows of one
+    predictor, 83 of eight); keys stored before, scattered over every statement and its last
+    short one, are reported with their stored values and the rest stored: every row counted
+    once (the PostgreSQL path runs the same check)."""
+    model, batch = _setup(engine, k=k)
+    n = 1000  # 5 statements and 5 rows (k=1); 12 statements and 4 rows (k=8)
+    keys, us, days, x, y = _rows(n, k, 5)
+    old = np.arange(0, n, 7)  # stored first, by another batch
+    with engine.begin() as conn:
+        other = start_batch(conn, model.id, "earlier", None, None, False, NOW)
+        first = insert_observations(conn, model, other,
+                                    prepare_rows(keys[old], us[old], days[old], x[old], y[old]))
+        assert first.inserted.all()
+        result = insert_observations(conn, model, batch, prepare_rows(keys, us, days, x, y + 1))
+        assert count_observations(conn, model) == n
+        stored = load_observations(conn, model)
+    fresh = np.ones(n, bool)
+    fresh[old] = False
+    np.testing.assert_array_equal(result.inserted, fresh)
+    assert sorted(result.positions.tolist()) == old.tolist()
+    assert set(result.batch_id.tolist()) == {other}
+    order = np.argsort(result.positions)
+    np.testing.assert_array_equal(result.y[order], y[old])  # the stored values, not the new
+    np.testing.assert_array_equal(result.x[order], x[old])
+    expected_y = np.where(fresh, y + 1, y)
+    np.testing.assert_array_equal(np.sort(stored.y), np.sort(expected_y))
