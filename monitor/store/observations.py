@@ -11,6 +11,7 @@ import json
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, date, datetime, timedelta
+from itertools import chain
 from typing import Any
 
 import numpy as np
@@ -226,10 +227,16 @@ def count_observations(conn: Connection, model: ModelRecord) -> int:
 
 
 # writing ----------------------------------------------------------------------------------------
+# Parameters of one SQLite statement: 999 is the smallest limit any SQLite build has
+# (SQLITE_MAX_VARIABLE_NUMBER before 3.32), so a statement fits whatever the build
+_SQLITE_PARAMETERS = 999
+
+
 @dataclass(frozen=True, eq=False)
 class PreparedRows:
-    """Rows ready for the driver: distinct keys, their values as arrays and, for executemany,
-    as Python lists (key, time, day, y, x...), one per column.
+    """Rows ready for the driver: distinct keys, their values as arrays and, for SQLite's
+    multi-row INSERT, as Python values (key, time, day, y, x...) row after row, ``per_list``
+    rows to a list (the last list holds the rest).
 
     Built by :func:`prepare_rows` (pure; can run ahead in another thread), stored by
     :func:`insert_observations`.
@@ -240,37 +247,35 @@ class PreparedRows:
     days: NDArray[np.datetime64]
     x: NDArray[np.float64]
     y: NDArray[np.float64]
-    columns: list[list[Any]]
+    width: int  # values per row
+    per_list: int
+    params: list[list[Any]]
 
     def __len__(self) -> int:
         return len(self.keys)
 
     def tuples(self) -> Iterator[tuple[Any, ...]]:
-        """One tuple per row, made as the driver takes them (``zip`` reuses a tuple the
-        driver has let go of, so a million rows need not be a million tuples at once)."""
-        return zip(*self.columns, strict=True)
-
-    def groups(self, size: int) -> Iterator[tuple[int, list[list[Any]]]]:
-        """The rows as parameter lists of ``size`` rows each, row after row (for an INSERT of
-        ``size`` rows at a time), then the rest as one list: (rows per list, the lists)."""
-        n, width = len(self), len(self.columns)
-        table = np.empty((n, width), dtype=object)
-        for j, column in enumerate(self.columns):
-            table[:, j] = column
-        whole = n - n % size
-        if whole:
-            yield size, table[:whole].reshape(-1, size * width).tolist()
-        if whole < n:
-            yield n - whole, [table[whole:].reshape(-1).tolist()]
+        """One tuple per row."""
+        values = iter(chain.from_iterable(self.params))
+        return zip(*[values] * self.width, strict=True)
 
 
 def prepare_rows(keys: NDArray[np.object_], observed_us: NDArray[np.int64],
                  days: NDArray[np.datetime64], x: NDArray[np.float64],
                  y: NDArray[np.float64]) -> PreparedRows:
-    """The driver's columns for these rows (``keys`` must be distinct)."""
+    """The driver's values for these rows (``keys`` must be distinct)."""
     columns = [keys.tolist(), observed_us.tolist(), _day_strings(days), y.tolist(),
                *(x[:, j].tolist() for j in range(x.shape[1]))]
-    return PreparedRows(keys, observed_us, days, x, y, columns)
+    n, width = len(keys), len(columns)
+    per_list = _SQLITE_PARAMETERS // width
+    table = np.empty((n, width), dtype=object)
+    for j, column in enumerate(columns):
+        table[:, j] = column
+    whole = n - n % per_list
+    params = table[:whole].reshape(-1, per_list * width).tolist() if whole else []
+    if whole < n:
+        params.append(table[whole:].reshape(-1).tolist())
+    return PreparedRows(keys, observed_us, days, x, y, width, per_list, params)
 
 
 def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
@@ -287,11 +292,6 @@ def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
     return _insert_sqlite(conn, model, batch_id, rows)
 
 
-# Parameters of one SQLite statement: 999 is the smallest limit any SQLite build has
-# (SQLITE_MAX_VARIABLE_NUMBER before 3.32), so a statement fits whatever the build
-_SQLITE_PARAMETERS = 999
-
-
 def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
                    rows: PreparedRows) -> InsertResult:
     """Many rows per INSERT (``VALUES (...), (...), ...``): one statement run keeps its cursors
@@ -303,7 +303,7 @@ def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
     stored = 0
     with driver_cursor(conn) as cursor:
         before = cursor.execute("SELECT max(id) FROM observations").fetchone()[0] or 0
-        for size, params in rows.groups(_SQLITE_PARAMETERS // len(names)):
+        for size, params in _same_size(rows):
             cursor.executemany(
                 f"INSERT INTO observations (model_id, batch_id, {', '.join(names)}) "
                 f"VALUES {', '.join([row] * size)} ON CONFLICT (model_id, obs_key) DO NOTHING",
@@ -314,6 +314,15 @@ def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
         return _result(np.ones(len(keys), bool), keys, [], model.k)
     old = _stored_before(_stored_under(conn, model, keys), batch_id, before)
     return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
+
+
+def _same_size(rows: PreparedRows) -> Iterator[tuple[int, list[list[Any]]]]:
+    """The parameter lists in runs of the same number of rows: (rows per list, the lists)."""
+    whole = len(rows) // rows.per_list
+    if whole:
+        yield rows.per_list, rows.params[:whole]
+    if len(rows.params) > whole:
+        yield len(rows) - whole * rows.per_list, rows.params[whole:]
 
 
 def _stored_before(found: list[tuple[Any, ...]], batch_id: int,
