@@ -48,7 +48,7 @@ _EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 @dataclass(frozen=True, eq=False)
 class Observations:
-    """Stored rows of one model, sorted by day, then time."""
+    """Stored rows of one model, sorted by day, then time (then key)."""
 
     days: NDArray[np.datetime64]
     x: NDArray[np.float64]
@@ -66,7 +66,8 @@ class Observations:
 
 @dataclass(frozen=True, eq=False)
 class DayRows:
-    """The stored rows of one model-day in time order, with their keys and batches."""
+    """The stored rows of one model-day in time order (then key order), with their keys and
+    batches."""
 
     keys: NDArray[np.object_]  # the id column's value, or the content key
     batch_ids: NDArray[np.int64]
@@ -105,7 +106,7 @@ def load_observations(conn: Connection, model: ModelRecord, first_day: date | No
     xs = [observations.c[c] for c in predictor_columns(model.k)]
     stmt = (select(observations.c.day, observations.c.observed_at_us, observations.c.y, *xs)
             .where(_day_range(model, first_day, last_day))
-            .order_by(observations.c.day, observations.c.observed_at_us, observations.c.id))
+            .order_by(observations.c.day, observations.c.observed_at_us, _by_key(conn)))
     rows = _fetch(conn, stmt)
     n = len(rows)
     if n == 0:
@@ -124,7 +125,7 @@ def load_day_rows(conn: Connection, model: ModelRecord, day: date) -> DayRows:
     stmt = (select(observations.c.obs_key, observations.c.batch_id,
                    observations.c.observed_at_us, observations.c.y, *xs)
             .where(_day_range(model, day, day))
-            .order_by(observations.c.observed_at_us, observations.c.id))
+            .order_by(observations.c.observed_at_us, _by_key(conn)))
     rows = _fetch(conn, stmt)
     if not rows:
         return DayRows(np.zeros(0, dtype=object), np.zeros(0, np.int64), np.zeros(0, np.int64),
@@ -271,6 +272,7 @@ def prepare_rows(keys: NDArray[np.object_], observed_us: NDArray[np.int64],
     table = np.empty((n, width), dtype=object)
     for j, column in enumerate(columns):
         table[:, j] = column
+    table = table[np.argsort(keys, kind="stable")]  # in key order: see _insert_sqlite
     whole = n - n % per_list
     params = table[:whole].reshape(-1, per_list * width).tolist() if whole else []
     if whole < n:
@@ -294,10 +296,16 @@ def insert_observations(conn: Connection, model: ModelRecord, batch_id: int,
 
 def _insert_sqlite(conn: Connection, model: ModelRecord, batch_id: int,
                    rows: PreparedRows) -> InsertResult:
-    """Many rows per INSERT (``VALUES (...), (...), ...``): one statement run keeps its cursors
-    on the table and both indexes open across the rows, where ``executemany`` of a one-row
-    INSERT resets the statement and seeks every B-tree from its root again for each row (the
-    rows cost about half as much; tests/benchmarks/results/ingest.txt)."""
+    """Many rows per INSERT (``VALUES (...), (...), ...``), in key order.
+
+    One statement run keeps its cursors on the table and both indexes open across its rows,
+    where ``executemany`` of a one-row INSERT starts over for each row; with the rows in the
+    order of the unique index, each one lands next to the one before. Measured on 300,000 rows
+    (tests/benchmarks/results/ingest.txt): rows in time and key order cost about half the CPU
+    of one-row statements; rows in random order cost half as much once sorted by key, and
+    half again more unsorted. The rowids follow key order, so reads break ties of equal
+    times by key, not by id.
+    """
     names = ["obs_key", "observed_at_us", "day", "y", *predictor_columns(model.k)]
     row = f"({int(model.id)}, {int(batch_id)}, {', '.join('?' * len(names))})"
     stored = 0
@@ -574,6 +582,15 @@ def merge_day_stats(conn: Connection, model: ModelRecord, added: DayMoments,
 
 
 # helpers ----------------------------------------------------------------------------------------
+def _by_key(conn: Connection) -> Any:
+    """``obs_key`` in code point order on either backend (SQLite compares text bytewise; a
+    PostgreSQL database may have a locale's collation), so rows of equal times are read in the
+    same order from both."""
+    if conn.dialect.name == "postgresql":
+        return observations.c.obs_key.collate("C")
+    return observations.c.obs_key
+
+
 def _day_range(model: ModelRecord, first_day: date | None, last_day: date | None) -> Any:
     clauses = [observations.c.model_id == model.id]
     if first_day is not None:
