@@ -1,7 +1,7 @@
 """Ingestion speed and memory against a hand-written baseline, measured in the same run.
 
     python tests/benchmarks/bench_ingest.py [--rows 1000000] [--repeats 3] [--profile]
-        [--postgres URL] [--before DIR] [--out FILE]
+        [--postgres URL] [--before DIR] [--shuffle] [--out FILE]
 
 The file: ``load_id, docked_at, pallets, load_minutes, door`` rows (generated, like the demo).
 Baseline: the ``csv`` module's reader plus sqlite3 ``executemany`` into one table with a unique
@@ -14,6 +14,9 @@ SQLite). ``--before DIR`` also times the ``monitor/`` package found in DIR (e.g.
 earlier commit: ``git archive COMMIT monitor | tar -x -C DIR``) on each backend, interleaved with
 the rest, for a before/after ratio from the same run. The children import ``monitor`` from this
 checkout (or DIR), never from wherever the package happens to be installed.
+
+``--shuffle`` writes the rows in random order (times and ids no longer ascending; every
+B-tree then fills out of order), for the files that are not sorted.
 
 Wall seconds include importing fitwatch's ingest modules (the baseline's ``csv`` and ``sqlite3``
 are imported before its clock starts; they cost a few milliseconds); CPU seconds (user + system,
@@ -59,7 +62,7 @@ PHASES = (  # (label, function) for the --profile split; cumulative times, seria
 )
 
 
-def generate(path: Path, rows: int, seed: int = 1) -> None:
+def generate(path: Path, rows: int, seed: int = 1, shuffle: bool = False) -> None:
     import numpy as np
     import pandas as pd
 
@@ -74,6 +77,8 @@ def generate(path: Path, rows: int, seed: int = 1) -> None:
         "load_minutes": np.round(8 + 2.1 * pallets + rng.normal(0, 4, rows), 2),
         "door": rng.integers(1, 13, rows),
     })
+    if shuffle:
+        frame = frame.iloc[rng.permutation(rows)]
     frame.to_csv(path, index=False)
 
 
@@ -282,6 +287,7 @@ def main() -> None:
                              "is created and dropped)")
     parser.add_argument("--before", metavar="DIR",
                         help="also time the monitor/ package in DIR (an earlier commit)")
+    parser.add_argument("--shuffle", action="store_true", help="rows in random order")
     parser.add_argument("--out", metavar="FILE", help="also write the figures to FILE")
     parser.add_argument("--child")
     parser.add_argument("--csv")
@@ -299,9 +305,10 @@ def main() -> None:
     with tempfile.TemporaryDirectory(prefix="fitwatch-bench-") as tmp:
         work = Path(tmp)
         csv_path = work / "loads.csv"
-        generate(csv_path, args.rows)
+        generate(csv_path, args.rows, shuffle=args.shuffle)
         size_mb = csv_path.stat().st_size / 1e6
-        say(f"{args.rows:,} rows, {size_mb:.0f} MB CSV, {os.cpu_count()} CPUs, "
+        order = "in random order" if args.shuffle else "in time order"
+        say(f"{args.rows:,} rows {order}, {size_mb:.0f} MB CSV, {os.cpu_count()} CPUs, "
             f"load {os.getloadavg()[0]:.2f} at the start, {args.repeats} runs each, interleaved")
         kinds = ["baseline", "fitwatch", "fitwatch-hashkeys"]
         if args.postgres:

@@ -21,6 +21,7 @@ from monitor.store.observations import (
     count_observations,
     insert_observations,
     last_observed_at,
+    load_day_rows,
     load_day_stats,
     load_observations,
     merge_day_stats,
@@ -146,3 +147,53 @@ def test_all_predictor_widths(engine, k: int) -> None:
     order = np.argsort(us, kind="stable")
     np.testing.assert_array_equal(obs.x, x[order])
     np.testing.assert_array_equal(obs.y, y[order])
+
+
+@pytest.mark.parametrize("k", [1, 8])
+def test_many_rows_per_statement_store_and_report_every_key(engine, k: int) -> None:
+    """SQLite stores rows many to an INSERT (up to 999 parameters a statement: 199 rows of one
+    predictor, 83 of eight); keys stored before, scattered over every statement and its last
+    short one, are reported with their stored values and the rest stored: every row counted
+    once (the PostgreSQL path runs the same check)."""
+    model, batch = _setup(engine, k=k)
+    n = 1000  # 5 statements and 5 rows (k=1); 12 statements and 4 rows (k=8)
+    keys, us, days, x, y = _rows(n, k, 5)
+    old = np.arange(0, n, 7)  # stored first, by another batch
+    with engine.begin() as conn:
+        other = start_batch(conn, model.id, "earlier", None, None, False, NOW)
+        first = insert_observations(conn, model, other,
+                                    prepare_rows(keys[old], us[old], days[old], x[old], y[old]))
+        assert first.inserted.all()
+        result = insert_observations(conn, model, batch, prepare_rows(keys, us, days, x, y + 1))
+        assert count_observations(conn, model) == n
+        stored = load_observations(conn, model)
+    fresh = np.ones(n, bool)
+    fresh[old] = False
+    np.testing.assert_array_equal(result.inserted, fresh)
+    assert sorted(result.positions.tolist()) == old.tolist()
+    assert set(result.batch_id.tolist()) == {other}
+    order = np.argsort(result.positions)
+    np.testing.assert_array_equal(result.y[order], y[old])  # the stored values, not the new
+    np.testing.assert_array_equal(result.x[order], x[old])
+    expected_y = np.where(fresh, y + 1, y)
+    np.testing.assert_array_equal(np.sort(stored.y), np.sort(expected_y))
+
+
+def test_rows_of_equal_times_read_in_key_order_whatever_the_order_stored(engine) -> None:
+    """Rows are stored in key order and read by day, time, then key (code point order, also
+    on a PostgreSQL database with a locale's collation), so the order of equal times does not
+    depend on the order the rows came in nor on the backend."""
+    model, batch = _setup(engine, k=1)
+    keys = np.array(["b", "B", "a", "_", "a2", "A1"], dtype=object)
+    us = np.full(len(keys), T0, dtype=np.int64)
+    days = us.astype("datetime64[us]").astype("datetime64[D]")
+    x, y = np.arange(6.0).reshape(6, 1), np.arange(6.0)
+    with engine.begin() as conn:
+        for part in (slice(3, 6), slice(0, 3)):  # later keys first, in two statements
+            insert_observations(conn, model, batch,
+                                prepare_rows(keys[part], us[part], days[part], x[part], y[part]))
+        rows = load_day_rows(conn, model, days[0].item())
+        obs = load_observations(conn, model)
+    expected = sorted(keys.tolist())  # Python compares str by code point
+    assert rows.keys.tolist() == expected == ["A1", "B", "_", "a", "a2", "b"]
+    np.testing.assert_array_equal(obs.y, [y[keys.tolist().index(k)] for k in expected])
