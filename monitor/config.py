@@ -50,6 +50,9 @@ class CheckSettings:
     slope_chart_small_step: float = 0.05  # ... and its second lane to this one (0: no such lane)
     slope_chart_reference: str = "learning"  # learns from in-control days, or "fixed"
     slope_chart_arl_days: float = 5000.0  # its in-control run length (false refits add up)
+    # a version fitted on fewer than learn_until_days days learns a day's slopes only once this
+    # many later days passed below the watch line (0: at once)
+    slope_learn_delay_days: int = 14
     learn_until_days: int = 40  # a version fitted on fewer days learns its level until then
     # data health (monitor.monitoring.data_health): a silent feed, bad files, rising rejections
     silence_pvalue: float = 0.001  # a run of days without rows this unlikely by the fit calendar
@@ -330,7 +333,8 @@ def _check_settings(r: _Reader, raw: Any, key: str, base: CheckSettings) -> Chec
         elif name == "slope_chart_reference":
             values[name] = r.choice(sec, full, default, ("learning", "fixed"))
         elif isinstance(default, int) and not isinstance(default, bool):
-            values[name] = r.integer(sec, full, default, low=1)
+            values[name] = r.integer(sec, full, default,
+                                     low=0 if name == "slope_learn_delay_days" else 1)
         else:
             values[name] = r.number(sec, full, default, low=0.0)
     out = replace(base, **values)

@@ -438,14 +438,20 @@ def test_a_short_window_version_learns_its_level_and_needs_no_sharpening(
     assert view.as_dict()["cusum"]["learned_days"] == learned[-1]
     # ... and so does the within-day slope chart's reference, which learns from the same
     # in-control days (each check records how many)
+    # (a day joins it once 14 later days passed without a sign of change; until then it is held)
     slope_days = [c.state.learning.slope_days for c in checks]
-    assert slope_days == sorted(slope_days) and 0 < slope_days[-1] <= len(with_rows)
+    held = len(checks[-1].state.learning.slope_pending)
+    assert slope_days == sorted(slope_days) and 0 < slope_days[-1] + held <= len(with_rows)
+    assert slope_days[-1] == max(0, slope_days[-1] + held - 14) and held == min(
+        14, slope_days[-1] + held)
     chart = view.as_dict()["slope_chart"]
     assert chart["reference"] == "learning" and chart["learned_days"] == slope_days[-1]
+    assert chart["held_days"] == held
     assert len(chart["h"]) == 2 and chart["lane_steps"] == [0.10, 0.05]
     assert "(tuned to 10 %), " in view.text() and "(tuned to 5 %);" in view.text()
     assert (f"its reference has learned the slopes of {slope_days[-1]} checked day(s) on top "
-            "of the fit window's; learning") in view.text()
+            f"of the fit window's, and holds the last {held} back until enough later days pass "
+            "without a sign of change; learning") in view.text()
 
 
 @pytest.mark.slow

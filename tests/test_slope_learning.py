@@ -8,6 +8,7 @@ self-starting chart must not learn a change into its reference).
 
 from __future__ import annotations
 
+from dataclasses import replace
 from datetime import UTC, date, datetime, timedelta
 
 import numpy as np
@@ -55,13 +56,49 @@ def test_the_reference_learns_in_control_days_and_stops_at_the_refit() -> None:
     change_day = START + timedelta(days=fit_days + calm)
     in_control = [c for c in checks if c.day < change_day]
     assert all(c.status != Status.REFIT for c in in_control)
-    assert in_control[-1].state.learning.slope_days >= calm - 5  # nearly every calm day
+    delay = settings.check.slope_learn_delay_days  # days wait this long before they are learned
+    assert in_control[-1].state.learning.slope_days >= calm - delay - 5  # nearly every calm day
     first_refit = next(c for c in checks if c.status == Status.REFIT)
     assert first_refit.day >= change_day and first_refit.state.learning.stopped
     later = [c.state.learning.slope_days for c in checks if c.day >= first_refit.day]
     assert len(set(later)) == 1  # no day learned after the refit (none acknowledged here)
     assert later[0] <= in_control[-1].state.learning.slope_days + (first_refit.day
                                                                    - change_day).days
+
+
+def test_a_day_is_learned_only_after_the_delay_and_a_sign_of_change_drops_the_days_held() -> None:
+    """With ``slope_learn_delay_days = 7`` a day joins the reference only after 7 later days with
+    slopes passed below the watch line; the days held back are dropped at a sign of change, so
+    a 20 % steeper slope caught within a week is never learned."""
+    rng = np.random.default_rng(12)
+    fit_days, calm, changed, delay = 14, 40, 20, 7
+    days, x, y = _rows(rng, fit_days + calm + changed, change_from=fit_days + calm)
+    base = Settings().for_model("dock")
+    settings = replace(base, check=replace(base.check, slope_learn_delay_days=delay))
+    _, version, checks = replay_arrays(SPEC, settings, days, x, y,
+                                       START + timedelta(days=fit_days - 1),
+                                       now=datetime(2030, 1, 1, tzinfo=UTC))
+    assert version.baseline.slope_limits is not None
+    h = np.asarray(version.baseline.slope_limits.array())
+    watch = settings.check.watch_cusum_fraction
+    change_day = START + timedelta(days=fit_days + calm)
+    for i, check in enumerate(checks):
+        learning = check.state.learning
+        assert len(learning.slope_pending) <= delay
+        assert learning.slope_days <= max(0, i + 1 - delay)  # every day waits its turn
+        high = (np.maximum(check.state.slope_upper, check.state.slope_lower) > watch * h).any()
+        if high or check.status == Status.REFIT:
+            assert learning.slope_pending == (), check.day
+    in_control = [c for c in checks if c.day < change_day]
+    assert in_control[-1].state.learning.slope_days >= calm - delay - 5
+    first_refit = next(c for c in checks if c.status == Status.REFIT)
+    assert first_refit.day < change_day + timedelta(days=delay)
+    # no changed day was learned: what was learned by the refit stood on the calm days alone
+    learned_by_change = in_control[-1].state.learning
+    learned_at_refit = first_refit.state.learning
+    assert learned_at_refit.slope_days - learned_by_change.slope_days \
+        <= len(learned_by_change.slope_pending)
+    assert learned_at_refit.slope_pending == () and learned_at_refit.stopped
 
 
 def test_two_predictors_chart_four_lanes_and_name_the_one_that_moved() -> None:
@@ -93,3 +130,20 @@ def test_two_predictors_chart_four_lanes_and_name_the_one_that_moved() -> None:
     chart = first_refit.details.slope_chart
     assert chart is not None and chart.predictor == 1 and chart.upward
     assert chart.value > chart.h
+
+
+def test_a_version_fitted_on_enough_days_learns_each_day_at_once() -> None:
+    """Only a version fitted on fewer than ``learn_until_days`` days holds its days back; one
+    fitted on more has a reference strong enough that a day is learned the day it is checked
+    (holding back would only make neighbouring days share the reference's error)."""
+    rng = np.random.default_rng(5)
+    fit_days = 45
+    days, x, y = _rows(rng, fit_days + 5, change_from=10_000)
+    settings = Settings().for_model("dock")
+    assert settings.check.slope_learn_delay_days > 0 and fit_days >= \
+        settings.check.learn_until_days
+    _, _, checks = replay_arrays(SPEC, settings, days, x, y,
+                                 START + timedelta(days=fit_days - 1),
+                                 now=datetime(2030, 1, 1, tzinfo=UTC))
+    assert [c.state.learning.slope_days for c in checks] == [1, 2, 3, 4, 5]
+    assert all(c.state.learning.slope_pending == () for c in checks)

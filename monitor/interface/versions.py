@@ -173,7 +173,9 @@ class VersionView:
                 "learned_days": (learned.slope_days if learned is not None
                                  and limits.reference == "learning" else None),
                 "learning_stopped": (learned.stopped if learned is not None
-                                     and limits.reference == "learning" else None)}
+                                     and limits.reference == "learning" else None),
+                "held_days": (len(learned.slope_pending) if learned is not None
+                              and limits.reference == "learning" else None)}
 
     @staticmethod
     def slope_learning_text(chart: dict[str, Any]) -> str:
@@ -187,8 +189,11 @@ class VersionView:
                     "checked yet)")
         state = ("stopped by a refit until it is acknowledged or replaced"
                  if chart["learning_stopped"] else "learning")
+        held = chart.get("held_days") or 0
+        waiting = (f", and holds the last {held} back until enough later days pass without a "
+                   "sign of change" if held else "")
         return (f"its reference has learned the slopes of {days} checked day(s) on top of the "
-                f"fit window's; {state}")
+                f"fit window's{waiting}; {state}")
 
     def findings(self) -> list[WindowFinding]:
         d = self.version.baseline.diagnosis

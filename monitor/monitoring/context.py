@@ -60,6 +60,11 @@ class VersionContext:
     learn_base: Moments | None = None  # self-starting: the fit window's day mean residuals
     learn_until: int = 0  # self-starting: learn until the level counts this many days
     effects: DayEffects | None = None  # the fit window's day effects (the coverage law's spread)
+    # the days a slope chart's day waits before its reference learns it: a version fitted on
+    # fewer than ``learn_until_days`` days has a weak reference that would absorb a small
+    # change fast; a longer one learns each day at once (holding days back makes neighbouring
+    # days share the reference's error, which its limits do not allow for)
+    slope_learn_delay: int = 0
     k: float = 0.5
     target_arl: float = 1000.0
     guarantee: float = 0.95
@@ -149,6 +154,8 @@ class VersionContext:
                    misses=PersistentMissLaw(misses, phi_a),
                    first_recent_day=first_recent, slope_chart=slope_chart, rhythm=rhythm,
                    learn_base=learn_base, learn_until=learn_until, effects=effects,
+                   slope_learn_delay=(settings.slope_learn_delay_days
+                                      if design.n_days < settings.learn_until_days else 0),
                    k=settings.cusum_k,
                    target_arl=settings.cusum_arl_days, guarantee=settings.guarantee)
 

@@ -52,7 +52,13 @@ from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.self_start import learned, q_value
 from monitor.stats.spread import SpreadTest, spread_test
-from monitor.stats.within_slope import SlopeStep, advance, learn_slopes, slope_step
+from monitor.stats.within_slope import (
+    SlopeStep,
+    advance,
+    day_slope_weights,
+    learn_slopes,
+    slope_step,
+)
 
 FloatArray = NDArray[np.float64]
 MIN_SPREAD_DAYS = 5  # fit days with a day spread below which the classical spread test is kept
@@ -137,7 +143,7 @@ def evaluate_day(ctx: VersionContext, carry: Carry, data: DayInput, settings: Ch
     if settings.cusum_unit == "day":
         carry = _learn(ctx, carry, data, residuals, verdict, settings.watch_cusum_fraction)
     carry = _learn_slopes(ctx, carry, slope_step_today, verdict,
-                          settings.watch_cusum_fraction)
+                          settings.watch_cusum_fraction, ctx.slope_learn_delay)
 
     # where a change began, and what the line looks like since (only when there is a finding)
     change_day, since_change = None, None
@@ -299,23 +305,32 @@ def _learn(ctx: VersionContext, carry: Carry, data: DayInput, residuals: FloatAr
 
 
 def _learn_slopes(ctx: VersionContext, carry: Carry, step: SlopeStep | None,
-                  verdict: Verdict, watch_fraction: float) -> Carry:
-    """A learning slope reference takes in today's slopes when every lane of the chart stands
-    below the watch line after the day and the day is no ``refit`` (a sign of change pauses the
-    learning, so a change is not learned); a ``refit`` stops it until it is acknowledged."""
+                  verdict: Verdict, watch_fraction: float, delay: int) -> Carry:
+    """A learning slope reference takes in a day's slopes once ``delay`` later days with slopes
+    have passed with every lane of the chart below the watch line and no ``refit`` (a sign of
+    change drops the days held back and pauses the learning, so a change is not learned, even
+    one too small to show in a day or two); a ``refit`` stops it until it is acknowledged.
+    ``delay`` is the context's (:attr:`VersionContext.slope_learn_delay`)."""
     design = ctx.slope_chart
     learning = carry.state.learning
     if design is None or not design.learns or step is None or learning.stopped:
         return carry
     if verdict.status == Status.REFIT:
-        learning = replace(learning, stopped=True)
+        learning = replace(learning, stopped=True, slope_pending=())
     else:
         sides = np.maximum(carry.state.slope_upper, carry.state.slope_lower)
         if (sides > watch_fraction * np.asarray(design.h)).any():
-            return carry
-        weight, total = learn_slopes(learning.slope_weight, learning.slope_sum, step)
-        learning = replace(learning, slope_weight=weight, slope_sum=total,
-                           slope_days=learning.slope_days + 1)
+            if not learning.slope_pending:
+                return carry
+            learning = replace(learning, slope_pending=())
+        else:
+            pending = (*learning.slope_pending, day_slope_weights(step))
+            weight, total, days = learning.slope_weight, learning.slope_sum, learning.slope_days
+            while len(pending) > max(delay, 0):
+                weight, total = learn_slopes(weight, total, pending[0])
+                pending, days = pending[1:], days + 1
+            learning = replace(learning, slope_weight=weight, slope_sum=total,
+                               slope_days=days, slope_pending=pending)
     return replace(carry, state=replace(carry.state, learning=learning))
 
 

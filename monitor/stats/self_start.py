@@ -102,3 +102,6 @@ class Learning:
     slope_weight: tuple[float, ...] = ()
     slope_sum: tuple[float, ...] = ()
     slope_days: int = 0
+    # days held back before they are learned (``slope_learn_delay_days``), oldest first: each
+    # day's w_d then w_d (b_d - beta_0) per predictor
+    slope_pending: tuple[tuple[float, ...], ...] = ()

@@ -15,6 +15,7 @@ from monitor.stats.within_slope import (
     SlopeStep,
     advance,
     between_day_variance,
+    day_slope_weights,
     day_slopes,
     design_slope_chart,
     learn_slopes,
@@ -280,7 +281,7 @@ def test_a_learning_reference_is_the_precision_weighted_mean_of_wls() -> None:
     for x, y in _days(rng, 25):
         step = slope_step(design, x, y, weight, total)
         assert step is not None
-        weight, total = learn_slopes(weight, total, step)
+        weight, total = learn_slopes(weight, total, day_slope_weights(step))
         slopes.append(design.slopes[0] + step.deviation[0])
         variances.append(step.variance[0])
     wls = sm.WLS(np.array(slopes), np.ones(len(slopes)), weights=1 / np.array(variances)).fit()
@@ -314,7 +315,7 @@ def test_learning_makes_the_days_independent_whatever_the_fit_windows_error() ->
                 assert step is not None
                 zs.append(step.z[0])
                 if learns:
-                    weight, total = learn_slopes(weight, total, step)
+                    weight, total = learn_slopes(weight, total, day_slope_weights(step))
             means[learns].append(np.mean(zs))
     n = len(means[True])
     low, high = chi2.ppf([0.005, 0.995], n - 1) / (n - 1) / 30
