@@ -36,17 +36,23 @@ def _rows(rng: np.random.Generator, days: int, change_from: int
     return np.concatenate(stamps), np.concatenate(xs)[:, None], np.concatenate(ys)
 
 
-def test_the_reference_learns_in_control_days_and_stops_at_the_refit() -> None:
-    rng = np.random.default_rng(12)
-    fit_days, calm, changed = 14, 40, 20
-    days, x, y = _rows(rng, fit_days + calm + changed, change_from=fit_days + calm)
-    settings = Settings().for_model("dock")
-    assert settings.check.slope_chart_reference == "learning"
-    _, version, checks = replay_arrays(SPEC, settings, days, x, y,
+def _walk(settings: Settings, seed: int, fit_days: int, days: int, change_from: int
+          ) -> tuple[np.ndarray, list]:
+    """Fit on the first ``fit_days`` days of ``_rows`` and walk the rest; the slope chart's
+    limits and the checks."""
+    days_, x, y = _rows(np.random.default_rng(seed), days, change_from)
+    _, version, checks = replay_arrays(SPEC, settings, days_, x, y,
                                        START + timedelta(days=fit_days - 1),
                                        now=datetime(2030, 1, 1, tzinfo=UTC))
     assert version.baseline.slope_limits is not None
-    h = np.asarray(version.baseline.slope_limits.array())
+    return np.asarray(version.baseline.slope_limits.array()), list(checks)
+
+
+def test_the_reference_learns_in_control_days_and_stops_at_the_refit() -> None:
+    fit_days, calm, changed = 14, 40, 20
+    settings = Settings().for_model("dock")
+    assert settings.check.slope_chart_reference == "learning"
+    h, checks = _walk(settings, 12, fit_days, fit_days + calm + changed, fit_days + calm)
     watch = settings.check.watch_cusum_fraction
     learned = [c.state.learning.slope_days for c in checks]
     for before, check, after in zip([0, *learned], checks, learned, strict=False):
@@ -70,16 +76,10 @@ def test_a_day_is_learned_only_after_the_delay_and_a_sign_of_change_drops_the_da
     """With ``slope_learn_delay_days = 7`` a day joins the reference only after 7 later days with
     slopes passed below the watch line; the days held back are dropped at a sign of change, so
     a 20 % steeper slope caught within a week is never learned."""
-    rng = np.random.default_rng(12)
     fit_days, calm, changed, delay = 14, 40, 20, 7
-    days, x, y = _rows(rng, fit_days + calm + changed, change_from=fit_days + calm)
     base = Settings().for_model("dock")
     settings = replace(base, check=replace(base.check, slope_learn_delay_days=delay))
-    _, version, checks = replay_arrays(SPEC, settings, days, x, y,
-                                       START + timedelta(days=fit_days - 1),
-                                       now=datetime(2030, 1, 1, tzinfo=UTC))
-    assert version.baseline.slope_limits is not None
-    h = np.asarray(version.baseline.slope_limits.array())
+    h, checks = _walk(settings, 12, fit_days, fit_days + calm + changed, fit_days + calm)
     watch = settings.check.watch_cusum_fraction
     change_day = START + timedelta(days=fit_days + calm)
     for i, check in enumerate(checks):
@@ -136,14 +136,10 @@ def test_a_version_fitted_on_enough_days_learns_each_day_at_once() -> None:
     """Only a version fitted on fewer than ``learn_until_days`` days holds its days back; one
     fitted on more has a reference strong enough that a day is learned the day it is checked
     (holding back would only make neighbouring days share the reference's error)."""
-    rng = np.random.default_rng(5)
     fit_days = 45
-    days, x, y = _rows(rng, fit_days + 5, change_from=10_000)
     settings = Settings().for_model("dock")
     assert settings.check.slope_learn_delay_days > 0 and fit_days >= \
         settings.check.learn_until_days
-    _, _, checks = replay_arrays(SPEC, settings, days, x, y,
-                                 START + timedelta(days=fit_days - 1),
-                                 now=datetime(2030, 1, 1, tzinfo=UTC))
+    _, checks = _walk(settings, 5, fit_days, fit_days + 5, change_from=10_000)
     assert [c.state.learning.slope_days for c in checks] == [1, 2, 3, 4, 5]
     assert all(c.state.learning.slope_pending == () for c in checks)
