@@ -27,8 +27,14 @@ from monitor.store import audit
 from monitor.store.checks import last_check, load_checks
 from monitor.store.models import get_model
 from monitor.store.observations import load_observations
-from monitor.store.standing import LastStatus, last_status, version_numbers
-from monitor.store.versions import list_versions
+from monitor.store.standing import (
+    LastStatus,
+    VersionHead,
+    active_head,
+    last_status,
+    version_numbers,
+)
+from monitor.store.versions import active_version, list_versions
 from tests.support.snapshots import Step, WorldCache
 from tests.support.world import (
     CALM,
@@ -200,6 +206,12 @@ def test_status_after_a_promotion_says_what_happened_and_what_comes_next(
         last = last_check(conn, model_id)
         assert last is not None and last_status(conn, model_id) == LastStatus(
             last.day, last.status, last.status_since, last.reasons, last.version_id)
+        active, head = active_version(conn, model_id), active_head(conn, model_id)
+        assert active is not None and active.baseline.calibration is not None
+        assert head == VersionHead(active.id, active.number, active.fit_start, active.fit_end,
+                                   active.active_from, active.baseline.fit_days,
+                                   active.baseline.calibration.h,
+                                   active.baseline.calibration.h_known)
     # once a day is checked under version 2, status speaks of version 2 again
     changed.add_days(date(2026, 4, 13), date(2026, 4, 13), 79, "first.csv")
     changed.check(date(2026, 4, 13))

@@ -52,7 +52,6 @@ from monitor.store.observations import (
     PreparedRows,
     delete_batch_observations,
     insert_observations,
-    last_observed_at,
     merge_day_stats,
     prepare_rows,
     replace_observations,
@@ -60,6 +59,7 @@ from monitor.store.observations import (
     undo_replacements,
 )
 from monitor.store.retention import kept_from
+from monitor.store.row_days import last_observed_at
 
 log = logging.getLogger(__name__)
 

@@ -16,16 +16,20 @@ from monitor.domain.days import local_day, yesterday
 from monitor.domain.model import ModelRecord
 from monitor.domain.phrasing import fmt, held_reason
 from monitor.domain.status import Status
-from monitor.domain.version import Version
 from monitor.monitoring.data_health import model_data_health
 from monitor.runtime.schedule import NightlyState, cron_trigger, nightly_state
 from monitor.store import audit, lease, outbox
 from monitor.store.access import database
 from monitor.store.models import get_model, list_models
-from monitor.store.observations import days_with_rows, last_observed_at
 from monitor.store.outbox import Undelivered
-from monitor.store.standing import LastStatus, last_status
-from monitor.store.versions import active_version, version_number
+from monitor.store.row_days import days_with_rows, last_observed_at
+from monitor.store.standing import (
+    LastStatus,
+    VersionHead,
+    active_head,
+    last_status,
+    version_number,
+)
 
 SHARPEN_RATIO = 1.5  # a bias chart limit this far above the exact-parameter one is "wide"
 
@@ -129,7 +133,7 @@ def model_statuses(settings: Settings, names: Sequence[str] | None = None, *,
         trouble = outbox.undelivered(conn)
         for model in models:
             last = last_status(conn, model.id)
-            active = active_version(conn, model.id)
+            active = active_head(conn, model.id)
             latest = last_observed_at(conn, model)
             rows_day = local_day(latest, settings.timezone) if latest else None
             status = _status(model, last, active, last_day)
@@ -181,7 +185,7 @@ class Sharpening:
                 f"{self.start}: '{self.command()}' would sharpen it")
 
 
-def sharpen_advice(name: str, version: Version,
+def sharpen_advice(name: str, version: VersionHead,
                    days_since_fit_start: int) -> Sharpening | None:
     """Say so when the version's bias chart is wide only for want of days, and days have come.
 
@@ -190,16 +194,15 @@ def sharpen_advice(name: str, version: Version,
     would need. Once at least twice as many days with rows exist from the same start, a refit
     on them tightens the chart without changing the line much (``compare`` then recommends it).
     """
-    calibration, fit_days = version.baseline.calibration, version.baseline.fit_days
-    if (calibration is None or not fit_days or version.fit_start is None
-            or calibration.h < SHARPEN_RATIO * calibration.h_known
-            or days_since_fit_start < 2 * fit_days):
+    h, h_known, fit_days = version.h, version.h_known, version.fit_days
+    if (h is None or h_known is None or not fit_days or version.fit_start is None
+            or h < SHARPEN_RATIO * h_known or days_since_fit_start < 2 * fit_days):
         return None
-    return Sharpening(name, version.number, int(fit_days), calibration.h,
-                      calibration.h_known, days_since_fit_start, version.fit_start)
+    return Sharpening(name, version.number, int(fit_days), h, h_known, days_since_fit_start,
+                      version.fit_start)
 
 
-def _status(model: ModelRecord, last: LastStatus | None, active: Version | None,
+def _status(model: ModelRecord, last: LastStatus | None, active: VersionHead | None,
             last_day: date) -> ModelStatus:
     number = active.number if active else None
     if last is None:

@@ -36,13 +36,9 @@ from monitor.stats.prediction import PredictionModel
 from monitor.store.access import database
 from monitor.store.checks import last_check
 from monitor.store.models import get_model
-from monitor.store.observations import (
-    Observations,
-    days_with_rows,
-    load_day_stats,
-    load_observations,
-)
+from monitor.store.observations import Observations, load_day_stats, load_observations
 from monitor.store.retention import kept_from
+from monitor.store.row_days import days_with_rows
 from monitor.store.versions import active_version, get_version, list_versions
 
 MIN_HOLDOUT_DAYS = 3

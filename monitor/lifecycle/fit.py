@@ -42,8 +42,9 @@ from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction
 from monitor.store.models import create_model, delete_model, find_model
-from monitor.store.observations import days_with_rows, load_observations
+from monitor.store.observations import load_observations
 from monitor.store.retention import kept_from
+from monitor.store.row_days import days_with_rows
 from monitor.store.versions import active_version, insert_version
 
 

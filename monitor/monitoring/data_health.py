@@ -40,7 +40,7 @@ from monitor.domain.data_health import (
     mostly_rejected,
 )
 from monitor.domain.model import ModelRecord
-from monitor.domain.version import Version
+from monitor.domain.version_state import DatedVersion
 from monitor.ingest.reasons import REASONS, ranked
 from monitor.stats.rejection_rise import rejection_rise
 from monitor.stats.silence import WeekdayCalendar, silent_run
@@ -52,14 +52,13 @@ from monitor.store.batches import (
     first_rejected_row,
 )
 from monitor.store.models import get_model, list_models
-from monitor.store.observations import (
+from monitor.store.row_days import (
     days_with_rows,
     first_day_with_rows,
     last_day_with_rows,
     last_days_with_rows,
 )
-from monitor.store.standing import last_status
-from monitor.store.versions import active_version
+from monitor.store.standing import active_head, last_status
 
 RECENT_DAYS = 7  # bad files are shown this long; the recent window of the rejection share
 LONG_RUN_DAYS = 365  # the long run the recent rejection share is compared with
@@ -89,7 +88,7 @@ def prefetch(conn: Connection, model_ids: Iterable[int], *, through: date,
 
 
 def model_data_health(conn: Connection, model: ModelRecord, check: CheckSettings,
-                      version: Version | None, *, through: date | None, now: datetime,
+                      version: DatedVersion | None, *, through: date | None, now: datetime,
                       zone: ZoneInfo, prefetched: Prefetched | None = None) -> DataHealth:
     """The data findings of ``model`` as of the day ``through`` and the instant ``now``
     (``prefetched``: read before for these same ``through`` and ``now``)."""
@@ -126,14 +125,15 @@ def data_health(settings: Settings, names: Sequence[str] | None = None, *,
             last = last_status(conn, model.id)
             out.append(model_data_health(
                 conn, model, settings.for_model(model.name).check,
-                active_version(conn, model.id), through=last.day if last else None, now=now,
+                active_head(conn, model.id), through=last.day if last else None, now=now,
                 zone=settings.timezone))
     return out
 
 
 # a silent feed ----------------------------------------------------------------------------------
-def _silent_feed(conn: Connection, model: ModelRecord, check: CheckSettings, version: Version,
-                 through: date, last_rows: date | None) -> SilentFeed | None:
+def _silent_feed(conn: Connection, model: ModelRecord, check: CheckSettings,
+                 version: DatedVersion, through: date, last_rows: date | None
+                 ) -> SilentFeed | None:
     first = last_rows + timedelta(days=1) if last_rows else version.active_from
     if first is None or first > through:
         return None
@@ -148,7 +148,7 @@ def _silent_feed(conn: Connection, model: ModelRecord, check: CheckSettings, ver
                       run.level, run.flagged_on, described)
 
 
-def _calendar(conn: Connection, model: ModelRecord, version: Version,
+def _calendar(conn: Connection, model: ModelRecord, version: DatedVersion,
               last_rows: date | None) -> tuple[WeekdayCalendar, str] | None:
     """The weekday calendar the version's days are judged by, and how to name it."""
     fitted = version.fit_start is not None and version.fit_end is not None

@@ -26,8 +26,9 @@ from monitor.store.access import database
 from monitor.store.batches import BatchRecord, get_batch
 from monitor.store.checks import load_checks
 from monitor.store.models import get_model
-from monitor.store.observations import DayRows, day_revision, load_day_rows, neighbour_days
+from monitor.store.observations import DayRows, day_revision, load_day_rows
 from monitor.store.retention import kept_from, pruned_on
+from monitor.store.row_days import neighbour_days
 from monitor.store.versions import active_version, version_by_id
 
 BoolArray = NDArray[np.bool_]

@@ -44,7 +44,8 @@ from monitor.report.series import (
 from monitor.store.access import database
 from monitor.store.checks import last_check, load_checks
 from monitor.store.models import get_model
-from monitor.store.observations import last_observed_at, load_observations
+from monitor.store.observations import load_observations
+from monitor.store.row_days import last_observed_at
 from monitor.store.versions import list_versions
 
 PAGE = "index.html"

@@ -14,8 +14,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from monitor.stats import tails
-
 RATIO = 2.0  # the recent share must be at least this multiple of the long-run share ...
 MIN_SHARE = 0.01  # ... and at least this share of the recent rows
 MIN_PAST_ROWS = 100  # fewer earlier rows than this: no long run to compare with
@@ -51,6 +49,10 @@ def rejection_rise(recent_rejected: int, recent_read: int, past_rejected: int, p
         raise ValueError("rejected rows must lie between 0 and the rows read")
     if recent_read == 0 or past_read < MIN_PAST_ROWS:
         return None
+    # Imported here: the test runs only when recent files lost rows, and ``status`` reaches
+    # this module on every call (numpy and scipy would double its start-up).
+    from monitor.stats import tails
+
     share = (past_rejected + 0.5) / (past_read + 1.0)
     pvalue = float(tails.binom_sf(recent_rejected - 1, recent_read, share))
     return RejectionRise(recent_rejected, recent_read, past_rejected, past_read, share,

@@ -8,9 +8,9 @@ the tuples the driver itself needs.
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
-from datetime import UTC, date, datetime, timedelta
+from datetime import date, datetime
 from itertools import chain
 from typing import Any
 
@@ -33,7 +33,8 @@ from sqlalchemy.sql.compiler import SQLCompiler
 from monitor.domain.model import ModelRecord
 from monitor.errors import StateError
 from monitor.stats.moments import DayMoments, Moments
-from monitor.store.engine import driver_cursor, id_chunks
+from monitor.store.engine import driver_cursor
+from monitor.store.row_days import day_range
 from monitor.store.schema import (
     UtcDateTime,
     day_checks,
@@ -42,8 +43,6 @@ from monitor.store.schema import (
     predictor_columns,
     replaced_rows,
 )
-
-_EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
 @dataclass(frozen=True, eq=False)
@@ -105,7 +104,7 @@ def load_observations(conn: Connection, model: ModelRecord, first_day: date | No
     """Every stored row of ``model`` with ``first_day <= day <= last_day`` (bounds optional)."""
     xs = [observations.c[c] for c in predictor_columns(model.k)]
     stmt = (select(observations.c.day, observations.c.observed_at_us, observations.c.y, *xs)
-            .where(_day_range(model, first_day, last_day))
+            .where(day_range(model, first_day, last_day))
             .order_by(observations.c.day, observations.c.observed_at_us, _by_key(conn)))
     rows = _fetch(conn, stmt)
     n = len(rows)
@@ -124,7 +123,7 @@ def load_day_rows(conn: Connection, model: ModelRecord, day: date) -> DayRows:
     xs = [observations.c[c] for c in predictor_columns(model.k)]
     stmt = (select(observations.c.obs_key, observations.c.batch_id,
                    observations.c.observed_at_us, observations.c.y, *xs)
-            .where(_day_range(model, day, day))
+            .where(day_range(model, day, day))
             .order_by(observations.c.observed_at_us, _by_key(conn)))
     rows = _fetch(conn, stmt)
     if not rows:
@@ -160,71 +159,6 @@ def load_day_stats(conn: Connection, model: ModelRecord, first_day: date | None 
     parts = [Moments.from_dict(row.moments) for row in rows]
     return StoredDayStats(DayMoments.stack(np.array(days, dtype="datetime64[D]"), parts, dim),
                           {row.day: int(row.revision) for row in rows})
-
-
-def days_with_rows(conn: Connection, model: ModelRecord, first_day: date | None = None,
-                   last_day: date | None = None) -> list[date]:
-    """The days of ``model`` that have stored rows, in order (their statistics left unread)."""
-    stmt = (select(day_stats.c.day).where(day_stats.c.model_id == model.id, day_stats.c.n > 0)
-            .order_by(day_stats.c.day))
-    if first_day is not None:
-        stmt = stmt.where(day_stats.c.day >= first_day)
-    if last_day is not None:
-        stmt = stmt.where(day_stats.c.day <= last_day)
-    return list(conn.execute(stmt).scalars())
-
-
-def neighbour_days(conn: Connection, model: ModelRecord, day: date
-                   ) -> tuple[date | None, date | None]:
-    """The nearest days before and after ``day`` that have stored rows (None: there is none)."""
-    has_rows = (day_stats.c.model_id == model.id, day_stats.c.n > 0)
-    before = conn.execute(select(func.max(day_stats.c.day))
-                          .where(*has_rows, day_stats.c.day < day)).scalar()
-    after = conn.execute(select(func.min(day_stats.c.day))
-                         .where(*has_rows, day_stats.c.day > day)).scalar()
-    return before, after
-
-
-def first_day_with_rows(conn: Connection, model: ModelRecord) -> date | None:
-    """The earliest day of ``model`` that has stored rows, or None."""
-    return conn.execute(select(func.min(day_stats.c.day)).where(
-        day_stats.c.model_id == model.id, day_stats.c.n > 0)).scalar()
-
-
-def last_day_with_rows(conn: Connection, model: ModelRecord, through: date) -> date | None:
-    """The latest day of ``model`` on or before ``through`` that has stored rows, or None."""
-    return conn.execute(select(func.max(day_stats.c.day)).where(
-        day_stats.c.model_id == model.id, day_stats.c.n > 0,
-        day_stats.c.day <= through)).scalar()
-
-
-def last_days_with_rows(conn: Connection, model_ids: Iterable[int],
-                        through: date) -> dict[int, date]:
-    """:func:`last_day_with_rows` of many models at once, by id (models without one left
-    out)."""
-    out: dict[int, date] = {}
-    for ids in id_chunks(model_ids):
-        rows = conn.execute(select(day_stats.c.model_id, func.max(day_stats.c.day)).where(
-            day_stats.c.model_id.in_(ids), day_stats.c.n > 0, day_stats.c.day <= through)
-            .group_by(day_stats.c.model_id))
-        out.update((int(model_id), day) for model_id, day in rows)
-    return out
-
-
-def last_observed_at(conn: Connection, model: ModelRecord) -> datetime | None:
-    """The latest stored observation time of ``model`` (UTC), or None."""
-    last_day = conn.execute(select(func.max(observations.c.day))
-                            .where(observations.c.model_id == model.id)).scalar()
-    if last_day is None:
-        return None
-    latest = conn.execute(select(func.max(observations.c.observed_at_us)).where(
-        _day_range(model, last_day - timedelta(days=1), None))).scalar()
-    return None if latest is None else _EPOCH + timedelta(microseconds=int(latest))
-
-
-def count_observations(conn: Connection, model: ModelRecord) -> int:
-    return int(conn.execute(select(func.count()).select_from(observations)
-                            .where(observations.c.model_id == model.id)).scalar_one())
 
 
 # writing ----------------------------------------------------------------------------------------
@@ -589,15 +523,6 @@ def _by_key(conn: Connection) -> Any:
     if conn.dialect.name == "postgresql":
         return observations.c.obs_key.collate("C")
     return observations.c.obs_key
-
-
-def _day_range(model: ModelRecord, first_day: date | None, last_day: date | None) -> Any:
-    clauses = [observations.c.model_id == model.id]
-    if first_day is not None:
-        clauses.append(observations.c.day >= first_day)
-    if last_day is not None:
-        clauses.append(observations.c.day <= last_day)
-    return and_(*clauses)
 
 
 def _day_strings(days: NDArray[np.datetime64]) -> list[str]:

@@ -28,6 +28,22 @@ class VersionNumber:
 
 
 @dataclass(frozen=True)
+class VersionHead:
+    """What a status line says of the active version: its number, its days, how many days it
+    was fitted on and its bias chart's limits (read from columns and two keys of the fit's
+    JSON, never decoded into arrays)."""
+
+    id: int
+    number: int
+    fit_start: date | None
+    fit_end: date | None
+    active_from: date | None
+    fit_days: int | None  # days with rows in the fit window
+    h: float | None  # the bias chart's limit (None: not calibrated)
+    h_known: float | None  # the limit exact parameters would need
+
+
+@dataclass(frozen=True)
 class LastStatus:
     """The latest day check of a model: its day, status and reasons, and the scoring version."""
 
@@ -43,6 +59,26 @@ def version_numbers(conn: Connection, model_id: int) -> list[VersionNumber]:
     rows = conn.execute(select(versions.c.id, versions.c.number, versions.c.state)
                         .where(versions.c.model_id == model_id).order_by(versions.c.number))
     return [VersionNumber(r.id, r.number, VersionState(r.state)) for r in rows]
+
+
+def version_number(conn: Connection, version_id: int) -> int | None:
+    """The number of the version with this id."""
+    return conn.execute(select(versions.c.number).where(versions.c.id == version_id)
+                        ).scalar_one_or_none()
+
+
+def active_head(conn: Connection, model_id: int) -> VersionHead | None:
+    """The head of the model's active version (None: no active version)."""
+    row = conn.execute(select(versions.c.id, versions.c.number, versions.c.fit_start,
+                              versions.c.fit_end, versions.c.active_from, versions.c.diagnostics)
+                       .where(versions.c.model_id == model_id,
+                              versions.c.state == VersionState.ACTIVE.value)).first()
+    if row is None:
+        return None
+    diagnostics = row.diagnostics or {}
+    calibration = diagnostics.get("calibration") or {}
+    return VersionHead(row.id, row.number, row.fit_start, row.fit_end, row.active_from,
+                       diagnostics.get("days"), calibration.get("h"), calibration.get("h_known"))
 
 
 def last_status(conn: Connection, model_id: int) -> LastStatus | None:

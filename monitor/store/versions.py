@@ -162,12 +162,6 @@ def candidates_by_model(conn: Connection, model_ids: Iterable[int]) -> dict[int,
     return out
 
 
-def version_number(conn: Connection, version_id: int) -> int | None:
-    """The number of the version with this id (one column: views that only name it)."""
-    return conn.execute(select(versions.c.number).where(versions.c.id == version_id)
-                        ).scalar_one_or_none()
-
-
 def active_version(conn: Connection, model_id: int) -> Version | None:
     row = conn.execute(select(versions).where(versions.c.model_id == model_id,
                                               versions.c.state == VersionState.ACTIVE.value)

@@ -24,7 +24,8 @@ from monitor.errors import InputError, MissingColumnsError
 from monitor.ingest.service import ingest_paths
 from monitor.interface.cli import main
 from monitor.store.batches import rejected_rows_of
-from monitor.store.observations import count_observations, load_observations
+from monitor.store.observations import load_observations
+from monitor.store.row_days import count_observations
 from tests.support.ingest import HEADER, NOW, Store, csv_text
 
 GOOD = ["L1,2026-03-02 08:00,10,31.5,D1", "L2,2026-03-02 09:00,12,35,D2"]

@@ -16,7 +16,7 @@ from monitor.domain.model import ModelSpec
 from monitor.errors import InputError
 from monitor.ingest.service import ingest_file, options_for
 from monitor.store.models import create_model
-from monitor.store.observations import count_observations
+from monitor.store.row_days import count_observations
 from monitor.store.schema import rejected_rows
 from tests.support.ingest import HEADER, NOW
 

@@ -30,7 +30,8 @@ from monitor.ingest.service import (
 )
 from monitor.stats.moments import DayMoments
 from monitor.store.batches import list_batches, rejected_rows_of
-from monitor.store.observations import count_observations, load_day_stats, load_observations
+from monitor.store.observations import load_day_stats, load_observations
+from monitor.store.row_days import count_observations
 from monitor.store.schema import batches, rejected_rows
 from tests.support.ingest import NOW, Store, csv_text
 

@@ -21,7 +21,7 @@ from monitor.ingest.inbox import sweep_inbox
 from monitor.ingest.service import ingest_paths
 from monitor.monitoring.data_health import data_health
 from monitor.store.batches import list_batches, rejected_rows_of
-from monitor.store.observations import count_observations
+from monitor.store.row_days import count_observations
 from tests.support.ingest import HEADER, NOW, Store, csv_text
 
 # invented rows of the 'loads' model (tests/support/ingest.py), on 2 March 2026

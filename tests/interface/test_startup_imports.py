@@ -8,10 +8,11 @@ Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database
 30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
 reports the schedule, so it is the one command here that may use APScheduler with the default
 schedule; a schedule of one's own is parsed by it when the settings load, in every command.
-``model list`` goes further: it reads version numbers and the last status from their columns,
-so it loads neither numpy (about 0.06 s on that machine) nor scipy nor any statistics module;
-``status`` reads the same columns and the active version, so the day check's types and the
-charts' statistics stay out of it.
+``model list`` and ``status`` go further: they read version numbers, the last status and the
+active version's head (its days, fit days and chart limits) from their columns, and the data
+findings need only day counts and the file batches, so they load neither numpy (about 0.06 s on
+that machine) nor scipy nor the day check's types and the charts' statistics (a rising
+rejection share, which takes the binomial tail, loads them when recent files lost rows).
 Start-up times are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy
 machine would make that flaky).
 """
@@ -79,11 +80,17 @@ def test_quick_commands_leave_the_heavy_libraries_alone(config: Path, argv: list
     assert set(seen["heavy"]) <= allowed, f"{argv} imported {seen['heavy']}"
 
 
-@pytest.mark.parametrize("argv", [["model", "list"], ["model", "list", "--json"]])
-def test_the_model_listing_needs_no_numpy(config: Path, argv: list[str]) -> None:
+# the data findings' own statistics, plain Python (status shows the findings)
+FINDINGS_STATISTICS = ("monitor.stats", "monitor.stats.silence", "monitor.stats.rejection_rise")
+
+
+@pytest.mark.parametrize("argv", [["model", "list"], ["model", "list", "--json"], ["status"],
+                                  ["status", "--json"]])
+def test_the_model_listing_and_status_need_no_numpy(config: Path, argv: list[str]) -> None:
     seen = loaded_by(["--config", str(config), *argv], config.parent)
     assert seen["code"] == 0 and seen["printed"], seen
-    numeric = [m for m in seen["ours"] if m in ("numpy", "scipy") or m.startswith("monitor.stats")]
+    numeric = [m for m in seen["ours"] if m in ("numpy", "scipy")
+               or (m.startswith("monitor.stats") and m not in FINDINGS_STATISTICS)]
     assert numeric == [], f"{argv} imported {numeric}"
 
 
@@ -121,3 +128,18 @@ def test_a_schedule_of_ones_own_is_parsed_when_the_settings_load(config: Path) -
     config.write_text(text)
     seen = loaded_by(["--config", str(config), "model", "list"], config.parent)
     assert seen["code"] == 0 and set(seen["heavy"]) <= {"apscheduler", "asyncio"}, seen
+
+
+@pytest.mark.parametrize("enabled", [True, False])
+def test_a_quick_view_gives_the_garbage_collector_back_as_it_found_it(
+        config: Path, enabled: bool, capsys: pytest.CaptureFixture[str]) -> None:
+    import gc
+
+    from monitor.interface.cli import main
+    gc.enable() if enabled else gc.disable()
+    try:
+        assert main(["--config", str(config), "model", "list"]) == 0
+        assert "dock_loading" in capsys.readouterr().out
+        assert gc.isenabled() is enabled
+    finally:
+        gc.enable()

@@ -20,7 +20,7 @@ from monitor.store import audit
 from monitor.store.batches import batches_between, batches_between_for
 from monitor.store.checks import checks_on, last_check, last_checks_before, load_checks
 from monitor.store.models import get_model
-from monitor.store.observations import last_day_with_rows, last_days_with_rows
+from monitor.store.row_days import last_day_with_rows, last_days_with_rows
 from monitor.store.versions import (
     candidates_by_model,
     list_versions,

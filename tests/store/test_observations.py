@@ -18,15 +18,14 @@ from monitor.stats.moments import DayMoments
 from monitor.store.batches import start_batch
 from monitor.store.models import create_model
 from monitor.store.observations import (
-    count_observations,
     insert_observations,
-    last_observed_at,
     load_day_rows,
     load_day_stats,
     load_observations,
     merge_day_stats,
     prepare_rows,
 )
+from monitor.store.row_days import count_observations, last_observed_at
 
 NOW = datetime(2026, 3, 14, 12, tzinfo=UTC)
 DAY_US = 86_400 * 10**6
