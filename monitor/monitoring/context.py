@@ -175,6 +175,7 @@ def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
                               settings.guarantee, row_scale=d.robust_sd if d else None,
                               h=stored, small_shift=settings.slope_chart_small_step,
                               raw_inflation=(d.slope_noise_ratio_raw or None) if d else None,
+                              clip_shift=(d.slope_clip_shift or None) if d else None,
                               learns=settings.slope_chart_reference == "learning")
 
 

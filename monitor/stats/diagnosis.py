@@ -78,6 +78,7 @@ class FitDiagnosis:
     slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows clipped) over the classical
     weekday_days: tuple[int, ...] = ()  # Mon..Sun: fit days with rows on that weekday
     slope_noise_ratio_raw: tuple[float, ...] = ()  # the same for the rows as they are
+    slope_clip_shift: tuple[float, ...] = ()  # clipped rows' within slopes minus the raw ones
 
     def rhythm(self, alpha: float = RHYTHM_ALPHA) -> tuple[float, ...] | None:
         """Mon..Sun offsets of the day mean residual (0 for a weekday without fit days) when the
@@ -243,7 +244,47 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
         weekday_days=tuple(per_weekday),
         slope_noise_ratio=slope_noise_ratio(centred_x, within, sigma_w2,
                                             TAIL_SDS * robust if robust > 0 else np.inf),
-        slope_noise_ratio_raw=slope_noise_ratio(centred_x, within, sigma_w2, np.inf))
+        slope_noise_ratio_raw=slope_noise_ratio(centred_x, within, sigma_w2, np.inf),
+        slope_clip_shift=(clipped_slope_shift(centred_x, within, idx, TAIL_SDS * robust)
+                          if robust > 0 else ()))
+
+
+def clipped_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike,
+                        clip: float) -> tuple[float, ...]:
+    """How far the pooled within-day slopes move when each day's rows are winsorized as the
+    within-day slope chart winsorizes them (``monitor.stats.within_slope.slope_step``).
+
+    With ``x~`` the predictors and ``w`` the residuals centred within their day, the within
+    slopes lie ``D = (Σ x~x~')⁻¹ Σ x~ w`` from the line's; the rows' residuals around the within
+    line are ``u = w - x~'D``, each day's are clipped around the day's median to ``e =
+    clip(u - med_d u, ±clip)``, and the pooled slopes of the clipped rows lie ``(Σ x~x~')⁻¹ Σ
+    x~ e`` from the within slopes (0 when nothing is clipped: ``Σ x~ u = 0`` and ``x~`` sums to
+    0 in each day). Symmetric rows clip alike on both sides and the shift is nil; rows with a
+    long right tail whose scatter grows with a predictor are clipped more where it is large, and
+    the clipped slopes lie below the raw ones. The chart's days are clipped, so their reference
+    must be too, or the chart would read that gap as a change (common practice, no source:
+    compare an estimator with its own expectation)."""
+    xc = np.asarray(centred_x, dtype=np.float64)
+    w = np.asarray(within, dtype=np.float64)
+    idx = np.asarray(day_index, dtype=np.int64)
+    if len(w) == 0:
+        return ()
+    xc = xc.reshape(len(w), -1)
+    sxx = xc.T @ xc
+    if np.linalg.cond(sxx) > 1e12:
+        return ()
+    u = w - xc @ np.linalg.solve(sxx, xc.T @ w)
+    order = np.lexsort((u, idx))
+    counts = np.bincount(idx)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    sorted_u = u[order]
+    present = counts > 0
+    lo = starts[present] + (counts[present] - 1) // 2
+    hi = starts[present] + counts[present] // 2
+    median = np.zeros(len(counts))
+    median[present] = 0.5 * (sorted_u[lo] + sorted_u[hi])
+    e = np.clip(u - median[idx], -clip, clip)
+    return tuple(float(v) for v in np.linalg.solve(sxx, xc.T @ e))
 
 
 def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,

@@ -12,7 +12,9 @@ keeps the rest; the variances are matched so that only the *shape* of the noise 
 - Student-t row noise is scaled to sd 5 min (t_nu has variance nu / (nu - 2));
 - spread growing with x keeps the root mean square of the row sd at 5 min;
 - a weekly rhythm adds fixed weekday offsets on top of the iid day shocks;
-- outliers add +40 min (a breakdown) to a share of rows on top of the normal noise.
+- outliers add +40 min (a breakdown) to a share of rows on top of the normal noise;
+- skewed rows: lognormal noise centred to mean 0 and scaled to sd 5 min, its sd growing with
+  pallets as above (a long right tail where the loads are large: durations are skewed).
 
 A :class:`Change` alters the pallet slope from a given monitored day on (a step, or a drift
 that grows a little each day). Everything else, the fitting and the day loop, is production
@@ -47,6 +49,7 @@ class Case:
     rows: float = 100.0  # mean loads a day (Poisson)
     phi: float = 0.0  # AR(1) coefficient of the day shocks (same marginal sd)
     t_df: float | None = None  # Student-t row noise with these df (same sd)
+    log_sd: float = 0.0  # lognormal row noise with this log-scale sd (centred, same sd)
     outlier_share: float = 0.0  # share of rows that are a breakdown
     outlier_minutes: float = 40.0  # what a breakdown adds
     weekly: bool = False  # Mondays +4 min, Saturdays -3 min, Sundays closed
@@ -76,6 +79,8 @@ CASES: dict[str, Case] = {c.name: c for c in (
     Case("weekly", "Mondays +4 min, Saturdays -3 min, Sundays closed (not in the model)",
          weekly=True),
     Case("spread_x", "row sd proportional to pallets, same average", spread_with_x=True),
+    Case("skewed_spread", "lognormal rows (log sd 0.8, centred) with sd proportional to "
+         "pallets", log_sd=0.8, spread_with_x=True),
     Case("x_shift", "pallet range moves up 2 every 100 days, line unchanged",
          x_shift_per_100_days=2.0),
     Case("rows_5", "5 loads a day", rows=5.0),
@@ -114,6 +119,8 @@ CHANGES: dict[str, Change] = {c.name: c for c in (
     Change("step_10", step=0.10),
     Change("step_20", step=0.20),
     Change("drift_0.05", drift_per_day=0.0005),
+    Change("step_-5", step=-0.05),  # a slope that falls (faster work): the other direction
+    Change("step_-10", step=-0.10),
     # soon after the version took over (with short_fit: a candidate fitted on two weeks and
     # promoted, then the slope moves again ten days later)
     Change("step_5_at_10", step=0.05, after=10),
@@ -190,7 +197,7 @@ def simulate(case: Case, model: int, monitored_days: int) -> Sample:
             mixed = rng.binomial(pallets.astype(np.int64), MIXED_SHARE).astype(np.float64)
             mean = mean + B2 * mixed
             columns.append(mixed)
-        noise = _row_noise(rng, n, case.t_df)
+        noise = _row_noise(rng, n, case.t_df, case.log_sd)
         if case.spread_with_x:
             noise = noise * pallets / rms  # same root mean square sd at the starting range
         y = mean + noise
@@ -203,8 +210,13 @@ def simulate(case: Case, model: int, monitored_days: int) -> Sample:
     return Sample(labels, np.concatenate(x_parts), np.concatenate(y_parts))
 
 
-def _row_noise(rng: np.random.Generator, n: int, df: float | None) -> np.ndarray:
-    """Row noise of sd ``SIGMA``: normal, or Student t scaled to the same sd."""
+def _row_noise(rng: np.random.Generator, n: int, df: float | None,
+               log_sd: float = 0.0) -> np.ndarray:
+    """Row noise of sd ``SIGMA``: normal, Student t or a centred lognormal scaled to it."""
+    if log_sd:
+        s2 = log_sd * log_sd  # lognormal: mean exp(s²/2), variance (exp(s²) - 1) exp(s²)
+        raw = np.exp(rng.normal(0.0, log_sd, n)) - np.exp(s2 / 2.0)
+        return SIGMA * raw / np.sqrt((np.exp(s2) - 1.0) * np.exp(s2))
     if df is None:
         return rng.normal(0.0, SIGMA, n)
     return SIGMA * np.sqrt((df - 2.0) / df) * rng.standard_t(df, n)
