@@ -73,6 +73,18 @@ def csv_files(draw: st.DrawFn) -> tuple[bytes, int]:
     return data, count
 
 
+def _ends_inside_quotes(text: str) -> bool:
+    """Whether a quote is never closed: the csv module then makes the rest of the file one
+    field, while the reader rejects the row where it opened and reads the lines after it as
+    rows ("bad_quoting", the readers' module text), so the two counts differ by design."""
+    try:
+        for _ in csv.reader(io.StringIO(text.removeprefix("\ufeff"), newline=""), strict=True):
+            pass
+    except csv.Error as exc:
+        return "unexpected end of data" in str(exc)
+    return False
+
+
 @settings(max_examples=60, deadline=None,
           suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
 @given(data=csv_files(), with_id=st.booleans(), chunk_rows=st.sampled_from([1, 3, 1000]))
@@ -97,7 +109,8 @@ def test_generated_files_always_balance(engine, make_settings, tmp_path, data, w
         return
     assert summary.read == summary.accepted + summary.duplicates + summary.rejected
     assert sum(summary.reasons.values()) == summary.rejected
-    if "\r" not in content.decode("utf-8", "replace").replace("\r\n", ""):
+    text = content.decode("utf-8", "replace")
+    if "\r" not in text.replace("\r\n", "") and not _ends_inside_quotes(text):
         assert summary.read == records  # every record counted once, blank lines not at all
     with engine.connect() as conn:
         assert count_observations(conn, model) == summary.accepted
