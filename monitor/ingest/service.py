@@ -177,10 +177,11 @@ def ingest_source(engine: Engine, model: ModelRecord, source: Source,
                   options: IngestOptions) -> IngestSummary:
     """Ingest any :class:`Source` in one transaction."""
     try:
-        # Every row written refers to the model, checked below under the write lock, or to
-        # the batch created in this transaction: SQLite's per-row reference checks are moot.
+        # Every row written refers to the model, held below until the commit, or to the batch
+        # created in this transaction: SQLite's per-row reference checks are moot (and the
+        # observations have none; migration 0007).
         with write_transaction(engine, foreign_keys=False) as conn:
-            current = find_model_by_id(conn, model.id)
+            current = find_model_by_id(conn, model.id, hold=True)
             if current is None or current.spec != model.spec:
                 raise StateError(f"model '{model.name}' changed or vanished while ingesting; "
                                  "try again")

@@ -5,5 +5,5 @@ one plain query and without loading Alembic; a test holds it equal to the head o
 (add a revision, then raise it here).
 """
 
-HEAD_REVISION = "0006"
+HEAD_REVISION = "0007"
 VERSION_TABLE = "alembic_version"  # Alembic's default name for its revision record

@@ -34,8 +34,15 @@ def find_model(conn: Connection, name: str) -> ModelRecord | None:
     return None if row is None else _record(row)
 
 
-def find_model_by_id(conn: Connection, model_id: int) -> ModelRecord | None:
-    row = conn.execute(select(models).where(models.c.id == model_id)).first()
+def find_model_by_id(conn: Connection, model_id: int, *,
+                     hold: bool = False) -> ModelRecord | None:
+    """The model with this id; ``hold``: keep it from being deleted until the transaction ends
+    (``FOR KEY SHARE`` on PostgreSQL; SQLite's write transaction already excludes a delete).
+    An ingest holds its model: its rows refer to it without a foreign key."""
+    query = select(models).where(models.c.id == model_id)
+    if hold:
+        query = query.with_for_update(read=True, key_share=True)
+    row = conn.execute(query).first()
     return None if row is None else _record(row)
 
 
@@ -88,6 +95,9 @@ def delete_model(conn: Connection, model: ModelRecord) -> dict[str, int]:
     what was done to it survives its deletion. Returns what was removed, per kind.
     """
     mid = model.id
+    # first lock the model's row: an ingest under way holds it, and its rows (which refer to
+    # the model without a foreign key) are then committed before they are counted and deleted
+    conn.execute(select(models.c.id).where(models.c.id == mid).with_for_update())
     counted = {
         "observations": conn.execute(select(func.count()).select_from(observations)
                                      .where(observations.c.model_id == mid)).scalar_one(),

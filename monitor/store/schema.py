@@ -147,11 +147,14 @@ rejected_rows = Table(
     Column("detail", Text, nullable=False),
 )
 
+# No foreign keys: PostgreSQL would check both references of every row stored (half of an
+# ingest's time on the server). An ingest holds the model's row and writes its own batch's id;
+# ``model delete`` locks the model's row, then deletes its rows (migration 0007).
 observations = Table(
     "observations", metadata,
     Column("id", BigId, primary_key=True),
-    Column("model_id", ForeignKey("models.id", ondelete="CASCADE"), nullable=False),
-    Column("batch_id", ForeignKey("batches.id"), nullable=False),
+    Column("model_id", Integer, nullable=False),
+    Column("batch_id", Integer, nullable=False),
     Column("obs_key", String(200), nullable=False),
     Column("observed_at_us", BigInteger, nullable=False),  # UTC epoch microseconds
     Column("day", Date, nullable=False),
