@@ -9,11 +9,14 @@ index on the id, in one transaction, default pragmas; it converts the two number
 ``float()`` and checks nothing else. fitwatch: ``ingest_file`` on a fresh database (created
 beforehand, not timed) with every validation check on every row. Each run is a fresh process, so
 its peak resident memory (VmHWM) is its own. Goal (issue 3): ratio <= 1.0, peak < 500 MB.
-``--postgres`` adds fitwatch on a PostgreSQL server (for information; the baseline stays
-SQLite). ``--before DIR`` also times the ``monitor/`` package found in DIR (e.g. an export of an
-earlier commit: ``git archive COMMIT monitor | tar -x -C DIR``) on each backend, interleaved with
-the rest, for a before/after ratio from the same run. The children import ``monitor`` from this
-checkout (or DIR), never from wherever the package happens to be installed.
+``--postgres`` adds fitwatch on a PostgreSQL server and the server's own baseline,
+``baseline-postgresql``: psycopg's ``COPY ... FROM STDIN (FORMAT csv)`` of the file, as read,
+into one table with a unique index on the id, in one transaction (what the server itself needs
+for the rows; fitwatch's ratio to it is printed too). ``--before DIR`` also times the
+``monitor/`` package found in DIR (e.g. an export of an earlier commit: ``git archive COMMIT
+monitor | tar -x -C DIR``) on each backend, interleaved with the rest, for a before/after ratio
+from the same run. The children import ``monitor`` from this checkout (or DIR), never from
+wherever the package happens to be installed.
 
 ``--shuffle`` writes the rows in random order (times and ids no longer ascending; every
 B-tree then fills out of order), for the files that are not sorted.
@@ -41,6 +44,8 @@ import subprocess
 import sys
 import tempfile
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -121,6 +126,39 @@ def baseline_observations(csv_path: Path, db_path: Path) -> None:
     con.close()
 
 
+@contextmanager
+def scratch_database() -> Iterator[str]:
+    """A fresh PostgreSQL database on the ``--postgres`` server, dropped afterwards; its URL."""
+    import psycopg
+
+    name = f"fitwatch_bench_{os.getpid()}"
+    with psycopg.connect(os.environ["FITWATCH_BENCH_PG"], autocommit=True) as admin:
+        admin.execute(f'CREATE DATABASE "{name}"')
+        try:
+            yield os.environ["FITWATCH_BENCH_PG"].rsplit("/", 1)[0] + "/" + name
+        finally:
+            admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+
+
+def baseline_postgresql(csv_path: Path, url: str) -> float:
+    """The server's baseline: COPY of the file's bytes into one table with a unique index on the
+    id, one transaction; its wall seconds (the table is made beforehand, not timed)."""
+    import psycopg
+
+    with psycopg.connect(url) as con:
+        con.execute("CREATE TABLE loads (load_id TEXT, docked_at TEXT, pallets DOUBLE PRECISION, "
+                    "load_minutes DOUBLE PRECISION, door TEXT)")
+        con.execute("CREATE UNIQUE INDEX ix_loads_id ON loads (load_id)")
+        con.commit()
+        began = time.perf_counter()
+        with con.cursor() as cur, cur.copy("COPY loads FROM STDIN (FORMAT csv, HEADER true)") \
+                as copy, csv_path.open("rb") as fh:
+            while block := fh.read(1 << 20):
+                copy.write(block)
+        con.commit()
+        return time.perf_counter() - began
+
+
 def prepare_fitwatch(url: str, with_id: bool) -> None:
     from datetime import UTC, datetime
 
@@ -197,7 +235,7 @@ def print_phases(stats: Any, wall: float) -> None:
 def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
     sys.path.insert(0, os.environ.get(TREE_ENV, str(ROOT)))
     cpu = cpu_seconds()
-    if kind.startswith("baseline"):
+    if kind.startswith("baseline") and kind != "baseline-postgresql":
         if kind == "baseline-observations":
             prepare_fitwatch(f"sqlite:///{db_path}", with_id=True)
             with sqlite3.connect(db_path) as con:
@@ -210,22 +248,22 @@ def child(kind: str, csv_path: Path, db_path: Path, profile: bool) -> None:
         {"baseline": baseline, "baseline-wal": baseline_wal,
          "baseline-observations": baseline_observations}[kind](csv_path, db_path)
         extra: dict[str, object] = {}
+    elif kind == "baseline-postgresql":
+        with scratch_database() as url:
+            cpu = cpu_seconds()
+            seconds = baseline_postgresql(csv_path, url)
+            cpu = cpu_seconds() - cpu
+        print(json.dumps({"kind": kind, "seconds": seconds, "cpu": cpu,
+                          "peak_mb": peak_resident_mb()}))
+        return
     elif kind.startswith("fitwatch-postgresql"):
-        import psycopg
-
-        name = f"fitwatch_bench_{os.getpid()}"
-        with psycopg.connect(os.environ["FITWATCH_BENCH_PG"], autocommit=True) as admin:
-            admin.execute(f'CREATE DATABASE "{name}"')
-            try:
-                url = os.environ["FITWATCH_BENCH_PG"].rsplit("/", 1)[0] + "/" + name
-                prepare_fitwatch(url, with_id=True)
-                cpu = cpu_seconds()
-                began = time.perf_counter()
-                extra = run_fitwatch(csv_path, url, profile)
-                seconds = time.perf_counter() - began
-                cpu = cpu_seconds() - cpu
-            finally:
-                admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+        with scratch_database() as url:
+            prepare_fitwatch(url, with_id=True)
+            cpu = cpu_seconds()
+            began = time.perf_counter()
+            extra = run_fitwatch(csv_path, url, profile)
+            seconds = time.perf_counter() - began
+            cpu = cpu_seconds() - cpu
         print(json.dumps({"kind": kind, "seconds": seconds, "cpu": cpu,
                           "peak_mb": peak_resident_mb(), **extra}))
         return
@@ -317,6 +355,8 @@ def main() -> None:
         if args.before:
             kinds += [f"{kind}-before" for kind in kinds[1:]]
         kinds += ["baseline-wal", "baseline-observations"]
+        if args.postgres:
+            kinds.append("baseline-postgresql")
         results: dict[str, list[dict[str, float]]] = {kind: [] for kind in kinds}
         for _ in range(args.repeats):  # interleaved, so drifting machine load hits all alike
             for kind in results:
@@ -336,6 +376,11 @@ def main() -> None:
             cpu = statistics.median(r["cpu"] for r in results[kind]) / statistics.median(
                 r["cpu"] for r in results["baseline"])
             say(f"ratio {kind} / baseline = {mine / base:.2f} (cpu {cpu:.2f})")
+        if args.postgres:
+            server = statistics.median(r["seconds"] for r in results["baseline-postgresql"])
+            for kind in (k for k in kinds if k.startswith("fitwatch-postgresql")):
+                mine = statistics.median(r["seconds"] for r in results[kind])
+                say(f"ratio {kind} / baseline-postgresql = {mine / server:.2f}")
         for kind in kinds[1:]:
             if f"{kind}-before" in results:
                 mine = statistics.median(r["seconds"] for r in results[kind])
