@@ -284,10 +284,11 @@ _STAGE_SQL = (  # per transaction; x1..x8 covers every model (config.MAX_PREDICT
 
 def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
                        rows: PreparedRows) -> InsertResult:
-    """COPY the rows into a temporary table, store the new ones with one INSERT ... ON CONFLICT
-    DO NOTHING that only counts them, and only when some were not new, read what is stored
-    under their keys (one index probe per row; a join that hashed the model's stored rows
-    would read them all for every chunk).
+    """Store the rows: straight into the table by COPY when none of their keys is stored yet
+    (:func:`_copied_straight`); else COPY them into a temporary table, store the new ones with
+    one INSERT ... ON CONFLICT DO NOTHING that only counts them, and only when some were not
+    new, read what is stored under their keys (one index probe per row; a join that hashed the
+    model's stored rows would read them all for every chunk).
 
     The rows found are those of other batches (stored before, or by another transaction that
     committed meanwhile: ON CONFLICT saw them) and this batch's rows from earlier chunks, told
@@ -297,6 +298,8 @@ def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
     values = ", ".join(names)
     mid, bid = int(model.id), int(batch_id)
     with driver_cursor(conn) as cursor:
+        if _copied_straight(cursor, mid, bid, values, rows):
+            return _result(np.ones(len(rows.keys), bool), rows.keys, [], model.k)
         cursor.execute("SELECT to_regclass('pg_temp.fitwatch_stage')")
         if cursor.fetchone()[0] is None:
             cursor.execute(_STAGE_SQL)
@@ -329,16 +332,54 @@ def _insert_postgresql(conn: Connection, model: ModelRecord, batch_id: int,
     return _result(~_member(keys, {row[0] for row in old}), keys, old, model.k)
 
 
-def _csv_block(rows: PreparedRows) -> bytes:
+_PROBED_KEYS = 64  # keys of a chunk looked up before it is copied straight into the table
+
+
+def _copied_straight(cursor: Any, model_id: int, batch_id: int, values: str,
+                     rows: PreparedRows) -> bool:
+    """COPY the rows straight into ``observations`` when none of their keys is stored yet (the
+    usual night: new rows only), which spares the staging table and the merge (1 M rows:
+    ``tests/benchmarks/results/ingest.txt``). A few keys spread over the chunk (at most
+    :data:`_PROBED_KEYS`, the first and last among them) are looked up first: a file that
+    overlaps what is stored (an export of the last week, each night) then goes to the merge at
+    once. Any other stored key, including one stored meanwhile by another transaction, makes
+    the COPY fail on the unique key, and it is undone to its savepoint (looking up every key
+    first cost more than the COPY saves). False: nothing was stored, take the merge."""
+    import psycopg
+
+    keys = rows.keys
+    sample = keys[np.unique(np.linspace(0, len(keys) - 1, min(len(keys), _PROBED_KEYS))
+                            .astype(np.intp))]
+    cursor.execute("SELECT EXISTS (SELECT 1 FROM observations WHERE model_id = %s "
+                   "AND obs_key = ANY(%s))", (model_id, sample.tolist()))
+    if cursor.fetchone()[0]:
+        return False
+    cursor.execute("SAVEPOINT fitwatch_copy")
+    try:
+        with cursor.copy(f"COPY observations (model_id, batch_id, {values}) FROM STDIN "
+                         "(FORMAT csv)") as copy:
+            copy.write(_csv_block(rows, lead={"model_id": model_id, "batch_id": batch_id}))
+    except psycopg.errors.UniqueViolation:
+        cursor.execute("ROLLBACK TO SAVEPOINT fitwatch_copy")
+        return False
+    cursor.execute("RELEASE SAVEPOINT fitwatch_copy")
+    return True
+
+
+def _csv_block(rows: PreparedRows, lead: dict[str, int] | None = None) -> bytes:
     """The rows as CSV for COPY, written by Arrow (whose numbers read back to the same
-    doubles: it writes the shortest text that does), with each row's position first."""
+    doubles: it writes the shortest text that does), with each row's position first, or
+    instead the constant columns ``lead`` (name: value)."""
     import pyarrow as pa
     import pyarrow.csv as pacsv
 
     from monitor.columnar import from_numpy, from_strings
 
+    first = ({"pos": from_numpy(np.arange(len(rows), dtype=np.int32))} if lead is None else
+             {name: from_numpy(np.full(len(rows), value, dtype=np.int64))
+              for name, value in lead.items()})
     table = pa.table({
-        "pos": from_numpy(np.arange(len(rows), dtype=np.int32)),
+        **first,
         "obs_key": from_strings(rows.keys),
         "observed_at_us": from_numpy(np.asarray(rows.observed_us, dtype=np.int64)),
         "day": from_numpy(np.asarray(rows.days, dtype="datetime64[D]")),

@@ -210,10 +210,12 @@ def test_many_chunks_of_random_repeats_count_alike(engines: dict[str, Engine],
 
 def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: str,
                                                                 tmp_path: Path) -> None:
-    """Another transaction stores K2 and commits while the INSERT waits for it (ON CONFLICT
-    waits for the other transaction's row): K2, skipped by the INSERT and not in the snapshot
-    it started with, must still come out as a duplicate (same time and values), not be lost
-    nor counted as stored by this file."""
+    """Another transaction stores K2 and commits while this ingest waits for it: the probe for
+    stored keys did not see K2, so the rows go straight into the table by COPY, which waits
+    on the unique key, fails once the other commits and is undone to its savepoint; the merge
+    then stores the rest (ON CONFLICT). K2, not in the snapshot the ingest started with, must
+    still come out as a duplicate (same time and values), not be lost nor counted as stored
+    by this file."""
     engine = open_engine(postgres_url)
     try:
         upgrade_database(engine)
@@ -248,7 +250,8 @@ def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: st
             for _ in range(200):  # until the ingest waits on the uncommitted K2
                 waiting = watch.execute(
                     "SELECT count(*) FROM pg_stat_activity WHERE wait_event_type = 'Lock' "
-                    "AND query LIKE 'WITH stored AS%%'").fetchone()
+                    "AND (query LIKE 'COPY observations%%' OR query LIKE 'WITH stored AS%%')"
+                ).fetchone()
                 if waiting and waiting[0]:
                     break
                 time.sleep(0.05)
@@ -266,5 +269,52 @@ def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: st
                                 .order_by(observations.c.obs_key)).all()
         assert [tuple(k) for k in keys] == [("K1", summary.batch_id), ("K2", 100),
                                             ("K3", summary.batch_id)]
+    finally:
+        engine.dispose()
+
+
+def test_new_rows_go_straight_in_and_overlapping_ones_through_the_merge(
+        postgres_url: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The fast path is taken when no key of a chunk is stored yet, and only then."""
+    import monitor.store.observations as stored_rows
+
+    taken: list[bool] = []
+    real = stored_rows._copied_straight
+
+    def spy(*args: Any) -> bool:
+        taken.append(real(*args))
+        return taken[-1]
+
+    monkeypatch.setattr(stored_rows, "_copied_straight", spy)
+    engine = open_engine(postgres_url)
+    try:
+        upgrade_database(engine)
+        with engine.begin() as conn:
+            names = ", ".join(f'"{t.name}"' for t in metadata.sorted_tables)
+            conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+            model = create_model(conn, LOADS, NOW)
+        first, second = tmp_path / "first.csv", tmp_path / "second.csv"
+        first.write_text(_rows(["K1,2026-03-02 08:00,10,30,D1", "K2,2026-03-02 09:00,10,30,D1"]))
+        second.write_text(_rows(["K2,2026-03-02 09:00,10,30,D1",
+                                 "K3,2026-03-02 10:00,12,33,D1"]))
+        one = ingest_file(engine, model, first, OPTIONS)
+        two = ingest_file(engine, model, second, OPTIONS)
+        assert taken == [True, False]
+        assert (one.accepted, one.duplicates) == (2, 0) and (two.accepted, two.duplicates) == (1, 1)
+        with engine.connect() as conn:
+            keys = conn.execute(select(observations.c.obs_key, observations.c.batch_id)
+                                .order_by(observations.c.obs_key)).all()
+        assert [tuple(k) for k in keys] == [("K1", one.batch_id), ("K2", one.batch_id),
+                                            ("K3", two.batch_id)]
+        # a stored key the probe does not look at (the second of 200): the COPY fails on the
+        # unique key, is undone, and the merge stores the rest
+        third = tmp_path / "third.csv"
+        fresh = [f"N{i:03d},2026-03-03 08:{i % 60:02d},10,30,D1" for i in range(200)]
+        fresh[1] = "K1,2026-03-02 08:00,10,30,D1"
+        third.write_text(_rows(fresh))
+        whole = type(OPTIONS)(**{**OPTIONS.__dict__, "chunk_rows": 1000})  # one chunk
+        three = ingest_file(engine, model, third, whole)
+        assert taken == [True, False, False]
+        assert (three.read, three.accepted, three.duplicates) == (200, 199, 1)
     finally:
         engine.dispose()
