@@ -14,6 +14,7 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import replace
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -208,6 +209,21 @@ def test_many_chunks_of_random_repeats_count_alike(engines: dict[str, Engine],
     assert min(totals) > 0  # every kind of outcome occurred
 
 
+@contextmanager
+def _fresh_postgres(url: str) -> Iterator[tuple[Engine, ModelRecord]]:
+    """An engine on the session's PostgreSQL database, emptied, with the loads model."""
+    engine = open_engine(url)
+    try:
+        upgrade_database(engine)
+        with engine.begin() as conn:
+            names = ", ".join(f'"{t.name}"' for t in metadata.sorted_tables)
+            conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
+            model = create_model(conn, LOADS, NOW)
+        yield engine, model
+    finally:
+        engine.dispose()
+
+
 def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: str,
                                                                 tmp_path: Path) -> None:
     """Another transaction stores K2 and commits while this ingest waits for it: the probe for
@@ -216,13 +232,8 @@ def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: st
     then stores the rest (ON CONFLICT). K2, not in the snapshot the ingest started with, must
     still come out as a duplicate (same time and values), not be lost nor counted as stored
     by this file."""
-    engine = open_engine(postgres_url)
-    try:
-        upgrade_database(engine)
+    with _fresh_postgres(postgres_url) as (engine, model):
         with engine.begin() as conn:
-            names = ", ".join(f'"{t.name}"' for t in metadata.sorted_tables)
-            conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
-            model = create_model(conn, LOADS, NOW)
             conn.execute(text("INSERT INTO batches (id, model_id, source, strict, status, "
                               "read, accepted, duplicates, rejected, reasons, started_at) "
                               "VALUES (100, :m, 'other', false, 'complete', 1, 1, 0, 0, "
@@ -269,8 +280,6 @@ def test_a_key_stored_by_another_transaction_meanwhile_is_found(postgres_url: st
                                 .order_by(observations.c.obs_key)).all()
         assert [tuple(k) for k in keys] == [("K1", summary.batch_id), ("K2", 100),
                                             ("K3", summary.batch_id)]
-    finally:
-        engine.dispose()
 
 
 def test_new_rows_go_straight_in_and_overlapping_ones_through_the_merge(
@@ -286,13 +295,7 @@ def test_new_rows_go_straight_in_and_overlapping_ones_through_the_merge(
         return taken[-1]
 
     monkeypatch.setattr(stored_rows, "_copied_straight", spy)
-    engine = open_engine(postgres_url)
-    try:
-        upgrade_database(engine)
-        with engine.begin() as conn:
-            names = ", ".join(f'"{t.name}"' for t in metadata.sorted_tables)
-            conn.execute(text(f"TRUNCATE {names} RESTART IDENTITY CASCADE"))
-            model = create_model(conn, LOADS, NOW)
+    with _fresh_postgres(postgres_url) as (engine, model):
         first, second = tmp_path / "first.csv", tmp_path / "second.csv"
         first.write_text(_rows(["K1,2026-03-02 08:00,10,30,D1", "K2,2026-03-02 09:00,10,30,D1"]))
         second.write_text(_rows(["K2,2026-03-02 09:00,10,30,D1",
@@ -316,5 +319,3 @@ def test_new_rows_go_straight_in_and_overlapping_ones_through_the_merge(
         three = ingest_file(engine, model, third, whole)
         assert taken == [True, False, False]
         assert (three.read, three.accepted, three.duplicates) == (200, 199, 1)
-    finally:
-        engine.dispose()
