@@ -42,21 +42,44 @@ TAU = 2.5  # day shock sd, minutes (departures.py)
 PALLETS = (4, 30)  # uniform integers
 SLOPE = 2.1  # minutes per pallet
 DRIFT = 0.0005  # share of the slope added per day
+SLOPE_SD = 0.1  # random_slope: sd of each day's own pallet slope (minutes per pallet)
+MIXED_SHARE = 0.25  # two_predictors: each pallet is a mixed one with this probability
+CASES = ("textbook", "random_slope", "two_predictors")
 WINDOW = 250  # longest run the rule looks back over (days)
 
 
-def day_sd_share(rows: float) -> float:
-    """The sd of one day's own slope as a share of the slope (n rows, pallets uniform)."""
+def pallet_variance(case: str = "textbook") -> float:
+    """The variance of pallets within a day that informs the pallet slope: all of it, or with
+    mixed pallets beside it only what they leave (``Var x - Cov(x, m)² / Var m``)."""
     lo, hi = PALLETS
     var_x = ((hi - lo + 1) ** 2 - 1) / 12.0
-    return SIGMA / math.sqrt(rows * var_x) / SLOPE
+    if case != "two_predictors":
+        return var_x
+    mean_x = 0.5 * (lo + hi)
+    cov = MIXED_SHARE * var_x  # m = Bin(x, p): Cov(x, m) = p Var x
+    var_m = MIXED_SHARE**2 * var_x + mean_x * MIXED_SHARE * (1.0 - MIXED_SHARE)
+    return var_x - cov * cov / var_m
 
 
-def day_level_share(rows: float) -> float:
-    """The sd of one day's mean, in units of the creep's effect on it per unit of slope share
-    (the day's mean pallets times the slope)."""
+def day_sd_share(rows: float, case: str = "textbook") -> float:
+    """The sd of one day's own slope as a share of the slope (n rows, pallets uniform)."""
+    between = SLOPE_SD**2 if case == "random_slope" else 0.0
+    return math.sqrt(SIGMA**2 / (rows * pallet_variance(case)) + between) / SLOPE
+
+
+def information(rows: float, size: float, case: str, with_level: bool) -> float:
+    """``r``: the shift of one day's evidence, in units of its sd, for a change of ``size`` of
+    the slope (the day slope alone, or with the day mean: ``sqrt(m' Σ⁻¹ m)``)."""
+    if not with_level:
+        return size / day_sd_share(rows, case)
     lo, hi = PALLETS
-    return math.sqrt(TAU**2 + SIGMA**2 / rows) / (0.5 * (lo + hi) * SLOPE)
+    mean_x = 0.5 * (lo + hi)
+    between = SLOPE_SD**2 if case == "random_slope" else 0.0
+    cov = np.array([
+        [SIGMA**2 / (rows * pallet_variance(case)) + between, between * mean_x],
+        [between * mean_x, TAU**2 + SIGMA**2 / rows + between * mean_x**2]])
+    shift = size * SLOPE * np.array([1.0, mean_x])
+    return float(math.sqrt(shift @ np.linalg.solve(cov, shift)))
 
 
 def glr_path(z: np.ndarray, r: float, window: int) -> np.ndarray:
@@ -129,6 +152,8 @@ def main() -> int:
     parser.add_argument("--seed", type=int, default=20261203)
     parser.add_argument("--with-level", action="store_true",
                         help="the oracle also sees each day's mean (slope and level evidence)")
+    parser.add_argument("--case", choices=CASES, default="textbook",
+                        help="whose day evidence the oracle sees (departures.py's cases)")
     parser.add_argument("--step", type=float, default=0.0,
                         help="a sudden change of this share of the slope instead of the creep")
     args = parser.parse_args()
@@ -137,17 +162,16 @@ def main() -> int:
     size = args.step if step else DRIFT
     what = (f"a known step of {size * 100:g} % of the slope" if step else
             f"a known linear creep of {DRIFT * 100:.2f} % of the slope a day")
-    seen = ", day slopes and day means" if args.with_level else ""
+    seen = (", day slopes and day means" if args.with_level else "") + (
+        f", case {args.case}" if args.case != "textbook" else "")
     print(f"oracle {'CUSUM' if step else 'GLR'} for {what}, "
           f"false alarms once in {args.arl:g} days ({args.control_days:,} in-control days, "
           f"{args.reps} {'steps' if step else 'creeps'}{seen})")
     print(f"{'rows/day':>9s} {'day sd':>7s} {'r':>8s} {'threshold':>9s} {'median':>7s} "
           f"{'p90':>5s}  {'Lorden' if step else 'Lai bound':>9s}")
     for rows in args.rows or [5.0, 100.0, 1000.0]:
-        sd = day_sd_share(rows)
-        r = size / sd
-        if args.with_level:
-            r = math.hypot(r, size / day_level_share(rows))
+        sd = day_sd_share(rows, args.case)
+        r = information(rows, size, args.case, args.with_level)
         c = threshold_for(args.arl, r, rng, args.control_days, step)
         d = delays(c, r, rng, args.reps, 600, step)
         if step:
