@@ -5,6 +5,7 @@ other settings than those they were solved for are solved afresh (the root searc
 
 from __future__ import annotations
 
+import json
 from dataclasses import replace
 from datetime import timedelta
 from pathlib import Path
@@ -12,8 +13,10 @@ from pathlib import Path
 import numpy as np
 from sqlalchemy import Engine
 
+from monitor.domain.codec import decode, encode
 from monitor.domain.version import SlopeLimits
 from monitor.monitoring.context import VersionContext, slope_chart_of
+from monitor.stats.diagnosis import FitDiagnosis
 from monitor.store.models import get_model
 from monitor.store.versions import active_version, store_slope_limits
 from tests.support.world import World, settings_for
@@ -84,3 +87,24 @@ def test_limits_stored_for_other_settings_are_replaced_by_the_first_check(
                                            check.guarantee, check.slope_chart_small_step,
                                            check.slope_chart_reference)
     np.testing.assert_array_equal(now.array(), version.baseline.slope_limits.array())
+
+
+def test_a_version_stored_before_rows_were_dropped_keeps_clipping_them(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    # Versions fitted now leave a day's rows beyond 4 robust sd out of its slope, and their
+    # stored noise ratio and shift were computed that way; a version stored before has no
+    # rule in its diagnosis, its ratio and shift were computed for clipped rows, and its chart
+    # must go on clipping (common practice, no source: a stored design is read as it was made).
+    settings, version = _version(engine, make_settings, tmp_path)
+    diagnosis = version.baseline.diagnosis
+    assert diagnosis is not None and diagnosis.slope_row_rule == "drop"
+    chart = VersionContext.build(version, settings.check).slope_chart
+    assert chart is not None and chart.row_rule == "drop"
+    stored = encode(diagnosis)
+    del stored["slope_row_rule"]
+    older = decode(FitDiagnosis, json.loads(json.dumps(stored)))
+    assert older.slope_row_rule == "clip"
+    old_version = replace(version, draft=replace(version.draft, baseline=replace(
+        version.baseline, diagnosis=older)))
+    old_chart = VersionContext.build(old_version, settings.check).slope_chart
+    assert old_chart is not None and old_chart.row_rule == "clip"

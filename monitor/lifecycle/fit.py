@@ -34,7 +34,7 @@ from monitor.monitoring.context import slope_chart_of, slope_limits_of
 from monitor.stats.calibration import Calibration, calibrate_chart, chart_design
 from monitor.stats.coverage import miss_dispersion
 from monitor.stats.day_effects import DayEffects, day_effects_of_fit
-from monitor.stats.diagnosis import FitDiagnosis, diagnose
+from monitor.stats.diagnosis import SLOPE_ROW_RULE, FitDiagnosis, diagnose
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit, fit_ols
 from monitor.stats.prediction import PredictionModel
@@ -112,13 +112,16 @@ def fit_window(x: np.ndarray, y: np.ndarray, days: np.ndarray, names: tuple[str,
 
 
 def diagnose_window(fit: OLSFit, table: DayMoments, days: np.ndarray, x: np.ndarray,
-                    y: np.ndarray, effects: DayEffects, covered: float) -> FitDiagnosis:
-    """The fit window's departures from the textbook model (:mod:`monitor.stats.diagnosis`)."""
+                    y: np.ndarray, effects: DayEffects, covered: float, *,
+                    slope_row_rule: str = SLOPE_ROW_RULE) -> FitDiagnosis:
+    """The fit window's departures from the textbook model (:mod:`monitor.stats.diagnosis`);
+    ``slope_row_rule`` other than today's only to compare the rules (benchmarks)."""
     day_index = np.searchsorted(np.asarray(table.days, dtype="datetime64[D]"),
                                 np.asarray(days, dtype="datetime64[D]"))
     weekdays = [as_date(d).weekday() for d in table.days]
     resid = y - fit.coef[0] - x @ fit.coef[1:]
-    return diagnose(resid, day_index, weekdays, x, effects.tau2, effects.sigma_w2, covered)
+    return diagnose(resid, day_index, weekdays, x, effects.tau2, effects.sigma_w2, covered,
+                    slope_row_rule=slope_row_rule)
 
 
 @dataclass(frozen=True)

@@ -176,6 +176,7 @@ def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
                               h=stored, small_shift=settings.slope_chart_small_step,
                               raw_inflation=(d.slope_noise_ratio_raw or None) if d else None,
                               clip_shift=(d.slope_clip_shift or None) if d else None,
+                              row_rule=d.slope_row_rule if d else "clip",
                               learns=settings.slope_chart_reference == "learning")
 
 

@@ -39,6 +39,11 @@ from monitor.stats import tails
 
 FloatArray = NDArray[np.float64]
 TAIL_SDS = 4.0  # rows beyond this many robust sd count as outliers
+# How the within-day slope chart treats a row beyond TAIL_SDS robust sd of its day's line:
+# "drop" leaves it out of the day's slope (versions fitted now), "clip" counts it at the bound
+# (winsorized; versions fitted before, whose stored ratio and shift were computed that way).
+SLOPE_ROW_RULES = ("clip", "drop")
+SLOPE_ROW_RULE = "drop"
 MAD_TO_SD = 1.482602218505602  # 1 / Φ⁻¹(3/4): MAD → sd for normal data
 MAX_PERSISTENCE = 0.9  # beyond this the AR(1) view of the day shocks is not used
 PERSISTENCE_ALPHA = 0.05  # level of the persistence test that makes the chart prewhiten
@@ -78,7 +83,8 @@ class FitDiagnosis:
     slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows clipped) over the classical
     weekday_days: tuple[int, ...] = ()  # Mon..Sun: fit days with rows on that weekday
     slope_noise_ratio_raw: tuple[float, ...] = ()  # the same for the rows as they are
-    slope_clip_shift: tuple[float, ...] = ()  # clipped rows' within slopes minus the raw ones
+    slope_clip_shift: tuple[float, ...] = ()  # guarded rows' within slopes minus the raw ones
+    slope_row_rule: str = "clip"  # how those rows were guarded (SLOPE_ROW_RULES)
 
     def rhythm(self, alpha: float = RHYTHM_ALPHA) -> tuple[float, ...] | None:
         """Mon..Sun offsets of the day mean residual (0 for a weekday without fit days) when the
@@ -190,7 +196,8 @@ def day_spread(resid: ArrayLike) -> float | None:
 
 def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: ArrayLike,
              tau2: float, sigma_w2: float, covered_share: float,
-             lags: int | None = None) -> FitDiagnosis:
+             lags: int | None = None, *,
+             slope_row_rule: str = SLOPE_ROW_RULE) -> FitDiagnosis:
     """The fit window's diagnosis from its residuals.
 
     ``day_index[i]`` numbers the day of row ``i`` (0, 1, ... in day order, days with rows only)
@@ -242,28 +249,64 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
         tail_share=beyond / len(r) if len(r) else float("nan"), tail_pvalue=tail_p,
         fit_coverage=covered_share, day_spreads=tuple(spreads),
         weekday_days=tuple(per_weekday),
-        slope_noise_ratio=slope_noise_ratio(centred_x, within, sigma_w2,
-                                            TAIL_SDS * robust if robust > 0 else np.inf),
+        slope_noise_ratio=slope_noise_ratio(
+            centred_x, within, sigma_w2, TAIL_SDS * robust if robust > 0 else np.inf,
+            day_index=idx, rule=slope_row_rule),
         slope_noise_ratio_raw=slope_noise_ratio(centred_x, within, sigma_w2, np.inf),
-        slope_clip_shift=(clipped_slope_shift(centred_x, within, idx, TAIL_SDS * robust)
-                          if robust > 0 else ()))
+        slope_clip_shift=(guarded_slope_shift(centred_x, within, idx, TAIL_SDS * robust,
+                                              slope_row_rule) if robust > 0 else ()),
+        slope_row_rule=slope_row_rule)
 
 
-def clipped_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike,
-                        clip: float) -> tuple[float, ...]:
-    """How far the pooled within-day slopes move when each day's rows are winsorized as the
-    within-day slope chart winsorizes them (``monitor.stats.within_slope.slope_step``).
+def _beside_day_line(centred_x: FloatArray, within: FloatArray, day_index: NDArray[np.int64],
+                     sxx: FloatArray) -> FloatArray:
+    """The rows' residuals around the pooled within line, each day's centred on its median:
+    ``u - med_d u`` with ``u = w - x~'D``, ``D = (Σ x~x~')⁻¹ Σ x~ w``. These are what
+    :func:`monitor.stats.within_slope.slope_step` measures a day's rows by (their day's raw
+    residuals around the fit window's within slopes, less their median: the day's level
+    drops out of both)."""
+    u = within - centred_x @ np.linalg.solve(sxx, centred_x.T @ within)
+    order = np.lexsort((u, day_index))
+    counts = np.bincount(day_index)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    sorted_u = u[order]
+    present = counts > 0
+    lo = starts[present] + (counts[present] - 1) // 2
+    hi = starts[present] + counts[present] // 2
+    median = np.zeros(len(counts))
+    median[present] = 0.5 * (sorted_u[lo] + sorted_u[hi])
+    return u - median[day_index]
+
+
+def _recentred(centred_x: FloatArray, day_index: NDArray[np.int64],
+               keep: NDArray[np.bool_]) -> FloatArray:
+    """The kept rows' predictors centred on their own day's kept rows."""
+    g = int(day_index.max()) + 1
+    kept = np.bincount(day_index[keep], minlength=g)
+    means = np.stack([np.bincount(day_index[keep], weights=centred_x[keep, j], minlength=g)
+                      for j in range(centred_x.shape[1])], axis=1) / np.maximum(kept, 1)[:, None]
+    return (centred_x - means[day_index])[keep]
+
+
+def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike,
+                        bound: float, rule: str = SLOPE_ROW_RULE) -> tuple[float, ...]:
+    """How far the pooled within-day slopes move when each day's rows are guarded as the
+    within-day slope chart guards them (:func:`monitor.stats.within_slope.slope_step`): rows
+    further than ``bound`` from their day's line left out (``rule="drop"``) or pulled in to it
+    (``"clip"``, winsorized).
 
     With ``x~`` the predictors and ``w`` the residuals centred within their day, the within
-    slopes lie ``D = (Σ x~x~')⁻¹ Σ x~ w`` from the line's; the rows' residuals around the within
-    line are ``u = w - x~'D``, each day's are clipped around the day's median to ``e =
-    clip(u - med_d u, ±clip)``, and the pooled slopes of the clipped rows lie ``(Σ x~x~')⁻¹ Σ
-    x~ e`` from the within slopes (0 when nothing is clipped: ``Σ x~ u = 0`` and ``x~`` sums to
-    0 in each day). Symmetric rows clip alike on both sides and the shift is nil; rows with a
-    long right tail whose scatter grows with a predictor are clipped more where it is large, and
-    the clipped slopes lie below the raw ones. The chart's days are clipped, so their reference
-    must be too, or the chart would read that gap as a change (common practice, no source:
-    compare an estimator with its own expectation)."""
+    slopes lie ``D = (Σ x~x~')⁻¹ Σ x~ w`` from the line's, and ``e = u - med_d u`` are the rows'
+    residuals around the within line with each day's median taken out
+    (:func:`_beside_day_line`). Clipped: the pooled slopes of the clipped rows lie
+    ``(Σ x~x~')⁻¹ Σ x~ clip(e, ±bound)`` from the within slopes. Dropped: the kept rows' own
+    pooled within slopes, ``(Σ x°x°')⁻¹ Σ x° u`` over the rows with ``|e| <= bound``, ``x°``
+    centred on the kept rows of their day, lie that far. Both are 0 when no row is beyond the
+    bound (``Σ x~ u = 0``). Symmetric rows are guarded alike on both sides and the shift is nil;
+    rows with a long right tail whose scatter grows with a predictor lose more where it is
+    large, and the guarded slopes lie below the raw ones. The chart's days are guarded, so
+    their reference must be too, or the chart would read that gap as a change (common
+    practice, no source: compare an estimator with its own expectation)."""
     xc = np.asarray(centred_x, dtype=np.float64)
     w = np.asarray(within, dtype=np.float64)
     idx = np.asarray(day_index, dtype=np.int64)
@@ -273,30 +316,41 @@ def clipped_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: Arra
     sxx = xc.T @ xc
     if np.linalg.cond(sxx) > 1e12:
         return ()
+    e = _beside_day_line(xc, w, idx, sxx)
+    if rule == "clip":
+        return tuple(float(v) for v in np.linalg.solve(sxx, xc.T @ np.clip(e, -bound, bound)))
+    keep = np.abs(e) <= bound
+    kept_x = _recentred(xc, idx, keep)
+    kept_sxx = kept_x.T @ kept_x
+    if np.linalg.cond(kept_sxx) > 1e12:
+        return ()
     u = w - xc @ np.linalg.solve(sxx, xc.T @ w)
-    order = np.lexsort((u, idx))
-    counts = np.bincount(idx)
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
-    sorted_u = u[order]
-    present = counts > 0
-    lo = starts[present] + (counts[present] - 1) // 2
-    hi = starts[present] + counts[present] // 2
-    median = np.zeros(len(counts))
-    median[present] = 0.5 * (sorted_u[lo] + sorted_u[hi])
-    e = np.clip(u - median[idx], -clip, clip)
-    return tuple(float(v) for v in np.linalg.solve(sxx, xc.T @ e))
+    return tuple(float(v) for v in np.linalg.solve(kept_sxx, kept_x.T @ u[keep]))
 
 
 def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,
-                      clip: float) -> tuple[float, ...]:
-    """Per predictor, ``Σ x~² w_c² / (sigma_w² Σ x~²)`` over rows with predictors ``x~`` and
-    residuals ``w`` centred within their day, ``w_c`` the residuals clipped to ``±clip``: the
-    ratio of White's (1980) heteroscedasticity-consistent variance of a within-day slope, for
-    residuals winsorized as the within-day slope chart winsorizes them, to the classical one.
-    About 1 for normal rows whose scatter does not change with the predictors; above 1 when the
-    scatter grows away from the day's mean predictor; below 1 for heavy-tailed rows."""
+                      bound: float, *, day_index: ArrayLike | None = None,
+                      rule: str = "clip") -> tuple[float, ...]:
+    """Per predictor, ``Σ x~² w_g² / (sigma_w² Σ x~²)`` over rows with predictors ``x~`` and
+    residuals ``w`` centred within their day, ``w_g`` the residuals guarded as the within-day
+    slope chart guards them: the ratio of White's (1980) heteroscedasticity-consistent variance
+    of a within-day slope to the classical one. ``rule="clip"``: residuals clipped to
+    ``±bound``; ``"drop"`` (``day_index`` needed): the sums run over the rows within ``bound``
+    of their day's line (:func:`_beside_day_line`), ``x~`` centred on those rows. About 1 for
+    normal rows whose scatter does not change with the predictors; above 1 when the scatter
+    grows away from the day's mean predictor; below 1 for heavy-tailed rows."""
     xc = np.asarray(centred_x, dtype=np.float64)
-    w2 = np.clip(np.asarray(within, dtype=np.float64), -clip, clip) ** 2
+    w = np.asarray(within, dtype=np.float64)
+    xc = xc.reshape(len(w), -1)
+    if rule == "drop" and np.isfinite(bound) and len(w):
+        idx = np.asarray(day_index, dtype=np.int64)
+        sxx_all = xc.T @ xc
+        if np.linalg.cond(sxx_all) > 1e12:
+            return ()
+        keep = np.abs(_beside_day_line(xc, w, idx, sxx_all)) <= bound
+        xc, w2 = _recentred(xc, idx, keep), w[keep] ** 2
+    else:
+        w2 = np.clip(w, -bound, bound) ** 2
     sxx = (xc**2).sum(axis=0)
     if not sigma_w2 > 0 or np.any(sxx <= 0):
         return ()

@@ -32,12 +32,13 @@ day with little spread in ``x`` has a small one and counts little, and a day who
 below :data:`MIN_STEP` does not step the chart at all. ``z`` is clipped to
 ``±max(Z_CLIP, lambda + 3)`` so one wild row on a thin day cannot carry the chart alone (a
 winsorized CUSUM in the spirit of Lucas & Crosier 1982, *Technometrics* 24; clipping shortens
-the in-control excursions, so the run lengths below are lower bounds). A day's rows are
-winsorized before its slope is taken (:func:`slope_step`), and the reference ``beta`` is the fit
-window's within slope of rows winsorized the same way: on rows with a long right tail whose
-scatter grows with a predictor, clipping takes more off where the predictor is large, and
-against the raw slope every day would read low (by 2 % of the slope in
-``tests/stats/test_within_slope.py``, about one day's sd at 400 rows a day).
+the in-control excursions, so the run lengths below are lower bounds). A day's rows beyond 4
+robust sd of its line are left out before its slope is taken (:func:`slope_step`; versions
+fitted before that rule clip them instead), and the reference ``beta`` is the fit window's
+within slope of rows guarded the same way: on rows with a long right tail whose scatter grows
+with a predictor, the guard takes more off where the predictor is large, and against the raw
+slope every day would read low (by 2-3 % of the slope in ``tests/stats/test_within_slope.py``,
+about one day's sd at 400 rows a day).
 
 A chart can run in two *lanes* per predictor, each its own pair of sides with its own step:
 the main lane tuned to ``delta`` (a 10 % step by default) and a second lane tuned to a smaller
@@ -101,7 +102,7 @@ from monitor.stats.moments import DayMoments, Moments
 
 FloatArray = NDArray[np.float64]
 MIN_STEP = 0.25 # days whose standardized step is below this do not move the chart
-ROW_CLIP = TAIL_SDS  # rows' residuals are clipped to this many robust sd before a day's slope
+ROW_CLIP = TAIL_SDS  # rows beyond this many robust sd are guarded before a day's slope
 MIN_INFLATION = 0.25  # the smallest ratio of the slope's variance to the classical one used
 Z_CLIP = 4.0  # a day's standardized deviation is clipped to ±max(Z_CLIP, lambda + 3)
 MIXTURE_DAYS = 16  # fit days kept (as quantiles of the step) in the run-length kernel
@@ -186,9 +187,9 @@ def between_day_variance(deviation: FloatArray, variance: FloatArray) -> float:
 class SlopeChartDesign:
     """What the within-day slope chart needs from its fit window, and its decision interval."""
 
-    slopes: FloatArray  # the reference: the fit window's within-day slopes (of clipped rows)
+    slopes: FloatArray  # the reference: the fit window's within-day slopes (of guarded rows)
     sigma_w2: float  # within-day residual variance
-    row_scale: float  # a robust sd of the rows around their day's line (the clipping unit)
+    row_scale: float  # a robust sd of the rows around their day's line (the guard's unit)
     inflation: FloatArray  # c_j, White's meat over the classical one (>= 1)
     tau2: FloatArray  # between-day variance of each day slope
     target: FloatArray  # each lane's step (response units per unit x of its predictor)
@@ -201,8 +202,9 @@ class SlopeChartDesign:
     lane_predictor: NDArray[np.intp] = field(  # each lane's predictor (0-based)
         default_factory=lambda: np.zeros(0, dtype=np.intp))
     learns: bool = False  # the reference learns from in-control days (recursive residuals)
-    clip_shift: FloatArray = field(  # reference minus the raw within slopes (clipping's gap)
+    clip_shift: FloatArray = field(  # reference minus the raw within slopes (the guard's gap)
         default_factory=lambda: np.zeros(0))
+    row_rule: str = "clip"  # rows beyond ROW_CLIP robust sd: "drop" (left out) or "clip"
 
     def __post_init__(self) -> None:
         if len(self.lane_predictor) == 0:  # one lane per predictor
@@ -215,7 +217,7 @@ class SlopeChartDesign:
     @property
     def raw_slopes(self) -> FloatArray:
         """The fit window's within slopes of the rows as they are: the line a day's rows are
-        clipped around (so that the clipping matches the fit window's)."""
+        guarded around (so that the guard matches the fit window's)."""
         return self.slopes - self.clip_shift if len(self.clip_shift) == self.k else self.slopes
 
     @property
@@ -254,7 +256,8 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
                        small_shift: float = 0.0,
                        learns: bool = False,
                        raw_inflation: ArrayLike | None = None,
-                       clip_shift: ArrayLike | None = None) -> SlopeChartDesign | None:
+                       clip_shift: ArrayLike | None = None,
+                       row_rule: str = "clip") -> SlopeChartDesign | None:
     """The chart of a version fitted on ``days``; None when too few days pin down a slope.
 
     ``shift`` is the main lane's step as a share of each slope; ``small_shift`` (below
@@ -262,27 +265,28 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     ``learns``: the reference learns from in-control days (the limits then count no reference
     error; see the module text).
 
-    ``raw_inflation``: White's ratio of the fit window's rows as they are, unclipped. The fit
+    ``raw_inflation``: White's ratio of the fit window's rows as they are, unguarded. The fit
     window's day slopes (from day statistics) and the pooled reference are computed from the
-    rows as they are, while the chart's days are winsorized; so the between-day variance
-    ``tau²`` is estimated, and the reference's error measured, with the raw rows' variance
-    ``c_raw sigma_w² (Sxx_d⁻¹)_jj``, and the days are then charted with the clipped one. Without
-    it, the clipped variance serves for both: on rows with outliers the raw day slopes then
-    scatter more than it says and the excess is taken for ``tau²``, which widens every day's
-    variance and slows the chart (common practice, no source: estimate each variance
+    rows as they are, while the chart's days are guarded (``row_rule``); so the between-day
+    variance ``tau²`` is estimated, and the reference's error measured, with the raw rows'
+    variance ``c_raw sigma_w² (Sxx_d⁻¹)_jj``, and the days are then charted with the guarded
+    one. Without it, the guarded variance serves for both: on rows with outliers the raw day
+    slopes then scatter more than it says and the excess is taken for ``tau²``, which widens
+    every day's variance and slows the chart (common practice, no source: estimate each variance
     component with the variance of the data it is computed from).
 
     ``inflation`` holds each predictor's ``c_j`` (:func:`monitor.stats.diagnosis.
-    slope_noise_ratio`, computed on the fit window's rows with the same clipping as
-    :func:`slope_step`), 1 when not known; ``row_scale`` is the robust within-day sd of the
-    rows (the clipping unit of :func:`slope_step`; the classical one when not given).
+    slope_noise_ratio`, computed on the fit window's rows guarded as :func:`slope_step` guards
+    them), 1 when not known; ``row_scale`` is the robust within-day sd of the rows (the unit of
+    :func:`slope_step`'s bound; the classical one when not given); ``row_rule`` says whether
+    rows beyond it are left out ("drop") or clipped ("clip", versions fitted before).
     ``h``: the decision intervals solved before for these same arguments (stored with the
     version), instead of solving them again.
 
     ``clip_shift``: how far the fit window's pooled within slopes move when its rows are
-    clipped as :func:`slope_step` clips a day's (:func:`monitor.stats.diagnosis.
-    clipped_slope_shift`). The chart's reference is the within slope plus this shift, so that
-    each day's clipped slope is compared with the fit window's clipped one (on rows with a long
+    guarded as :func:`slope_step` guards a day's (:func:`monitor.stats.diagnosis.
+    guarded_slope_shift`). The chart's reference is the within slope plus this shift, so that
+    each day's guarded slope is compared with the fit window's guarded one (on rows with a long
     right tail whose scatter grows with a predictor the two differ); the between-day variance
     and the lanes' steps stay those of the raw slopes.
     """
@@ -332,7 +336,7 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
                             target=target, reference_se=ref_se, h=h,
                             target_arl=float(target_arl), guarantee=float(guarantee),
                             fit_days=len(dev), fit_steps=full_steps,
-                            lane_predictor=lane_predictor, learns=learns)
+                            lane_predictor=lane_predictor, learns=learns, row_rule=row_rule)
 
 
 def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike,
@@ -346,10 +350,16 @@ def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike,
     learned days, per predictor (empty: none learned yet).
 
     Each row's residual around the day's own line with the fit window's raw within slopes
-    (through the day's median level, which one wild row cannot move) is first clipped to
-    ``±ROW_CLIP`` robust sd (winsorized, as in Huber's 1964 M-estimation): one wild row at the
-    edge of the day's range cannot then swing the day's slope on its own. Normal rows are almost
-    never clipped (``2 Φ(-4) = 6e-5``).
+    (through the day's median level, which one wild row cannot move) is first measured against
+    ``±ROW_CLIP`` robust sd, and a row beyond it is left out of the day's slope (the design's
+    ``row_rule`` "drop": outlier rejection followed by least squares, whose breakdown Hampel
+    1985, *Technometrics* 27, 95-107, studies) or, for versions fitted before that rule, pulled
+    in to the bound (``"clip"``, winsorized as in Huber's 1964 M-estimation). Either way one
+    wild row at the edge of the day's range cannot swing the day's slope on its own; left out,
+    a breakdown adds nothing to the slope's noise, where clipped it still counted 4 sd (with 2 %
+    of rows a +40 min breakdown a day slope's variance falls by a fifth,
+    ``tests/benchmarks/results/departures_drop.md``). Normal rows are almost never beyond the
+    bound (``2 Φ(-4) = 6e-5``).
     """
     xm = np.asarray(x, dtype=np.float64)
     ym = np.asarray(y, dtype=np.float64).ravel()
@@ -361,8 +371,14 @@ def slope_step(design: SlopeChartDesign, x: ArrayLike, y: ArrayLike,
     fitted = xc @ design.raw_slopes
     bound = ROW_CLIP * design.row_scale
     raw = ym - fitted
-    resid = np.clip(raw - np.median(raw), -bound, bound)  # around the day's median level
-    day = Moments.of(np.column_stack([xm, fitted + resid]))
+    if design.row_rule == "drop":
+        keep = np.abs(raw - np.median(raw)) <= bound  # around the day's median level
+        if not keep.any():
+            return None
+        day = Moments.of(np.column_stack([xm[keep], ym[keep]]))
+    else:
+        resid = np.clip(raw - np.median(raw), -bound, bound)
+        day = Moments.of(np.column_stack([xm, fitted + resid]))
     found = day_slopes(day.comoment[None, :, :], [day.n], design.slopes)
     if not found.usable[0]:
         return None

@@ -9,7 +9,7 @@ import statsmodels.formula.api as smf
 from statsmodels.stats.meta_analysis import combine_effects
 
 from monitor.stats.arl import cusum_arl
-from monitor.stats.diagnosis import clipped_slope_shift, slope_noise_ratio
+from monitor.stats.diagnosis import guarded_slope_shift, slope_noise_ratio
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.within_slope import (
     SlopeStep,
@@ -63,16 +63,21 @@ def test_day_slopes_are_each_groups_own_ols_slopes() -> None:
         np.testing.assert_allclose(found.unit[i] * ref.scale, ref.bse[1:] ** 2, rtol=1e-8)
 
 
-def test_slope_noise_ratio_is_the_hc0_over_the_classical_variance_of_statsmodels() -> None:
+@pytest.mark.parametrize("rule", ["clip", "drop"])
+def test_slope_noise_ratio_is_the_hc0_over_the_classical_variance_of_statsmodels(
+        rule: str) -> None:
     # Reference: statsmodels OLS of invest on value + C(firm) (Grunfeld data), the slope's
-    # variance with cov_type="HC0" (White 1980) over the classical one; without clipping the
-    # ratio is exactly Σ x~² e² / (s² Σ x~²) for x~ centred within firms (Frisch–Waugh–Lovell).
+    # variance with cov_type="HC0" (White 1980) over the classical one; with no row beyond the
+    # bound the ratio is exactly Σ x~² e² / (s² Σ x~²) for x~ centred within firms
+    # (Frisch–Waugh–Lovell), whichever the rule.
     frame = sm.datasets.grunfeld.load_pandas().data
     classical = smf.ols("invest ~ value + C(firm)", data=frame).fit()
     white = smf.ols("invest ~ value + C(firm)", data=frame).fit(cov_type="HC0")
     centred = frame["value"] - frame.groupby("firm")["value"].transform("mean")
+    firm = frame["firm"].astype("category").cat.codes.to_numpy()
     ratio = slope_noise_ratio(centred.to_numpy()[:, None], classical.resid.to_numpy(),
-                              float(classical.scale), np.inf)
+                              float(classical.scale), np.inf if rule == "clip" else 1e12,
+                              day_index=firm, rule=rule)
     np.testing.assert_allclose(ratio[0], white.bse["value"] ** 2 / classical.bse["value"] ** 2,
                                rtol=1e-9)
 
@@ -193,12 +198,14 @@ def test_a_ten_percent_step_within_days_signals_in_a_few_days_whatever_the_day_s
     assert any(hit)
 
 
-def test_one_wild_row_cannot_swing_a_days_slope() -> None:
-    # winsorizing (Huber 1964): a row far off at the edge of the range moves the day's slope no
-    # more than a row 4 robust sd off would, however far it is (common practice, no source)
+@pytest.mark.parametrize("rule", ["clip", "drop"])
+def test_one_wild_row_cannot_swing_a_days_slope(rule: str) -> None:
+    # winsorizing (Huber 1964) or leaving the row out (rejection, then least squares; Hampel
+    # 1985): a row far off at the edge of the range moves the day's slope no more than a row 4
+    # robust sd off would, however far it is (common practice, no source)
     rng = np.random.default_rng(5)
     design = design_slope_chart(_moments(_days(rng, 30)), None, 0.10, 5000.0, 0.95,
-                                row_scale=5.0)
+                                row_scale=5.0, row_rule=rule)
     assert design is not None
     x, y = _days(rng, 1)[0]
     edge = int(np.argmax(x[:, 0]))
@@ -391,40 +398,51 @@ def _within(days: list[tuple[np.ndarray, np.ndarray]]
     return xc, w, idx
 
 
-def test_the_clipped_slope_shift_is_what_the_charts_clipped_days_average_to() -> None:
-    # The shift the fit stores is the pooled difference, weighted by each day's Sxx, between
-    # the slopes slope_step finds on the clipped rows of each fit day and the raw within slope
-    # (one computation checked against the other; common practice, no source)
+@pytest.mark.parametrize("rule", ["clip", "drop"])
+def test_the_guarded_slope_shift_is_what_the_charts_guarded_days_average_to(rule: str) -> None:
+    # The shift the fit stores is the pooled difference, weighted by each day's Sxx (of the rows
+    # the day's slope uses), between the slopes slope_step finds on the guarded rows of each fit
+    # day and the raw within slope (one computation checked against the other; common
+    # practice, no source)
     days = _skewed_days(np.random.default_rng(8), 30, rows=120)
     design = design_slope_chart(_moments(days), None, 0.10, 5000.0, 0.95, row_scale=3.0,
-                                h=np.array([9.0]))
+                                h=np.array([9.0]), row_rule=rule)
     assert design is not None
     steps = [slope_step(design, x, y) for x, y in days]
-    sxx = np.array([np.sum((x[:, 0] - x[:, 0].mean()) ** 2) for x, _ in days])
+    sxx = []
+    for x, y in days:
+        xc = x[:, 0] - x[:, 0].mean()
+        raw = y - design.slopes[0] * xc
+        keep = np.abs(raw - np.median(raw)) <= 4.0 * 3.0 if rule == "drop" else np.ones(len(y),
+                                                                                         bool)
+        sxx.append(np.sum((x[keep, 0] - x[keep, 0].mean()) ** 2))
+    weights = np.array(sxx)
     dev = np.array([st.deviation[0] for st in steps if st is not None])
     xc, w, idx = _within(days)
-    (shift,) = clipped_slope_shift(xc, w, idx, 4.0 * 3.0)
-    assert shift == pytest.approx(float(np.sum(sxx * dev) / np.sum(sxx)), rel=1e-9, abs=1e-12)
-    assert shift < -0.005  # the right tail is clipped more where x is large
-    # nothing clipped: no shift
-    assert clipped_slope_shift(xc, w, idx, 1e9)[0] == pytest.approx(0.0, abs=1e-12)
+    (shift,) = guarded_slope_shift(xc, w, idx, 4.0 * 3.0, rule)
+    assert shift == pytest.approx(float(np.sum(weights * dev) / np.sum(weights)), rel=1e-9,
+                                  abs=1e-12)
+    assert shift < -0.005  # the right tail is guarded more where x is large
+    # nothing beyond the bound: no shift
+    assert guarded_slope_shift(xc, w, idx, 1e9, rule)[0] == pytest.approx(0.0, abs=1e-12)
 
 
-def test_skewed_rows_whose_scatter_grows_do_not_bias_the_chart_measured_from_its_clipped_reference(
-        ) -> None:
+@pytest.mark.parametrize("rule", ["clip", "drop"])
+def test_skewed_rows_whose_scatter_grows_do_not_bias_the_chart_measured_from_its_guarded_reference(
+        rule: str) -> None:
     # In control, a day's standardized slope deviation averages 0 when the reference is the
-    # fit window's clipped slope; against the raw slope the clipped days read low, day after
+    # fit window's guarded slope; against the raw slope the guarded days read low, day after
     # day (the gap is a fixed share of the slope, 2 % here, and in units of a day's sd it grows
     # with the rows of a day: about -1 at 400 rows). Common practice, no source: an estimator
     # compared with its own expectation.
     rng = np.random.default_rng(21)
     fit = _skewed_days(rng, 200)
     xc, w, idx = _within(fit)
-    shift = clipped_slope_shift(xc, w, idx, 4.0 * 3.0)
+    shift = guarded_slope_shift(xc, w, idx, 4.0 * 3.0, rule)
     kept = design_slope_chart(_moments(fit), None, 0.10, 5000.0, 0.95, row_scale=3.0,
-                              h=np.array([9.0]), clip_shift=shift)
+                              h=np.array([9.0]), clip_shift=shift, row_rule=rule)
     raw = design_slope_chart(_moments(fit), None, 0.10, 5000.0, 0.95, row_scale=3.0,
-                             h=np.array([9.0]))
+                             h=np.array([9.0]), row_rule=rule)
     assert kept is not None and raw is not None
     z_kept, z_raw = [], []
     for x, y in _skewed_days(rng, 300):
@@ -434,3 +452,44 @@ def test_skewed_rows_whose_scatter_grows_do_not_bias_the_chart_measured_from_its
         z_raw.append(b.z[0])
     assert abs(np.mean(z_kept)) < 0.12
     assert np.mean(z_raw) < -0.6
+
+
+def _breakdown_days(rng: np.random.Generator, count: int, share: float = 0.02
+                    ) -> list[tuple[np.ndarray, np.ndarray]]:
+    # normal rows (sd 5) of which a share is a breakdown that adds 40 to the duration
+    out = []
+    for _ in range(count):
+        x = rng.uniform(4, 30, 100)
+        y = 9 + 2.0 * x + 2.5 * rng.standard_normal() + 5 * rng.standard_normal(100)
+        out.append((x[:, None], y + 40.0 * (rng.uniform(size=100) < share)))
+    return out
+
+
+def test_leaving_breakdowns_out_makes_a_days_slope_more_precise_and_keeps_its_scale() -> None:
+    # With 2 % of rows a +40 breakdown (8 sd), a clipped breakdown still counts 4 sd in its
+    # day's slope and a dropped one nothing: the day slopes' variance falls by about a fifth
+    # (Hampel 1985 compares such rejection rules with winsorizing for the mean). Each rule's
+    # chart standardizes its own days to unit variance with the noise ratio computed the same
+    # way on the fit window (common practice, no source: a standardized statistic has variance
+    # 1 under the model it was designed for).
+    rng = np.random.default_rng(41)
+    fit = _breakdown_days(rng, 120)
+    xc, w, idx = _within(fit)
+    _, sigma_w2, _ = within_fit(_moments(fit))
+    later = _breakdown_days(rng, 600)
+    dev: dict[str, np.ndarray] = {}
+    z: dict[str, np.ndarray] = {}
+    for rule in ("clip", "drop"):
+        design = design_slope_chart(
+            _moments(fit), slope_noise_ratio(xc, w, sigma_w2, 20.0, day_index=idx, rule=rule),
+            0.10, 5000.0, 0.95, row_scale=5.0, h=np.array([9.0]),
+            raw_inflation=slope_noise_ratio(xc, w, sigma_w2, np.inf),
+            clip_shift=guarded_slope_shift(xc, w, idx, 20.0, rule), row_rule=rule)
+        assert design is not None
+        steps = [slope_step(design, x, y) for x, y in later]
+        dev[rule] = np.array([st.deviation[0] for st in steps if st is not None])
+        z[rule] = np.array([st.z[0] for st in steps if st is not None])
+    assert np.var(dev["drop"]) < 0.88 * np.var(dev["clip"])
+    for rule in ("clip", "drop"):
+        assert 0.8 < np.var(z[rule]) < 1.2
+        assert abs(np.mean(z[rule])) < 0.15
