@@ -29,13 +29,13 @@ if __name__ == "__main__":  # before numpy loads its BLAS: tiny solves are slowe
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from departures import B1, CASES, FIT_DAYS, simulate  # noqa: E402
+from departures import B1, CASES, FIT_DAYS, simulate
 
-from monitor.config import Settings  # noqa: E402
-from monitor.lifecycle.fit import diagnose_window, fit_window  # noqa: E402
-from monitor.monitoring.context import slope_chart_of  # noqa: E402
-from monitor.stats.diagnosis import SLOPE_ROW_RULES  # noqa: E402
-from monitor.stats.within_slope import slope_step  # noqa: E402
+from monitor.config import Settings
+from monitor.lifecycle.fit import diagnose_window, fit_window
+from monitor.monitoring.context import slope_chart_of
+from monitor.stats.diagnosis import SLOPE_ROW_RULES
+from monitor.stats.within_slope import slope_step
 
 
 def measure(case_name: str, models: int, days: int) -> dict[str, tuple[float, float, float]]:
