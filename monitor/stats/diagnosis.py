@@ -80,7 +80,7 @@ class FitDiagnosis:
     tail_pvalue: float  # P(at least that many) for normal rows
     fit_coverage: float  # share of the fit window's rows inside their intervals
     day_spreads: tuple[float, ...]  # log day spread of each fit day with >= 2 rows
-    slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows clipped) over the classical
+    slope_noise_ratio: tuple[float, ...] = ()  # White's meat (rows guarded) over the classical
     weekday_days: tuple[int, ...] = ()  # Mon..Sun: fit days with rows on that weekday
     slope_noise_ratio_raw: tuple[float, ...] = ()  # the same for the rows as they are
     slope_clip_shift: tuple[float, ...] = ()  # guarded rows' within slopes minus the raw ones

@@ -37,7 +37,7 @@ robust sd of its line are left out before its slope is taken (:func:`slope_step`
 fitted before that rule clip them instead), and the reference ``beta`` is the fit window's
 within slope of rows guarded the same way: on rows with a long right tail whose scatter grows
 with a predictor, the guard takes more off where the predictor is large, and against the raw
-slope every day would read low (by 2-3 % of the slope in ``tests/stats/test_within_slope.py``,
+slope every day would read low (by about 2 % of the slope in ``tests/stats/test_within_slope.py``,
 about one day's sd at 400 rows a day).
 
 A chart can run in two *lanes* per predictor, each its own pair of sides with its own step:
