@@ -259,12 +259,12 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
 
 
 def _beside_day_line(centred_x: FloatArray, within: FloatArray, day_index: NDArray[np.int64],
-                     sxx: FloatArray) -> FloatArray:
-    """The rows' residuals around the pooled within line, each day's centred on its median:
-    ``u - med_d u`` with ``u = w - x~'D``, ``D = (Σ x~x~')⁻¹ Σ x~ w``. These are what
-    :func:`monitor.stats.within_slope.slope_step` measures a day's rows by (their day's raw
-    residuals around the fit window's within slopes, less their median: the day's level
-    drops out of both)."""
+                     sxx: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """The rows' residuals around the pooled within line, ``u = w - x~'D`` with ``D = (Σ
+    x~x~')⁻¹ Σ x~ w``, and the same with each day's median taken out, ``u - med_d u``. The
+    second are what :func:`monitor.stats.within_slope.slope_step` measures a day's rows by
+    (their day's raw residuals around the fit window's within slopes, less their median: the
+    day's level drops out of both)."""
     u = within - centred_x @ np.linalg.solve(sxx, centred_x.T @ within)
     order = np.lexsort((u, day_index))
     counts = np.bincount(day_index)
@@ -275,7 +275,7 @@ def _beside_day_line(centred_x: FloatArray, within: FloatArray, day_index: NDArr
     hi = starts[present] + counts[present] // 2
     median = np.zeros(len(counts))
     median[present] = 0.5 * (sorted_u[lo] + sorted_u[hi])
-    return u - median[day_index]
+    return u, u - median[day_index]
 
 
 def _recentred(centred_x: FloatArray, day_index: NDArray[np.int64],
@@ -316,7 +316,7 @@ def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: Arra
     sxx = xc.T @ xc
     if np.linalg.cond(sxx) > 1e12:
         return ()
-    e = _beside_day_line(xc, w, idx, sxx)
+    u, e = _beside_day_line(xc, w, idx, sxx)
     if rule == "clip":
         return tuple(float(v) for v in np.linalg.solve(sxx, xc.T @ np.clip(e, -bound, bound)))
     keep = np.abs(e) <= bound
@@ -324,7 +324,6 @@ def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: Arra
     kept_sxx = kept_x.T @ kept_x
     if np.linalg.cond(kept_sxx) > 1e12:
         return ()
-    u = w - xc @ np.linalg.solve(sxx, xc.T @ w)
     return tuple(float(v) for v in np.linalg.solve(kept_sxx, kept_x.T @ u[keep]))
 
 
@@ -347,7 +346,7 @@ def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,
         sxx_all = xc.T @ xc
         if np.linalg.cond(sxx_all) > 1e12:
             return ()
-        keep = np.abs(_beside_day_line(xc, w, idx, sxx_all)) <= bound
+        keep = np.abs(_beside_day_line(xc, w, idx, sxx_all)[1]) <= bound
         xc, w2 = _recentred(xc, idx, keep), w[keep] ** 2
     else:
         w2 = np.clip(w, -bound, bound) ** 2
