@@ -177,6 +177,7 @@ def slope_chart_of(reference: DayMoments, diagnosis: FitDiagnosis | None,
                               raw_inflation=(d.slope_noise_ratio_raw or None) if d else None,
                               clip_shift=(d.slope_clip_shift or None) if d else None,
                               row_rule=d.slope_row_rule if d else "clip",
+                              between_var=(d.slope_between_var or None) if d else None,
                               learns=settings.slope_chart_reference == "learning")
 
 

@@ -36,6 +36,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats import tails
+from monitor.stats.moments import DayMoments, day_slopes
 
 FloatArray = NDArray[np.float64]
 TAIL_SDS = 4.0  # rows beyond this many robust sd count as outliers
@@ -85,6 +86,9 @@ class FitDiagnosis:
     slope_noise_ratio_raw: tuple[float, ...] = ()  # the same for the rows as they are
     slope_clip_shift: tuple[float, ...] = ()  # guarded rows' within slopes minus the raw ones
     slope_row_rule: str = "clip"  # how those rows were guarded (SLOPE_ROW_RULES)
+    # between-day variance of the day slopes of rows so guarded (empty: versions stored before,
+    # whose chart estimates it from the raw day slopes)
+    slope_between_var: tuple[float, ...] = ()
 
     def rhythm(self, alpha: float = RHYTHM_ALPHA) -> tuple[float, ...] | None:
         """Mon..Sun offsets of the day mean residual (0 for a weekday without fit days) when the
@@ -241,6 +245,9 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
     centred_x = xm - (np.stack([np.bincount(idx, weights=xm[:, j], minlength=g)
                                 for j in range(xm.shape[1])], axis=1)
                       / np.maximum(counts, 1)[:, None])[idx]
+    noise_ratio = slope_noise_ratio(centred_x, within, sigma_w2,
+                                    TAIL_SDS * robust if robust > 0 else np.inf,
+                                    day_index=idx, rule=slope_row_rule)
     return FitDiagnosis(
         days=g, persistence=float(rs[0]) if len(rs) else float("nan"), persistence_test=lb,
         weekday_test=weekday_test, weekday_effects=tuple(effects),
@@ -249,13 +256,14 @@ def diagnose(resid: ArrayLike, day_index: ArrayLike, weekdays: ArrayLike, x: Arr
         tail_share=beyond / len(r) if len(r) else float("nan"), tail_pvalue=tail_p,
         fit_coverage=covered_share, day_spreads=tuple(spreads),
         weekday_days=tuple(per_weekday),
-        slope_noise_ratio=slope_noise_ratio(
-            centred_x, within, sigma_w2, TAIL_SDS * robust if robust > 0 else np.inf,
-            day_index=idx, rule=slope_row_rule),
+        slope_noise_ratio=noise_ratio,
         slope_noise_ratio_raw=slope_noise_ratio(centred_x, within, sigma_w2, np.inf),
         slope_clip_shift=(guarded_slope_shift(centred_x, within, idx, TAIL_SDS * robust,
                                               slope_row_rule) if robust > 0 else ()),
-        slope_row_rule=slope_row_rule)
+        slope_row_rule=slope_row_rule,
+        slope_between_var=(guarded_between_day_variance(
+            centred_x, within, idx, TAIL_SDS * robust, sigma_w2, noise_ratio, slope_row_rule)
+            if robust > 0 and noise_ratio else ()))
 
 
 def _beside_day_line(centred_x: FloatArray, within: FloatArray, day_index: NDArray[np.int64],
@@ -325,6 +333,63 @@ def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: Arra
     if np.linalg.cond(kept_sxx) > 1e12:
         return ()
     return tuple(float(v) for v in np.linalg.solve(kept_sxx, kept_x.T @ u[keep]))
+
+
+def guarded_between_day_variance(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike,
+                                 bound: float, sigma_w2: float, noise_ratio: tuple[float, ...],
+                                 rule: str = SLOPE_ROW_RULE) -> tuple[float, ...]:
+    """Per predictor, the between-day variance of the fit window's day slopes of rows guarded
+    as the within-day slope chart guards a day's (:func:`guarded_slope_shift` says how): the
+    DerSimonian–Laird estimate (:func:`between_day_variance`) over the days that pin down a
+    slope, each day's within variance ``c_j sigma_w² (Sxx_d⁻¹)_jj`` with ``c_j`` the guarded
+    rows' ``noise_ratio`` (:func:`slope_noise_ratio`).
+
+    The chart measures guarded day slopes against ``c_j sigma_w² (Sxx_d⁻¹)_jj + tau_j²``, so
+    ``tau_j²`` is estimated from guarded day slopes too (common practice, no source: estimate a
+    variance component from the data it describes). From the raw day slopes a few breakdowns
+    at the edge of a day's range make the slopes scatter with heavy tails; the estimate, cut at
+    zero, then comes out high (``tests/benchmarks/results/departures_between.md``) and widens
+    every day's variance, which slows the chart. Empty when no day pins down a slope."""
+    xc = np.asarray(centred_x, dtype=np.float64)
+    w = np.asarray(within, dtype=np.float64)
+    idx = np.asarray(day_index, dtype=np.int64)
+    if len(w) == 0:
+        return ()
+    xc = xc.reshape(len(w), -1)
+    k = xc.shape[1]
+    sxx = xc.T @ xc
+    if len(noise_ratio) != k or not sigma_w2 > 0 or np.linalg.cond(sxx) > 1e12:
+        return ()
+    u, e = _beside_day_line(xc, w, idx, sxx)
+    if rule == "clip":
+        rows, labels = np.column_stack([xc, np.clip(e, -bound, bound)]), idx
+    else:
+        keep = np.abs(e) <= bound
+        rows, labels = np.column_stack([xc[keep], u[keep]]), idx[keep]
+    days = DayMoments.from_rows(labels, rows)
+    found = day_slopes(days.comoment, days.n, np.zeros(k))
+    if int(found.usable.sum()) < 3:
+        return ()
+    dev, unit = found.deviation[found.usable], found.unit[found.usable]
+    return tuple(between_day_variance(dev[:, j], noise_ratio[j] * sigma_w2 * unit[:, j])
+                 for j in range(k))
+
+
+def between_day_variance(deviation: FloatArray, variance: FloatArray) -> float:
+    """DerSimonian–Laird moment estimate of the between-day variance of one slope.
+
+    With weights ``w_d = 1/variance_d`` and the weighted mean ``m`` of the deviations,
+    ``Q = Σ w_d (dev_d - m)²`` and ``tau² = max(0, (Q - (G - 1)) / (Σw - Σw²/Σw))``.
+    """
+    w = 1.0 / np.asarray(variance, dtype=np.float64)
+    d = np.asarray(deviation, dtype=np.float64)
+    if len(d) < 3:
+        return 0.0
+    m = float(np.sum(w * d) / np.sum(w))
+    q = float(np.sum(w * (d - m) ** 2))
+    denom = float(np.sum(w) - np.sum(w**2) / np.sum(w))
+    return max(0.0, (q - (len(d) - 1)) / denom) if denom > 0 else 0.0
+
 
 
 def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,

@@ -285,3 +285,45 @@ def _concat(a: DayMoments, b: DayMoments) -> DayMoments:
                       np.concatenate([a.mean, b.mean]), np.concatenate([a.comoment, b.comoment]),
                       np.concatenate([a.minimum, b.minimum]),
                       np.concatenate([a.maximum, b.maximum]))
+
+
+_CONDITION = 1e10  # a day whose cross-product matrix is worse conditioned gives no slope
+
+
+@dataclass(frozen=True, eq=False)
+class DaySlopes:
+    """Each day's within-day slopes against a reference: deviations and their unit variances.
+
+    ``deviation[d, j] = b_dj - beta_j`` and ``unit[d, j] = (Sxx_d⁻¹)_jj`` (times the within-day
+    variance it is the deviation's variance); ``usable[d]`` is False for days whose rows do not
+    pin down a slope (fewer than ``k + 1`` rows, or no spread in some predictor).
+    """
+
+    deviation: FloatArray
+    unit: FloatArray
+    usable: NDArray[np.bool_]
+
+
+def day_slopes(comoment: ArrayLike, n: ArrayLike, slopes: ArrayLike) -> DaySlopes:
+    """Within-day slope deviations of days with centred co-moments ``comoment`` (``(G, k+1,
+    k+1)``, the response last) and ``n`` rows from the reference ``slopes``."""
+    c = np.asarray(comoment, dtype=np.float64)
+    counts = np.asarray(n, dtype=np.float64).ravel()
+    beta = np.asarray(slopes, dtype=np.float64).ravel()
+    k = len(beta)
+    g = c.shape[0]
+    sxx, sxy = c[:, :k, :k], c[:, :k, k]
+    diag = np.einsum("djj->dj", sxx)
+    usable = counts >= k + 1
+    usable &= np.all(diag > 0, axis=1)
+    if usable.any():
+        cond = np.full(g, np.inf)
+        cond[usable] = np.linalg.cond(sxx[usable])
+        usable &= cond < _CONDITION
+    deviation = np.full((g, k), np.nan)
+    unit = np.full((g, k), np.nan)
+    if usable.any():
+        inv = np.linalg.inv(sxx[usable])
+        deviation[usable] = np.einsum("djk,dk->dj", inv, sxy[usable]) - beta
+        unit[usable] = np.einsum("djj->dj", inv)
+    return DaySlopes(deviation, unit, usable)

@@ -13,12 +13,14 @@ variation is. Under the version, ``b_d - beta`` has variance
 
 for predictor ``j``: ``sigma_w²`` the within-day residual variance of the fit window,
 ``c_j`` the ratio of White's (1980, *Econometrica* 48, 817-838) heteroscedasticity-consistent
-"meat" (of rows winsorized as below) to the classical one in the fit window (1 for normal rows
+"meat" (of rows guarded as below) to the classical one in the fit window (1 for normal rows
 whose scatter does not change with the predictors), and ``tau_j²`` the between-day variance
 of the day slopes, estimated from the fit window by the moment estimator of DerSimonian & Laird
-(1986, *Controlled Clinical Trials* 7, 177-188), for days whose slope wanders around the line
-(the fit window's day slopes are of the rows as they are, so ``tau_j²`` is estimated with the
-raw rows' White ratio, not the winsorized one; see :func:`design_slope_chart`).
+(1986, *Controlled Clinical Trials* 7, 177-188), for days whose slope wanders around the line.
+``tau_j²`` is estimated from the fit window's day slopes of rows guarded as below, the slopes the
+chart itself sees (:func:`monitor.stats.diagnosis.guarded_between_day_variance`); versions stored
+before estimate it from the raw day slopes, with the raw rows' White ratio (see
+:func:`design_slope_chart`).
 
 The chart is the log-likelihood-ratio CUSUM of Page (1954) for a step ``delta_j`` (a share of
 the slope, 10 % by default) in each direction, on the day's standardized deviation
@@ -98,8 +100,8 @@ import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats import tails
-from monitor.stats.diagnosis import TAIL_SDS
-from monitor.stats.moments import DayMoments, Moments
+from monitor.stats.diagnosis import TAIL_SDS, between_day_variance
+from monitor.stats.moments import DayMoments, Moments, day_slopes
 
 FloatArray = NDArray[np.float64]
 MIN_STEP = 0.25 # days whose standardized step is below this do not move the chart
@@ -109,46 +111,6 @@ Z_CLIP = 4.0  # a day's standardized deviation is clipped to ±max(Z_CLIP, lambd
 MIXTURE_DAYS = 16  # fit days kept (as quantiles of the step) in the run-length kernel
 MAX_H = 40.0  # a chart that needs a larger interval is not run (its steps are too small)
 _ROOT_2PI = np.sqrt(2.0 * np.pi)
-_CONDITION = 1e10  # a day whose cross-product matrix is worse conditioned gives no slope
-
-
-@dataclass(frozen=True, eq=False)
-class DaySlopes:
-    """Each day's within-day slopes against a reference: deviations and their unit variances.
-
-    ``deviation[d, j] = b_dj - beta_j`` and ``unit[d, j] = (Sxx_d⁻¹)_jj`` (times the within-day
-    variance it is the deviation's variance); ``usable[d]`` is False for days whose rows do not
-    pin down a slope (fewer than ``k + 1`` rows, or no spread in some predictor).
-    """
-
-    deviation: FloatArray
-    unit: FloatArray
-    usable: NDArray[np.bool_]
-
-
-def day_slopes(comoment: ArrayLike, n: ArrayLike, slopes: ArrayLike) -> DaySlopes:
-    """Within-day slope deviations of days with centred co-moments ``comoment`` (``(G, k+1,
-    k+1)``, the response last) and ``n`` rows from the reference ``slopes``."""
-    c = np.asarray(comoment, dtype=np.float64)
-    counts = np.asarray(n, dtype=np.float64).ravel()
-    beta = np.asarray(slopes, dtype=np.float64).ravel()
-    k = len(beta)
-    g = c.shape[0]
-    sxx, sxy = c[:, :k, :k], c[:, :k, k]
-    diag = np.einsum("djj->dj", sxx)
-    usable = counts >= k + 1
-    usable &= np.all(diag > 0, axis=1)
-    if usable.any():
-        cond = np.full(g, np.inf)
-        cond[usable] = np.linalg.cond(sxx[usable])
-        usable &= cond < _CONDITION
-    deviation = np.full((g, k), np.nan)
-    unit = np.full((g, k), np.nan)
-    if usable.any():
-        inv = np.linalg.inv(sxx[usable])
-        deviation[usable] = np.einsum("djk,dk->dj", inv, sxy[usable]) - beta
-        unit[usable] = np.einsum("djj->dj", inv)
-    return DaySlopes(deviation, unit, usable)
 
 
 def within_fit(days: DayMoments) -> tuple[FloatArray, float, int]:
@@ -166,22 +128,6 @@ def within_fit(days: DayMoments) -> tuple[FloatArray, float, int]:
     dof = int(np.asarray(days.n)[keep].sum()) - int(keep.sum()) - k
     rss = float(syy - 2 * beta @ sxy + beta @ sxx @ beta)
     return beta, max(rss, 0.0) / max(dof, 1), dof
-
-
-def between_day_variance(deviation: FloatArray, variance: FloatArray) -> float:
-    """DerSimonian–Laird moment estimate of the between-day variance of one slope.
-
-    With weights ``w_d = 1/variance_d`` and the weighted mean ``m`` of the deviations,
-    ``Q = Σ w_d (dev_d - m)²`` and ``tau² = max(0, (Q - (G - 1)) / (Σw - Σw²/Σw))``.
-    """
-    w = 1.0 / np.asarray(variance, dtype=np.float64)
-    d = np.asarray(deviation, dtype=np.float64)
-    if len(d) < 3:
-        return 0.0
-    m = float(np.sum(w * d) / np.sum(w))
-    q = float(np.sum(w * (d - m) ** 2))
-    denom = float(np.sum(w) - np.sum(w**2) / np.sum(w))
-    return max(0.0, (q - (len(d) - 1)) / denom) if denom > 0 else 0.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -258,7 +204,8 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
                        learns: bool = False,
                        raw_inflation: ArrayLike | None = None,
                        clip_shift: ArrayLike | None = None,
-                       row_rule: str = "clip") -> SlopeChartDesign | None:
+                       row_rule: str = "clip",
+                       between_var: ArrayLike | None = None) -> SlopeChartDesign | None:
     """The chart of a version fitted on ``days``; None when too few days pin down a slope.
 
     ``shift`` is the main lane's step as a share of each slope; ``small_shift`` (below
@@ -288,8 +235,14 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     guarded as :func:`slope_step` guards a day's (:func:`monitor.stats.diagnosis.
     guarded_slope_shift`). The chart's reference is the within slope plus this shift, so that
     each day's guarded slope is compared with the fit window's guarded one (on rows with a long
-    right tail whose scatter grows with a predictor the two differ); the between-day variance
-    and the lanes' steps stay those of the raw slopes.
+    right tail whose scatter grows with a predictor the two differ); the lanes' steps stay those
+    of the raw slopes.
+
+    ``between_var``: ``tau²`` of the fit window's day slopes of rows guarded as the chart guards
+    a day's (:func:`monitor.stats.diagnosis.guarded_between_day_variance`, stored with versions
+    fitted since). Given, it is the chart's ``tau²``, and the reference's error is measured
+    with the guarded variances too; ``raw_inflation`` then plays no part. Without it (versions
+    stored before) ``tau²`` is estimated here from the raw day slopes as above.
     """
     keep = np.asarray(days.n) > 0
     k = days.dim - 1
@@ -308,8 +261,13 @@ def design_slope_chart(days: DayMoments, inflation: ArrayLike | None, shift: flo
     c_raw = (c if raw_inflation is None or len(np.ravel(raw_inflation)) != k
              else np.maximum(np.asarray(raw_inflation, dtype=np.float64).ravel(),
                              MIN_INFLATION))
-    raw_var = c_raw * sigma_w2 * unit
-    tau2 = np.array([between_day_variance(dev[:, j], raw_var[:, j]) for j in range(k)])
+    guarded = between_var is not None and len(np.ravel(between_var)) == k
+    if guarded:  # tau² of guarded day slopes; the reference's error of guarded rows too
+        raw_var = within_var
+        tau2 = np.maximum(np.asarray(between_var, dtype=np.float64).ravel(), 0.0)
+    else:
+        raw_var = c_raw * sigma_w2 * unit
+        tau2 = np.array([between_day_variance(dev[:, j], raw_var[:, j]) for j in range(k)])
     v = within_var + tau2
     # the pooled within estimator's variance under the same model: Σ Sxx_d² v_d / (Σ Sxx_d)²
     # per predictor, with Sxx_d,jj = 1 / unit (exact for one predictor, the usual
