@@ -17,6 +17,7 @@ from monitor.domain.codec import decode, encode
 from monitor.domain.version import SlopeLimits
 from monitor.monitoring.context import VersionContext, slope_chart_of
 from monitor.stats.diagnosis import FitDiagnosis
+from monitor.stats.within_slope import design_slope_chart
 from monitor.store.models import get_model
 from monitor.store.versions import active_version, store_slope_limits
 from tests.support.world import World, settings_for
@@ -108,3 +109,34 @@ def test_a_version_stored_before_rows_were_dropped_keeps_clipping_them(
         version.baseline, diagnosis=older)))
     old_chart = VersionContext.build(old_version, settings.check).slope_chart
     assert old_chart is not None and old_chart.row_rule == "clip"
+
+
+def test_a_version_stored_before_the_guarded_between_variance_keeps_the_raw_one(
+        engine: Engine, make_settings, tmp_path: Path) -> None:
+    # Versions fitted now store the between-day variance of their fit window's guarded day
+    # slopes and their chart uses it; a version stored before has none, and its chart must go
+    # on estimating it from the raw day slopes, as when its limits were solved (common
+    # practice, no source: a stored design is read as it was made).
+    settings, version = _version(engine, make_settings, tmp_path)
+    diagnosis = version.baseline.diagnosis
+    assert diagnosis is not None and len(diagnosis.slope_between_var) == 1
+    chart = VersionContext.build(version, settings.check).slope_chart
+    assert chart is not None
+    np.testing.assert_array_equal(chart.tau2, diagnosis.slope_between_var)
+    marked = replace(diagnosis, slope_between_var=(0.0123,))  # a value the raw rows do not give
+    marked_chart = slope_chart_of(version.baseline.reference, marked, settings.check)
+    assert marked_chart is not None
+    np.testing.assert_array_equal(marked_chart.tau2, [0.0123])
+    stored = encode(marked)
+    del stored["slope_between_var"]
+    older = decode(FitDiagnosis, json.loads(json.dumps(stored)))
+    assert older.slope_between_var == ()
+    old_chart = slope_chart_of(version.baseline.reference, older, settings.check)
+    raw = design_slope_chart(version.baseline.reference, older.slope_noise_ratio,
+                             settings.check.slope_chart_step, settings.check.slope_chart_arl_days,
+                             settings.check.guarantee, row_scale=older.robust_sd,
+                             raw_inflation=older.slope_noise_ratio_raw,
+                             clip_shift=older.slope_clip_shift, row_rule=older.slope_row_rule)
+    assert old_chart is not None and raw is not None
+    np.testing.assert_array_equal(old_chart.tau2, raw.tau2)
+    assert old_chart.tau2[0] != 0.0123
