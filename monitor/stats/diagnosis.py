@@ -391,7 +391,6 @@ def between_day_variance(deviation: FloatArray, variance: FloatArray) -> float:
     return max(0.0, (q - (len(d) - 1)) / denom) if denom > 0 else 0.0
 
 
-
 def slope_noise_ratio(centred_x: ArrayLike, within: ArrayLike, sigma_w2: float,
                       bound: float, *, day_index: ArrayLike | None = None,
                       rule: str = "clip") -> tuple[float, ...]:
