@@ -569,3 +569,28 @@ def test_breakdowns_inflate_the_between_day_variance_of_raw_day_slopes_not_of_gu
     raw, guarded = _between_day_variance_ratios(0.02, 40)
     assert raw > 1.3 * normal
     assert guarded < 1.1 * normal
+
+
+def test_the_guarded_estimates_do_not_depend_on_the_order_of_the_rows() -> None:
+    # A night's rows come in any order and a day may have none; each day's median, and so
+    # the guarded shift and between-day variance, must not care (common practice, no source).
+    rng = np.random.default_rng(23)
+    days = [(x, y + rng.normal(0.0, 0.2) * x[:, 0])  # each day its own slope
+            for x, y in _breakdown_days(rng, 30, share=0.03)]
+    xc, w, idx = _within(days)
+    idx = np.where(idx >= 10, idx + 1, idx)  # day 10 has no rows
+    _, sigma_w2, _ = within_fit(_moments(days))
+    order = rng.permutation(len(w))
+    for rule in ("clip", "drop"):
+        ratio = slope_noise_ratio(xc, w, sigma_w2, 12.0, day_index=idx, rule=rule)
+        shuffled = slope_noise_ratio(xc[order], w[order], sigma_w2, 12.0,
+                                     day_index=idx[order], rule=rule)
+        np.testing.assert_allclose(shuffled, ratio, rtol=1e-10)
+        np.testing.assert_allclose(
+            guarded_slope_shift(xc[order], w[order], idx[order], 12.0, rule),
+            guarded_slope_shift(xc, w, idx, 12.0, rule), rtol=1e-9, atol=1e-12)
+        between = guarded_between_day_variance(xc, w, idx, 12.0, sigma_w2, ratio, rule)
+        assert between[0] > 0
+        np.testing.assert_allclose(
+            guarded_between_day_variance(xc[order], w[order], idx[order], 12.0, sigma_w2,
+                                         ratio, rule), between, rtol=1e-9)
