@@ -85,6 +85,9 @@ CASES: dict[str, Case] = {c.name: c for c in (
          x_shift_per_100_days=2.0),
     Case("rows_5", "5 loads a day", rows=5.0),
     Case("rows_1000", "1000 loads a day", rows=1000.0),
+    Case("rows_30000", "30 000 loads a day (a sorting hub)", rows=30000.0),
+    Case("hub_combined", "30 000 loads a day, AR(1) 0.5 + t4 rows + weekly rhythm + 0.5 % "
+         "breakdowns", rows=30000.0, phi=0.5, t_df=4.0, weekly=True, outlier_share=0.005),
     Case("two_predictors", "pallets and mixed pallets", two_predictors=True),
     Case("random_slope", "each day its own pallet slope, sd 0.1 min/pallet", slope_sd=0.1),
     Case("combined", "AR(1) 0.5 + t4 rows + weekly rhythm", phi=0.5, t_df=4.0, weekly=True),
