@@ -292,6 +292,24 @@ def _recentred(centred_x: FloatArray, day_index: NDArray[np.int64],
     return (centred_x - means[day_index])[keep]
 
 
+def _guarded_inputs(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike
+                    ) -> tuple[FloatArray, NDArray[np.int64], FloatArray, FloatArray,
+                               FloatArray] | None:
+    """``(x~, day index, Σ x~x~', u, e)`` of :func:`_beside_day_line` for the guarded
+    estimates below; None without rows or when the predictors do not pin down the line."""
+    xc = np.asarray(centred_x, dtype=np.float64)
+    w = np.asarray(within, dtype=np.float64)
+    idx = np.asarray(day_index, dtype=np.int64)
+    if len(w) == 0:
+        return None
+    xc = xc.reshape(len(w), -1)
+    sxx = xc.T @ xc
+    if np.linalg.cond(sxx) > 1e12:
+        return None
+    u, e = _beside_day_line(xc, w, idx, sxx)
+    return xc, idx, sxx, u, e
+
+
 def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: ArrayLike,
                         bound: float, rule: str = SLOPE_ROW_RULE) -> tuple[float, ...]:
     """How far the pooled within-day slopes move when each day's rows are guarded as the
@@ -311,16 +329,10 @@ def guarded_slope_shift(centred_x: ArrayLike, within: ArrayLike, day_index: Arra
     large, and the guarded slopes lie below the raw ones. The chart's days are guarded, so
     their reference must be too, or the chart would read that gap as a change (common
     practice, no source: compare an estimator with its own expectation)."""
-    xc = np.asarray(centred_x, dtype=np.float64)
-    w = np.asarray(within, dtype=np.float64)
-    idx = np.asarray(day_index, dtype=np.int64)
-    if len(w) == 0:
+    found = _guarded_inputs(centred_x, within, day_index)
+    if found is None:
         return ()
-    xc = xc.reshape(len(w), -1)
-    sxx = xc.T @ xc
-    if np.linalg.cond(sxx) > 1e12:
-        return ()
-    u, e = _beside_day_line(xc, w, idx, sxx)
+    xc, idx, sxx, u, e = found
     if rule == "clip":
         return tuple(float(v) for v in np.linalg.solve(sxx, xc.T @ np.clip(e, -bound, bound)))
     keep = np.abs(e) <= bound
@@ -346,17 +358,11 @@ def guarded_between_day_variance(centred_x: ArrayLike, within: ArrayLike, day_in
     at the edge of a day's range make the slopes scatter with heavy tails; the estimate, cut at
     zero, then comes out high (``tests/benchmarks/results/departures_between.md``) and widens
     every day's variance, which slows the chart. Empty when no day pins down a slope."""
-    xc = np.asarray(centred_x, dtype=np.float64)
-    w = np.asarray(within, dtype=np.float64)
-    idx = np.asarray(day_index, dtype=np.int64)
-    if len(w) == 0:
+    guarded = _guarded_inputs(centred_x, within, day_index) if sigma_w2 > 0 else None
+    if guarded is None or len(noise_ratio) != guarded[0].shape[1]:
         return ()
-    xc = xc.reshape(len(w), -1)
+    xc, idx, _, u, e = guarded
     k = xc.shape[1]
-    sxx = xc.T @ xc
-    if len(noise_ratio) != k or not sigma_w2 > 0 or np.linalg.cond(sxx) > 1e12:
-        return ()
-    u, e = _beside_day_line(xc, w, idx, sxx)
     if rule == "clip":
         rows, labels = np.column_stack([xc, np.clip(e, -bound, bound)]), idx
     else:
