@@ -307,9 +307,9 @@ def _by_line(rejection: Rejection) -> int:
 
 def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray[np.intp]]:
     """Which rows hold the first occurrence of their key, and for every row that first row."""
-    n = len(checked)
-    if len(set(checked.keys.tolist())) == n:
-        return np.ones(n, dtype=bool), np.arange(n)
+    n, keys = len(checked), checked.keys
+    if n < 2 or bool((keys[1:] > keys[:-1]).all()) or len(set(keys.tolist())) == n:
+        return np.ones(n, dtype=bool), np.arange(n)  # rising keys (the usual file) are distinct
     _, first_rows, codes = np.unique(checked.keys.astype(str), return_index=True,
                                      return_inverse=True)  # first_rows: each key's first row
     first = first_rows[codes.ravel()]

@@ -149,14 +149,19 @@ def test_all_predictor_widths(engine, k: int) -> None:
 
 
 @pytest.mark.parametrize("k", [1, 8])
-def test_many_rows_per_statement_store_and_report_every_key(engine, k: int) -> None:
-    """SQLite stores rows many to an INSERT (up to 999 parameters a statement: 199 rows of one
-    predictor, 83 of eight); keys stored before, scattered over every statement and its last
-    short one, are reported with their stored values and the rest stored: every row counted
-    once (the PostgreSQL path runs the same check)."""
+@pytest.mark.parametrize("rising", [False, True], ids=["keys-unsorted", "keys-rising"])
+def test_many_rows_per_statement_store_and_report_every_key(engine, k: int,
+                                                            rising: bool) -> None:
+    """SQLite stores rows many to an INSERT (1024 rows a statement, then the rest in statements
+    of 256, 128, 64 and 4 rows); keys stored before, scattered over every statement and its
+    short ones, are reported with their stored values and the rest stored: every row counted
+    once, whether the keys come in key order or not (the PostgreSQL path runs the same
+    check)."""
     model, batch = _setup(engine, k=k)
-    n = 1000  # 5 statements and 5 rows (k=1); 12 statements and 4 rows (k=8)
+    n = 2500
     keys, us, days, x, y = _rows(n, k, 5)
+    if rising:
+        keys = np.array([f"k{i:05d}" for i in range(n)], dtype=object)
     old = np.arange(0, n, 7)  # stored first, by another batch
     with engine.begin() as conn:
         other = start_batch(conn, model.id, "earlier", None, None, False, NOW)
@@ -196,3 +201,28 @@ def test_rows_of_equal_times_read_in_key_order_whatever_the_order_stored(engine)
     expected = sorted(keys.tolist())  # Python compares str by code point
     assert rows.keys.tolist() == expected == ["A1", "B", "_", "a", "a2", "b"]
     np.testing.assert_array_equal(obs.y, [y[keys.tolist().index(k)] for k in expected])
+
+
+@pytest.mark.parametrize("limit", [999, 32_766, 250_000])
+@pytest.mark.parametrize("width", [5, 12])
+def test_statements_cover_every_row_once_in_few_distinct_sizes(limit: int, width: int) -> None:
+    """Every row lands in exactly one statement, in order; no statement binds more than the
+    build's parameter limit (999 before SQLite 3.32 and 32766 after: SQLite's defaults, from
+    memory; 250000 in the build of this machine's Python, read with getlimit) and the sizes
+    are powers of two,
+    largest first, so a connection compiles at most 11 statement texts per row width."""
+    from monitor.store.observations import _statements
+
+    sizes: set[int] = set()
+    for n in [0, 1, 2, 1023, 1024, 1025, 2500, 52_631]:
+        covered: list[int] = []
+        previous = None
+        for size, starts in _statements(n, width, limit):
+            assert size * width + 2 <= limit and size & (size - 1) == 0
+            assert previous is None or size < previous
+            previous = size
+            sizes.add(size)
+            for start in starts:
+                covered.extend(range(start, start + size))
+        assert covered == list(range(n))
+    assert len(sizes) <= 11
