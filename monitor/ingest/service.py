@@ -52,6 +52,7 @@ from monitor.store.observations import (
     PreparedRows,
     delete_batch_observations,
     insert_observations,
+    keys_rising,
     merge_day_stats,
     prepare_rows,
     replace_observations,
@@ -308,9 +309,9 @@ def _by_line(rejection: Rejection) -> int:
 def _first_of_each_key(checked: CheckedRows) -> tuple[NDArray[np.bool_], NDArray[np.intp]]:
     """Which rows hold the first occurrence of their key, and for every row that first row."""
     n, keys = len(checked), checked.keys
-    if n < 2 or bool((keys[1:] > keys[:-1]).all()) or len(set(keys.tolist())) == n:
-        return np.ones(n, dtype=bool), np.arange(n)  # rising keys (the usual file) are distinct
-    _, first_rows, codes = np.unique(checked.keys.astype(str), return_index=True,
+    if keys_rising(keys) or len(set(keys.tolist())) == n:
+        return np.ones(n, dtype=bool), np.arange(n)
+    _, first_rows, codes = np.unique(keys.astype(str), return_index=True,
                                      return_inverse=True)  # first_rows: each key's first row
     first = first_rows[codes.ravel()]
     return first == np.arange(n), first

@@ -198,12 +198,18 @@ class PreparedRows:
         return zip(*[values] * self.width, strict=True)
 
 
+def keys_rising(keys: NDArray[np.object_]) -> bool:
+    """Whether each key sorts after the one before (so the keys are distinct, and in the order
+    SQLite stores them best): true of most files, and cheaper to find than to sort."""
+    return len(keys) < 2 or bool((keys[1:] > keys[:-1]).all())
+
+
 def prepare_rows(keys: NDArray[np.object_], observed_us: NDArray[np.int64],
                  days: NDArray[np.datetime64], x: NDArray[np.float64],
                  y: NDArray[np.float64]) -> PreparedRows:
     """The driver's values for these rows (``keys`` must be distinct)."""
     k, t, d, v, u = keys, observed_us, days, y, x
-    if len(keys) > 1 and not bool((keys[1:] > keys[:-1]).all()):  # key order: _insert_sqlite
+    if not keys_rising(keys):  # key order: see _insert_sqlite
         order = np.argsort(keys, kind="stable")
         k, t, d, v, u = keys[order], observed_us[order], days[order], y[order], x[order]
     columns = [k.tolist(), t.tolist(), _day_strings(d), v.tolist(),

@@ -209,8 +209,8 @@ def test_statements_cover_every_row_once_in_few_distinct_sizes(limit: int, width
     """Every row lands in exactly one statement, in order; no statement binds more than the
     build's parameter limit (999 before SQLite 3.32 and 32766 after: SQLite's defaults, from
     memory; 250000 in the build of this machine's Python, read with getlimit) and the sizes
-    are powers of two,
-    largest first, so a connection compiles at most 11 statement texts per row width."""
+    are powers of two, largest first, so a connection compiles at most 11 statement texts per
+    row width."""
     from monitor.store.observations import _statements
 
     sizes: set[int] = set()
