@@ -16,7 +16,7 @@ from sqlalchemy import Engine
 from monitor.domain.codec import decode, encode
 from monitor.domain.version import SlopeLimits
 from monitor.monitoring.context import VersionContext, slope_chart_of
-from monitor.stats.diagnosis import FitDiagnosis
+from monitor.stats.window_summary import FitDiagnosis
 from monitor.stats.within_slope import design_slope_chart
 from monitor.store.models import get_model
 from monitor.store.versions import active_version, store_slope_limits

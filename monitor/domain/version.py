@@ -17,9 +17,8 @@ import numpy as np
 from numpy.typing import NDArray
 
 from monitor.domain.version_state import VersionState
-from monitor.stats.day_effects import DayEffects
-from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
+from monitor.stats.window_summary import DayEffects, FitDiagnosis
 
 if TYPE_CHECKING:  # the views that read versions (status, model show) load neither module
     from monitor.stats.calibration import Calibration

@@ -33,11 +33,12 @@ from monitor.ingest.service import IngestSummary, ingest_file, options_for
 from monitor.monitoring.context import slope_chart_of, slope_limits_of
 from monitor.stats.calibration import Calibration, calibrate_chart, chart_design
 from monitor.stats.coverage import miss_dispersion
-from monitor.stats.day_effects import DayEffects, day_effects_of_fit
-from monitor.stats.diagnosis import SLOPE_ROW_RULE, FitDiagnosis, diagnose
+from monitor.stats.day_effects import day_effects_of_fit
+from monitor.stats.diagnosis import diagnose
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit, fit_ols
 from monitor.stats.prediction import PredictionModel
+from monitor.stats.window_summary import SLOPE_ROW_RULE, DayEffects, FitDiagnosis
 from monitor.store import audit
 from monitor.store.access import database
 from monitor.store.engine import write_transaction

@@ -27,14 +27,14 @@ from monitor.stats.calibration import (
     self_starts,
     shock_persistence,
 )
-from monitor.stats.day_effects import DayEffects, day_residuals
-from monitor.stats.diagnosis import MAX_PERSISTENCE, FitDiagnosis
+from monitor.stats.day_effects import day_residuals
 from monitor.stats.misses import GuardedMissLaw, chi2_scales, spread_scales
 from monitor.stats.moments import DayMoments, Moments
 from monitor.stats.ols import fit_moments
 from monitor.stats.persistent_misses import PersistentMissLaw
 from monitor.stats.prediction import PredictionModel
 from monitor.stats.self_start import learned_effects, level_of
+from monitor.stats.window_summary import MAX_PERSISTENCE, DayEffects, FitDiagnosis
 from monitor.stats.within_slope import SlopeChartDesign, design_slope_chart
 
 FloatArray = NDArray[np.float64]

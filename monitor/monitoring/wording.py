@@ -15,8 +15,8 @@ from monitor.domain.phrasing import fmt, fmt_p, held_reason, percent, window_spa
 from monitor.stats.change import FTest
 from monitor.stats.coverage import CoverageTest
 from monitor.stats.decision import Finding, Verdict
-from monitor.stats.diagnosis import RHYTHM_MIN_DAYS, FitDiagnosis
 from monitor.stats.spread import SpreadTest
+from monitor.stats.window_summary import RHYTHM_MIN_DAYS, FitDiagnosis
 
 
 @dataclass(frozen=True, eq=False)

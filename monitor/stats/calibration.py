@@ -37,10 +37,15 @@ from numpy.typing import ArrayLike, NDArray
 from monitor.errors import DegenerateDataError
 from monitor.stats import tails
 from monitor.stats.arl import cusum_arl, solve_h, solve_h_many
-from monitor.stats.day_effects import DayEffects, net_of_rhythm
-from monitor.stats.diagnosis import MAX_PERSISTENCE, PERSISTENCE_ALPHA, FitDiagnosis
+from monitor.stats.day_effects import net_of_rhythm
 from monitor.stats.moments import DayMoments
 from monitor.stats.ols import OLSFit
+from monitor.stats.window_summary import (
+    MAX_PERSISTENCE,
+    PERSISTENCE_ALPHA,
+    DayEffects,
+    FitDiagnosis,
+)
 
 FloatArray = NDArray[np.float64]
 _TINY = 1e-20  # residual variance, relative to the response's, below which a fit is exact
@@ -155,7 +160,7 @@ class Persistence:
 
     ``estimate`` is the fit window's lag-1 autocorrelation ``r1`` of the standardized day means;
     ``chart`` the correlation the chart prewhitens with (``r1`` when significant, else 0:
-    :meth:`monitor.stats.diagnosis.FitDiagnosis.chart_persistence`); ``truth`` the value the
+    :meth:`monitor.stats.window_summary.FitDiagnosis.chart_persistence`); ``truth`` the value the
     bootstrap takes as the truth: ``r1`` corrected for its small-sample bias ``-(1 + 4 phi)/G``
     (Kendall 1954, from memory), kept in ``[0, MAX]``, so a persistence too weak to be
     significant still widens the limit a little rather than being taken as none.

@@ -20,44 +20,9 @@ from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats import tails
 from monitor.stats.moments import DayMoments
+from monitor.stats.window_summary import DayEffects
 
 FloatArray = NDArray[np.float64]
-
-
-@dataclass(frozen=True)
-class DayEffects:
-    """Variance components of residuals grouped by day."""
-
-    tau2: float
-    sigma_w2: float
-    n_days: int
-    n_rows: int
-    n0: float
-    ms_between: float
-    ms_within: float
-    statistic: float
-    pvalue: float
-
-    @property
-    def df_between(self) -> int:
-        return self.n_days - 1
-
-    @property
-    def df_within(self) -> int:
-        return self.n_rows - self.n_days
-
-    @property
-    def intraday_correlation(self) -> float:
-        total = self.tau2 + self.sigma_w2
-        return self.tau2 / total if total > 0 else float("nan")
-
-    def present(self, alpha: float = 0.05) -> bool:
-        """Whether the F test rejects ``tau² = 0`` at ``alpha`` (and the estimate is positive)."""
-        return bool(self.tau2 > 0 and self.pvalue < alpha)
-
-    def day_variance(self, n: ArrayLike) -> FloatArray:
-        """Variance of the mean residual of a day with ``n`` rows: ``tau² + sigma_w² / n``."""
-        return self.tau2 + self.sigma_w2 / np.asarray(n, dtype=np.float64)
 
 
 def day_effects(counts: ArrayLike, means: ArrayLike, within_ss: ArrayLike) -> DayEffects:

@@ -43,7 +43,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats import tails
 from monitor.stats.coverage import CoverageTest, coverage_test
-from monitor.stats.day_effects import DayEffects
+from monitor.stats.window_summary import DayEffects
 
 FloatArray = NDArray[np.float64]
 SHOCK_NODES = 48

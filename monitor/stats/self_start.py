@@ -24,8 +24,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from monitor.stats import tails
-from monitor.stats.day_effects import DayEffects
 from monitor.stats.moments import Moments
+from monitor.stats.window_summary import DayEffects
 
 Q_BOUND = 37.5  # |Q| beyond which the tail probability underflows a double (Φ(-37.5) ≈ 5e-308)
 

@@ -100,8 +100,9 @@ import scipy
 from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats import tails
-from monitor.stats.diagnosis import TAIL_SDS, between_day_variance
+from monitor.stats.diagnosis import between_day_variance
 from monitor.stats.moments import DayMoments, Moments, day_slopes
+from monitor.stats.window_summary import TAIL_SDS
 
 FloatArray = NDArray[np.float64]
 MIN_STEP = 0.25 # days whose standardized step is below this do not move the chart

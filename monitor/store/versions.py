@@ -28,9 +28,8 @@ from monitor.domain.version import (
     VersionState,
 )
 from monitor.errors import NotFoundError
-from monitor.stats.day_effects import DayEffects
-from monitor.stats.diagnosis import FitDiagnosis
 from monitor.stats.moments import DayMoments
+from monitor.stats.window_summary import DayEffects, FitDiagnosis
 from monitor.store.engine import id_chunks
 from monitor.store.schema import inserted_id, versions
 

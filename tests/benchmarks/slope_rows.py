@@ -36,7 +36,7 @@ from departures import B1, CASES, FIT_DAYS, simulate
 from monitor.config import Settings
 from monitor.lifecycle.fit import diagnose_window, fit_window
 from monitor.monitoring.context import slope_chart_of
-from monitor.stats.diagnosis import SLOPE_ROW_RULE, SLOPE_ROW_RULES
+from monitor.stats.window_summary import SLOPE_ROW_RULE, SLOPE_ROW_RULES
 from monitor.stats.within_slope import slope_step
 
 

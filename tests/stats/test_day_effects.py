@@ -117,7 +117,8 @@ def test_net_of_rhythm_takes_out_the_between_weekday_sum_of_squares_of_statsmode
     # day-shock variance loses exactly SS_between/G - (W-1)/G · day variance (the noise part of
     # SS_between's expectation, one-way ANOVA), and the chart keeps the offsets' own error,
     # (W/G)(tau²_net + sigma_w²/n0).
-    from monitor.stats.day_effects import DayEffects, net_of_rhythm
+    from monitor.stats.day_effects import net_of_rhythm
+    from monitor.stats.window_summary import DayEffects
 
     weekday = np.arange(100) % 7
     # a rhythm laid on the flows: "Mondays" +150, "Saturdays" -100

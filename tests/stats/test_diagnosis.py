@@ -11,7 +11,6 @@ from scipy import stats
 from statsmodels.stats.diagnostic import acorr_ljungbox, het_breuschpagan
 
 from monitor.stats.diagnosis import (
-    MAD_TO_SD,
     day_spread,
     diagnose,
     koenker_breusch_pagan,
@@ -19,6 +18,7 @@ from monitor.stats.diagnosis import (
     robust_spread_test,
     weekday_anova,
 )
+from monitor.stats.window_summary import MAD_TO_SD
 
 
 def test_ljung_box_matches_statsmodels_on_the_nile_series() -> None:
