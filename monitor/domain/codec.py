@@ -8,19 +8,22 @@ the annotation of the target, so a field declared ``date | None`` comes back as 
 Floats that are not finite are stored as ``null``; a field typed ``float`` reads ``null`` back as
 NaN, one typed ``float | None`` as None. Keys of a stored object that the class no longer has
 are ignored, and fields the stored object lacks take their defaults, so old rows stay readable.
+
+numpy is not imported here: a value can only be a numpy scalar or array once numpy is loaded, and
+an array is decoded only for a type that names one, so the views that decode plain values
+(``model show``) run without it.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import math
+import sys
 import types
 import typing
 from datetime import date, datetime
 from enum import Enum
 from typing import Any, TypeVar
-
-import numpy as np
 
 T = TypeVar("T")
 _MISSING = object()
@@ -32,9 +35,12 @@ def encode(value: Any) -> Any:
         return value.value if isinstance(value, Enum) else value
     if isinstance(value, Enum):
         return value.value
-    if isinstance(value, float | np.floating):
+    if isinstance(value, float):
         return float(value) if math.isfinite(value) else None
-    if isinstance(value, np.integer):
+    np = sys.modules.get("numpy")  # loaded by whoever made a numpy value
+    if np is not None and isinstance(value, np.floating):
+        return float(value) if math.isfinite(value) else None
+    if np is not None and isinstance(value, np.integer):
         return int(value)
     if isinstance(value, datetime):
         if value.tzinfo is None:
@@ -42,7 +48,7 @@ def encode(value: Any) -> Any:
         return value.isoformat()
     if isinstance(value, date):
         return value.isoformat()
-    if isinstance(value, np.ndarray):
+    if np is not None and isinstance(value, np.ndarray):
         return encode(value.tolist())
     to_dict = getattr(value, "to_dict", None)
     if callable(to_dict):  # a type with its own stored form (day statistics)
@@ -81,7 +87,7 @@ def decode(kind: Any, data: Any) -> Any:
         args = typing.get_args(kind)
         value_kind = args[1] if len(args) == 2 else Any
         return {k: decode(value_kind, v) for k, v in (data or {}).items()}
-    if origin is np.ndarray or kind is np.ndarray:
+    if _names_an_array(kind, origin):
         return _array(data)
     if kind is float:
         return float("nan") if data is None else float(data)
@@ -114,16 +120,23 @@ def _first_fit(options: list[Any], data: Any) -> Any:
     raise TypeError(f"no type of {options} reads {data!r}")
 
 
+def _names_an_array(kind: Any, origin: Any) -> bool:
+    np = sys.modules.get("numpy")  # a type naming an array was defined where numpy is loaded
+    return np is not None and (origin is np.ndarray or kind is np.ndarray)
+
+
 def _array(data: Any) -> Any:
     if data is None:
         return None
+    import numpy as np
+
     return np.array(_nan_for_none(data), dtype=np.float64)
 
 
 def _nan_for_none(data: Any) -> Any:
     if isinstance(data, list):
         return [_nan_for_none(v) for v in data]
-    return np.nan if data is None else data
+    return math.nan if data is None else data
 
 
 def _dataclass(kind: type[T], data: Any) -> T:
