@@ -8,23 +8,24 @@ turns them into rows and back in one place (``monitor.store.versions``).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, replace
 from datetime import date, datetime
 from enum import StrEnum
 from typing import TYPE_CHECKING
 
-import numpy as np
-from numpy.typing import NDArray
-
 from monitor.domain.version_state import VersionState
-from monitor.stats.moments import DayMoments
 from monitor.stats.window_summary import DayEffects, FitDiagnosis
 
-if TYPE_CHECKING:  # the views that read versions (status, model show) load neither module
+if TYPE_CHECKING:  # the views that show versions (status, model show) load none of these
+    import numpy as np
+    from numpy.typing import NDArray
+
     from monitor.stats.calibration import Calibration
+    from monitor.stats.moments import DayMoments
     from monitor.stats.prediction import PredictionModel
 
-FloatArray = NDArray[np.float64]
+    FloatArray = NDArray[np.float64]
 
 
 class VersionSource(StrEnum):
@@ -59,6 +60,8 @@ class Line:
         return len(self.terms) - 1
 
     def prediction_model(self) -> PredictionModel:
+        import numpy as np
+
         from monitor.stats.prediction import PredictionModel  # where a day is scored
 
         k = self.k
@@ -73,7 +76,7 @@ class Line:
     def coefficient_map(self, values: FloatArray | None = None) -> dict[str, float | None]:
         """``{term: value}`` for the coefficients (or another array in the same order)."""
         vals = self.coefficients if values is None else values
-        return {t: (float(v) if np.isfinite(v) else None)
+        return {t: (float(v) if math.isfinite(v) else None)
                 for t, v in zip(self.terms, vals, strict=True)}
 
 
@@ -127,6 +130,8 @@ class SlopeLimits:
                 == (step, target_arl, guarantee, small_step, reference))
 
     def array(self) -> FloatArray:
+        import numpy as np
+
         return np.array([np.inf if h is None else h for h in self.h], dtype=np.float64)
 
 
