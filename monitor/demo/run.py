@@ -132,7 +132,7 @@ def _play(engine: Engine, settings: Settings, files: DemoFiles, scenario: Scenar
                        engine=engine)
     if report.ingest is not None:
         say(report.ingest.sentence() + "\n")
-    say(VersionView(report.model, report.version, settings.for_model(MODEL).words).text()
+    say(VersionView.of(report.model, report.version, settings.for_model(MODEL).words).text()
         + "\n\n")
     say("Night by night (each night: that day's loads arrive, the day is checked):\n")
     with engine.connect() as conn:

@@ -7,8 +7,9 @@ import math
 from datetime import date
 from typing import TYPE_CHECKING
 
-if TYPE_CHECKING:  # only for the annotation: phrasing loads nothing heavy (numpy, the stats)
-    from monitor.domain.version import Line
+if TYPE_CHECKING:  # only for the annotations: phrasing loads nothing heavy (numpy, the stats)
+    from monitor.config import Wording
+    from monitor.domain.version import Line, LineFigures
 
 
 def fmt(value: float | None, digits: int = 3) -> str:
@@ -62,7 +63,7 @@ def held_reason(since: date | None) -> str:
             "new version is promoted or the advice is acknowledged")
 
 
-def fit_summary(line: Line, rows: str = "rows", unit: str = "") -> str:
+def fit_summary(line: Line | LineFigures, rows: str = "rows", unit: str = "") -> str:
     """How well a fitted line fits, in plain words (``model show`` and the model's page):
     'typical scatter around the line 5.824 min from 3,873 loads, explains 76.4 % of the
     variation'. The scatter is ``s``, the residual standard deviation; the share explained is
@@ -72,3 +73,10 @@ def fit_summary(line: Line, rows: str = "rows", unit: str = "") -> str:
     explained = (f", explains {percent(line.r_squared, 1)} of the variation"
                  if line.r_squared is not None else "")
     return f"typical scatter around the line {fmt(line.s, 4)}{unit}{counted}{explained}"
+
+
+def amount(value: float, words: Wording, response: str) -> str:
+    """'8.6 min' with a configured unit, else '8.6 (load_minutes)'."""
+    if words.y_unit:
+        return f"{fmt(abs(value), 2)} {words.y_unit}"
+    return f"{fmt(abs(value), 2)} ({response})"

@@ -3,7 +3,9 @@ the process it was fitted on.
 
 A :class:`VersionDraft` is what a fit or an import produces; storing it gives a :class:`Version`
 (its number, state and the days it scores). Both are plain typed values with no SQL; the store
-turns them into rows and back in one place (``monitor.store.versions``).
+turns them into rows and back in one place (``monitor.store.versions``). A :class:`VersionSheet`
+is what the views show of a version: its plain parts without the arrays and day statistics a
+check needs, so ``model show`` reads it without numpy (``monitor.store.version_sheets``).
 """
 
 from __future__ import annotations
@@ -73,11 +75,46 @@ class Line:
         return PredictionModel.from_covariance(self.terms, self.coefficients, self.s, self.dof,
                                                self.covariance, lo, hi)
 
-    def coefficient_map(self, values: FloatArray | None = None) -> dict[str, float | None]:
-        """``{term: value}`` for the coefficients (or another array in the same order)."""
-        vals = self.coefficients if values is None else values
-        return {t: (float(v) if math.isfinite(v) else None)
-                for t, v in zip(self.terms, vals, strict=True)}
+    def figures(self) -> LineFigures:
+        """What a view shows of this line."""
+        return LineFigures(
+            terms=self.terms, coefficients=_plain(self.coefficients), s=self.s, dof=self.dof,
+            level=self.level, n=self.n,
+            std_errors=None if self.std_errors is None else _plain(self.std_errors),
+            x_min=None if self.x_min is None else _plain(self.x_min),
+            x_max=None if self.x_max is None else _plain(self.x_max),
+            r_squared=self.r_squared, adj_r_squared=self.adj_r_squared,
+            condition_number=self.condition_number)
+
+
+def _plain(values: FloatArray) -> tuple[float | None, ...]:
+    """Floats as they are stored: None where a value is not finite."""
+    return tuple(float(v) if math.isfinite(v) else None for v in values)
+
+
+@dataclass(frozen=True)
+class LineFigures:
+    """What a view shows of a fitted line: plain numbers, None where a value is not finite
+    (as stored), and no covariance or centring (which only a check needs)."""
+
+    terms: tuple[str, ...]
+    coefficients: tuple[float | None, ...]
+    s: float
+    dof: int
+    level: float
+    n: int | None = None
+    std_errors: tuple[float | None, ...] | None = None
+    x_min: tuple[float | None, ...] | None = None
+    x_max: tuple[float | None, ...] | None = None
+    r_squared: float | None = None
+    adj_r_squared: float | None = None
+    condition_number: float | None = None
+
+    def coefficient_map(self, values: tuple[float | None, ...] | None = None
+                        ) -> dict[str, float | None]:
+        """``{term: value}`` for the coefficients (or other values in the same order)."""
+        return dict(zip(self.terms, self.coefficients if values is None else values,
+                        strict=True))
 
 
 @dataclass(frozen=True)
@@ -251,3 +288,46 @@ class Version:
     def copied(self, note: str) -> VersionDraft:
         """This version's fit as a new draft (a rollback stores such a copy)."""
         return replace(self.draft, note=note)
+
+    def sheet(self) -> VersionSheet:
+        """What the views show of this version."""
+        base, draft = self.baseline, self.draft
+        return VersionSheet(
+            id=self.id, number=self.number, state=self.state, source=draft.source,
+            line=self.line.figures(), fit_start=draft.fit_start, fit_end=draft.fit_end,
+            active_from=self.active_from, active_until=self.active_until, note=draft.note,
+            notes=draft.notes, created_at=self.created_at, created_by=self.created_by,
+            tau2=base.tau2, sigma_w2=base.sigma_w2, dispersion=base.dispersion,
+            day_effects=base.day_effects, calibration=base.calibration, fit_days=base.fit_days,
+            diagnosis=base.diagnosis, slope_limits=base.slope_limits)
+
+
+@dataclass(frozen=True, eq=False)
+class VersionSheet:
+    """What the views show of a version (``model show``, the documents of ``model fit``,
+    ``refit``, ``compare`` and ``replay``, the model's page): its number and days, the line's
+    figures and the baseline's plain parts (the fields named as :class:`Baseline`'s), without
+    the fit window's day statistics. :meth:`Version.sheet` gives it for a version in memory;
+    ``monitor.store.version_sheets`` reads it from the columns without decoding the arrays."""
+
+    id: int
+    number: int
+    state: VersionState
+    source: VersionSource
+    line: LineFigures
+    fit_start: date | None
+    fit_end: date | None
+    active_from: date | None
+    active_until: date | None
+    note: str | None
+    notes: tuple[str, ...]
+    created_at: datetime
+    created_by: str | None
+    tau2: float | None = None
+    sigma_w2: float | None = None
+    dispersion: float | None = None
+    day_effects: DayEffects | None = None
+    calibration: ChartCalibration | None = None
+    fit_days: int | None = None
+    diagnosis: FitDiagnosis | None = None
+    slope_limits: SlopeLimits | None = None

@@ -333,7 +333,7 @@ def _cmd_model_fit(args: argparse.Namespace, settings: Settings) -> int:
     request = FitRequest(args.name, Path(args.data) if args.data else None, args.y,
                          tuple(args.x), args.time, args.id, args.start, args.end, args.level)
     report = fit_model(settings, request, progress=wants_progress() and not args.json)
-    view = VersionView(report.model, report.version, settings.for_model(args.name).words)
+    view = VersionView.of(report.model, report.version, settings.for_model(args.name).words)
     if args.json:
         doc = view.as_dict()
         if report.ingest is not None:
@@ -351,7 +351,7 @@ def _cmd_model_import(args: argparse.Namespace, settings: Settings) -> int:
     from monitor.lifecycle.importer import import_model
 
     report = import_model(settings, args.name, Path(args.file))
-    view = VersionView(report.model, report.version, settings.for_model(args.name).words)
+    view = VersionView.of(report.model, report.version, settings.for_model(args.name).words)
     if args.json:
         print(dumps({**view.as_dict(), "warnings": list(report.warnings)}))
     else:

@@ -4,7 +4,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from sqlalchemy import Engine
 
@@ -12,32 +12,42 @@ from monitor.config import Settings, Wording
 from monitor.domain.codec import encode
 from monitor.domain.model import ModelSpec
 from monitor.domain.phrasing import fit_summary, fmt, percent
-from monitor.domain.version import Version, VersionSource
-from monitor.errors import StateError
-from monitor.monitoring.wording import WindowFinding, window_findings
-from monitor.stats.self_start import Learning
+from monitor.domain.version import VersionSheet, VersionSource
+from monitor.monitoring.window_wording import WindowFinding, window_findings
 from monitor.store.access import database
-from monitor.store.checks import last_check
 from monitor.store.models import get_model
-from monitor.store.versions import active_version, get_version, list_versions
+from monitor.store.version_sheets import LearnedSoFar, learned_so_far, version_sheet
+
+if TYPE_CHECKING:  # the views of versions in memory pass them; model show reads a sheet
+    from monitor.domain.version import Version
+    from monitor.stats.self_start import Learning
 
 
 def version_document(model: ModelSpec, version: Version) -> dict[str, Any]:
     """The JSON document of a version (``model show --json`` and inside others)."""
-    return VersionView(model, version).as_dict()
+    return VersionView.of(model, version).as_dict()
 
 
 @dataclass(frozen=True, eq=False)
 class VersionView:
+    """A version in words and as a JSON document, from what the views show of it (its sheet)
+    and what it learned up to its last check."""
+
     model: ModelSpec
-    version: Version
+    version: VersionSheet
     words: Wording = field(default_factory=Wording)
-    learned: Learning | None = None  # what the version learned, at its last check
+    learned: LearnedSoFar | None = None  # what the version learned, at its last check
+
+    @classmethod
+    def of(cls, model: ModelSpec, version: Version, words: Wording | None = None,
+           learning: Learning | None = None) -> VersionView:
+        """The view of a version in memory (and of the learning of its last check)."""
+        return cls(model, version.sheet(), words or Wording(),
+                   None if learning is None else LearnedSoFar.of(learning))
 
     def as_dict(self) -> dict[str, Any]:
         v, m = self.version, self.model
-        line, base = v.line, v.baseline
-        cal = base.calibration
+        line, cal = v.line, v.calibration
         return {
             "model": m.name, "version": v.number, "state": v.state, "source": v.source,
             "response": m.response, "predictors": list(m.predictors),
@@ -50,12 +60,12 @@ class VersionView:
             "fit_window": [v.fit_start, v.fit_end], "active_from": v.active_from,
             "active_until": v.active_until,
             "ranges": None if line.x_min is None or line.x_max is None else {
-                name: [float(lo), float(hi)]
+                name: [lo, hi]
                 for name, lo, hi in zip(m.predictors, line.x_min, line.x_max, strict=True)},
-            "day_effects": {"tau2": base.tau2, "sigma_w2": base.sigma_w2,
-                            "present": None if base.day_effects is None
-                            else base.day_effects.present()},
-            "dispersion": base.dispersion,
+            "day_effects": {"tau2": v.tau2, "sigma_w2": v.sigma_w2,
+                            "present": None if v.day_effects is None
+                            else v.day_effects.present()},
+            "dispersion": v.dispersion,
             "cusum": {"k": cal.k if cal else None, "h": cal.h if cal else None,
                       "target_arl": cal.target_arl if cal else None,
                       "guarantee": cal.guarantee if cal and cal.calibrated else None,
@@ -64,22 +74,22 @@ class VersionView:
                       "arl_known": cal.arl_known if cal else None,
                       "calibrated": cal.calibrated if cal else None,
                       "learn_until_days": cal.learn_until if cal else None,
-                      "learned_days": (self.learned.level.n
+                      "learned_days": (self.learned.level_days
                                        if self.learned is not None and cal and cal.learn_until
                                        else None)},
             "slope_chart": self.slope_chart(),
             "fit_window_findings": [
                 {"topic": f.topic, "found": f.found, "text": f.text}
                 for f in self.findings()],
-            "fit_window_tests": encode(base.diagnosis) if base.diagnosis else None,
-            "notes": list(v.draft.notes),
+            "fit_window_tests": encode(v.diagnosis) if v.diagnosis else None,
+            "notes": list(v.notes),
             "created_at": v.created_at, "created_by": v.created_by, "note": v.note,
         }
 
     def text(self) -> str:
         d = self.as_dict()
         v = self.version
-        line, base = v.line, v.baseline
+        line = v.line
         origin = ", imported" if v.source == VersionSource.IMPORT else ""
         lines = [f"{d['model']} version {v.number} ({v.state}{origin})",
                  f"  {self.model.response} = " + " + ".join(
@@ -94,16 +104,16 @@ class VersionView:
         if v.active_from:
             until = f" through {v.active_until}" if v.active_until else ""
             lines.append(f"  scores days from {v.active_from}{until}")
-        if base.tau2 is not None and base.sigma_w2 is not None:
-            lines.append(f"  day-to-day sd {fmt(base.tau2 ** 0.5, 3)}, within-day sd "
-                         f"{fmt(base.sigma_w2 ** 0.5, 3)}")
-        cal = base.calibration
+        if v.tau2 is not None and v.sigma_w2 is not None:
+            lines.append(f"  day-to-day sd {fmt(v.tau2 ** 0.5, 3)}, within-day sd "
+                         f"{fmt(v.sigma_w2 ** 0.5, 3)}")
+        cal = v.calibration
         if cal is not None:
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
                          f"{fmt(cal.target_arl, 4)} days between false alarms, "
                          f"{self.promise()})")
-            if cal.learn_until and base.fit_days:
-                lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
+            if cal.learn_until and v.fit_days:
+                lines.append("  " + self.learning_text(v.fit_days, cal.learn_until))
         chart = d["slope_chart"]
         if chart is not None:
             several = len(set(chart["lane_predictors"])) > 1
@@ -118,18 +128,18 @@ class VersionView:
         if found:
             lines.append("  the fit window shows:")
             lines.extend(f"    - {f.text}" for f in found)
-        elif base.diagnosis is not None:
+        elif v.diagnosis is not None:
             lines.append("  the fit window shows no persistence, weekday rhythm, spread growing "
                          "with the predictors or excess outliers")
         if v.note:
             lines.append(f"  about it: {v.note}")
-        lines.extend(f"  note: {note}" for note in v.draft.notes)
+        lines.extend(f"  note: {note}" for note in v.notes)
         return "\n".join(lines)
 
     def promise(self) -> str | None:
         """How far the bias chart's false-alarm spacing can be relied on (text and JSON)."""
         v = self.version
-        cal = v.baseline.calibration
+        cal = v.calibration
         if cal is None:
             return None
         if cal.learn_until:
@@ -151,17 +161,17 @@ class VersionView:
         if self.learned is None:
             return (f"learned so far: its {fit_days} fit days of {learn_until} (no day of its "
                     "own checked yet)")
-        days = fit_days + self.learned.level.n
+        days = fit_days + self.learned.level_days
         state = ("stopped by a refit until it is acknowledged or replaced"
                  if self.learned.stopped else
                  "done; the limit now allows for the level's estimation error"
                  if days >= learn_until else "learning")
         return (f"learned so far: {days} of {learn_until} days ({fit_days} fit days and "
-                f"{self.learned.level.n} checked days); {state}")
+                f"{self.learned.level_days} checked days); {state}")
 
     def slope_chart(self) -> dict[str, Any] | None:
         """The within-day slope chart's limits and its reference's learning (JSON)."""
-        limits = self.version.baseline.slope_limits
+        limits = self.version.slope_limits
         if limits is None:
             return None
         k = len(self.model.predictors)
@@ -174,7 +184,7 @@ class VersionView:
                                  and limits.reference == "learning" else None),
                 "learning_stopped": (learned.stopped if learned is not None
                                      and limits.reference == "learning" else None),
-                "held_days": (len(learned.slope_pending) if learned is not None
+                "held_days": (learned.held_days if learned is not None
                               and limits.reference == "learning" else None)}
 
     @staticmethod
@@ -196,7 +206,7 @@ class VersionView:
                 f"fit window's{waiting}; {state}")
 
     def findings(self) -> list[WindowFinding]:
-        d = self.version.baseline.diagnosis
+        d = self.version.diagnosis
         if d is None:
             return []
         return window_findings(d, self.words, self.model.response, self.model.predictors)
@@ -204,19 +214,10 @@ class VersionView:
 
 def show_version(settings: Settings, name: str, number: int | None = None, *,
                  engine: Engine | None = None) -> VersionView:
+    """``model show``: version ``number`` (else the active one, else the latest) read as a sheet,
+    with the learning of the model's last check when that version scored it."""
     with database(settings, engine, sections="warn") as db, db.connect() as conn:
         model = get_model(conn, name)
-        if number is None:
-            version = active_version(conn, model.id)
-            if version is None:
-                versions = list_versions(conn, model.id)
-                if not versions:
-                    raise StateError(f"model '{name}' has no fitted version yet")
-                version = versions[-1]
-        else:
-            version = get_version(conn, model.id, number, model_name=name)
-        last = last_check(conn, model.id)
-    learned = None
-    if last is not None and last.version_id == version.id:
-        learned = last.state.learning
-    return VersionView(model, version, settings.for_model(name).words, learned)
+        sheet = version_sheet(conn, model.id, number, model_name=name)
+        learned = learned_so_far(conn, model.id, sheet.id)
+    return VersionView(model, sheet, settings.for_model(name).words, learned)

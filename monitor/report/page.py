@@ -25,7 +25,7 @@ from monitor.domain.version import Version, VersionState
 from monitor.errors import InputError
 from monitor.interface.output import to_jsonable
 from monitor.interface.versions import VersionView
-from monitor.monitoring.wording import WindowFinding, window_findings
+from monitor.monitoring.window_wording import WindowFinding, window_findings
 from monitor.report import charts, row_charts
 from monitor.report.files import folder_for, render, unusable, write_files
 from monitor.report.marks import Mark, load_marks
@@ -220,7 +220,7 @@ def _learning(data: ReportData) -> str | None:
     cal = active.baseline.calibration
     learned = last.state.learning if last is not None and last.version_id == active.id \
         else None
-    view = VersionView(data.model.spec, active, data.settings.words, learned)
+    view = VersionView.of(data.model.spec, active, data.settings.words, learned)
     said = []
     if cal is not None and cal.learn_until and active.baseline.fit_days:
         said.append("Self-starting: it keeps learning its level from its own in-control days; "

@@ -19,7 +19,6 @@ from sqlalchemy import Connection, func, insert, select, update
 from monitor.domain.codec import decode, encode
 from monitor.domain.version import (
     Baseline,
-    ChartCalibration,
     Line,
     SlopeLimits,
     Version,
@@ -29,9 +28,9 @@ from monitor.domain.version import (
 )
 from monitor.errors import NotFoundError
 from monitor.stats.moments import DayMoments
-from monitor.stats.window_summary import DayEffects, FitDiagnosis
 from monitor.store.engine import id_chunks
 from monitor.store.schema import inserted_id, versions
+from monitor.store.version_sheets import baseline_parts
 
 _ARRAYS = ("coefficients", "std_errors", "covariance", "xmean", "slope_inverse", "x_min", "x_max")
 
@@ -72,12 +71,8 @@ def _version(row: Any) -> Version:
         pvalues=decode(tuple[float, ...] | None, diag.get("pvalues")), **arrays)
     baseline = Baseline(
         tau2=m["tau2"], sigma_w2=m["sigma_w2"], dispersion=m["dispersion"],
-        day_effects=decode(DayEffects | None, diag.get("day_effects")),
         reference=DayMoments.from_dict(m["reference"]) if m["reference"] else None,
-        calibration=decode(ChartCalibration | None, diag.get("calibration")),
-        fit_days=diag.get("days"),
-        diagnosis=decode(FitDiagnosis | None, diag.get("window")),
-        slope_limits=decode(SlopeLimits | None, diag.get("slope_limits")))
+        **baseline_parts(diag))
     draft = VersionDraft(
         source=VersionSource(m["source"]), line=line, baseline=baseline,
         fit_start=m["fit_start"], fit_end=m["fit_end"], note=m["note"],

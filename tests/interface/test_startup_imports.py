@@ -8,10 +8,11 @@ Alembic (about 0.15 s), the PostgreSQL driver and dialect for an SQLite database
 30 ms), APScheduler (about 25 ms; the asyncio under it is SQLAlchemy's too), tqdm. ``status``
 reports the schedule, so it is the one command here that may use APScheduler with the default
 schedule; a schedule of one's own is parsed by it when the settings load, in every command.
-``model list`` and ``status`` go further: they read version numbers, the last status and the
-active version's head (its days, fit days and chart limits) from their columns, and the data
-findings need only day counts and the file batches, so they load neither numpy (about 0.06 s on
-that machine) nor scipy nor the day check's types and the charts' statistics (a rising
+``model list``, ``status`` and ``model show`` go further: they read version numbers, the last
+status, the active version's head (its days, fit days and chart limits) and a version's sheet
+(its line's figures and its fit window's stored summary) from their columns and JSON, and the
+data findings need only day counts and the file batches, so they load neither numpy (about
+0.05 s on that machine) nor scipy nor the day check's types and the charts' statistics (a rising
 rejection share, which takes the binomial tail, loads them when recent files lost rows).
 Start-up times are measured by ``tests/benchmarks/bench_startup.py``, not asserted here (a busy
 machine would make that flaky).
@@ -80,30 +81,37 @@ def test_quick_commands_leave_the_heavy_libraries_alone(config: Path, argv: list
     assert set(seen["heavy"]) <= allowed, f"{argv} imported {seen['heavy']}"
 
 
-# the data findings' own statistics, plain Python (status shows the findings)
-FINDINGS_STATISTICS = ("monitor.stats", "monitor.stats.silence", "monitor.stats.rejection_rise")
+# the data findings' own statistics, plain Python (status shows the findings), and the fit
+# window's stored summary (model show shows it)
+PLAIN_STATISTICS = ("monitor.stats", "monitor.stats.silence", "monitor.stats.rejection_rise",
+                    "monitor.stats.window_summary")
 
 
 @pytest.mark.parametrize("argv", [["model", "list"], ["model", "list", "--json"], ["status"],
-                                  ["status", "--json"]])
-def test_the_model_listing_and_status_need_no_numpy(config: Path, argv: list[str]) -> None:
+                                  ["status", "--json"], ["model", "show", "dock_loading"],
+                                  ["model", "show", "dock_loading", "--json"],
+                                  ["model", "show", "dock_loading", "--version", "1"]])
+def test_the_quick_views_need_no_numpy(config: Path, argv: list[str]) -> None:
     seen = loaded_by(["--config", str(config), *argv], config.parent)
     assert seen["code"] == 0 and seen["printed"], seen
     numeric = [m for m in seen["ours"] if m in ("numpy", "scipy")
-               or (m.startswith("monitor.stats") and m not in FINDINGS_STATISTICS)]
+               or (m.startswith("monitor.stats") and m not in PLAIN_STATISTICS)]
     assert numeric == [], f"{argv} imported {numeric}"
 
 
 # what a day check is made of: status reads the last status from its columns and the active
-# version's stored figures, so none of it loads (the statistics of the data findings do)
+# version's stored figures, model show a version's sheet and the learning part of the last
+# check's state, so none of it loads (the statistics of the data findings do)
 CHECK_MACHINERY = ("monitor.domain.check", "monitor.monitoring.wording", "monitor.store.checks",
                    "monitor.stats.change", "monitor.stats.cusum", "monitor.stats.decision",
                    "monitor.stats.calibration", "monitor.stats.arl", "monitor.stats.ols",
                    "monitor.stats.prediction", "monitor.stats.coverage")
 
 
-@pytest.mark.parametrize("argv", [["status"], ["status", "--json"]])
-def test_status_leaves_the_check_machinery_alone(config: Path, argv: list[str]) -> None:
+@pytest.mark.parametrize("argv", [["status"], ["status", "--json"],
+                                  ["model", "show", "dock_loading"]])
+def test_status_and_model_show_leave_the_check_machinery_alone(config: Path,
+                                                               argv: list[str]) -> None:
     seen = loaded_by(["--config", str(config), *argv], config.parent)
     assert seen["code"] == 0 and seen["printed"], seen
     loaded = [m for m in CHECK_MACHINERY if m in seen["ours"]]
