@@ -1,9 +1,11 @@
 """Stored versions: a :class:`~monitor.domain.version.Version` to a ``versions`` row and back.
 
-The one place that knows both the columns and the domain types: :func:`_values` writes a draft,
-:func:`_version` reads a row. Scalars the nights filter or show have columns; the rest of the
-baseline (day effects, the chart's calibration) lives in the ``diagnostics`` JSON document,
-written and read with :mod:`monitor.domain.codec`.
+Where a version's columns meet the domain types: :func:`_values` writes a draft, :func:`_version`
+reads a row. Scalars the nights filter or show have columns; the rest of the baseline (day
+effects, the chart's calibration) lives in the ``diagnostics`` JSON document, written and read
+with :mod:`monitor.domain.codec`; its reading,
+:func:`~monitor.store.version_sheets.baseline_parts`, is shared with the views' sheets, which
+read the other columns without building the arrays.
 """
 
 from __future__ import annotations
