@@ -52,7 +52,7 @@ SHOCK_NODES = 48
 # p-values (relative 1e-9 or better) at a cost linear in the rows.
 DIRECT_MAX_ROWS = 6000
 _WINDOW_TAIL = 1e-18  # tilted mass left beyond each end of the window's range (Chernoff bound)
-_NODE_TAIL = 1e-22  # tilted mass left out per day size and shock node (Bernstein bound)
+NODE_TAIL = 1e-22  # tilted mass left out per day size and shock node (Bernstein bound)
 
 
 @dataclass(frozen=True)
@@ -258,11 +258,11 @@ def _tilted_pvalues(p: FloatArray, day_rows: NDArray[np.int64],
     log_fact = scipy.special.gammaln(np.arange(int(cgf.sizes.max()) + 1) + 1.0)
     spectrum = np.ones(size // 2 + 1, dtype=np.complex128)
     for n, count, w_day in zip(cgf.sizes.tolist(), cgf.counts.tolist(), weights, strict=True):
-        keep = w_day > _NODE_TAIL
+        keep = w_day > NODE_TAIL
         qk, log_wk = q[keep], np.log(w_day[keep])
         # Bernstein: P(|Bin(n, q) - nq| >= t) <= 2 exp(-t² / (2 (nq(1-q) + t/3))); a node of
-        # weight w leaves out at most w times that, which is held below _NODE_TAIL
-        spread = log_wk + np.log(2.0 / _NODE_TAIL)
+        # weight w leaves out at most w times that, which is held below NODE_TAIL
+        spread = log_wk + np.log(2.0 / NODE_TAIL)
         t = spread / 3.0 + np.sqrt(spread**2 / 9.0 + 2.0 * n * qk * (1.0 - qk) * spread)
         t = np.where((qk > 0) & (qk < 1), t, 0.0)
         first = np.clip(np.floor(n * qk - t), 0, n).astype(np.int64)
