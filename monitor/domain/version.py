@@ -11,7 +11,7 @@ check needs, so ``model show`` reads it without numpy (``monitor.store.version_s
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, fields, replace
 from datetime import date, datetime
 from enum import StrEnum
 from typing import TYPE_CHECKING
@@ -173,25 +173,38 @@ class SlopeLimits:
 
 
 @dataclass(frozen=True, eq=False)
-class Baseline:
+class BaselineFigures:
+    """The plain part of a :class:`Baseline`, which the views show: the variance components of
+    the fit window's residuals, the charts' limits and the window's departures, without its
+    day statistics."""
+
+    tau2: float | None = None
+    sigma_w2: float | None = None
+    dispersion: float | None = None
+    day_effects: DayEffects | None = None
+    calibration: ChartCalibration | None = None
+    fit_days: int | None = None  # days with rows in the fit window
+    diagnosis: FitDiagnosis | None = None  # the fit window's departures (None: imported)
+    slope_limits: SlopeLimits | None = None  # None: solved when the check context is built
+
+
+@dataclass(frozen=True, eq=False)
+class Baseline(BaselineFigures):
     """What the fit window says about the in-control process; the charts are calibrated on it.
 
     ``reference`` holds the fit window's day statistics (None for an imported version, whose
     window is not in the database); ``day_effects`` the variance components of its residuals.
     """
 
-    tau2: float | None = None
-    sigma_w2: float | None = None
-    dispersion: float | None = None
-    day_effects: DayEffects | None = None
     reference: DayMoments | None = None
-    calibration: ChartCalibration | None = None
-    fit_days: int | None = None  # days with rows in the fit window
-    diagnosis: FitDiagnosis | None = None  # the fit window's departures (None: imported)
-    slope_limits: SlopeLimits | None = None  # None: solved when the check context is built
 
     def calibrated(self, calibration: Calibration) -> Baseline:
         return replace(self, calibration=ChartCalibration.of(calibration))
+
+    def figures(self) -> BaselineFigures:
+        """What a view shows of this baseline."""
+        return BaselineFigures(**{f.name: getattr(self, f.name)
+                                  for f in fields(BaselineFigures)})
 
 
 @dataclass(frozen=True, eq=False)
@@ -291,30 +304,29 @@ class Version:
 
     def sheet(self) -> VersionSheet:
         """What the views show of this version."""
-        base, draft = self.baseline, self.draft
+        draft = self.draft
         return VersionSheet(
             id=self.id, number=self.number, state=self.state, source=draft.source,
-            line=self.line.figures(), fit_start=draft.fit_start, fit_end=draft.fit_end,
-            active_from=self.active_from, active_until=self.active_until, note=draft.note,
-            notes=draft.notes, created_at=self.created_at, created_by=self.created_by,
-            tau2=base.tau2, sigma_w2=base.sigma_w2, dispersion=base.dispersion,
-            day_effects=base.day_effects, calibration=base.calibration, fit_days=base.fit_days,
-            diagnosis=base.diagnosis, slope_limits=base.slope_limits)
+            line=self.line.figures(), baseline=self.baseline.figures(),
+            fit_start=draft.fit_start, fit_end=draft.fit_end, active_from=self.active_from,
+            active_until=self.active_until, note=draft.note, notes=draft.notes,
+            created_at=self.created_at, created_by=self.created_by)
 
 
 @dataclass(frozen=True, eq=False)
 class VersionSheet:
     """What the views show of a version (``model show``, the documents of ``model fit``,
     ``refit``, ``compare`` and ``replay``, the model's page): its number and days, the line's
-    figures and the baseline's plain parts (the fields named as :class:`Baseline`'s), without
-    the fit window's day statistics. :meth:`Version.sheet` gives it for a version in memory;
-    ``monitor.store.version_sheets`` reads it from the columns without decoding the arrays."""
+    figures and the baseline's, without the fit window's day statistics. :meth:`Version.sheet`
+    gives it for a version in memory; ``monitor.store.version_sheets`` reads it from the columns
+    without decoding the arrays."""
 
     id: int
     number: int
     state: VersionState
     source: VersionSource
     line: LineFigures
+    baseline: BaselineFigures
     fit_start: date | None
     fit_end: date | None
     active_from: date | None
@@ -323,11 +335,3 @@ class VersionSheet:
     notes: tuple[str, ...]
     created_at: datetime
     created_by: str | None
-    tau2: float | None = None
-    sigma_w2: float | None = None
-    dispersion: float | None = None
-    day_effects: DayEffects | None = None
-    calibration: ChartCalibration | None = None
-    fit_days: int | None = None
-    diagnosis: FitDiagnosis | None = None
-    slope_limits: SlopeLimits | None = None

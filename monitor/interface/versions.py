@@ -47,7 +47,8 @@ class VersionView:
 
     def as_dict(self) -> dict[str, Any]:
         v, m = self.version, self.model
-        line, cal = v.line, v.calibration
+        line, base = v.line, v.baseline
+        cal = base.calibration
         return {
             "model": m.name, "version": v.number, "state": v.state, "source": v.source,
             "response": m.response, "predictors": list(m.predictors),
@@ -62,10 +63,10 @@ class VersionView:
             "ranges": None if line.x_min is None or line.x_max is None else {
                 name: [lo, hi]
                 for name, lo, hi in zip(m.predictors, line.x_min, line.x_max, strict=True)},
-            "day_effects": {"tau2": v.tau2, "sigma_w2": v.sigma_w2,
-                            "present": None if v.day_effects is None
-                            else v.day_effects.present()},
-            "dispersion": v.dispersion,
+            "day_effects": {"tau2": base.tau2, "sigma_w2": base.sigma_w2,
+                            "present": None if base.day_effects is None
+                            else base.day_effects.present()},
+            "dispersion": base.dispersion,
             "cusum": {"k": cal.k if cal else None, "h": cal.h if cal else None,
                       "target_arl": cal.target_arl if cal else None,
                       "guarantee": cal.guarantee if cal and cal.calibrated else None,
@@ -81,7 +82,7 @@ class VersionView:
             "fit_window_findings": [
                 {"topic": f.topic, "found": f.found, "text": f.text}
                 for f in self.findings()],
-            "fit_window_tests": encode(v.diagnosis) if v.diagnosis else None,
+            "fit_window_tests": encode(base.diagnosis) if base.diagnosis else None,
             "notes": list(v.notes),
             "created_at": v.created_at, "created_by": v.created_by, "note": v.note,
         }
@@ -89,7 +90,7 @@ class VersionView:
     def text(self) -> str:
         d = self.as_dict()
         v = self.version
-        line = v.line
+        line, base = v.line, v.baseline
         origin = ", imported" if v.source == VersionSource.IMPORT else ""
         lines = [f"{d['model']} version {v.number} ({v.state}{origin})",
                  f"  {self.model.response} = " + " + ".join(
@@ -104,16 +105,16 @@ class VersionView:
         if v.active_from:
             until = f" through {v.active_until}" if v.active_until else ""
             lines.append(f"  scores days from {v.active_from}{until}")
-        if v.tau2 is not None and v.sigma_w2 is not None:
-            lines.append(f"  day-to-day sd {fmt(v.tau2 ** 0.5, 3)}, within-day sd "
-                         f"{fmt(v.sigma_w2 ** 0.5, 3)}")
-        cal = v.calibration
+        if base.tau2 is not None and base.sigma_w2 is not None:
+            lines.append(f"  day-to-day sd {fmt(base.tau2 ** 0.5, 3)}, within-day sd "
+                         f"{fmt(base.sigma_w2 ** 0.5, 3)}")
+        cal = base.calibration
         if cal is not None:
             lines.append(f"  bias chart limit {fmt(cal.h, 3)} (k = {fmt(cal.k, 2)}; at least "
                          f"{fmt(cal.target_arl, 4)} days between false alarms, "
                          f"{self.promise()})")
-            if cal.learn_until and v.fit_days:
-                lines.append("  " + self.learning_text(v.fit_days, cal.learn_until))
+            if cal.learn_until and base.fit_days:
+                lines.append("  " + self.learning_text(base.fit_days, cal.learn_until))
         chart = d["slope_chart"]
         if chart is not None:
             several = len(set(chart["lane_predictors"])) > 1
@@ -128,7 +129,7 @@ class VersionView:
         if found:
             lines.append("  the fit window shows:")
             lines.extend(f"    - {f.text}" for f in found)
-        elif v.diagnosis is not None:
+        elif base.diagnosis is not None:
             lines.append("  the fit window shows no persistence, weekday rhythm, spread growing "
                          "with the predictors or excess outliers")
         if v.note:
@@ -139,7 +140,7 @@ class VersionView:
     def promise(self) -> str | None:
         """How far the bias chart's false-alarm spacing can be relied on (text and JSON)."""
         v = self.version
-        cal = v.calibration
+        cal = v.baseline.calibration
         if cal is None:
             return None
         if cal.learn_until:
@@ -171,7 +172,7 @@ class VersionView:
 
     def slope_chart(self) -> dict[str, Any] | None:
         """The within-day slope chart's limits and its reference's learning (JSON)."""
-        limits = self.version.slope_limits
+        limits = self.version.baseline.slope_limits
         if limits is None:
             return None
         k = len(self.model.predictors)
@@ -206,7 +207,7 @@ class VersionView:
                 f"fit window's{waiting}; {state}")
 
     def findings(self) -> list[WindowFinding]:
-        d = self.version.diagnosis
+        d = self.version.baseline.diagnosis
         if d is None:
             return []
         return window_findings(d, self.words, self.model.response, self.model.predictors)

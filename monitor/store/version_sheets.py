@@ -22,6 +22,7 @@ from sqlalchemy import Connection, select
 
 from monitor.domain.codec import decode
 from monitor.domain.version import (
+    BaselineFigures,
     ChartCalibration,
     LineFigures,
     SlopeLimits,
@@ -39,7 +40,7 @@ if TYPE_CHECKING:
 
 def baseline_parts(diagnostics: Mapping[str, Any]) -> dict[str, Any]:
     """The baseline's parts kept in a version's ``diagnostics`` JSON, by their field names
-    (those of :class:`~monitor.domain.version.Baseline` and of the sheet)."""
+    (those of :class:`~monitor.domain.version.BaselineFigures`)."""
     return {
         "day_effects": decode(DayEffects | None, diagnostics.get("day_effects")),
         "calibration": decode(ChartCalibration | None, diagnostics.get("calibration")),
@@ -66,8 +67,9 @@ def _sheet(row: Any) -> VersionSheet:
         source=VersionSource(m["source"]), line=line, fit_start=m["fit_start"],
         fit_end=m["fit_end"], active_from=m["active_from"], active_until=m["active_until"],
         note=m["note"], notes=tuple(diagnostics.get("import_notes") or ()),
-        created_at=m["created_at"], created_by=m["created_by"], tau2=m["tau2"],
-        sigma_w2=m["sigma_w2"], dispersion=m["dispersion"], **baseline_parts(diagnostics))
+        created_at=m["created_at"], created_by=m["created_by"],
+        baseline=BaselineFigures(tau2=m["tau2"], sigma_w2=m["sigma_w2"],
+                                 dispersion=m["dispersion"], **baseline_parts(diagnostics)))
 
 
 def version_sheet(conn: Connection, model_id: int, number: int | None = None, *,
@@ -84,10 +86,16 @@ def version_sheet(conn: Connection, model_id: int, number: int | None = None, *,
         return _sheet(row)
     if number is None:
         raise StateError(f"model '{model_name}' has no fitted version yet")
+    raise missing_version(conn, model_id, number, model_name)
+
+
+def missing_version(conn: Connection, model_id: int, number: int,
+                    model_name: str) -> NotFoundError:
+    """The error for a version number the model does not have, naming the ones it has."""
     known = conn.execute(select(versions.c.number).where(versions.c.model_id == model_id)
                          .order_by(versions.c.number)).scalars().all()
     shown = ", ".join(map(str, known)) or "none"
-    raise NotFoundError(f"model '{model_name}' has no version {number}; versions: {shown}")
+    return NotFoundError(f"model '{model_name}' has no version {number}; versions: {shown}")
 
 
 @dataclass(frozen=True)

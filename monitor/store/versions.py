@@ -32,7 +32,7 @@ from monitor.errors import NotFoundError
 from monitor.stats.moments import DayMoments
 from monitor.store.engine import id_chunks
 from monitor.store.schema import inserted_id, versions
-from monitor.store.version_sheets import baseline_parts
+from monitor.store.version_sheets import baseline_parts, missing_version
 
 _ARRAYS = ("coefficients", "std_errors", "covariance", "xmean", "slope_inverse", "x_min", "x_max")
 
@@ -117,9 +117,7 @@ def get_version(conn: Connection, model_id: int, number: int, *,
     row = conn.execute(select(versions).where(versions.c.model_id == model_id,
                                               versions.c.number == number)).first()
     if row is None:
-        known = [v.number for v in list_versions(conn, model_id)]
-        shown = ", ".join(map(str, known)) or "none"
-        raise NotFoundError(f"model '{model_name}' has no version {number}; versions: {shown}")
+        raise missing_version(conn, model_id, number, model_name)
     return _version(row)
 
 

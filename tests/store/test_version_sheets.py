@@ -56,8 +56,9 @@ def test_every_demo_version_reads_the_same_as_a_sheet_and_whole(demo_engine) -> 
         assert version_sheet(conn, model.id).number == active.number
         # what is compared above is not empty: the active version carries every part
         sheet = version_sheet(conn, model.id)
-        assert sheet.diagnosis is not None and sheet.calibration is not None
-        assert sheet.slope_limits is not None and sheet.day_effects is not None
+        base = sheet.baseline
+        assert base.diagnosis is not None and base.calibration is not None
+        assert base.slope_limits is not None and base.day_effects is not None
         assert sheet.line.std_errors is not None and sheet.line.x_min is not None
 
 
@@ -106,7 +107,7 @@ def test_an_imported_version_reads_the_same_as_a_sheet_and_whole(cli, tmp_path: 
         version = get_version(conn, model.id, 1)
         sheet = version_sheet(conn, model.id)
         assert encode(sheet) == encode(version.sheet())
-        assert sheet.diagnosis is None and sheet.line.std_errors is None
+        assert sheet.baseline.diagnosis is None and sheet.line.std_errors is None
         assert learned_so_far(conn, model.id, sheet.id) is None  # never checked
 
 
